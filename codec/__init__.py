@@ -1,0 +1,21 @@
+"""trimlink codec: orthonormal-basis coding of telemetry frames at a guaranteed fidelity.
+
+Data flows samples -> frames -> coefficients -> term selection -> quantizer ->
+frame layout -> bytes, and back in :func:`decode`.
+"""
+
+from ._bases import Basis, as_basis, basis_from_code, basis_names, register_basis
+from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reconstruct
+from ._crc import crc16_ibm3740, crc32_iso_hdlc
+from ._errors import FrameError, InputError, ProfileError, TrimlinkError
+from ._profile import ChannelSpec, Profile, default_profile, load_profile, profile_id, save_profile
+from ._report import error_figures
+
+__all__ = [
+    "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
+    "DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct",
+    "crc16_ibm3740", "crc32_iso_hdlc",
+    "FrameError", "InputError", "ProfileError", "TrimlinkError",
+    "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "save_profile",
+    "error_figures",
+]

@@ -1,0 +1,208 @@
+"""Profiles: everything both ends of a link must agree on, read from TOML.
+
+A profile fixes the frame length, basis, fidelity target, energy reference and
+the channels (name, sensor resolution, raw bits per sample, sample rate).  Its
+canonical form is hashed into a 16-bit identifier carried by every frame, so a
+decoder refuses frames made under another profile.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tomllib
+from pathlib import Path
+from typing import Literal
+
+import tomli_w
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+
+from ._bases import MAX_FRAME_LENGTH, basis_names
+from ._errors import ProfileError
+
+__all__ = [
+    "ChannelSpec",
+    "Profile",
+    "default_profile",
+    "load_profile",
+    "save_profile",
+    "profile_id",
+    "MAX_CHANNELS",
+    "StreamNote",
+    "load_stream_note",
+    "save_stream_note",
+    "note_path",
+]
+
+#: Channels one stream can carry (the frame header's channel field is 8 bits).
+MAX_CHANNELS = 256
+
+
+class ChannelSpec(BaseModel):
+    """One sensor channel.
+
+    ``resolution`` is in the channel's engineering units (e.g. the sensor's
+    LSB): the error budget of a frame is never below N * resolution**2 / 12,
+    the energy of the sensor's own quantization noise.
+    """
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    name: str = Field(min_length=1, max_length=64)
+    resolution: float = Field(default=0.0, ge=0.0, allow_inf_nan=False)
+    raw_bits_per_sample: int = Field(default=16, ge=1, le=64)
+    sample_rate_hz: float | None = Field(default=None, gt=0.0, allow_inf_nan=False)
+    #: Plausible range of the physical quantity; decoded values outside are flagged.
+    valid_min: float | None = Field(default=None, allow_inf_nan=False)
+    valid_max: float | None = Field(default=None, allow_inf_nan=False)
+
+
+class Profile(BaseModel):
+    """Codec settings shared by encoder and decoder.
+
+    With no ``channels`` the profile applies to every input column with the
+    channel defaults; :meth:`bind` makes the channel list explicit.
+    """
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    description: str = ""
+    frame_length: int = Field(default=64, ge=2, le=MAX_FRAME_LENGTH)
+    basis: str = "dct"
+    fidelity: float = Field(default=0.99, gt=0.0, le=1.0)
+    reference: Literal["total", "ac"] = "ac"
+    channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
+
+    @field_validator("basis")
+    @classmethod
+    def _known_basis(cls, value: str) -> str:
+        if value not in basis_names():
+            raise ValueError(f"unknown basis {value!r}; choose one of: {', '.join(basis_names())}")
+        return value
+
+    @field_validator("channels")
+    @classmethod
+    def _unique_names(cls, value: tuple[ChannelSpec, ...]) -> tuple[ChannelSpec, ...]:
+        names = [c.name for c in value]
+        dup = {n for n in names if names.count(n) > 1}
+        if dup:
+            raise ValueError(f"channel names must be unique; repeated: {', '.join(sorted(dup))}")
+        return value
+
+    def bind(self, names: list[str]) -> Profile:
+        """The profile with an explicit channel list matching the input ``names``.
+
+        Raises :class:`ProfileError` when the profile lists channels that do
+        not match the input's columns.
+        """
+        if not self.channels:
+            return self.model_copy(update={"channels": tuple(ChannelSpec(name=n) for n in names)})
+        mine = [c.name for c in self.channels]
+        if list(names) != mine:
+            raise ProfileError(
+                f"the profile's channels ({', '.join(mine)}) do not match the input's "
+                f"columns ({', '.join(names)}); give a profile for this input or rename the columns"
+            )
+        return self
+
+    def override(self, **changes) -> Profile:
+        """A copy with the non-None ``changes`` applied and validated."""
+        changes = {k: v for k, v in changes.items() if v is not None}
+        if not changes:
+            return self
+        try:
+            return Profile.model_validate({**self.model_dump(), **changes})
+        except ValidationError as exc:
+            raise ProfileError(_describe(exc), "command line") from None
+
+
+def default_profile() -> Profile:
+    """The built-in profile: DCT, N = 64, F = 0.99, mean-removed reference."""
+    return Profile()
+
+
+def profile_id(profile: Profile) -> int:
+    """16-bit identifier of the profile's canonical form (SHA-256, first two bytes)."""
+    canon = profile.model_dump(exclude={"description"})
+    blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
+    return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
+
+
+def load_profile(path: str | Path) -> Profile:
+    """Read and validate a TOML profile, naming the file and key on any error."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ProfileError("no such profile file; check the path", str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ProfileError(f"cannot read the profile ({exc.__class__.__name__})", str(path)) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ProfileError(f"not valid TOML ({exc})", str(path)) from None
+    data.pop("stream", None)  # the note encode writes beside a stream; not part of a profile
+    try:
+        return Profile.model_validate(data)
+    except ValidationError as exc:
+        raise ProfileError(_describe(exc), str(path)) from None
+
+
+class StreamNote(BaseModel):
+    """Facts about one coded stream, kept in its ``[stream]`` table beside the profile.
+
+    They are not part of the profile (and not in its identifier): how many
+    samples went in, so a decoder knows the stream's true end, and the time
+    column of the input when it was evenly spaced.
+    """
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    samples: int = Field(ge=1)
+    time_name: str | None = None
+    time_start: float | None = Field(default=None, allow_inf_nan=False)
+    time_step: float | None = Field(default=None, allow_inf_nan=False)
+
+
+def note_path(stream: str | Path) -> Path:
+    """Where the profile of ``stream`` is recorded: ``STREAM.profile.toml``."""
+    return Path(f"{stream}.profile.toml")
+
+
+def load_stream_note(path: str | Path) -> tuple[Profile, StreamNote | None]:
+    """The profile and stream note recorded beside a stream."""
+    profile = load_profile(path)
+    data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    if "stream" not in data:
+        return profile, None
+    try:
+        return profile, StreamNote.model_validate(data["stream"])
+    except ValidationError as exc:
+        raise ProfileError("[stream] " + _describe(exc), str(path)) from None
+
+
+def save_stream_note(profile: Profile, note: StreamNote, path: str | Path) -> None:
+    """Write the profile and the ``[stream]`` note as one TOML file."""
+    data = _profile_dict(profile)
+    data["stream"] = note.model_dump(exclude_none=True)
+    Path(path).write_text(tomli_w.dumps(data), encoding="utf-8")
+
+
+def _profile_dict(profile: Profile) -> dict:
+    data = profile.model_dump(exclude_none=True)
+    data["channels"] = [dict(c) for c in data["channels"]]
+    return data
+
+
+def save_profile(profile: Profile, path: str | Path) -> None:
+    """Write ``profile`` as TOML (None values omitted)."""
+    Path(path).write_text(tomli_w.dumps(_profile_dict(profile)), encoding="utf-8")
+
+
+def _describe(exc: ValidationError) -> str:
+    err = exc.errors()[0]
+    key = ".".join(str(p) for p in err["loc"]) or "(top level)"
+    if err["type"] == "extra_forbidden":
+        return f"unknown key '{key}'; remove it or check its spelling"
+    msg = err["msg"].removeprefix("Value error, ")
+    return f"key '{key}': {msg} (got {err.get('input')!r})"

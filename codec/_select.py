@@ -1,0 +1,112 @@
+"""Energy-fidelity term selection: per-frame budgets and quantizer steps.
+
+For a fidelity target F the error energy of every frame must not exceed
+``(1 - F) * E_ref``, where ``E_ref`` is the frame's energy (``total``) or its
+energy about the mean (``ac``).  The budget never falls below the energy of the
+sensor's own quantization noise, ``N * resolution**2 / 12``.
+
+With a uniform quantizer the kept terms are exactly the coefficients that do
+not round to zero, i.e. the largest-energy terms; so choosing the largest step
+whose total error (dropped terms plus rounding of kept terms, by Parseval)
+fits the budget selects the terms and the step together.  The search is a
+bisection on the step code, run on all frames at once.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
+
+__all__ = ["frame_budgets", "reference_energy", "choose_steps", "code_frame", "FLOAT_FLOOR"]
+
+#: Relative precision below which a frame's error is float noise, not signal:
+#: the budget is never below N * (peak * FLOAT_FLOOR)**2.
+FLOAT_FLOOR = 2.0**-40
+
+# Safety factor so that an error sitting exactly on the budget in the
+# coefficient domain still meets it after summation in another order.
+_MARGIN = 1.0 - 1e-9
+
+
+def reference_energy(frames: np.ndarray, valid: np.ndarray, reference: str) -> np.ndarray:
+    """Energy of each frame's valid samples, about zero or about their mean."""
+    mask = np.arange(frames.shape[1]) < valid[:, None]
+    x = np.where(mask, frames, 0.0)
+    if reference == "ac":
+        mean = x.sum(axis=1) / valid
+        x = np.where(mask, frames - mean[:, None], 0.0)
+    return np.einsum("ij,ij->i", x, x)
+
+
+def frame_budgets(
+    e_ref: np.ndarray, fidelity: float, resolution: np.ndarray, valid: np.ndarray,
+    peak: np.ndarray,
+) -> np.ndarray:
+    """Allowed error energy per frame.
+
+    Parameters
+    ----------
+    e_ref : ndarray
+        Reference energy of each frame.
+    fidelity : float
+        Target fraction of the reference energy to retain.
+    resolution : ndarray
+        Sensor resolution of each frame's channel (engineering units).
+    valid : ndarray
+        Real samples in each frame.
+    peak : ndarray
+        Largest absolute sample of each frame (sets the float floor).
+    """
+    floor_sensor = valid * resolution**2 / 12.0
+    floor_float = valid * (peak * FLOAT_FLOOR) ** 2
+    return np.maximum.reduce([(1.0 - fidelity) * e_ref, floor_sensor, floor_float])
+
+
+def code_frame(
+    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, code: np.ndarray
+) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
+    """Quantize frames at step ``code``.
+
+    Returns ``(q, mean_int, err)``: integer coefficient codes, integer mean codes
+    (or None) and the error energy by Parseval.  ``dc`` is the basis applied to a
+    frame of ones, so the coefficients of ``x - mean_hat`` are ``cx - mean_hat * dc``.
+    """
+    step = step_from_code(code)
+    c = cx
+    mean_int = None
+    if mean is not None:
+        mstep = step / np.sqrt(cx.shape[1])
+        mean_int = np.rint(mean / mstep).astype(np.int64)
+        c = cx - (mean_int * mstep)[:, None] * dc
+    q = np.rint(c / step[:, None])
+    r = c - q * step[:, None]
+    return q.astype(np.int64), mean_int, np.einsum("ij,ij->i", r, r)
+
+
+def choose_steps(
+    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, budget: np.ndarray
+) -> np.ndarray:
+    """Largest step code per frame whose error fits ``budget`` (bisection).
+
+    The smallest code considered keeps every integer below 2**52, so codes fit
+    the frame layout and the float arithmetic stays exact enough; the float
+    floor in the budget makes that code always feasible.
+    """
+    nf, n = cx.shape
+    scale = np.abs(cx).max(axis=1)
+    if mean is not None:
+        scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
+    lo = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
+    hi = np.full(nf, STEP_CODE_MAX, dtype=np.int64)
+    limit = budget * _MARGIN
+    ok_hi = code_frame(cx, mean, dc, hi)[2] <= limit
+    lo = np.where(ok_hi, hi, lo)
+    while True:
+        active = hi - lo > 1
+        if not active.any():
+            return lo
+        mid = np.where(active, (lo + hi) // 2, lo)
+        ok = code_frame(cx, mean, dc, mid)[2] <= limit
+        lo = np.where(active & ok, mid, lo)
+        hi = np.where(active & ~ok, mid, hi)

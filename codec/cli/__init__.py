@@ -1,0 +1,61 @@
+"""The ``trimlink`` command line.
+
+Each command lives in its own module and adds itself with a ``register(sub)``
+function that creates its sub-parser and sets ``handler``.  Commands from
+packages that build on the codec (the link simulator, the link budget) are
+found through the ``trimlink.commands`` entry-point group, so the codec never
+imports them.
+
+Errors a user can cause (:class:`~codec.TrimlinkError`, unreadable files) are
+printed as one sentence with exit status 2; anything else is our bug and keeps
+its traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from importlib.metadata import entry_points
+
+from .._errors import TrimlinkError
+from . import _codec_cmds, _demo
+
+__all__ = ["main", "build_parser", "UsageError"]
+
+EXIT_OK, EXIT_MISSED, EXIT_ERROR = 0, 1, 2
+
+
+class UsageError(TrimlinkError):
+    """A command-line combination that cannot work (exit 2)."""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="trimlink",
+        description="Code telemetry frames at a guaranteed fidelity, simulate the link, "
+        "and size the link budget.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for module in (_codec_cmds, _demo):
+        module.register(sub)
+    for ep in sorted(entry_points(group="trimlink.commands"), key=lambda e: e.name):
+        ep.load()(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; return the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.handler(args) or EXIT_OK)
+    except TrimlinkError as exc:
+        print(f"trimlink {args.command}: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    except KeyboardInterrupt:
+        print(f"trimlink {args.command}: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

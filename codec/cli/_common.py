@@ -1,0 +1,72 @@
+"""Pieces shared by several commands: profile options, reports, output files."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+
+from .._errors import InputError
+from .._io import atomic_output
+from .._profile import Profile, default_profile, load_profile
+
+__all__ = ["add_profile_options", "resolve_profile", "write_json", "fmt", "json_ready"]
+
+
+def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = None) -> None:
+    """``-p PROFILE`` and the codec overrides, shared by every coding command."""
+    p.add_argument("-p", "--profile", metavar="PROFILE",
+                   help=profile_help or "profile TOML (default: DCT, N=64, F=0.99, ac, "
+                   "resolution 0, every column)")
+    p.add_argument("--basis", metavar="NAME", help="basis name (see 'trimlink encode --help')")
+    p.add_argument("--fidelity", type=float, metavar="F",
+                   help="energy fraction to retain in every frame, 0 < F <= 1")
+    p.add_argument("--reference", choices=("total", "ac"),
+                   help="reference energy: total = sum x^2, ac = sum (x - mean)^2")
+    p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
+
+
+def resolve_profile(args: argparse.Namespace, names: list[str] | None = None) -> Profile:
+    """The effective profile: file or built-in default, overrides applied, bound to ``names``."""
+    profile = load_profile(args.profile) if args.profile else default_profile()
+    profile = profile.override(basis=args.basis, fidelity=args.fidelity,
+                               reference=args.reference, frame_length=args.frame_length)
+    return profile.bind(names) if names is not None else profile
+
+
+def json_ready(obj):
+    """Convert NumPy scalars/arrays and non-finite floats into JSON-safe values."""
+    if isinstance(obj, dict):
+        return {str(k): json_ready(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [json_ready(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return json_ready(obj.tolist())
+    if isinstance(obj, np.generic):
+        return json_ready(obj.item())
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
+def write_json(path: str | Path | None, report: dict) -> None:
+    """Write ``report`` as JSON to ``path`` atomically (nothing when path is None)."""
+    if path is None:
+        return
+    with atomic_output(path) as tmp:
+        Path(tmp).write_text(json.dumps(json_ready(report), indent=2) + "\n", encoding="utf-8")
+
+
+def fmt(value, spec: str = ".3f", none: str = "n/a") -> str:
+    """Format a number that may be None (unbounded SNR, empty set)."""
+    return none if value is None else format(value, spec)
+
+
+def check_distinct(inp: str | Path, out: str | Path) -> None:
+    """Refuse to overwrite the input with the output."""
+    if Path(inp).resolve() == Path(out).resolve():
+        raise InputError("the output would overwrite the input; name another output file",
+                         str(out))
