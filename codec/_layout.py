@@ -40,6 +40,8 @@ __all__ = [
     "parse_payloads",
     "pack_frame_reference",
     "unpack_frame_reference",
+    "frame_extent",
+    "frame_crc_ok",
 ]
 
 LAYOUT_VERSION = 1
@@ -65,6 +67,33 @@ assert _HEADER_BITS % 8 == 0
 #: Bytes from the start of the frame to the end of the fixed header.
 HEADER_BYTES = len(SYNC) + _HEADER_BITS // 8
 CRC_BYTES = 2
+
+
+def frame_extent(mv: memoryview, pos: int) -> int | None:
+    """Length in bytes claimed by the frame whose sync marker is at ``pos``.
+
+    This is the envelope rule a receiver uses before it trusts anything else:
+    None when the bytes cannot start a frame of a layout version we know (too
+    short to hold a header, unknown version, impossible length).  Later layout
+    versions add their own rule here, so stream search never depends on how a
+    payload is coded.
+    """
+    if pos + HEADER_BYTES > len(mv) or mv[pos : pos + len(SYNC)] != SYNC:
+        return None
+    version = mv[pos + len(SYNC)] >> 4
+    if version != LAYOUT_VERSION:
+        return None
+    length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
+    return length if length >= HEADER_BYTES + CRC_BYTES else None
+
+
+def frame_crc_ok(mv: memoryview, pos: int, length: int) -> bool:
+    """Whether the frame at ``pos`` of ``length`` bytes passes its CRC."""
+    end = pos + length
+    if end > len(mv):
+        return False
+    return crc16_ibm3740(mv[pos + len(SYNC) : end - CRC_BYTES]) == int.from_bytes(
+        mv[end - CRC_BYTES : end], "big")
 
 
 def index_bits(n: int) -> int:

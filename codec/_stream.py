@@ -14,8 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._crc import crc16_ibm3740
-from ._layout import CRC_BYTES, HEADER_BYTES, SYNC
+from ._layout import SYNC, frame_crc_ok, frame_extent
 
 __all__ = ["Located", "locate_frames"]
 
@@ -54,15 +53,10 @@ def locate_frames(data: bytes) -> Located:
     expected = True  # pos is where a frame should start (not found by searching)
     if pos > 0:
         expected = False
-    while 0 <= pos <= size - HEADER_BYTES:
-        length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
-        end = pos + length
-        if (
-            length >= HEADER_BYTES + CRC_BYTES
-            and end <= size
-            and crc16_ibm3740(mv[pos + len(SYNC) : end - CRC_BYTES])
-            == int.from_bytes(mv[end - CRC_BYTES : end], "big")
-        ):
+    while 0 <= pos < size:
+        length = frame_extent(mv, pos)
+        if length is not None and frame_crc_ok(mv, pos, length):
+            end = pos + length
             offsets.append(pos)
             lengths.append(length)
             pos = end
@@ -77,8 +71,6 @@ def locate_frames(data: bytes) -> Located:
         nxt = data.find(SYNC, pos + 1)
         skipped += (size if nxt < 0 else nxt) - pos
         pos, expected = nxt, False
-    if 0 <= pos < size:
-        skipped += size - pos
     return Located(
         np.asarray(offsets, dtype=np.int64), np.asarray(lengths, dtype=np.int64), failures, skipped
     )
