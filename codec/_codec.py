@@ -15,17 +15,33 @@ from ._bases import Basis, as_basis, basis_from_code
 from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
 from ._layout import (
+    K_INIT_BITS,
     LAYOUT_VERSION,
+    LAYOUT_VERSION_2,
+    STEP_BITS,
     FrameBatch,
+    FrameBatchV2,
+    count_bits,
     expected_length,
+    frame_version,
+    index_bits,
     pack_frames,
+    pack_frames_v2,
+    parse_frames_v2,
     parse_headers,
     parse_payloads,
 )
 from ._profile import Profile, profile_id
 from ._quantize import step_from_code
 from ._report import stream_report
-from ._select import _MARGIN, choose_steps, code_frame, frame_budgets, reference_energy
+from ._select import (
+    _MARGIN,
+    choose_steps,
+    code_frame,
+    frame_budgets,
+    reference_energy,
+    tighten_for_peak,
+)
 from ._stream import locate_frames
 
 __all__ = ["EncodeResult", "DecodeResult", "encode", "decode", "as_samples", "reconstruct"]
@@ -155,24 +171,83 @@ def encode(samples, profile: Profile) -> EncodeResult:
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
         bad = bad[err[bad] > budget[bad] * _MARGIN]
 
-    kept = q != 0
-    batch = FrameBatch(
-        channel=channel, sequence=window, basis=np.full(channel.size, basis.code),
-        step_code=code, valid=valid, has_mean=mean_int is not None,
-        mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
-        terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
-    )
-    data, lengths = pack_frames(batch, profile_id(profile), n)
+    limit = _peak_limits(profile, channel)
+    if np.isfinite(limit).any():
+        code, q, mean_int, recon, err = tighten_for_peak(
+            frames, mask, cx, mean, dc, code, q, mean_int, recon, err, limit, basis, reconstruct)
+
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     met = err <= budget
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
+    if profile.layout_version == 1:
+        kept = q != 0
+        batch = FrameBatch(
+            channel=channel, sequence=window, basis=np.full(channel.size, basis.code),
+            step_code=code, valid=valid, has_mean=mean_int is not None,
+            mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
+            terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
+        )
+        data, lengths = pack_frames(batch, profile_id(profile), n)
+        frame_bits = lengths * 8
+        header_bits = int(frame_bits.sum()) - int(_v1_term_bits(batch, n))
+    else:
+        data, frame_bits, header_bits = _pack_v2(profile, channel, window, valid, code,
+                                                 mean_int, q, n)
     info = {
-        "channel": channel, "window": window, "bits": lengths * 8, "terms": batch.terms,
+        "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
         "reference_energy": e_ref, "fidelity": fidelity, "met": met,
+        "max_abs_error": _valid_max_error(frames, recon, mask),
     }
-    report = stream_report(x, x_hat, profile, lengths * 8, channel, fidelity, met)
+    report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met,
+                           header_bits=header_bits)
     return EncodeResult(data, profile, x_hat, info, report)
+
+
+def _v1_term_bits(batch: FrameBatch, n: int) -> int:
+    """Bits of the v1 payload that carry terms and the mean (the rest is header)."""
+    from ._bits import signed_width
+
+    terms = batch.terms.astype(np.int64)
+    vw = np.zeros(terms.size, np.int64)
+    if batch.term_value.size:
+        starts = np.cumsum(terms) - terms
+        nz = terms > 0
+        vw[nz] = np.maximum.reduceat(signed_width(batch.term_value[:, None]), starts[nz])
+    mw = signed_width(batch.mean[:, None]) if batch.has_mean else np.zeros(terms.size, np.int64)
+    return int((mw + terms * (index_bits(n) + vw)).sum())
+
+
+def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
+    """Layout v2 frames; returns (bytes, bits per subframe, header bits of the stream)."""
+    multi = profile.multi_channel_frames
+    rows = channel.size
+    if multi:
+        frame = window.copy()
+        first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
+    else:
+        frame = np.arange(rows)
+        first = frame
+    batch = FrameBatchV2(
+        multi=np.full(first.size, multi), channel=channel[first], sequence=window[first],
+        valid=valid[first], frame=frame, step_code=code, mean=mean_int, q=q)
+    data, lengths, sub_bits = pack_frames_v2(batch, profile_id(profile), n)
+    cnt = np.bincount(frame, minlength=first.size)
+    overhead = lengths * 8 - np.add.reduceat(sub_bits, first)
+    bits = sub_bits + (overhead // cnt)[frame]
+    bits[first] += overhead - (overhead // cnt) * cnt
+    coef_bits = sub_bits - (STEP_BITS + count_bits(n) + np.where((q != 0).any(axis=1),
+                                                                  K_INIT_BITS, 0))
+    return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
+
+
+def _peak_limits(profile: Profile, channel: np.ndarray) -> np.ndarray:
+    lim = np.array([np.inf if c.max_error is None else c.max_error for c in profile.channels])
+    return lim[channel]
+
+
+def _valid_max_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    return np.abs(np.where(mask, frames - recon, 0.0)).max(axis=1)
 
 
 def _valid_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.ndarray:
@@ -199,6 +274,13 @@ def decode(data: bytes, profile: Profile, samples: int | None = None) -> DecodeR
             "no frame with a valid sync marker and CRC was found; is this a trimlink stream?"
         )
     buf = np.frombuffer(data, dtype=np.uint8)
+    versions = frame_version(buf, loc.offsets)
+    if (versions == LAYOUT_VERSION_2).all():
+        return _decode_v2(data, loc, profile, basis, n, channels, samples)
+    if (versions == LAYOUT_VERSION_2).any():
+        f = int(np.argmax(versions != versions[0]))
+        raise FrameError("the stream mixes frame layout versions 1 and 2; decode each part "
+                         "separately", f"frame at byte {int(loc.offsets[f])}")
     head = parse_headers(buf, loc.offsets)
     _check_headers(head, loc.offsets, profile, basis, n)
     mean, index, value = parse_payloads(buf, loc.offsets, head, n)
@@ -227,10 +309,48 @@ def decode(data: bytes, profile: Profile, samples: int | None = None) -> DecodeR
     return DecodeResult(out, delivered, frames, loc.crc_failures, loc.skipped_bytes)
 
 
-def _unwrap(sequence: np.ndarray) -> np.ndarray:
-    """Window index from 16-bit sequence numbers, assuming steps under half the range."""
-    step = (np.diff(sequence) + 32768) % 65536 - 32768
+def _unwrap(sequence: np.ndarray, modulus: int = 65536) -> np.ndarray:
+    """Window index from sequence numbers, assuming steps under half the range."""
+    step = (np.diff(sequence) + modulus // 2) % modulus - modulus // 2
     return np.concatenate([[sequence[0]], sequence[0] + np.cumsum(step)]).astype(np.int64)
+
+
+def _decode_v2(data: bytes, loc, profile: Profile, basis: Basis, n: int, channels: int,
+               samples: int | None) -> DecodeResult:
+    """Decode a stream of layout-v2 frames (all frames located and CRC-checked)."""
+    has_mean = profile.reference == "ac"
+    p = parse_frames_v2(data, loc.offsets, loc.lengths, n, channels, has_mean)
+    pid = profile_id(profile) & 0xFF
+
+    def refuse(bad: np.ndarray, message: str) -> None:
+        if bad.any():
+            f = int(np.argmax(bad))
+            raise FrameError(message, f"frame at byte {int(loc.offsets[f])}")
+
+    refuse(p["profile"] != pid,
+           f"the frame was made under another profile (id byte {{:#04x}} is not this profile's "
+           f"{pid:#04x}); decode with the profile the stream was encoded with".replace(
+               "{:#04x}", f"{int(p['profile'][np.argmax(p['profile'] != pid)]):#04x}"))
+    refuse(p["channel"][np.r_[np.flatnonzero(np.r_[True, np.diff(p["frame"]) != 0])]]
+           >= channels, f"its channel is not in the profile ({channels} channels)")
+    refuse(~p["consumed_ok"], "its contents do not match its length field (a corrupt frame "
+           "that passed its CRC, or a frame from another profile)")
+    fr = p["frame"]
+    window_f = _unwrap(p["sequence"], 256)
+    window = window_f[fr]
+    valid = p["valid"][fr]
+    recon = reconstruct(p["q"], p["mean"], p["step_code"], basis)
+    total = int((window * n + valid).max()) if samples is None else int(samples)
+    out, delivered = merge_frames(recon, p["channel"], window, total, channels)
+    cnt = np.bincount(fr, minlength=loc.offsets.size)
+    frames = {
+        "offset": loc.offsets[fr], "length": loc.lengths[fr],
+        "bits": (loc.lengths * 8 // cnt)[fr], "sequence": p["sequence"][fr], "window": window,
+        "channel": p["channel"], "basis": np.full(fr.size, basis.code),
+        "terms": (p["q"] != 0).sum(axis=1), "step_code": p["step_code"], "valid": valid,
+        "version": np.full(fr.size, LAYOUT_VERSION_2),
+    }
+    return DecodeResult(out, delivered, frames, loc.crc_failures, loc.skipped_bytes)
 
 
 def _check_headers(head: dict, offsets: np.ndarray, profile: Profile, basis: Basis, n: int) -> None:

@@ -42,6 +42,14 @@ __all__ = [
     "unpack_frame_reference",
     "frame_extent",
     "frame_crc_ok",
+    "LAYOUT_VERSION_2",
+    "CONTEXT_WINDOW",
+    "FrameBatchV2",
+    "pack_frames_v2",
+    "parse_frames_v2",
+    "payload_bits_v2",
+    "rice_parameters",
+    "frame_version",
 ]
 
 LAYOUT_VERSION = 1
@@ -74,17 +82,29 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
 
     This is the envelope rule a receiver uses before it trusts anything else:
     None when the bytes cannot start a frame of a layout version we know (too
-    short to hold a header, unknown version, impossible length).  Later layout
-    versions add their own rule here, so stream search never depends on how a
-    payload is coded.
+    short to hold a header, unknown version, impossible length).  Version 1
+    carries a 16-bit length after the version and flags nibbles; version 2 a
+    1-bit long flag and an 11-bit (or 27-bit) length after the version nibble.
+    Stream search never depends on how a payload is coded.
     """
-    if pos + HEADER_BYTES > len(mv) or mv[pos : pos + len(SYNC)] != SYNC:
+    if pos + len(SYNC) + 2 > len(mv) or mv[pos : pos + len(SYNC)] != SYNC:
         return None
-    version = mv[pos + len(SYNC)] >> 4
-    if version != LAYOUT_VERSION:
-        return None
-    length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
-    return length if length >= HEADER_BYTES + CRC_BYTES else None
+    b0 = mv[pos + len(SYNC)]
+    version = b0 >> 4
+    if version == LAYOUT_VERSION:
+        if pos + HEADER_BYTES > len(mv):
+            return None
+        length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
+        return length if length >= HEADER_BYTES + CRC_BYTES else None
+    if version == LAYOUT_VERSION_2:
+        if b0 & 0x08:  # long length field: 27 bits
+            if pos + len(SYNC) + 4 > len(mv):
+                return None
+            length = int.from_bytes(mv[pos + 2 : pos + 6], "big") & ((1 << 27) - 1)
+            return length if length >= (1 << SHORT_LENGTH_BITS) else None
+        length = int.from_bytes(mv[pos + 2 : pos + 4], "big") & ((1 << 11) - 1)
+        return length if length >= _MIN_V2_BYTES else None
+    return None
 
 
 def frame_crc_ok(mv: memoryview, pos: int, length: int) -> bool:
@@ -276,3 +296,327 @@ def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list
     if crc != crc16_ibm3740(frame[len(SYNC) : -CRC_BYTES]):
         raise ValueError("CRC mismatch")
     return head, mean, index, value
+
+
+# ---------------------------------------------------------------------------
+# Layout version 2: compact header, multi-channel frames, Rice-coded payload.
+# Written down bit by bit in FRAME_LAYOUT.md ("Version 2").
+# ---------------------------------------------------------------------------
+
+LAYOUT_VERSION_2 = 2
+#: Coefficients whose magnitudes set the Rice parameter of the next one.
+CONTEXT_WINDOW = 4
+K_INIT_BITS = 5
+STEP_BITS = 10
+PROFILE_BITS_V2 = 8
+SEQUENCE_BITS_V2 = 8
+SHORT_LENGTH_BITS = 11
+LONG_LENGTH_BITS = 27
+#: Smallest possible v2 frame: sync, 2 length bytes, 3 header bytes, CRC.
+_MIN_V2_BYTES = len(SYNC) + 2 + 3 + CRC_BYTES
+
+
+def count_bits(n: int) -> int:
+    """Bits of the coded-coefficient count, which runs 0..n."""
+    return int(n).bit_length()
+
+
+def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> np.ndarray:
+    """Rice parameter of every coefficient of every frame (rows), as both ends derive it.
+
+    Coefficient 0 uses the frame's ``k_init``; coefficient j >= 1 uses the
+    LOCO-I rule on the sum of the previous ``min(j, CONTEXT_WINDOW)`` magnitudes.
+    """
+    from ._entropy import rice_k_from_context
+
+    nf, n = mag.shape
+    c = np.zeros((nf, n + 1), dtype=np.int64)
+    np.cumsum(mag, axis=1, out=c[:, 1:])
+    j = np.arange(1, n)
+    lo = np.maximum(j - CONTEXT_WINDOW, 0)
+    total = c[:, j] - c[:, lo]
+    k = np.empty((nf, n), dtype=np.int64)
+    k[:, 0] = k_init
+    k[:, 1:] = rice_k_from_context(total, np.minimum(j, CONTEXT_WINDOW))
+    return k
+
+
+def initial_parameter(mag0: np.ndarray) -> np.ndarray:
+    """``k_init`` the encoder sends: the Rice parameter that codes coefficient 0 shortest."""
+    from ._bits import _bit_length
+
+    return np.clip(_bit_length(mag0) - 1, 0, (1 << K_INIT_BITS) - 1)
+
+
+def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.ndarray:
+    """Exact bits of each subframe (rows of ``q``) in layout v2, frame header excluded."""
+    from ._entropy import rice_escape_bits, zigzag
+    from ._bits import _bit_length
+
+    mag = np.abs(q)
+    nz = mag > 0
+    last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
+    k = rice_parameters(mag, initial_parameter(mag[:, 0]))
+    inside = np.arange(n) < last[:, None]
+    coef = np.where(inside, rice_escape_bits(mag, k) + nz, 0).sum(axis=1)
+    bits = STEP_BITS + count_bits(n) + np.where(last > 0, K_INIT_BITS, 0) + coef
+    if mean_int is not None:
+        bits += 2 * _bit_length(zigzag(mean_int) + 1) - 1
+    return bits
+
+
+@dataclass
+class FrameBatchV2:
+    """Frames of layout v2 as parallel arrays.
+
+    Subframes (one per channel carried) are the rows of ``q``; ``frame`` gives
+    each subframe's frame, non-decreasing, so a frame's subframes are
+    consecutive rows.  Per frame: ``multi`` (all channels, in profile order),
+    ``channel`` (when not multi), ``sequence`` and ``valid``.
+    """
+
+    multi: np.ndarray
+    channel: np.ndarray
+    sequence: np.ndarray
+    valid: np.ndarray
+    frame: np.ndarray
+    step_code: np.ndarray
+    mean: np.ndarray | None
+    q: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.multi.size)
+
+
+def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
+                   ) -> tuple[bytes, np.ndarray, np.ndarray]:
+    """Pack every frame of ``batch`` in layout v2.
+
+    Returns the bytes, each frame's byte length and each subframe's payload bits.
+    """
+    from ._bits import _bit_length
+    from ._entropy import pack_bits, rice_escape_fields, zigzag
+
+    nf = len(batch)
+    q = batch.q
+    ns = q.shape[0]
+    vb = index_bits(n)
+    lb = count_bits(n)
+    mag = np.abs(q)
+    nz = mag > 0
+    last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
+    k_init = initial_parameter(mag[:, 0])
+    k = rice_parameters(mag, k_init)
+    inside = np.arange(n) < last[:, None]
+
+    nh, nsub = 9, 5
+    slots = nh + nsub + 2 * n + 1
+    val = np.zeros((ns, slots), dtype=np.uint64)
+    wid = np.zeros((ns, slots), dtype=np.int64)
+    # subframe header
+    s0 = nh
+    val[:, s0] = batch.step_code
+    wid[:, s0] = STEP_BITS
+    if batch.mean is not None:
+        zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
+        nb = _bit_length(zz)
+        wid[:, s0 + 1] = nb - 1
+        val[:, s0 + 2] = zz.astype(np.uint64)
+        wid[:, s0 + 2] = nb
+    val[:, s0 + 3] = last
+    wid[:, s0 + 3] = lb
+    val[:, s0 + 4] = k_init
+    wid[:, s0 + 4] = np.where(last > 0, K_INIT_BITS, 0)
+    # One field per coefficient (unary part, low bits, sign) when it fits 64 bits;
+    # otherwise the unary part, then low bits and sign as a second field.
+    _, uw, lv, lw = rice_escape_fields(mag, k)
+    sw = nz.astype(np.int64)
+    tail = (lv << sw.astype(np.uint64)) | (q < 0).astype(np.uint64)
+    tw = lw + sw
+    whole = uw + tw <= 64
+    c0 = nh + nsub
+    main_v = np.where(whole, (np.uint64(1) << tw.astype(np.uint64)) | tail, np.uint64(1))
+    val[:, c0 : c0 + 2 * n : 2] = main_v
+    wid[:, c0 : c0 + 2 * n : 2] = np.where(inside, np.where(whole, uw + tw, uw), 0)
+    val[:, c0 + 1 : c0 + 2 * n : 2] = np.where(whole, np.uint64(0), tail)
+    wid[:, c0 + 1 : c0 + 2 * n : 2] = np.where(inside & ~whole, tw, 0)
+    sub_bits = wid.sum(axis=1)
+
+    # frame header (in the first subframe row of each frame)
+    first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
+    lastrow = np.r_[first[1:] - 1, ns - 1]
+    short = batch.valid < n
+    multi = batch.multi.astype(bool)
+    head_bits = 4 + 1 + 8 + 8 + 1 + np.where(multi, 0, 8) + 1 + np.where(short, vb, 0)
+    payload = np.add.reduceat(sub_bits, first)
+    bits = head_bits + SHORT_LENGTH_BITS + payload
+    length = len(SYNC) + (bits + 7) // 8 + CRC_BYTES
+    long = length >= (1 << SHORT_LENGTH_BITS)
+    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
+    body_bytes = (bits + 7) // 8
+    length = len(SYNC) + body_bytes + CRC_BYTES
+    if (length >= (1 << LONG_LENGTH_BITS)).any():
+        raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
+    head = [(LAYOUT_VERSION_2, 4), (long, 1), (length, np.where(long, LONG_LENGTH_BITS,
+            SHORT_LENGTH_BITS)), (profile_id & 0xFF, 8), (batch.sequence % 256, 8),
+            (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, 8)),
+            (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
+    for i, (v, w) in enumerate(head):
+        val[first, i] = np.broadcast_to(v, (nf,))
+        wid[first, i] = np.broadcast_to(w, (nf,))
+    wid[lastrow, slots - 1] = body_bytes * 8 - bits
+    body = pack_bits(val.ravel(), wid.ravel())
+
+    out = np.empty(int(length.sum()), dtype=np.uint8)
+    ostart = np.cumsum(length) - length
+    bstart = np.cumsum(body_bytes) - body_bytes
+    dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
+    out[dest] = body
+    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
+    mv = memoryview(body)
+    crc = np.fromiter(
+        (crc16_ibm3740(mv[s : s + b]) for s, b in zip(bstart.tolist(), body_bytes.tolist())),
+        dtype=np.int64, count=nf,
+    )
+    cpos = ostart + length - CRC_BYTES
+    out[cpos] = crc >> 8
+    out[cpos + 1] = crc & 0xFF
+    return out.tobytes(), length, sub_bits
+
+
+def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """Layout version nibble of the frames at ``offsets``."""
+    return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
+
+
+def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
+                    channels: int, has_mean: bool) -> dict[str, np.ndarray]:
+    """Parse CRC-checked v2 frames at ``offsets`` into per-subframe arrays.
+
+    Returns a dict with per-frame ``profile``, ``sequence``, ``multi``,
+    ``valid``, ``length``, ``consumed_ok`` and per-subframe ``frame``,
+    ``channel``, ``step_code``, ``mean`` (or None), ``count``, ``q`` (rows of n).
+    ``consumed_ok`` is False for a frame whose contents do not fill its length
+    exactly (to the byte), which the decoder refuses.
+    """
+    from ._entropy import BitReader, unzigzag
+
+    r = BitReader(data)
+    nf = offsets.size
+    vb = index_bits(n)
+    lb = count_bits(n)
+    p = offsets.astype(np.int64) * 8 + 8 * len(SYNC) + 4
+    long = r.read(p, 1)
+    lw = np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
+    length = r.read(p + 1, lw)
+    p = p + 1 + lw
+    profile = r.read(p, 8)
+    sequence = r.read(p + 8, 8)
+    multi = r.read(p + 16, 1).astype(bool)
+    p = p + 17
+    channel = r.read(p, np.where(multi, 0, 8))
+    p = p + np.where(multi, 0, 8)
+    short = r.read(p, 1).astype(bool)
+    valid = np.where(short, r.read(p + 1, np.where(short, vb, 0)) + 1, n)
+    p = p + 1 + np.where(short, vb, 0)
+
+    cnt = np.where(multi, channels, 1)
+    ns = int(cnt.sum())
+    sstart = np.cumsum(cnt) - cnt
+    owner = np.repeat(np.arange(nf), cnt)
+    slot = np.arange(ns) - sstart[owner]
+    sub_channel = np.where(multi[owner], slot, channel[owner])
+    step = np.zeros(ns, np.int64)
+    mean = np.zeros(ns, np.int64) if has_mean else None
+    count = np.zeros(ns, np.int64)
+    q = np.zeros((ns, n), dtype=np.int64)
+    ok = np.ones(nf, dtype=bool)
+    for s in range(int(cnt.max(initial=0))):
+        fr = np.flatnonzero(cnt > s)
+        rows = sstart[fr] + s
+        pp = p[fr]
+        step[rows] = r.read(pp, STEP_BITS)
+        pp = pp + STEP_BITS
+        if has_mean:
+            v, used = r.exp_golomb(pp)
+            mean[rows] = unzigzag(v)
+            pp = pp + used
+        c = r.read(pp, lb)
+        pp = pp + lb
+        bad = c > n
+        c = np.minimum(c, n)
+        count[rows] = c
+        kk = r.read(pp, np.where(c > 0, K_INIT_BITS, 0))
+        pp = pp + np.where(c > 0, K_INIT_BITS, 0)
+        # Coefficients: one vectorized step per coefficient index over all frames.
+        qv, pp, bad_c = _read_coefficients(r, pp, c, kk, n)
+        q[rows] = qv
+        bad |= bad_c
+        ok[fr] &= ~bad
+        p[fr] = pp
+    end_bytes = (p - offsets * 8 + 7) // 8 + CRC_BYTES
+    ok &= (end_bytes == lengths) & (length == lengths)
+    return {"profile": profile, "sequence": sequence, "multi": multi, "valid": valid,
+            "length": length, "consumed_ok": ok, "frame": owner, "channel": sub_channel,
+            "step_code": step, "mean": mean, "count": count, "q": q}
+
+
+def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray, n: int
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Read ``count`` Rice-coded coefficients per subframe starting at bit ``pos``.
+
+    One vectorized step per coefficient index over every subframe still
+    reading: one 64-bit gather gives the unary part, the low bits and the sign
+    of a codeword of up to 57 bits; longer codewords and escapes (rare) take
+    the general path.  Returns ``(q, end positions, malformed)``.
+    """
+    from ._bits import _bit_length
+    from ._entropy import rice_k_from_context
+
+    m = pos.size
+    mag = np.zeros((m, n), dtype=np.int64)
+    neg = np.zeros((m, n), dtype=bool)
+    bad = np.zeros(m, dtype=bool)
+    pos = pos.copy()
+    total = np.zeros(m, dtype=np.int64)
+    rows = np.arange(m)  # subframes still reading (compacted as they finish)
+    p, cnt, tot = pos.copy(), count, total
+    k = k_init
+    words = r._words
+    limit = r.size_bits
+    for j in range(int(count.max(initial=0))):
+        act = cnt > j
+        if act.sum() * 2 < rows.size:  # compact: drop finished subframes
+            pos[rows] = p
+            rows, p, cnt, tot, act = rows[act], p[act], cnt[act], tot[act], act[act]
+            k = k[act] if j == 0 else k
+        if j > 0:
+            k = rice_k_from_context(tot, min(j, CONTEXT_WINDOW))
+        pc = np.minimum(p, limit)
+        w = words[pc >> 3] << (pc & 7).astype(np.uint64)
+        qq = 33 - _bit_length((w >> np.uint64(31)).astype(np.int64))
+        ku = k.astype(np.uint64)
+        low = ((w << (qq + 1).astype(np.uint64)) >> np.uint64(1)) >> (63 - ku)
+        mg = (qq.astype(np.int64) << k) | low.astype(np.int64)
+        sign = ((w << (qq + 1 + k).astype(np.uint64) % np.uint64(64)) >> np.uint64(63))
+        slow = (qq >= 32) | (qq + k + 2 > 57)
+        used = qq + 1 + k
+        if slow.any():
+            sl = np.flatnonzero(slow & act)
+            mv, uv = r.rice_escape(p[sl], k[sl])
+            bad[rows[sl[mv < 0]]] = True
+            mv = np.maximum(mv, 0)
+            mg[sl] = mv
+            used[sl] = uv
+            sign[sl] = r.read(p[sl] + uv, (mv > 0).astype(np.int64)).astype(np.uint64)
+        nz = mg > 0
+        used = np.where(act, used + nz, 0)
+        mg = np.where(act, mg, 0)
+        mag[rows, j] = mg
+        neg[rows, j] = (sign == 1) & nz
+        p = p + used
+        tot = tot + mg
+        if j >= CONTEXT_WINDOW:
+            tot = tot - mag[rows, j - CONTEXT_WINDOW]
+    pos[rows] = p
+    return np.where(neg, -mag, mag), pos, bad

@@ -52,6 +52,7 @@ def stream_report(
     frame_fidelity: np.ndarray,
     frame_met: np.ndarray,
     extra_bits: int = 0,
+    header_bits: int | None = None,
 ) -> dict:
     """The JSON report of ``encode`` and ``roundtrip``.
 
@@ -67,6 +68,10 @@ def stream_report(
         Achieved fidelity of every frame and whether it met its budget.
     extra_bits : int
         Stream bits that belong to no frame (counted in ``bits_total``).
+    header_bits : int, optional
+        Bits of the stream that carry no coefficient (sync markers, headers,
+        side information, padding, CRCs); reported per input sample as
+        ``header_bits_per_sample``.
     """
     samples, channels = x.shape
     raw = np.array([c.raw_bits_per_sample for c in profile.channels], dtype=np.float64)
@@ -92,6 +97,8 @@ def stream_report(
 
     report = figures(x, x_hat, bits_total, raw.mean(), frame_fidelity, frame_met, frame_bits.size)
     report["channels"] = channels
+    if header_bits is not None:
+        report["header_bits_per_sample"] = (header_bits + int(extra_bits)) / x.size
     report["reference"] = profile.reference
     report["basis"] = profile.basis
     report["frame_length"] = profile.frame_length

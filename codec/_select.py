@@ -18,7 +18,10 @@ import numpy as np
 
 from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
 
-__all__ = ["frame_budgets", "reference_energy", "choose_steps", "code_frame", "FLOAT_FLOOR"]
+__all__ = [
+    "frame_budgets", "reference_energy", "choose_steps", "code_frame", "tighten_for_peak",
+    "FLOAT_FLOOR",
+]
 
 #: Relative precision below which a frame's error is float noise, not signal:
 #: the budget is never below N * (peak * FLOAT_FLOOR)**2.
@@ -97,9 +100,16 @@ def choose_steps(
     scale = np.abs(cx).max(axis=1)
     if mean is not None:
         scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
-    lo = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
-    hi = np.full(nf, STEP_CODE_MAX, dtype=np.int64)
+    floor = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
+    # Bracket: a step of sqrt(4 * budget / n) errs by at most step/2 per term, so
+    # it always fits (one code below, for rounding); a step above 2 * scale rounds
+    # every term to zero, so nothing coarser changes the error.
+    lo = np.maximum(floor, code_for_step(np.sqrt(4.0 * budget / n)) - 1)
+    hi = np.clip(code_for_step(2.0 * np.maximum(scale, 1e-300)) + 1, lo + 1, STEP_CODE_MAX)
+    lo = np.minimum(lo, hi - 1)
     limit = budget * _MARGIN
+    ok_lo = code_frame(cx, mean, dc, lo)[2] <= limit
+    lo = np.where(ok_lo, lo, floor)  # the bound failed only through float rounding
     ok_hi = code_frame(cx, mean, dc, hi)[2] <= limit
     lo = np.where(ok_hi, hi, lo)
     while True:
@@ -110,3 +120,44 @@ def choose_steps(
         ok = code_frame(cx, mean, dc, mid)[2] <= limit
         lo = np.where(active & ok, mid, lo)
         hi = np.where(active & ~ok, mid, hi)
+
+
+def tighten_for_peak(frames, mask, cx, mean, dc, code, q, mean_int, recon, err, limit, basis,
+                     synthesize):
+    """Refine the step of frames whose largest sample error exceeds ``limit`` (peak-error mode).
+
+    Closed loop on the reconstruction the decoder will produce: the error of a
+    uniform quantizer scales with its step, so each round lowers a failing
+    frame's step code by ``ceil(8 log2(peak / limit))`` (at least one eighth
+    octave) and checks again.  Finer steps never raise the energy error above
+    the budget that the coarser step already met by more than rounding, and the
+    energy check is repeated anyway by the caller's report.
+
+    Returns the updated ``(code, q, mean_int, recon, err)``.
+    """
+    code = code.copy()
+
+    def peak(rows):
+        return np.abs(np.where(mask[rows], frames[rows] - recon[rows], 0.0)).max(axis=1)
+
+    bad = np.arange(code.size)
+    p = peak(bad)
+    bad = bad[p > limit[bad]]
+    while bad.size:
+        ratio = peak(bad) / limit[bad]
+        if (code[bad] == 0).any():
+            from ._errors import InputError
+
+            raise InputError("the peak-error limit is finer than any quantizer step can meet; "
+                             "raise --max-error", "max_error")
+        drop = np.maximum(1, np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0)))).astype(np.int64)
+        code[bad] = np.maximum(code[bad] - drop, 0)
+        qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad])
+        q[bad] = qb
+        if mean_int is not None:
+            mean_int[bad] = mb
+        recon[bad] = synthesize(qb, mb, code[bad], basis)
+        e = np.where(mask[bad], frames[bad] - recon[bad], 0.0)
+        err[bad] = np.einsum("ij,ij->i", e, e)
+        bad = bad[peak(bad) > limit[bad]]
+    return code, q, mean_int, recon, err
