@@ -27,6 +27,7 @@ from ._layout import (
     index_bits,
     pack_frames,
     pack_frames_v2,
+    payload_bits_v2,
     parse_frames_v2,
     parse_headers,
     parse_payloads,
@@ -40,7 +41,6 @@ from ._select import (
     code_frame,
     frame_budgets,
     reference_energy,
-    tighten_for_peak,
 )
 from ._stream import locate_frames
 
@@ -153,29 +153,48 @@ def encode(samples, profile: Profile) -> EncodeResult:
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
     cx = basis.analyze(frames)
     dc = basis.analyze(np.ones(n))
-    code = choose_steps(cx, mean, dc, budget)
+    if profile.layout_version == 1:
+        offset = np.full(cx.shape[0], 0.5)
+        code = choose_steps(cx, mean, dc, budget)
+    else:
+        code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n)
 
-    q, mean_int, _ = code_frame(cx, mean, dc, code)
+    q, mean_int, _ = code_frame(cx, mean, dc, code, offset)
     recon = reconstruct(q, mean_int, code, basis)
     err = _valid_error(frames, recon, mask)
-    bad = np.flatnonzero(err > budget * _MARGIN)
-    while bad.size:  # closed loop: tighten the step of frames that miss on the samples
+    limit = _peak_limits(profile, channel)
+    peak_mode = bool(np.isfinite(limit).any())
+
+    def step_drop(rows: np.ndarray) -> np.ndarray:
+        """Eighth-octave step codes by which each frame's step must shrink (0: it passes)."""
+        drop = (err[rows] > budget[rows] * _MARGIN).astype(np.int64)
+        if peak_mode:
+            pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
+            over = pk > limit[rows]
+            # a uniform quantizer's error scales with its step
+            est = np.ceil(8.0 * np.log2(np.maximum(pk / limit[rows], 1.0))).astype(np.int64)
+            drop = np.maximum(drop, np.where(over, np.maximum(est, 1), 0))
+        return drop
+
+    rows = np.arange(code.size)
+    drop = step_drop(rows)
+    while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
+        bad, d = rows[drop > 0], drop[drop > 0]
         if (code[bad] == 0).any():
+            if peak_mode:
+                raise InputError("the peak-error limit is finer than any quantizer step can "
+                                 "meet; raise max_error", "profile")
             raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
-        code[bad] -= 1
-        qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad])
+        code[bad] = np.maximum(code[bad] - d, 0)
+        qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad],
+                               offset[bad])
         q[bad] = qb
         if mean_int is not None:
             mean_int[bad] = mb
         recon[bad] = reconstruct(qb, mb, code[bad], basis)
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
-        bad = bad[err[bad] > budget[bad] * _MARGIN]
-
-    limit = _peak_limits(profile, channel)
-    if np.isfinite(limit).any():
-        code, q, mean_int, recon, err = tighten_for_peak(
-            frames, mask, cx, mean, dc, code, q, mean_int, recon, err, limit, basis, reconstruct)
-
+        rows = bad
+        drop = step_drop(rows)
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     met = err <= budget
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
@@ -239,6 +258,31 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     coef_bits = sub_bits - (STEP_BITS + count_bits(n) + np.where((q != 0).any(axis=1),
                                                                   K_INIT_BITS, 0))
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
+
+
+#: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
+RD_OFFSETS = (0.5, 0.36)
+
+
+def _rate_fidelity_choice(cx, mean, dc, budget, n):
+    """Per frame, the (step code, rounding offset) pair that meets the budget in fewest bits.
+
+    For each candidate offset the largest step that meets the budget is found,
+    and the exact v2 payload size of the result is counted; the cheaper wins.
+    """
+    best_code = best_off = best_bits = None
+    for off in RD_OFFSETS:
+        code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
+        q, mean_int, _ = code_frame(cx, mean, dc, code, off)
+        bits = payload_bits_v2(q, mean_int, n)
+        if best_bits is None:
+            best_code, best_off, best_bits = code, np.full(code.size, off), bits
+            continue
+        better = bits < best_bits
+        best_code = np.where(better, code, best_code)
+        best_off = np.where(better, off, best_off)
+        best_bits = np.where(better, bits, best_bits)
+    return best_code, best_off
 
 
 def _peak_limits(profile: Profile, channel: np.ndarray) -> np.ndarray:

@@ -38,10 +38,12 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._bits import _bit_length
+from ._bits import _bit_length as _bit_length_any
 
 __all__ = [
     "BitReader",
+    "bit_length",
+    "pack_bits",
     "golomb_fields",
     "rice_fields",
     "exp_golomb_fields",
@@ -60,6 +62,17 @@ RICE_ESCAPE = 32
 ESCAPE_BITS = 53
 #: Longest unary run any reader here accepts (53 zeros then a 1 fits 54 bits).
 _MAX_UNARY = 53
+
+
+def _bit_length(x: np.ndarray) -> np.ndarray:
+    """Bits of each non-negative integer (0 for 0); exact frexp fast path below 2**53."""
+    x = np.asarray(x, dtype=np.int64)
+    if x.size and x.max() >= (1 << 53):
+        return _bit_length_any(x)
+    return np.frexp(x.astype(np.float64))[1].astype(np.int64)
+
+
+bit_length = _bit_length
 
 
 def zigzag(v: np.ndarray) -> np.ndarray:
@@ -163,9 +176,13 @@ def rice_k_from_context(total: np.ndarray, count: np.ndarray) -> np.ndarray:
     magnitude; all integer, so both ends agree exactly.  ``count`` >= 1.
     """
     total = np.asarray(total, dtype=np.int64)
-    count = np.asarray(count, dtype=np.int64)
-    ratio = -(-total // count)  # ceil(total / count)
-    return np.where(total > count, _bit_length(np.maximum(ratio - 1, 0)), 0)
+    t1 = np.maximum(total - 1, 0)
+    # ceil(total / count) - 1 == (total - 1) // count for total >= 1
+    if np.isscalar(count) and count & (count - 1) == 0:
+        r = t1 >> (int(count).bit_length() - 1)
+    else:
+        r = t1 // np.asarray(count, dtype=np.int64)
+    return _bit_length(r)
 
 
 class BitReader:

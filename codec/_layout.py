@@ -337,13 +337,16 @@ def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> np.ndarray:
     total = c[:, j] - c[:, lo]
     k = np.empty((nf, n), dtype=np.int64)
     k[:, 0] = k_init
-    k[:, 1:] = rice_k_from_context(total, np.minimum(j, CONTEXT_WINDOW))
+    w = min(CONTEXT_WINDOW, n)
+    for jj in range(1, w):  # the first few coefficients see a shorter context
+        k[:, jj] = rice_k_from_context(total[:, jj - 1], jj)
+    k[:, w:] = rice_k_from_context(total[:, w - 1 :], CONTEXT_WINDOW)
     return k
 
 
 def initial_parameter(mag0: np.ndarray) -> np.ndarray:
     """``k_init`` the encoder sends: the Rice parameter that codes coefficient 0 shortest."""
-    from ._bits import _bit_length
+    from ._entropy import bit_length as _bit_length
 
     return np.clip(_bit_length(mag0) - 1, 0, (1 << K_INIT_BITS) - 1)
 
@@ -351,7 +354,7 @@ def initial_parameter(mag0: np.ndarray) -> np.ndarray:
 def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.ndarray:
     """Exact bits of each subframe (rows of ``q``) in layout v2, frame header excluded."""
     from ._entropy import rice_escape_bits, zigzag
-    from ._bits import _bit_length
+    from ._entropy import bit_length as _bit_length
 
     mag = np.abs(q)
     nz = mag > 0
@@ -394,7 +397,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
 
     Returns the bytes, each frame's byte length and each subframe's payload bits.
     """
-    from ._bits import _bit_length
+    from ._entropy import bit_length as _bit_length
     from ._entropy import pack_bits, rice_escape_fields, zigzag
 
     nf = len(batch)
@@ -570,7 +573,7 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
     of a codeword of up to 57 bits; longer codewords and escapes (rare) take
     the general path.  Returns ``(q, end positions, malformed)``.
     """
-    from ._bits import _bit_length
+    from ._entropy import bit_length as _bit_length
     from ._entropy import rice_k_from_context
 
     m = pos.size
