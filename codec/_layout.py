@@ -306,6 +306,7 @@ def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list
 LAYOUT_VERSION_2 = 2
 #: Coefficients whose magnitudes set the Rice parameter of the next one.
 CONTEXT_WINDOW = 4
+_RUN_MODE = True
 K_INIT_BITS = 5
 STEP_BITS = 10
 PROFILE_BITS_V2 = 8
@@ -321,11 +322,12 @@ def count_bits(n: int) -> int:
     return int(n).bit_length()
 
 
-def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> np.ndarray:
-    """Rice parameter of every coefficient of every frame (rows), as both ends derive it.
+def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Rice parameter and context of every coefficient of every frame (rows).
 
     Coefficient 0 uses the frame's ``k_init``; coefficient j >= 1 uses the
-    LOCO-I rule on the sum of the previous ``min(j, CONTEXT_WINDOW)`` magnitudes.
+    LOCO-I rule on ``total``, the sum of the previous ``min(j, CONTEXT_WINDOW)``
+    magnitudes.  Returns ``(k, total)`` (``total[:, 0]`` is -1: no context).
     """
     from ._entropy import rice_k_from_context
 
@@ -341,7 +343,59 @@ def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> np.ndarray:
     for jj in range(1, w):  # the first few coefficients see a shorter context
         k[:, jj] = rice_k_from_context(total[:, jj - 1], jj)
     k[:, w:] = rice_k_from_context(total[:, w - 1 :], CONTEXT_WINDOW)
-    return k
+    ctx = np.empty((nf, n), dtype=np.int64)
+    ctx[:, 0] = -1
+    ctx[:, 1:] = total
+    return k, ctx
+
+
+def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> list:
+    """The coded coefficients of each subframe as three (value, width) slot pairs per index.
+
+    Regular mode (coefficient 0, or a non-zero context): the magnitude in the
+    layout's Rice code with the context's parameter, then a sign bit if it is
+    not zero.  Run mode (context sum 0, i.e. the previous CONTEXT_WINDOW
+    magnitudes were all zero): at the first such index one exp-Golomb (order 0)
+    codeword gives the number r of zeros that follow, and the coefficient r
+    places further on, which is not zero, is sent as ``magnitude - 1`` in the
+    Rice code with k = 0 and a sign bit.  Run mode follows the run-length
+    method of Golomb (1966) and the run mode of LOCO-I / JPEG-LS.
+
+    Returns ``[(run_v, run_w), (main_v, main_w), (extra_v, extra_w)]``, each (rows, n):
+    the run codeword at a run's first index; the codeword (whole when it fits
+    64 bits, else its unary part) and its remainder, at the index it codes.
+    """
+    from ._entropy import bit_length, rice_escape_fields
+
+    ns, n = q.shape
+    mag = np.abs(q)
+    nz = mag > 0
+    k, ctx = rice_parameters(mag, k_init)
+    inside = np.arange(n) < last[:, None]
+    run = (ctx == 0) & inside & _RUN_MODE
+    prev = np.zeros_like(run)
+    prev[:, 1:] = run[:, :-1]
+    start = run & ~prev
+    # a run ends at the next non-zero coefficient: its index, seen from every index
+    idx = np.where(nz, np.arange(n), n)
+    nxt = np.minimum.accumulate(idx[:, ::-1], axis=1)[:, ::-1]
+    r = np.where(start, nxt - np.arange(n), 0)
+    eg = r + 1
+    run_w = np.where(start, 2 * bit_length(eg) - 1, 0)
+    run_v = eg.astype(np.uint64)
+    coded = inside & (~run | nz)  # regular indices, and the non-zero ending each run
+    m = np.where(run, mag - 1, mag)
+    kk = np.where(run, 0, k)
+    _, uw, lv, lw = rice_escape_fields(np.maximum(m, 0), kk)
+    sw = nz.astype(np.int64)
+    tail = (lv << sw.astype(np.uint64)) | (q < 0).astype(np.uint64)
+    tw = lw + sw
+    whole = uw + tw <= 64
+    main_v = np.where(whole, (np.uint64(1) << tw.astype(np.uint64)) | tail, np.uint64(1))
+    main_w = np.where(coded, np.where(whole, uw + tw, uw), 0)
+    extra_v = np.where(whole, np.uint64(0), tail)
+    extra_w = np.where(coded & ~whole, tw, 0)
+    return [(run_v, run_w), (main_v, main_w), (extra_v, extra_w)]
 
 
 def initial_parameter(mag0: np.ndarray) -> np.ndarray:
@@ -353,15 +407,13 @@ def initial_parameter(mag0: np.ndarray) -> np.ndarray:
 
 def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.ndarray:
     """Exact bits of each subframe (rows of ``q``) in layout v2, frame header excluded."""
-    from ._entropy import rice_escape_bits, zigzag
     from ._entropy import bit_length as _bit_length
+    from ._entropy import zigzag
 
-    mag = np.abs(q)
-    nz = mag > 0
+    nz = q != 0
     last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
-    k = rice_parameters(mag, initial_parameter(mag[:, 0]))
-    inside = np.arange(n) < last[:, None]
-    coef = np.where(inside, rice_escape_bits(mag, k) + nz, 0).sum(axis=1)
+    items = coefficient_items(q, initial_parameter(np.abs(q[:, 0])), last)
+    coef = sum(w.sum(axis=1) for _, w in items)
     bits = STEP_BITS + count_bits(n) + np.where(last > 0, K_INIT_BITS, 0) + coef
     if mean_int is not None:
         bits += 2 * _bit_length(zigzag(mean_int) + 1) - 1
@@ -398,7 +450,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     Returns the bytes, each frame's byte length and each subframe's payload bits.
     """
     from ._entropy import bit_length as _bit_length
-    from ._entropy import pack_bits, rice_escape_fields, zigzag
+    from ._entropy import pack_bits, zigzag
 
     nf = len(batch)
     q = batch.q
@@ -409,11 +461,9 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     nz = mag > 0
     last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
     k_init = initial_parameter(mag[:, 0])
-    k = rice_parameters(mag, k_init)
-    inside = np.arange(n) < last[:, None]
 
     nh, nsub = 9, 5
-    slots = nh + nsub + 2 * n + 1
+    slots = nh + nsub + 3 * n + 1
     val = np.zeros((ns, slots), dtype=np.uint64)
     wid = np.zeros((ns, slots), dtype=np.int64)
     # subframe header
@@ -430,19 +480,10 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     wid[:, s0 + 3] = lb
     val[:, s0 + 4] = k_init
     wid[:, s0 + 4] = np.where(last > 0, K_INIT_BITS, 0)
-    # One field per coefficient (unary part, low bits, sign) when it fits 64 bits;
-    # otherwise the unary part, then low bits and sign as a second field.
-    _, uw, lv, lw = rice_escape_fields(mag, k)
-    sw = nz.astype(np.int64)
-    tail = (lv << sw.astype(np.uint64)) | (q < 0).astype(np.uint64)
-    tw = lw + sw
-    whole = uw + tw <= 64
     c0 = nh + nsub
-    main_v = np.where(whole, (np.uint64(1) << tw.astype(np.uint64)) | tail, np.uint64(1))
-    val[:, c0 : c0 + 2 * n : 2] = main_v
-    wid[:, c0 : c0 + 2 * n : 2] = np.where(inside, np.where(whole, uw + tw, uw), 0)
-    val[:, c0 + 1 : c0 + 2 * n : 2] = np.where(whole, np.uint64(0), tail)
-    wid[:, c0 + 1 : c0 + 2 * n : 2] = np.where(inside & ~whole, tw, 0)
+    for i, (v, w) in enumerate(coefficient_items(q, k_init, last)):
+        val[:, c0 + i : c0 + 3 * n : 3] = v
+        wid[:, c0 + i : c0 + 3 * n : 3] = w
     sub_bits = wid.sum(axis=1)
 
     # frame header (in the first subframe row of each frame)
@@ -566,60 +607,74 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
 
 def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray, n: int
                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Read ``count`` Rice-coded coefficients per subframe starting at bit ``pos``.
+    """Read the coded coefficients (indices below ``count``) of subframes starting at ``pos``.
 
-    One vectorized step per coefficient index over every subframe still
-    reading: one 64-bit gather gives the unary part, the low bits and the sign
-    of a codeword of up to 57 bits; longer codewords and escapes (rare) take
-    the general path.  Returns ``(q, end positions, malformed)``.
+    The inverse of :func:`coefficient_items`.  One vectorized step per
+    codeword over every subframe still reading, each at its own coefficient
+    index: one 64-bit gather gives the unary part, low bits and sign of a
+    codeword of up to 57 bits; longer codewords and escapes take the general
+    path.  Returns ``(q, end positions, malformed)``.
     """
     from ._entropy import bit_length as _bit_length
     from ._entropy import rice_k_from_context
 
     m = pos.size
-    mag = np.zeros((m, n), dtype=np.int64)
-    neg = np.zeros((m, n), dtype=bool)
+    mag = np.zeros((m, n + 1), dtype=np.int64)  # column n absorbs malformed run targets
+    neg = np.zeros((m, n + 1), dtype=bool)
     bad = np.zeros(m, dtype=bool)
     pos = pos.copy()
-    total = np.zeros(m, dtype=np.int64)
     rows = np.arange(m)  # subframes still reading (compacted as they finish)
-    p, cnt, tot = pos.copy(), count, total
-    k = k_init
+    p, cnt, jf, k0 = pos.copy(), count.copy(), np.zeros(m, np.int64), k_init
     words = r._words
     limit = r.size_bits
-    for j in range(int(count.max(initial=0))):
-        act = cnt > j
+    while True:
+        act = jf < cnt
+        if not act.any():
+            break
         if act.sum() * 2 < rows.size:  # compact: drop finished subframes
             pos[rows] = p
-            rows, p, cnt, tot, act = rows[act], p[act], cnt[act], tot[act], act[act]
-            k = k[act] if j == 0 else k
-        if j > 0:
-            k = rice_k_from_context(tot, min(j, CONTEXT_WINDOW))
-        pc = np.minimum(p, limit)
+            rows, p, cnt, jf, k0, act = rows[act], p[act], cnt[act], jf[act], k0[act], act[act]
+        tot = np.zeros(rows.size, np.int64)
+        for i in range(1, CONTEXT_WINDOW + 1):
+            tot += np.where(jf >= i, mag[rows, np.maximum(jf - i, 0)], 0)
+        have = np.minimum(jf, CONTEXT_WINDOW)
+        k = np.where(jf == 0, k0, rice_k_from_context(tot, np.maximum(have, 1)))
+        runm = act & (jf >= 1) & (tot == 0)
+        p2 = p.copy()
+        run = np.zeros(rows.size, np.int64)
+        if runm.any():
+            ri = np.flatnonzero(runm)
+            v, used = r.exp_golomb(p[ri])
+            run[ri] = v
+            p2[ri] += used
+            k[ri] = 0
+        pc = np.minimum(p2, limit)
         w = words[pc >> 3] << (pc & 7).astype(np.uint64)
         qq = 33 - _bit_length((w >> np.uint64(31)).astype(np.int64))
         ku = k.astype(np.uint64)
         low = ((w << (qq + 1).astype(np.uint64)) >> np.uint64(1)) >> (63 - ku)
         mg = (qq.astype(np.int64) << k) | low.astype(np.int64)
-        sign = ((w << (qq + 1 + k).astype(np.uint64) % np.uint64(64)) >> np.uint64(63))
-        slow = (qq >= 32) | (qq + k + 2 > 57)
+        sign = (w << ((qq + 1 + k).astype(np.uint64) % np.uint64(64))) >> np.uint64(63)
         used = qq + 1 + k
+        slow = act & ((qq >= 32) | (qq + k + 2 > 57))
         if slow.any():
-            sl = np.flatnonzero(slow & act)
-            mv, uv = r.rice_escape(p[sl], k[sl])
+            sl = np.flatnonzero(slow)
+            mv, uv = r.rice_escape(p2[sl], k[sl])
             bad[rows[sl[mv < 0]]] = True
             mv = np.maximum(mv, 0)
             mg[sl] = mv
             used[sl] = uv
-            sign[sl] = r.read(p[sl] + uv, (mv > 0).astype(np.int64)).astype(np.uint64)
+            sign[sl] = r.read(p2[sl] + uv, 1).astype(np.uint64)
+        mg = mg + runm  # a run ends on a non-zero coefficient, sent as magnitude - 1
         nz = mg > 0
-        used = np.where(act, used + nz, 0)
-        mg = np.where(act, mg, 0)
-        mag[rows, j] = mg
-        neg[rows, j] = (sign == 1) & nz
-        p = p + used
-        tot = tot + mg
-        if j >= CONTEXT_WINDOW:
-            tot = tot - mag[rows, j - CONTEXT_WINDOW]
+        target = jf + run
+        over = act & (target >= cnt)
+        bad[rows[over]] = True
+        target = np.where(act & ~over, target, n)
+        mag[rows, target] = np.where(act, mg, 0)
+        neg[rows, target] = (sign == 1) & nz & act
+        p = np.where(act, p2 + used + nz, p)
+        jf = np.where(act, np.where(over, cnt, target + 1), jf)
     pos[rows] = p
+    mag, neg = mag[:, :n], neg[:, :n]
     return np.where(neg, -mag, mag), pos, bad
