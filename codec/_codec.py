@@ -33,7 +33,7 @@ from ._layout import (
     parse_payloads,
 )
 from ._profile import Profile, profile_id
-from ._quantize import step_from_code
+from ._quantize import code_for_step, step_from_code
 from ._report import stream_report
 from ._select import (
     _MARGIN,
@@ -172,20 +172,27 @@ def encode(samples, profile: Profile) -> EncodeResult:
             pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
             over = pk > limit[rows]
             # a uniform quantizer's error scales with its step
-            est = np.ceil(8.0 * np.log2(np.maximum(pk / limit[rows], 1.0))).astype(np.int64)
+            with np.errstate(over="ignore"):
+                ratio = np.minimum(pk / limit[rows], 2.0**1000)
+            est = np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(np.int64)
             drop = np.maximum(drop, np.where(over, np.maximum(est, 1), 0))
         return drop
 
+    # finest step: keeps every integer code below 2**52 (exact in float64)
+    scale = np.abs(cx).max(axis=1)
+    if mean is not None:
+        scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
+    finest = np.minimum(code_for_step(np.maximum(scale, 1e-300) * 2.0**-52), code)
     rows = np.arange(code.size)
     drop = step_drop(rows)
     while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
         bad, d = rows[drop > 0], drop[drop > 0]
-        if (code[bad] == 0).any():
+        if (code[bad] <= finest[bad]).any():
             if peak_mode:
                 raise InputError("the peak-error limit is finer than any quantizer step can "
-                                 "meet; raise max_error", "profile")
+                                 "meet at this signal's magnitude; raise max_error", "profile")
             raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
-        code[bad] = np.maximum(code[bad] - d, 0)
+        code[bad] = np.maximum(code[bad] - d, finest[bad])
         qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad],
                                offset[bad])
         q[bad] = qb
