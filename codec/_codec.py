@@ -27,10 +27,10 @@ from ._layout import (
     index_bits,
     pack_frames,
     pack_frames_v2,
-    payload_bits_v2,
     parse_frames_v2,
     parse_headers,
     parse_payloads,
+    payload_bits_v2,
 )
 from ._profile import Profile, profile_id
 from ._quantize import code_for_step, step_from_code

@@ -1,4 +1,4 @@
-"""Golomb, Rice and exp-Golomb codes: hand-computed codewords, exhaustive and property round trips."""
+"""Golomb, Rice and exp-Golomb codes: hand-computed codewords, exhaustive and property checks."""
 
 import numpy as np
 import pytest

@@ -13,7 +13,7 @@ from .._bases import basis_from_code, basis_names
 from .._codec import decode, encode
 from .._errors import FrameError, InputError, TrimlinkError
 from .._io import SampleTable, atomic_output, read_samples, write_samples
-from .._layout import parse_headers
+from .._layout import frame_version, parse_headers
 from .._profile import (
     Profile,
     StreamNote,
@@ -104,7 +104,8 @@ def _encode(args) -> int:
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
-          f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min {fmt(r['fidelity_min'], '.5f')}"
+          f"ratio {fmt(r['compression_ratio'], '.2f')}); "
+          f"fidelity min {fmt(r['fidelity_min'], '.5f')}"
           f" (target {r['fidelity_target']}), SNR {fmt(r['snr_db'], '.2f')} dB")
     print(_CAUTION)
     return 0
@@ -216,6 +217,8 @@ def _inspect(args) -> int:
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a trimlink stream?", args.stream)
+    if (frame_version(np.frombuffer(data, np.uint8), loc.offsets) != 1).any():
+        return _inspect_v2(data, loc, profile, args.stream)
     head = parse_headers(np.frombuffer(data, np.uint8), loc.offsets)
     pid = profile_id(profile) if profile else None
     names = [c.name for c in profile.channels] if profile else None
@@ -227,7 +230,9 @@ def _inspect(args) -> int:
            f"{'bits':>6}  crc"]
     for off, status, i in rows:
         if i is None:
-            out.append(f"{off:>9} {'-':>6} {'-':<14} {'-':<9} {'-':>5} {'-':>11} {'-':>6}  {status}")
+            dash = "-"
+            out.append(f"{off:>9} {dash:>6} {dash:<14} {dash:<9} {dash:>5} {dash:>11} "
+                       f"{dash:>6}  {status}")
             continue
         ch = int(head["channel"][i])
         chan = names[ch] if names and ch < len(names) else str(ch)
@@ -247,3 +252,23 @@ def _inspect(args) -> int:
     return 0
 
 
+
+
+def _inspect_v2(data: bytes, loc, profile: Profile | None, where: str) -> int:
+    """Frame table of a layout-2 stream (its payload needs the profile to be read)."""
+    if profile is None:
+        raise InputError("layout-2 frames need the stream's profile to be listed; pass -p "
+                         "PROFILE", where)
+    dec = decode(data, profile)
+    f = dec.frames
+    names = [c.name for c in profile.channels]
+    out = [f"{'byte':>9} {'seq':>6} {'channel':<14} {'terms':>5} {'step':>11} {'bits':>6}"]
+    for i in range(f["offset"].size):
+        out.append(f"{int(f['offset'][i]):>9} {int(f['sequence'][i]):>6} "
+                   f"{names[int(f['channel'][i])]:<14} {int(f['terms'][i]):>5} "
+                   f"{step_from_code(f['step_code'][i]):>11.4g} {int(f['bits'][i]):>6}")
+    out += [f"{off:>9} CRC FAILED" for off in loc.crc_failures]
+    out.append(f"{loc.offsets.size} frames ok (layout 2), {len(loc.crc_failures)} CRC failures, "
+               f"{loc.skipped_bytes} bytes outside frames")
+    sys.stdout.write("\n".join(out) + "\n")
+    return 0
