@@ -281,18 +281,27 @@ def pack_frame_reference(fields: dict, mean: int | None, index: list[int], value
 
 def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list[int], list[int]]:
     """Parse one frame with bitstring; the inverse of :func:`pack_frame_reference`."""
-    s = bitstring.ConstBitStream(frame)
-    if s.read("bytes:2") != SYNC:
+    s = bitstring.Bits(frame)
+    pos = 0
+
+    def take(width: int, signed: bool = False) -> int:
+        nonlocal pos
+        field = s[pos : pos + width]
+        pos += width
+        return field.int if signed else field.uint
+
+    if s[:16].tobytes() != SYNC:
         raise ValueError("no sync marker")
-    head = {name: s.read(f"uint:{b}") for name, b, _ in HEADER_FIELDS}
-    mean = s.read(f"int:{head['mean_width']}") if head["mean_width"] else None
+    pos = 16
+    head = {name: take(b) for name, b, _ in HEADER_FIELDS}
+    mean = take(head["mean_width"], True) if head["mean_width"] else None
     ib = index_bits(n)
     index, value = [], []
     for _ in range(head["terms"]):
-        index.append(s.read(f"uint:{ib}"))
-        value.append(s.read(f"int:{head['value_width']}") if head["value_width"] else 0)
-    s.bytealign()
-    crc = s.read("uint:16")
+        index.append(take(ib))
+        value.append(take(head["value_width"], True) if head["value_width"] else 0)
+    pos += (-pos) % 8
+    crc = take(16)
     if crc != crc16_ibm3740(frame[len(SYNC) : -CRC_BYTES]):
         raise ValueError("CRC mismatch")
     return head, mean, index, value
