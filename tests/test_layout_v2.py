@@ -4,6 +4,8 @@ import binascii
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import codec
 from codec import FrameError, Profile
@@ -163,3 +165,23 @@ def test_layout_document_examples_match_the_packers():
     assert v1.hex() in doc and v1[:2] == b"\xe3\x5a" and v1[2] >> 4 == 1
     assert unpack_frame_reference(v1, 8)[2:] == ([0, 1], [3, -1])
     assert pack_frames_v2(_batch(), 0xABCD, 8)[0].hex() in doc
+
+
+def _forge(payload: bytes) -> bytes:
+    """A v2 frame around arbitrary bytes with a correct length and CRC (a hostile sender)."""
+    length = 2 + 2 + len(payload) + 2
+    body = bytes([0x20 | (length >> 8), length & 0xFF]) + payload
+    return b"\xe3\x5a" + body + binascii.crc_hqx(body, 0xFFFF).to_bytes(2, "big")
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.binary(min_size=1, max_size=120))
+def test_forged_frames_are_refused_or_decoded_never_crash(payload):
+    prof = Profile(frame_length=16).bind(["a", "b"])
+    # the right profile byte, so the payload parser itself faces the hostile bytes
+    data = _forge(bytes([codec.profile_id(prof) & 0xFF]) + payload)
+    try:
+        dec = codec.decode(data, prof)
+    except FrameError:
+        return
+    assert np.isfinite(dec.samples[dec.delivered]).all()
