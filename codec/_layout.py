@@ -358,6 +358,40 @@ def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> tuple[np.ndarray, np
     return k, ctx
 
 
+def _runs(run: np.ndarray, nz: np.ndarray):
+    """Run-mode runs: (row, first index, exp-Golomb width, r + 1) of each, in stream order.
+
+    A run is a maximal block of run-mode indices; it always ends on a non-zero
+    coefficient, so starts and ends pair up in row-major order.
+    """
+    from ._entropy import bit_length
+
+    prev = np.zeros_like(run)
+    prev[:, 1:] = run[:, :-1]
+    srow, scol = np.nonzero(run & ~prev)
+    _, ecol = np.nonzero(run & nz)
+    eg = (ecol - scol + 1).astype(np.int64)
+    return srow, scol, 2 * bit_length(eg) - 1, eg
+
+
+def coefficient_bits(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> np.ndarray:
+    """Bits of the coded coefficients of each subframe (what :func:`coefficient_items` packs)."""
+    from ._entropy import rice_escape_bits
+
+    ns, n = q.shape
+    mag = np.abs(q)
+    nz = mag > 0
+    k, ctx = rice_parameters(mag, k_init)
+    inside = np.arange(n) < last[:, None]
+    run = (ctx == 0) & inside & _RUN_MODE
+    srow, _, eg_w, _ = _runs(run, nz)
+    m = np.where(run, mag - 1, mag)
+    w = rice_escape_bits(np.maximum(m, 0), np.where(run, 0, k)) + nz
+    coded = inside & (~run | nz)
+    return np.where(coded, w, 0).sum(axis=1) + np.bincount(srow, eg_w, minlength=ns).astype(
+        np.int64)
+
+
 def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> list:
     """The coded coefficients of each subframe as three (value, width) slot pairs per index.
 
@@ -374,7 +408,7 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
     the run codeword at a run's first index; the codeword (whole when it fits
     64 bits, else its unary part) and its remainder, at the index it codes.
     """
-    from ._entropy import bit_length, rice_escape_fields
+    from ._entropy import rice_escape_fields
 
     ns, n = q.shape
     mag = np.abs(q)
@@ -382,16 +416,11 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
     k, ctx = rice_parameters(mag, k_init)
     inside = np.arange(n) < last[:, None]
     run = (ctx == 0) & inside & _RUN_MODE
-    prev = np.zeros_like(run)
-    prev[:, 1:] = run[:, :-1]
-    start = run & ~prev
-    # a run ends at the next non-zero coefficient: its index, seen from every index
-    idx = np.where(nz, np.arange(n), n)
-    nxt = np.minimum.accumulate(idx[:, ::-1], axis=1)[:, ::-1]
-    r = np.where(start, nxt - np.arange(n), 0)
-    eg = r + 1
-    run_w = np.where(start, 2 * bit_length(eg) - 1, 0)
-    run_v = eg.astype(np.uint64)
+    srow, scol, eg_w, eg = _runs(run, nz)
+    run_w = np.zeros((ns, n), dtype=np.int64)
+    run_v = np.zeros((ns, n), dtype=np.uint64)
+    run_w[srow, scol] = eg_w
+    run_v[srow, scol] = eg
     coded = inside & (~run | nz)  # regular indices, and the non-zero ending each run
     m = np.where(run, mag - 1, mag)
     kk = np.where(run, 0, k)
@@ -421,8 +450,7 @@ def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.nd
 
     nz = q != 0
     last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
-    items = coefficient_items(q, initial_parameter(np.abs(q[:, 0])), last)
-    coef = sum(w.sum(axis=1) for _, w in items)
+    coef = coefficient_bits(q, initial_parameter(np.abs(q[:, 0])), last)
     bits = STEP_BITS + count_bits(n) + np.where(last > 0, K_INIT_BITS, 0) + coef
     if mean_int is not None:
         bits += 2 * _bit_length(zigzag(mean_int) + 1) - 1

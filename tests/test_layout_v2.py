@@ -185,3 +185,21 @@ def test_forged_frames_are_refused_or_decoded_never_crash(payload):
     except FrameError:
         return
     assert np.isfinite(dec.samples[dec.delivered]).all()
+
+
+@pytest.mark.parametrize("fidelity", [0.5, 0.95, 0.9999])
+def test_rate_estimate_is_the_packed_size(fidelity):
+    # the encoder's rate-fidelity choice counts bits with payload_bits_v2; it must be exact
+    from codec._layout import payload_bits_v2
+
+    x = _signal(c=1)
+    x[500] += 1e6  # a spike forces escapes
+    n = 64
+    cx = codec.as_basis("dct", n).analyze(x[: 46 * n, 0].reshape(-1, n))
+    q = np.rint(cx / (np.abs(cx).max() * (1 - fidelity) + 1e-3)).astype(np.int64)
+    nf = q.shape[0]
+    batch = FrameBatchV2(multi=np.zeros(nf, bool), channel=np.zeros(nf, np.int64),
+                         sequence=np.arange(nf), valid=np.full(nf, n), frame=np.arange(nf),
+                         step_code=np.full(nf, 500), mean=None, q=q)
+    _, _, sub_bits = pack_frames_v2(batch, 1, n)
+    assert np.array_equal(payload_bits_v2(q, None, n), sub_bits)
