@@ -8,8 +8,16 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from link_sim import GilbertElliott, awgn, ber_bpsk, ber_qpsk_gray, bsc, erase_frames, qfunc
-from link_sim import gilbert_elliott
+from link_sim import (
+    GilbertElliott,
+    awgn,
+    ber_bpsk,
+    ber_qpsk_gray,
+    bsc,
+    erase_frames,
+    gilbert_elliott,
+    qfunc,
+)
 
 
 def test_qfunc_matches_scipy_normal_tail():
