@@ -15,7 +15,15 @@ from ._simulate import (
     simulate,
     sweep,
 )
-from ._theory import ber_bpsk, ber_qpsk_gray, ber_theory, ebn0_for_ber_bpsk, qfunc
+from ._theory import (
+    ber_bpsk,
+    ber_qpsk_gray,
+    ber_rs_bounded_distance,
+    ber_theory,
+    ebn0_for_ber_bpsk,
+    linear_to_db,
+    qfunc,
+)
 
 __all__ = [
     "GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott",
@@ -23,5 +31,6 @@ __all__ = [
     "CONCEAL_POLICIES", "conceal", "receive",
     "CHANNEL_KINDS", "ChannelConfig", "ci95", "measured_ber_curve", "run_trial", "simulate",
     "sweep",
-    "ber_bpsk", "ber_qpsk_gray", "ber_theory", "ebn0_for_ber_bpsk", "qfunc",
+    "ber_bpsk", "ber_qpsk_gray", "ber_rs_bounded_distance", "ber_theory", "ebn0_for_ber_bpsk",
+    "linear_to_db", "qfunc",
 ]

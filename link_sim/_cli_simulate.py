@@ -121,7 +121,8 @@ def _print_row(r: dict) -> None:
     print(f"  SNR delivered {_interval(r, 'snr_db_delivered', '.2f')} dB, end to end "
           f"{_interval(r, 'snr_db_end_to_end', '.2f')} dB; max abs error delivered "
           f"{fmt(r['max_abs_error_delivered'], '.4g')}, end to end "
-          f"{fmt(r['max_abs_error_end_to_end'], '.4g')}; fidelity end to end "
+          f"{fmt(r['max_abs_error_end_to_end'], '.4g')}; fidelity delivered "
+          f"{fmt(r['fidelity_delivered'], '.5f')}, end to end "
           f"{fmt(r['fidelity_end_to_end'], '.5f')}")
 
 
@@ -172,10 +173,10 @@ def _simulate(args) -> int:
     else:
         rows = [simulate(table.values, profile, cfg, **kw)]
     r0 = rows[0]
-    print(f"{args.channel} channel, FEC {args.fec}: {r0['bits_on_air_per_frame']:.1f} bits on "
-          f"air per frame, {r0['bits_on_air_per_sample']:.3f} per sample (codec "
-          f"{r0['bits_codec_per_sample']:.3f}, FEC and sync overhead "
-          f"{r0['bits_fec_overhead']:.0f} bits); codec alone SNR "
+    print(f"{args.channel} channel, FEC {args.fec}: bits on air {r0['bits_on_air_per_frame']:.1f} "
+          f"per frame, {r0['bits_on_air_per_sample']:.3f} per sample (codec "
+          f"{r0['bits_codec_per_frame']:.1f} and {r0['bits_codec_per_sample']:.3f}; FEC, padding "
+          f"and sync add {r0['bits_fec_overhead']:.0f} bits in all); codec alone SNR "
           f"{fmt(r0['snr_db_codec_only'], '.2f')} dB; {args.trials} trial(s), seed {args.seed}")
     for r in rows:
         _print_row(r)

@@ -20,7 +20,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-import reedsolo
 
 __all__ = ["FEC_NAMES", "Code", "NoCode", "Hamming74", "ReedSolomon255", "Convolutional",
            "make_code", "GF_EXP", "GF_LOG", "rs_generator_roots"]
@@ -132,12 +131,102 @@ for _e in range(255):
 GF_EXP[255:510] = GF_EXP[:255]
 
 
+_A = np.arange(256)
+#: Full multiplication table, built from the log/antilog tables (zero rows/columns stay 0).
+GF_MUL = np.where((_A[:, None] == 0) | (_A[None, :] == 0), 0,
+                  GF_EXP[GF_LOG[_A][:, None] + GF_LOG[_A][None, :]])
+
+
 def _gf_mul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Element-wise product in GF(2^8) by log/antilog tables."""
+    """Element-wise product in GF(2^8) (table lookup)."""
+    return GF_MUL[np.asarray(a, np.int64), np.asarray(b, np.int64)]
+
+
+def _gf_div(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """a / b in GF(2^8) (b non-zero)."""
     a = np.asarray(a, np.int64)
-    b = np.asarray(b, np.int64)
-    r = GF_EXP[GF_LOG[a] + GF_LOG[b]]
-    return np.where((a == 0) | (b == 0), 0, r)
+    return np.where(a == 0, 0, GF_EXP[(GF_LOG[a] - GF_LOG[np.asarray(b, np.int64)]) % 255])
+
+
+def _poly_at(coef: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Evaluate polynomials (rows of ``coef``, lowest degree first) at field elements ``x``.
+
+    ``coef`` is (E, D); ``x`` is (E,) or (E, P) and the result has its shape
+    (Horner's rule, one table lookup per degree for all rows and points).
+    """
+    x = np.asarray(x, np.int64)
+    c = coef if x.ndim == 1 else coef[:, :, None]
+    val = np.zeros(x.shape, np.int64)
+    for d in range(coef.shape[1] - 1, -1, -1):
+        val = GF_MUL[val, x] ^ c[:, d]
+    return val
+
+
+def _rs_correct(words: np.ndarray, syn: np.ndarray, fcr_log: int, step: int,
+                t: int) -> tuple[np.ndarray, np.ndarray]:
+    """Errors-only RS decoding of many words at once: Berlekamp-Massey, Chien, Forney.
+
+    ``syn[:, j] = r(beta^(fcr + j))`` with beta = alpha^step and ``fcr_log`` =
+    log_alpha of the first root.  An error of value e at degree p gives
+    ``S_j = e X^(fcr) X^j`` with locator X = beta^p, so Forney's formula with
+    first root index fcr applies: e = X^(1 - fcr) Omega(X^-1) / Lambda'(X^-1).
+    Returns the corrected words and a mask of words found uncorrectable.
+
+    References
+    ----------
+    J. L. Massey, "Shift-register synthesis and BCH decoding", IEEE Trans. IT-15,
+    1969; G. D. Forney, "On decoding BCH codes", IEEE Trans. IT-11, 1965.
+    """
+    M, n2 = syn.shape
+    fcr = (fcr_log * pow(step, -1, 255)) % 255  # root index: beta^fcr = alpha^fcr_log
+    rows = np.arange(M)
+    cols = np.arange(n2 + 1)
+    lam = np.zeros((M, n2 + 1), np.int64)
+    lam[:, 0] = 1
+    prev = lam.copy()
+    L = np.zeros(M, np.int64)
+    shift = np.ones(M, np.int64)
+    bval = np.ones(M, np.int64)
+    for k in range(n2):  # Berlekamp-Massey, every word in step
+        d = syn[:, k].copy()
+        if k:
+            d ^= np.bitwise_xor.reduce(_gf_mul(lam[:, 1: k + 1], syn[:, k - 1:: -1]), axis=1)
+        nz = d != 0
+        idx = cols[None, :] - shift[:, None]
+        moved = np.where(idx >= 0, prev[rows[:, None], np.maximum(idx, 0)], 0)
+        new = lam ^ _gf_mul(_gf_div(d, bval)[:, None], moved)
+        grow = nz & (2 * L <= k)
+        prev = np.where(grow[:, None], lam, prev)
+        bval = np.where(grow, d, bval)
+        L = np.where(grow, k + 1 - L, L)
+        shift = np.where(grow, 1, shift + 1)
+        lam = np.where(nz[:, None], new, lam)
+    lam = lam[:, : t + 1]
+    bad = L > t
+    # Chien search: X^-1 = beta^-p for every degree p.
+    p = np.arange(255)
+    vals = _poly_at(lam, np.broadcast_to(GF_EXP[(-step * p) % 255], (M, 255)))
+    roots = (vals == 0) & ~bad[:, None]
+    bad |= roots.sum(axis=1) != L
+    roots &= ~bad[:, None]
+    # Forney on every root found.
+    r, deg = np.nonzero(roots)
+    omega = np.zeros((M, n2), np.int64)  # S(x) Lambda(x) mod x^2t
+    for i in range(t + 1):
+        omega[:, i:] ^= _gf_mul(lam[:, i: i + 1], syn[:, : n2 - i])
+    dlam = np.where(np.arange(t + 1) % 2 == 1, lam, 0)[:, 1:]  # formal derivative
+    inv = GF_EXP[(-step * deg) % 255]
+    num = _poly_at(omega[r], inv)
+    den = _poly_at(dlam[r], inv)
+    e = _gf_mul(_gf_div(num, np.where(den == 0, 1, den)),
+                GF_EXP[(step * deg * (1 - fcr)) % 255])
+    zero_den = np.zeros(M, bool)
+    zero_den[r[den == 0]] = True
+    bad |= zero_den
+    out = words.copy()
+    ok = ~bad[r]
+    out[r[ok], 254 - deg[ok]] ^= e[ok]
+    return out, bad
 
 
 def rs_generator_roots() -> np.ndarray:
@@ -161,12 +250,14 @@ class ReedSolomon255(Code):
     The stream is cut into codeblocks of 223*I bytes (the last one padded with
     zeros, counted on air).  Byte j of a codeblock belongs to codeword j mod I,
     so a burst of 16*I consecutive bytes puts at most 16 errors in each codeword.
-    Encoding and syndromes are vectorized NumPy over every codeword; only the
-    codewords whose syndromes are non-zero go to ``reedsolo`` for
-    Berlekamp-Massey/Chien/Forney correction, and its output is re-checked by
-    syndrome, so a decoder failure is always reported, never passed on as good.
-    Symbols are in the conventional basis (the CCSDS dual-basis mapping is a
-    fixed byte permutation at the interface that does not change error correction).
+    Encoding, syndromes and Berlekamp-Massey/Chien/Forney correction are
+    vectorized NumPy over every codeword at once (log/antilog and product
+    tables); the corrected words are re-checked by syndrome, so a decoder
+    failure is always reported, never passed on as good.  The ``reedsolo``
+    library (test extra) serves as the reference decoder in the tests.
+    Symbols are in the conventional basis (the CCSDS dual-basis representation
+    is a fixed one-to-one byte mapping at the interface; it does not change what
+    the code corrects, so it is left out).
     """
 
     name = "rs255"
@@ -179,10 +270,9 @@ class ReedSolomon255(Code):
         self.depth = depth
         self.gen = _rs_generator()
         self._roots = rs_generator_roots()
-        # reedsolo wants the generator as a field element value: alpha^11.
-        self._rs = reedsolo.RSCodec(nsym=32, nsize=255, fcr=112, prim=_PRIM,
-                                    generator=int(GF_EXP[11]),
-                                    c_exp=8)
+        # Row j = multiplication by root j, flattened for np.take.
+        self._mul_roots = GF_MUL[GF_EXP[self._roots], :].astype(np.uint8).ravel()
+        self._mul_offsets = (256 * np.arange(self._roots.size)).astype(np.int32)
 
     @property
     def rate(self) -> float:
@@ -207,29 +297,50 @@ class ReedSolomon255(Code):
         return np.concatenate([msg, reg], axis=1)
 
     def syndromes(self, words: np.ndarray) -> np.ndarray:
-        """(M, 255) -> (M, 32) syndromes r(alpha^(11 j)); all zero for a codeword."""
-        words = np.asarray(words, np.int64)
-        powers = np.arange(self.n - 1, -1, -1)  # degree of each symbol
-        expo = (self._roots[:, None] * powers[None, :]) % 255  # (32, 255)
-        logs = GF_LOG[words][:, None, :] + expo[None]
-        terms = np.where(words[:, None, :] == 0, 0, GF_EXP[logs % 255])
-        return np.bitwise_xor.reduce(terms, axis=2)
+        """(M, 255) -> (M, 32) syndromes r(alpha^(11 j)); all zero for a codeword.
+
+        Horner's rule over the 255 symbols, every word and root in one lookup per symbol.
+        """
+        w = np.asarray(words).astype(np.uint8)
+        s = np.zeros((w.shape[0], self._roots.size), np.uint8)
+        for k in range(self.n):  # s <- s * root_j + r_k, via one flat lookup per symbol
+            s = np.take(self._mul_roots, s + self._mul_offsets) ^ w[:, k: k + 1]
+        return s.astype(np.int64)
 
     def decode_words(self, words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """(M, 255) received -> ((M, 255) corrected words, failed mask)."""
+        """(M, 255) received -> ((M, 255) corrected words, failed mask).
+
+        Codewords with non-zero syndromes are corrected all at once by
+        :func:`_rs_correct`; the result is re-checked by syndrome, so a word the
+        decoder cannot correct is always reported as failed.
+        """
         words = np.asarray(words, np.int64).copy()
-        dirty = np.flatnonzero(self.syndromes(words).any(axis=1))
+        syn = self.syndromes(words)
+        dirty = np.flatnonzero(syn.any(axis=1))
         failed = np.zeros(words.shape[0], bool)
-        for i in dirty:  # one reedsolo call per corrupted codeword
+        if dirty.size:
+            fixed, bad = _rs_correct(words[dirty], syn[dirty], self._roots[0], 11, self.t)
+            good = ~bad
+            good[good] = ~self.syndromes(fixed[good]).any(axis=1)
+            words[dirty[good]] = fixed[good]
+            failed[dirty[~good]] = True
+        return words, failed
+
+    def decode_words_reedsolo(self, words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Same as :meth:`decode_words` through the ``reedsolo`` library (reference, slow)."""
+        import reedsolo  # test extra only
+
+        # reedsolo wants the generator as a field element value: alpha^11.
+        codec = reedsolo.RSCodec(nsym=32, nsize=255, fcr=112, prim=_PRIM,
+                                 generator=int(GF_EXP[11]), c_exp=8)
+        words = np.asarray(words, np.int64).copy()
+        failed = np.zeros(words.shape[0], bool)
+        for i in np.flatnonzero(self.syndromes(words).any(axis=1)):
             try:
-                _, full, _ = self._rs.decode(bytearray(words[i].astype(np.uint8).tobytes()))
+                _, full, _ = codec.decode(bytearray(words[i].astype(np.uint8).tobytes()))
                 words[i] = np.frombuffer(bytes(full), np.uint8)
             except reedsolo.ReedSolomonError:
                 failed[i] = True
-        if dirty.size:
-            check = dirty[~failed[dirty]]
-            bad = self.syndromes(words[check]).any(axis=1)
-            failed[check[bad]] = True
         return words, failed
 
     def encode(self, data) -> np.ndarray:
@@ -275,6 +386,8 @@ _PRED = np.stack([((_NS & 31) << 1) | x for x in (0, 1)], axis=1)  # (64, 2) pre
 _REG = ((_NS >> 5) << 6)[:, None] | _PRED  # register for each (next state, branch)
 # Expected BPSK amplitudes (+1 for bit 0) of the two outputs on each branch.
 _EXPECT = np.stack([1.0 - 2.0 * _parity(_REG & g) for g in _GENS], axis=-1).astype(np.float32)
+#: Index (0..3) of each branch's output pair in the order ++, +-, -+, --.
+_PAIR = ((_EXPECT[..., 0] < 0) * 2 + (_EXPECT[..., 1] < 0)).astype(np.intp)
 
 
 class Convolutional(Code):
@@ -313,24 +426,34 @@ class Convolutional(Code):
         return out
 
     def viterbi(self, y: np.ndarray) -> np.ndarray:
-        """(B, L, 2) soft values (positive = 0) -> (B, L) ML info bits, ending in state 0."""
+        """(B, L, 2) soft values (positive = 0) -> (B, L) ML info bits, ending in state 0.
+
+        Branch metrics are correlations with the expected +/-1 outputs, worked
+        out for the four output pairs at every step at once; the
+        add-compare-select then runs one step at a time over every block and state.
+        """
         B, L, _ = y.shape
-        pm = np.full((B, _NSTATE), -np.inf, np.float32)
+        pairs = np.array([[1, 1], [1, -1], [-1, 1], [-1, -1]], np.float32)
+        bm = np.ascontiguousarray(np.einsum("blk,ck->lbc", y.astype(np.float32), pairs))
+        p0, p1 = _PRED[:, 0], _PRED[:, 1]
+        i0, i1 = _PAIR[:, 0], _PAIR[:, 1]
+        pm = np.full((B, _NSTATE), -1e30, np.float32)  # only state 0 at the start
         pm[:, 0] = 0.0
-        dec = np.empty((L, B, _NSTATE), np.uint8)
-        e0, e1 = _EXPECT[..., 0][None], _EXPECT[..., 1][None]
+        dec = np.empty((L, B, _NSTATE), bool)
         for t in range(L):
-            cand = pm[:, _PRED] + y[:, t, 0, None, None] * e0 + y[:, t, 1, None, None] * e1
-            choice = cand[:, :, 1] > cand[:, :, 0]
-            dec[t] = choice
-            pm = np.where(choice, cand[:, :, 1], cand[:, :, 0])
-            pm -= pm.max(axis=1, keepdims=True)
+            b = bm[t]
+            c0 = pm[:, p0] + b[:, i0]
+            c1 = pm[:, p1] + b[:, i1]
+            np.greater(c1, c0, out=dec[t])
+            pm = np.maximum(c0, c1)
+            if t % 64 == 63:  # keep float32 metrics small
+                pm -= pm.max(axis=1, keepdims=True)
         state = np.zeros(B, np.int64)
         bits = np.empty((B, L), np.uint8)
         rows = np.arange(B)
         for t in range(L - 1, -1, -1):
             bits[:, t] = state >> 5
-            state = _PRED[state, dec[t, rows, state]]
+            state = _PRED[state, dec[t, rows, state].astype(np.intp)]
         return bits
 
     def encode(self, data) -> np.ndarray:

@@ -6,6 +6,14 @@ trial; over K trials the report gives the mean and a 95% confidence interval
 replications).  Eb is the energy per *codec* bit: all overhead on air (FEC
 parity, block padding, sync markers, trellis tail) is charged to it, so a code
 only shows a gain if it pays for its own bits.
+
+Sample figures: ``*_delivered`` are over the samples that arrived in frames
+that passed the CRC; ``*_end_to_end`` over every sample the receiver outputs a
+value for (delivered + concealed).  Lost samples have no value; they are
+counted in ``samples_lost`` and left out of those figures.  Frame counts:
+``frames_delivered`` counts every frame that reached the output, including the
+``frames_undetected_errors`` among them; ``frames_sent = frames_delivered +
+frames_dropped_crc + frames_erased``.
 """
 
 from __future__ import annotations
@@ -91,6 +99,7 @@ def run_trial(x: np.ndarray, enc, code, cfg: ChannelConfig, rng: np.random.Gener
     fig_d = codec.error_figures(x[dl], rec.samples[dl]) if dl.any() else {}
     fig_a = codec.error_figures(x[have], rec.samples[have]) if have.any() else {}
     sig = float(np.einsum("i,i->", x[have], x[have]))
+    sig_d = float(np.einsum("i,i->", x[dl], x[dl]))
     sent = int(lengths.size)
     erased = int((~arrived).sum())
     return {
@@ -112,6 +121,7 @@ def run_trial(x: np.ndarray, enc, code, cfg: ChannelConfig, rng: np.random.Gener
         "samples_out_of_range": int(rec.out_of_range.sum()),
         "snr_db_delivered": fig_d.get("snr_db"),
         "max_abs_error_delivered": fig_d.get("max_abs_error"),
+        "fidelity_delivered": (1.0 - fig_d["error_energy"] / sig_d) if fig_d and sig_d else None,
         "snr_db_end_to_end": fig_a.get("snr_db"),
         "max_abs_error_end_to_end": fig_a.get("max_abs_error"),
         "fidelity_end_to_end": (1.0 - fig_a["error_energy"] / sig) if fig_a and sig else None,
@@ -151,6 +161,7 @@ def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int 
            "conceal": policy, "trials": trials, "seed": seed,
            "bits_codec": codec_bits, "bits_on_air": air_bits,
            "bits_fec_overhead": air_bits - codec_bits,
+           "bits_codec_per_frame": codec_bits / nf,
            "bits_on_air_per_frame": air_bits / nf,
            "bits_codec_per_sample": codec_bits / x.size,
            "bits_on_air_per_sample": air_bits / x.size,
@@ -165,7 +176,6 @@ def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int 
         m, ci = ci95(vals)
         out[key] = m
         out[f"{key}_ci95"] = ci
-    # Channel BER over all trials pooled, with a binomial (Wilson) interval.
     return out
 
 
@@ -179,12 +189,14 @@ def sweep(x, profile, cfg: ChannelConfig, ebn0_list, **kw) -> list[dict]:
 
 
 def measured_ber_curve(fec: str, modulation: str, ebn0_grid, bits: int, seed: int = 0,
-                       interleave: int = 1) -> dict:
+                       interleave: int = 1, stop_at_zero: bool = False) -> dict:
     """Simulated BER of ``fec`` over AWGN at each Eb/N0 of ``ebn0_grid``.
 
     ``bits`` random information bits are coded once (a whole number of code
     blocks, so no padding) and sent at every grid point.  Eb is per information
-    bit with every bit on air charged (parity, sync marker, tail).
+    bit with every bit on air charged (parity, sync marker, tail).  With
+    ``stop_at_zero`` the run ends after the first grid point (in increasing
+    Eb/N0) without a decoded bit error; the arrays then cover only the points run.
 
     Returns
     -------
@@ -207,6 +219,9 @@ def measured_ber_curve(fec: str, modulation: str, ebn0_grid, bits: int, seed: in
         ch[i] = np.count_nonzero(_hard(received) != air) / air.size
         out, _ = code.decode(received, nbytes)
         post[i] = _bit_errors(out, data)
+        if stop_at_zero and post[i] == 0:
+            grid, ch, post = grid[: i + 1], ch[: i + 1], post[: i + 1]
+            break
     return {"ebn0_db": grid, "ber_channel": ch, "ber_post_fec": post / (8.0 * nbytes),
             "errors_post_fec": post, "bits_info": np.full(grid.size, 8 * nbytes),
             "rate_on_air": np.full(grid.size, rate)}

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scipy.stats import binom
 
 from link_sim._fec import Convolutional, Hamming74, NoCode, ReedSolomon255
 
@@ -155,3 +156,35 @@ def test_viterbi_soft_beats_hard_decisions():
     e_soft = np.unpackbits(code.decode(soft, data.size)[0] ^ data).sum()
     e_hard = np.unpackbits(code.decode(hard, data.size)[0] ^ data).sum()
     assert e_soft < e_hard
+
+
+@pytest.mark.parametrize("errors", [1, 8, 16, 17, 30])
+def test_rs_decoder_agrees_with_the_reedsolo_library(errors):
+    # Reference library: reedsolo (PyPI) configured for the CCSDS code; our
+    # vectorized Berlekamp-Massey/Chien/Forney must give the same words and failures.
+    rng = np.random.default_rng(100 + errors)
+    rs = ReedSolomon255()
+    words = rs.encode_words(rng.integers(0, 256, (8, 223)))
+    bad = _corrupt(words, errors, rng)
+    ours, our_fail = rs.decode_words(bad)
+    ref, ref_fail = rs.decode_words_reedsolo(bad)
+    np.testing.assert_array_equal(our_fail, ref_fail)
+    np.testing.assert_array_equal(ours[~our_fail], ref[~ref_fail])
+    assert our_fail.all() == (errors > 16)
+
+
+def test_rs_measured_ber_follows_the_bounded_distance_estimate():
+    # Sklar, Digital Communications 2nd ed. sec. 8.1 (from memory): a bounded-distance
+    # RS decoder leaves j > t symbol errors; with independent BPSK bit errors the
+    # decoded BER is (1/n) sum_{j>t} j C(n,j) p_s^j (1-p_s)^(n-j) * p/p_s.  Bit errors
+    # come in failed codewords, so the statistical spread is about 1/sqrt(F) with F
+    # the failed codewords; we allow 4 of those standard errors.
+    from link_sim import ber_bpsk, ber_rs_bounded_distance, linear_to_db, measured_ber_curve
+
+    c = measured_ber_curve("rs255", "bpsk", [5.25], 223 * 8 * 1000, seed=21)
+    rate = c["rate_on_air"][0]
+    p = float(ber_bpsk(5.25 + linear_to_db(rate)))
+    assert c["ber_channel"][0] == pytest.approx(p, rel=4 * np.sqrt((1 - p) / (p * 2_072_000)))
+    expect = ber_rs_bounded_distance(p)
+    failed = 1000 * binom.sf(16, 255, 1 - (1 - p) ** 8)  # expected failed codewords
+    assert abs(c["ber_post_fec"][0] / expect - 1) <= 4 / np.sqrt(failed)
