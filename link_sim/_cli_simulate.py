@@ -85,6 +85,8 @@ def _config(args) -> ChannelConfig:
         raise InputError("the bsc channel needs --ber X", "--channel bsc")
     if args.channel == "erasure" and args.loss_rate is None:
         raise InputError("the erasure channel needs --loss-rate P", "--channel erasure")
+    if args.channel in ("awgn", "erasure") and args.ber is not None:
+        raise InputError("--ber applies to the bsc and burst channels only", "--ber")
     if args.channel != "awgn" and args.ebn0 is not None:
         raise InputError("--ebn0 applies to the awgn channel only", "--ebn0")
     if args.channel == "burst" and (args.burst_length < 1 or not 0 < args.bad_fraction < 1):
@@ -140,7 +142,11 @@ def _plot(rows: list[dict], path: str) -> None:
     ax[0].semilogy(e, [r["ber_post_fec"] or np.nan for r in rows], "s-",
                    label=f"after FEC ({rows[0]['fec']})")
     ax[0].set_ylabel("bit error rate")
-    ax[1].semilogy(e, [r["frame_error_rate"] or np.nan for r in rows], "o-")
+    ax[1].semilogy(e, [r["frame_error_rate"] or np.nan for r in rows], "o-", label="measured")
+    if "frame_error_rate_theory" in rows[0]:
+        ax[1].semilogy(e, [r["frame_error_rate_theory"] for r in rows], "k--",
+                       label="theory, uncoded")
+        ax[1].legend(fontsize=8)
     ax[1].set_ylabel("frame error rate")
     ax[2].plot(e, [np.nan if r["snr_db_end_to_end"] is None else r["snr_db_end_to_end"]
                    for r in rows], "o-", label="end to end")

@@ -167,13 +167,17 @@ def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int 
            "bits_on_air_per_sample": air_bits / x.size,
            "snr_db_codec_only": enc.report.get("snr_db") if isinstance(enc.report, dict) else None}
     if cfg.kind == "awgn":
-        out["ber_channel_theory"] = float(ber_theory(cfg.modulation, cfg.ebn0_db
-                                                     + 10 * math.log10(codec_bits / air_bits)))
+        p = float(ber_theory(cfg.modulation, cfg.ebn0_db + 10 * math.log10(codec_bits / air_bits)))
+        out["ber_channel_theory"] = p
+        if fec == "none":  # a frame survives only if all its bits do (independent errors)
+            out["frame_error_rate_theory"] = float(np.mean(1.0 - (1.0 - p) ** enc.frames["bits"]))
     for key in rows[0]:
         if key == "ebn0_db":
             continue
         vals = [r[key] for r in rows]
         m, ci = ci95(vals)
+        if ci is not None and not key.startswith(("snr_", "fidelity_")):
+            ci = [max(ci[0], 0.0), ci[1]]  # counts and rates are never negative
         out[key] = m
         out[f"{key}_ci95"] = ci
     return out

@@ -141,5 +141,13 @@ def test_simulate_command_writes_the_json_keys(tmp_path, data, capsys):
         assert r["samples_delivered"] + r["samples_concealed"] + r["samples_lost"] == 640 * 6
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert "regulat" in capsys.readouterr().out
+    burst = tmp_path / "b.json"
+    assert main(["simulate", str(csv), "--channel", "burst", "--ber", "1e-4", "--burst-length",
+                 "30", "--fec", "rs255", "--interleave", "2", "--json", str(burst)]) == 0
+    r = json.loads(burst.read_text())
+    assert r["samples_delivered"] + r["samples_concealed"] + r["samples_lost"] == 640 * 6
+    assert r["bits_on_air_per_sample"] > r["bits_codec_per_sample"]
+    assert main(["simulate", str(csv), "--channel", "erasure", "--loss-rate", "0.3",
+                 "--conceal", "linear"]) == 0
     assert main(["simulate", str(csv), "--channel", "bsc"]) == 2  # needs --ber
     assert main(["simulate", str(csv), "--ebn0", "8:4:1"]) == 2
