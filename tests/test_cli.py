@@ -38,6 +38,8 @@ def test_encode_decode_inspect(sample_csv, tmp_path, capsys):
         assert key in report, key
     assert report["bits_total"] == 8 * stream.stat().st_size  # every bit of the stream
     assert set(report["per_channel"]) == {"temp", "vib"}
+    per_frame = report["per_frame"]
+    assert len(per_frame["fidelity"]) == report["frames"] and all(per_frame["met"])
     assert main(["decode", str(stream), "-o", str(out)]) == 0
     header = out.read_text().splitlines()[0]
     assert header == "time,temp,vib"

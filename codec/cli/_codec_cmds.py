@@ -100,12 +100,22 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile):
     return result
 
 
+def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
+    """The per-frame part of a JSON report, one list per column (compact for long streams)."""
+    return {
+        "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
+        "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
+        "fidelity": frames["fidelity"] if fidelity is None else fidelity,
+        "at_floor": frames["floor"], "met": frames["met"],
+    }
+
+
 def _encode(args) -> int:
     check_distinct(args.input, args.output)
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
     result = write_stream(args.output, table, profile)
-    write_json(args.json, result.report)
+    write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
@@ -195,6 +205,7 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
         "decoded_check": "error energy per frame recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
+    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
     return report, bool(met.all()), dec
 
 
