@@ -4,6 +4,7 @@ Data flows samples -> frames -> coefficients -> term selection -> quantizer ->
 frame layout -> bytes, and back in :func:`decode`.
 """
 
+from . import _wavelets  # noqa: F401  (registers db2..db10, sym4..sym8)
 from ._bases import Basis, as_basis, basis_from_code, basis_names, register_basis
 from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reconstruct
 from ._crc import crc16_ibm3740, crc32_iso_hdlc
