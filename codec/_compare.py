@@ -235,7 +235,8 @@ def _progress(total: int, show: bool):
         return _NoBar()
     from tqdm import tqdm
 
-    return tqdm(total=total, desc="bases x targets", unit="run", leave=False)
+    return tqdm(total=total, desc="bases x targets", unit="run", leave=False,
+                disable=None)  # None: no bar when standard error is not a terminal
 
 
 def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
