@@ -38,8 +38,8 @@ __all__ = ["Comparison", "compare_bases", "energy_compaction", "resolve_bases", 
 ROW_KEYS = (
     "channel", "basis", "fidelity_target", "bits_per_sample", "bits_per_frame_mean",
     "bits_per_frame_p95", "compression_ratio", "bits_saved_percent", "fidelity_min",
-    "fidelity_mean", "frames_below_target", "snr_db", "prd_percent", "max_abs_error",
-    "encode_seconds", "winner",
+    "fidelity_mean", "frames_below_target", "frames_at_floor", "snr_db", "prd_percent",
+    "max_abs_error", "encode_seconds", "winner",
 )
 
 
@@ -257,6 +257,9 @@ def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
             e_ref = info["reference_energy"]
             fid = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
             below = err > info["budget"]
+            # Frames held to the sensor-resolution floor, not to F, are counted apart and
+            # left out of the fidelity figures (as in the encoder's own report).
+            floor = np.asarray(info.get("floor", np.zeros(err.size, bool)), dtype=bool)
             bits = info["bits"].astype(np.float64)
             for c, name in [*enumerate(names), (None, "all")]:
                 sel = np.ones(channel.size, bool) if c is None else channel == c
@@ -264,6 +267,7 @@ def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
                 count = test[:, cols].size
                 raw_bits = raw.sum() * test.shape[0] if c is None else raw[c] * test.shape[0]
                 total_bits = bits[sel].sum()
+                judged = sel & ~floor
                 figs = error_figures(test[:, cols], xh[:, cols])
                 rows.append({
                     "channel": name, "basis": b, "fidelity_target": f,
@@ -272,9 +276,10 @@ def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
                     "bits_per_frame_p95": float(np.percentile(bits[sel], 95)),
                     "compression_ratio": raw_bits / total_bits if total_bits else None,
                     "bits_saved_percent": None,
-                    "fidelity_min": float(fid[sel].min()),
-                    "fidelity_mean": float(fid[sel].mean()),
+                    "fidelity_min": float(fid[judged].min()) if judged.any() else None,
+                    "fidelity_mean": float(fid[judged].mean()) if judged.any() else None,
                     "frames_below_target": int(below[sel].sum()),
+                    "frames_at_floor": int(floor[sel].sum()),
                     "snr_db": figs["snr_db"], "prd_percent": figs["prd_percent"],
                     "max_abs_error": figs["max_abs_error"], "encode_seconds": seconds,
                     "winner": False,

@@ -87,8 +87,9 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
     if profile is not None and profile.channels:
         rate = profile.channels[ch].sample_rate_hz
     idx = np.arange(win * n, win * n + n)
-    t = idx / rate if rate else idx
-    unit = "time (s)" if rate else "sample index (held-out)"
+    pos = cmp.train_samples + idx  # position in the whole input
+    t = pos / rate if rate else pos
+    unit = "time from the start of the input (s)" if rate else "sample index in the input"
     f = cmp.fidelities[0]
     axes = np.atleast_1d(bottom.subplots(grid_rows, cols, sharex=True, sharey=True)).ravel()
     original = cmp.test[idx, ch]

@@ -107,6 +107,10 @@ def _table(cmp) -> list[str]:
         out.append(f"  F = {f:g}: " + ", ".join(
             f"{r['channel']} {r['basis']} ({r['bits_per_sample']:.2f} bit/smp, "
             f"{r['bits_saved_percent']:.1f}% saved)" for r in wins))
+    floor = sum(r["frames_at_floor"] for r in cmp.rows if r["channel"] == "all")
+    if floor:
+        out.append(f"{floor} frames were held to the sensor-resolution floor instead of F "
+                   "(left out of F min / F mean)")
     out.append("(per-channel rows for every basis are in --json / --csv)")
     return out
 
@@ -115,6 +119,7 @@ def _line(r: dict) -> str:
     return (f"{r['basis']:<9} {r['fidelity_target']:>6g} {r['bits_per_sample']:>8.3f} "
             f"{r['bits_per_frame_mean']:>8.1f} {r['bits_per_frame_p95']:>7.0f} "
             f"{fmt(r['compression_ratio'], '.2f'):>6} {r['bits_saved_percent']:>7.1f} "
-            f"{r['fidelity_min']:>8.5f} {r['fidelity_mean']:>8.5f} {fmt(r['snr_db'], '.2f'):>7} "
+            f"{fmt(r['fidelity_min'], '.5f'):>8} {fmt(r['fidelity_mean'], '.5f'):>8} "
+            f"{fmt(r['snr_db'], '.2f'):>7} "
             f"{fmt(r['prd_percent'], '.3f'):>7} {r['max_abs_error']:>9.4g} "
             f"{1000 * r['encode_seconds']:>7.1f}{' *' if r['winner'] else ''}")
