@@ -232,4 +232,6 @@ def _describe(exc: ValidationError) -> str:
     if err["type"] == "extra_forbidden":
         return f"unknown key '{key}'; remove it or check its spelling"
     msg = err["msg"].removeprefix("Value error, ")
+    if not err["loc"]:
+        return msg  # a rule across several keys: the whole input would not help
     return f"key '{key}': {msg} (got {err.get('input')!r})"
