@@ -11,9 +11,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._bases import Basis, as_basis, basis_from_code
+from ._bases import Basis, basis_from_code
 from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
+from ._klt import profile_basis
 from ._layout import (
     LAYOUT_VERSION,
     FrameBatch,
@@ -125,7 +126,7 @@ def encode(samples, profile: Profile) -> EncodeResult:
     x = as_samples(samples)
     profile = _bind(profile, x.shape[1])
     n = profile.frame_length
-    basis = as_basis(profile.basis, n)
+    basis = profile_basis(profile)  # loads and hash-checks a trained basis
     frames, valid, channel, window = split_frames(x, n)
     mask = np.arange(n) < valid[:, None]
     resolution = np.array([c.resolution for c in profile.channels])[channel]
@@ -199,7 +200,7 @@ def decode(data: bytes, profile: Profile, samples: int | None = None) -> DecodeR
     channels = len(profile.channels)
     if channels == 0:
         raise ProfileError("the profile lists no channels; decode with the stream's own profile")
-    basis = as_basis(profile.basis, n)
+    basis = profile_basis(profile)  # loads and hash-checks a trained basis
     loc = locate_frames(data)
     if loc.offsets.size == 0:
         raise FrameError(
