@@ -156,10 +156,13 @@ def test_console_script_error_has_no_traceback(tmp_path):
 
 
 def test_demo_runs(tmp_path, capsys):
-    assert main(["demo", "--out", str(tmp_path)]) == 0
+    assert main(["demo", "--out", str(tmp_path), "--no-compare"]) == 0
     out = capsys.readouterr().out
     assert "ridge_station" in out and "orbiter_hk" in out and "caution" in out
     assert (tmp_path / "orbiter_hk.decoded.csv").is_file()
+    assert main(["demo", "--out", str(tmp_path), "--scenario", "orbiter_hk"]) == 0
+    assert "bases compared" in capsys.readouterr().out
+    assert (tmp_path / "orbiter_hk.compare.png").stat().st_size > 10_000
 
 
 def test_bundled_profiles_match_profiles_folder():

@@ -11,6 +11,7 @@ from __future__ import annotations
 from importlib import resources
 from pathlib import Path
 
+from .._compare import compare_bases
 from .._io import SampleTable, read_samples, write_samples
 from .._profile import load_profile
 from ._codec_cmds import roundtrip_report, write_stream
@@ -29,6 +30,8 @@ def register(sub) -> None:
                    help="folder for the demo's outputs (default: ./trimlink-demo)")
     p.add_argument("--scenario", choices=SCENARIOS, action="append",
                    help="run only this scenario (repeatable)")
+    p.add_argument("--no-compare", dest="compare", action="store_false",
+                   help="skip the comparison of bases")
     p.set_defaults(handler=_demo)
 
 
@@ -53,6 +56,8 @@ def _demo(args) -> int:
         write_json(out / f"{name}.report.json", report)
         status = max(status, 0 if ok else 1)
         _print_summary(name, profile, table, report, out)
+        if args.compare:
+            status = max(status, _print_comparison(name, profile, table, out))
     print("caution: this is lossy coding. Before relying on it for signals on which safety "
           "depends, justify the fidelity for that use; radio use is governed by local "
           "regulations and licensed practice.")
@@ -81,3 +86,31 @@ def _print_summary(name, profile, table, report, out) -> None:
               f"{fmt(r['fidelity_min'], '.4f'):>10}{r['max_abs_error']:>12.4g}")
     print(f"   outputs: {out / (name + '.tlk')} (+ .profile.toml), {name}.decoded.csv, "
           f"{name}.report.json")
+
+
+def _print_comparison(name, profile, table, out) -> int:
+    """Which basis saves the most bits on this scenario (held-out half), with a figure."""
+    from .._plots import plot_comparison  # matplotlib only when a figure is drawn
+
+    cmp = compare_bases(table.values, profile, bases="all", fidelities=(0.95, 0.99),
+                        train_fraction=0.5, names=table.names, input_name=name)
+    plot = out / f"{name}.compare.png"
+    plot_comparison(cmp, plot, profile=profile)
+    write_json(out / f"{name}.compare.json", {"rows": cmp.rows})
+    print(f"   bases compared on the last {cmp.test_samples} samples ('klt' trained on the first "
+          f"{cmp.train_samples}); bits/sample over all channels:")
+    overall = [r for r in cmp.rows if r["channel"] == "all"]
+    for fid in cmp.fidelities:
+        rows = sorted((r for r in overall if r["fidelity_target"] == fid),
+                      key=lambda r: r["bits_per_sample"])
+        best = ", ".join(f"{r['basis']} {r['bits_per_sample']:.2f}" for r in rows[:4])
+        ident = next(r for r in rows if r["basis"] == "identity")
+        print(f"   F = {fid}: {best}  ...  identity {ident['bits_per_sample']:.2f} "
+              f"(best saves {rows[0]['bits_saved_percent']:.1f} %)")
+    winners = [r for r in cmp.rows if r["winner"] and r["channel"] != "all"
+               and r["fidelity_target"] == cmp.fidelities[-1]]
+    print(f"   best basis per channel at F = {cmp.fidelities[-1]}: " + ", ".join(
+        f"{r['channel']} {r['basis']}" for r in winners))
+    print(f"   figure: {plot}")
+    missed = sum(r["frames_below_target"] for r in cmp.rows)
+    return 0 if missed == 0 else 1
