@@ -32,6 +32,7 @@ For a satellite in a circular orbit, replace ``distance_m`` by::
 
 from __future__ import annotations
 
+import difflib
 import tomllib
 from pathlib import Path
 from typing import Annotated, Literal
@@ -184,12 +185,17 @@ def _field_range(model: type[BaseModel], name: str) -> str | None:
 
 
 def _describe(exc: ValidationError) -> str:
-    err = exc.errors()[0]
+    errors = exc.errors()
+    # An unknown key is usually a misspelt known one, which then also shows up as
+    # missing: name the unknown key first.
+    err = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
     loc = [str(p) for p in err["loc"]]
     key = ".".join(loc) or "(top level)"
     if err["type"] == "extra_forbidden":
-        known = ", ".join(OrbitSpec.model_fields if loc[:1] == ["orbit"] else LinkFile.model_fields)
-        return f"unknown key '{key}'; the known keys are: {known}"
+        known = list(OrbitSpec.model_fields if loc[:1] == ["orbit"] else LinkFile.model_fields)
+        close = difflib.get_close_matches(loc[-1], known, n=1)
+        hint = f"did you mean '{close[0]}'?" if close else f"the known keys are: {', '.join(known)}"
+        return f"unknown key '{key}'; {hint}"
     if err["type"] == "missing":
         rng = _field_range(OrbitSpec if loc[:1] == ["orbit"] else LinkFile, loc[-1])
         return f"key '{key}' is missing; add it" + (f" ({rng})" if rng else "")
