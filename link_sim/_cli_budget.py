@@ -154,6 +154,10 @@ def _budget(args) -> int:
                        "best_fidelity": best["fidelity"] if best else None})
     per_frame = best["bits_per_frame_mean"] if best else None
     passing = pass_summary(budget, bits_per_frame=per_frame)
+    if passing and rows:
+        # Store and dump: how many seconds of the stream one pass carries at the link's rate.
+        for r in rows:
+            r["stream_seconds_per_pass"] = passing["data_volume_bits"] / r["bits_per_second"]
     report["pass"] = passing
     report["cautions"] = list(CAUTIONS)
     _print(args, budget, rows, best, passing, rate_info)
@@ -198,12 +202,18 @@ def _print(args, budget: Budget, rows, best, passing, rate_info) -> None:
         rate_hz, rate_src = rate_info
         out.append(f"stream at each fidelity ({rate_hz:g} samples/s from {rate_src}; bit/s = "
                    "coded bits / sample duration):")
+        dump = passing is not None
         out.append(f"  {'fidelity':>9} {'bit/s':>12} {'on air bit/s':>13} {'margin dB':>10} "
-                   f"{'SNR dB':>8}  fits")
+                   f"{'SNR dB':>8}  fits" + ("  stream s per pass" if dump else ""))
         for r in rows:
             out.append(f"  {r['fidelity']:>9g} {r['bits_per_second']:>12.6g} "
                        f"{r['channel_bits_per_second']:>13.6g} {r['margin_db']:>10.2f} "
-                       f"{fmt(r['snr_db'], '.2f'):>8}  {'yes' if r['fits'] else 'no'}")
+                       f"{fmt(r['snr_db'], '.2f'):>8}  {'yes' if r['fits'] else 'no ':<4}"
+                       + (f"  {r['stream_seconds_per_pass']:>18.6g}" if dump else ""))
+        if dump:
+            out.append("  (margin and fits: the stream sent live at its own rate; stream s per "
+                       "pass: seconds of stream one pass carries when stored and dumped at the "
+                       "link's data rate)")
         if best:
             out.append(f"best fidelity that fits with {link.required_margin_db:g} dB margin: "
                        f"{best['fidelity']:g} ({best['bits_per_second']:.6g} bit/s)")

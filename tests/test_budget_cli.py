@@ -154,6 +154,8 @@ def test_acceptance_fidelity_rows_and_best_fidelity(orbit_link, motions, tmp_pat
         assert row["margin_db"] == pytest.approx(
             r["cn0_dbhz"] - 10 * math.log10(row["bits_per_second"]) - r["required_ebn0_db"])
         assert row["fits"] == (row["bits_per_second"] <= capacity)
+        assert row["stream_seconds_per_pass"] == pytest.approx(
+            r["pass"]["data_volume_bits"] / row["bits_per_second"])
     assert any(x["fits"] for x in rows) and not all(x["fits"] for x in rows)
     assert r["best_fidelity"] == max(x["fidelity"] for x in rows if x["fits"])
     text = capsys.readouterr().out
