@@ -21,6 +21,7 @@ not add noise); put lossy feed-line noise into the system noise temperature.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -66,22 +67,30 @@ PASS_ELEVATIONS_DEG = (0.0, 5.0, 10.0, 15.0, 20.0, 30.0, 45.0, 60.0, 75.0, 90.0)
 
 #: Measured coded BER curves written by ``tools/make_fec_curves.py`` (link simulator).
 CURVES_PATH = Path(__file__).with_name("data") / "fec_curves.json"
-#: Information bits per channel bit of each FEC (Hamming 1950; CCSDS 131.0-B RS(255,223);
-#: K = 7 rate-1/2 convolutional code).
+#: Nominal information bits per channel bit of each FEC (Hamming 1950; CCSDS 131.0-B
+#: RS(255,223); K = 7 rate-1/2 convolutional code).  A measured curve's own rate on air
+#: (sync markers and padding included) takes precedence.
 _CODE_RATES = {"none": 1.0, "hamming74": 4.0 / 7.0, "rs255": 223.0 / 255.0, "conv": 0.5}
+#: Fewest post-FEC bit errors a curve point needs before we interpolate through it.
+_MIN_ERRORS = 10
 
 
 def code_rate(fec: str) -> float:
-    """Information bits per channel bit of ``fec``."""
+    """Nominal information bits per channel bit of ``fec``."""
     return _CODE_RATES[fec]
 
 
 @dataclass(frozen=True)
 class RequiredEbN0:
-    """Eb/N0 per information bit needed for a target BER, and where the number came from."""
+    """Eb/N0 per information bit needed for a target BER, and where the number came from.
+
+    ``code_rate`` is the information bits per bit on air that the number assumes.
+    """
 
     ebn0_db: float
     source: str
+    code_rate: float = 1.0
+    rate_source: str = "uncoded"
 
 
 def required_ebn0(modulation: str, fec: str, target_ber: float,
@@ -91,8 +100,9 @@ def required_ebn0(modulation: str, fec: str, target_ber: float,
     Uncoded: the closed-form BER Q(sqrt(2 Eb/N0)) (BPSK; Gray QPSK per bit is
     the same) inverted numerically with Brent's method.  Coded: the link
     simulator's measured curve, interpolated linearly in log10(BER) against
-    Eb/N0 in dB; a target below the lowest BER the simulation measured is
-    refused, never extrapolated.
+    Eb/N0 in dB between neighbouring points that each saw at least ten bit
+    errors; a target outside what the simulation measured is refused, never
+    extrapolated.
 
     Raises
     ------
@@ -115,11 +125,71 @@ def required_ebn0(modulation: str, fec: str, target_ber: float,
                                 Path(curves_path) if curves_path else CURVES_PATH)
 
 
+def _load_curves(path: Path, fec: str) -> dict:
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ProfileError(
+            f"no measured BER curve for fec = '{fec}' ({path} is missing); the required Eb/N0 "
+            "of a coded link comes only from the link simulator's curves, so make them with "
+            "tools/make_fec_curves.py or use fec = 'none'", "fec") from None
+    except (OSError, ValueError) as exc:
+        raise ProfileError(f"the measured BER curves cannot be read ({exc}); remake them with "
+                           "tools/make_fec_curves.py", str(path)) from None
+
+
 def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN0:
-    raise ProfileError(
-        f"no measured BER curve for fec = '{fec}' ({path} is missing); the required Eb/N0 "
-        "of a coded link comes only from the link simulator's curves, so make them with "
-        "tools/make_fec_curves.py or use fec = 'none'", "fec")
+    doc = _load_curves(path, fec)
+    curve = doc.get("curves", {}).get(fec)
+    if curve is None:
+        raise ProfileError(f"the measured curves have no entry for fec = '{fec}'; remake them "
+                           "with tools/make_fec_curves.py", str(path))
+    prov = doc.get("provenance", {})
+    min_err = int(prov.get("min_errors_for_interpolation", _MIN_ERRORS))
+    x = np.asarray(curve["ebn0_db"], float)
+    ber = np.asarray(curve["ber_post_fec"], float)
+    errors = np.asarray(curve["errors_post_fec"], float)
+    bits = curve.get("bits_info_per_point", prov.get("bits_info_per_point"))
+    ok = (errors >= min_err) & (ber > 0)
+    measured = f"{fec}, {str(curve.get('modulation', '?')).upper()} over AWGN"
+    if modulation != curve.get("modulation", modulation):
+        # Gray QPSK has the per-bit BER of BPSK over AWGN (Proakis 4.3), so the curve serves.
+        measured += f", used for Gray {modulation.upper()} (same BER per bit)"
+    if not ok.any():
+        raise ProfileError(f"the measured curve for fec = '{fec}' has no point with at least "
+                           f"{min_err} bit errors; remake it with more bits", str(path))
+    trusted = np.flatnonzero(ok)
+    lowest = trusted[np.argmin(ber[trusted])]
+    if target_ber < ber[lowest]:
+        floor = curve.get("below_floor_at_db")
+        bound = (f"; no error at all was seen from {floor:g} dB in {bits} bits, which bounds "
+                 f"the BER only below 1/{bits}" if floor is not None and bits else "")
+        raise ProfileError(
+            f"target_ber {target_ber:g} is below the lowest BER the simulator measured for "
+            f"fec = '{fec}' with at least {min_err} errors ({ber[lowest]:.3g} at "
+            f"{x[lowest]:g} dB){bound}; the budget does not extrapolate: raise target_ber or "
+            "remake the curves with more bits", str(path))
+    # First crossing between neighbouring trusted points, in log10(BER).
+    lt = math.log10(target_ber)
+    for i in range(x.size - 1):
+        if ok[i] and ok[i + 1] and ber[i] >= target_ber >= ber[i + 1]:
+            a, b = math.log10(ber[i]), math.log10(ber[i + 1])
+            value = float(x[i] if a == b else x[i] + (lt - a) / (b - a) * (x[i + 1] - x[i]))
+            break
+    else:
+        raise ProfileError(
+            f"target_ber {target_ber:g} is not bracketed by two measured points of the "
+            f"fec = '{fec}' curve ({x[0]:g} to {x[-1]:g} dB); the budget does not extrapolate: "
+            "remake the curves over a wider Eb/N0 range", str(path))
+    rate = float(curve.get("rate_on_air") or _CODE_RATES[fec])
+    made = ", ".join(f"{k} {prov[k]}" for k in ("command", "seed", "date_utc",
+                                                  "trimlink_version") if k in prov)
+    source = (f"measured post-FEC BER curve ({measured}, {bits} information bits per point; "
+              f"{made}) interpolated in log10 BER between {x[i]:g} and {x[i + 1]:g} dB "
+              f"at BER {target_ber:g}; file {path.name}")
+    rate_source = ("rate on air recorded with the measured curve (every bit on air counted)"
+                   if curve.get("rate_on_air") else "nominal code rate")
+    return RequiredEbN0(value, source, rate, rate_source)
 
 
 def fspl_db(distance_m, frequency_hz):
@@ -200,7 +270,7 @@ def compute_budget(link: LinkFile, distance_m: float | None = None, curves_path=
     prx = eirp - fspl - losses + link.rx_antenna_gain_dbi
     k_db = 10.0 * math.log10(BOLTZMANN_J_K)
     req = required_ebn0(link.modulation, link.fec, link.target_ber, curves_path)
-    rate = code_rate(link.fec)
+    rate = req.code_rate
 
     L = BudgetLine
     lines = [
@@ -244,7 +314,7 @@ def compute_budget(link: LinkFile, distance_m: float | None = None, curves_path=
         L("C/N0", cn0, "dB-Hz", "EIRP - path loss - other losses + G/T - 10 log10(k)"),
         L("data rate (information)", link.data_rate_bps, "bit/s", "link file, before FEC"),
         L("Eb/N0", ebn0, "dB", "C/N0 - 10 log10(R), per information bit"),
-        L("FEC code rate", rate, "-", f"fec = {link.fec}"),
+        L("FEC code rate", rate, "-", f"fec = {link.fec}: {req.rate_source}"),
         L("channel bit rate on air", link.data_rate_bps / rate, "bit/s", "R / code rate"),
         L("Ec/N0 per channel bit", ebn0 + 10.0 * math.log10(rate), "dB",
           "Eb/N0 + 10 log10(code rate)"),
