@@ -31,6 +31,7 @@ from scipy.optimize import brentq
 
 from codec import ProfileError
 
+from ._fec import make_code
 from ._linkfile import SPEED_OF_LIGHT_M_S, LinkFile
 from ._orbit import (
     EARTH_RADIUS_M,
@@ -67,17 +68,17 @@ PASS_ELEVATIONS_DEG = (0.0, 5.0, 10.0, 15.0, 20.0, 30.0, 45.0, 60.0, 75.0, 90.0)
 
 #: Measured coded BER curves written by ``tools/make_fec_curves.py`` (link simulator).
 CURVES_PATH = Path(__file__).with_name("data") / "fec_curves.json"
-#: Nominal information bits per channel bit of each FEC (Hamming 1950; CCSDS 131.0-B
-#: RS(255,223); K = 7 rate-1/2 convolutional code).  A measured curve's own rate on air
-#: (sync markers and padding included) takes precedence.
-_CODE_RATES = {"none": 1.0, "hamming74": 4.0 / 7.0, "rs255": 223.0 / 255.0, "conv": 0.5}
 #: Fewest post-FEC bit errors a curve point needs before we interpolate through it.
 _MIN_ERRORS = 10
 
 
 def code_rate(fec: str) -> float:
-    """Nominal information bits per channel bit of ``fec``."""
-    return _CODE_RATES[fec]
+    """Nominal information bits per channel bit of ``fec`` (the simulator's code).
+
+    A measured curve's own rate on air (sync markers and padding counted) takes
+    precedence over this in the budget.
+    """
+    return float(make_code(fec).rate)
 
 
 @dataclass(frozen=True)
@@ -162,8 +163,9 @@ def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN
     lowest = trusted[np.argmin(ber[trusted])]
     if target_ber < ber[lowest]:
         floor = curve.get("below_floor_at_db")
-        bound = (f"; no error at all was seen from {floor:g} dB in {bits} bits, which bounds "
-                 f"the BER only below 1/{bits}" if floor is not None and bits else "")
+        bound = (f"; from {floor:g} dB no error at all was seen in {bits} bits, so there the "
+                 f"BER is only known to be below about 1/{bits}" if floor is not None and bits
+                 else "")
         raise ProfileError(
             f"target_ber {target_ber:g} is below the lowest BER the simulator measured for "
             f"fec = '{fec}' with at least {min_err} errors ({ber[lowest]:.3g} at "
@@ -181,8 +183,8 @@ def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN
             f"target_ber {target_ber:g} is not bracketed by two measured points of the "
             f"fec = '{fec}' curve ({x[0]:g} to {x[-1]:g} dB); the budget does not extrapolate: "
             "remake the curves over a wider Eb/N0 range", str(path))
-    rate = float(curve.get("rate_on_air") or _CODE_RATES[fec])
-    made = ", ".join(f"{k} {prov[k]}" for k in ("command", "seed", "date_utc",
+    rate = float(curve.get("rate_on_air") or code_rate(fec))
+    made = ", ".join(f"{k} {str(prov[k]).strip()}" for k in ("command", "seed", "date_utc",
                                                   "trimlink_version") if k in prov)
     source = (f"measured post-FEC BER curve ({measured}, {bits} information bits per point; "
               f"{made}) interpolated in log10 BER between {x[i]:g} and {x[i + 1]:g} dB "

@@ -42,14 +42,15 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 
 from codec import ProfileError
 
+from ._channels import MODULATIONS
+from ._fec import FEC_NAMES
+
 __all__ = ["LinkFile", "OrbitSpec", "load_link", "link_from_dict", "SPEED_OF_LIGHT_M_S",
            "MODULATIONS", "FEC_NAMES"]
 
 #: Speed of light in vacuum, m/s (exact by definition of the metre, SI).
 SPEED_OF_LIGHT_M_S = 299_792_458.0
 
-MODULATIONS = ("bpsk", "qpsk")
-FEC_NAMES = ("none", "hamming74", "rs255", "conv")
 
 _Loss = Annotated[float, Field(ge=0.0, le=300.0, allow_inf_nan=False)]
 
@@ -97,8 +98,9 @@ class LinkFile(BaseModel):
     antenna_temperature_k: float | None = Field(default=None, ge=0.0, le=1e5,
                                                 allow_inf_nan=False)
     data_rate_bps: float = Field(gt=0.0, le=1e12, allow_inf_nan=False)
-    modulation: Literal["bpsk", "qpsk"] = "bpsk"
-    fec: Literal["none", "hamming74", "rs255", "conv"] = "none"
+    # The link simulator's own lists, so the budget offers exactly what it simulates.
+    modulation: Literal[MODULATIONS] = "bpsk"
+    fec: Literal[FEC_NAMES] = "none"
     target_ber: float = Field(default=1e-5, ge=1e-12, le=0.1, allow_inf_nan=False)
     required_margin_db: float = Field(default=3.0, ge=0.0, le=60.0, allow_inf_nan=False)
 

@@ -232,3 +232,34 @@ def test_plot_is_written(orbit_link, motions, tmp_path):
                  "--fidelity", "0.9,0.99", "--plot", str(png)]) == 0
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, sec. 5.2)
     assert not list(tmp_path.glob(".*.part"))
+
+
+def test_coded_link_uses_the_shipped_measured_curve(hand_link, tmp_path, capsys):
+    # The Eb/N0 a coded link needs comes from the link simulator's measured curve, with
+    # its provenance in the budget line; where the curve measured the target it is used.
+    coded = tmp_path / "coded.link.toml"
+    coded.write_text(HAND_LINK.replace('fec = "none"', 'fec = "conv"')
+                     .replace("target_ber = 1e-5", "target_ber = 1e-3"), encoding="utf-8")
+    out = tmp_path / "c.json"
+    assert main(["budget", str(coded), "--json", str(out)]) == 0
+    r = json.loads(out.read_text())
+    # A K = 7 rate-1/2 convolutional code with soft Viterbi decoding needs far less than
+    # uncoded BPSK's 6.8 dB at 1e-3 (Proakis 8.2: about 5 dB of coding gain at 1e-5;
+    # from memory), so expect well under 6.8 dB and a rate near 1/2 on air.
+    assert r["required_ebn0_db"] < 6.8 - 2.0
+    assert 0.45 < r["code_rate"] <= 0.5
+    assert "measured post-FEC BER curve" in r["required_ebn0_source"]
+    assert r["channel_bit_rate_bps"] == pytest.approx(4800.0 / r["code_rate"])
+    assert "seed" in r["required_ebn0_source"]
+    capsys.readouterr()
+
+
+def test_coded_target_beyond_the_curve_is_refused_not_extrapolated(tmp_path, capsys):
+    coded = tmp_path / "coded.link.toml"
+    coded.write_text(HAND_LINK.replace('fec = "none"', 'fec = "rs255"')
+                     .replace("target_ber = 1e-5", "target_ber = 1e-9"), encoding="utf-8")
+    out = tmp_path / "c.json"
+    assert main(["budget", str(coded), "--json", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "does not extrapolate" in err and "rs255" in err
+    assert len(err.strip().splitlines()) == 1 and not out.exists()

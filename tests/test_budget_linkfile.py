@@ -97,3 +97,10 @@ def test_unreadable_files(tmp_path):
         load_link(tmp_path / "missing.link.toml")
     with pytest.raises(ProfileError, match="not valid TOML"):
         load_link(_write(tmp_path, "frequency_hz = = 3"))
+
+
+def test_link_file_offers_what_the_simulator_simulates():
+    from link_sim import FEC_NAMES
+    from link_sim._channels import MODULATIONS
+    assert LinkFile.model_fields["fec"].annotation.__args__ == FEC_NAMES
+    assert LinkFile.model_fields["modulation"].annotation.__args__ == MODULATIONS
