@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -229,7 +229,6 @@ class Budget:
     figures: dict
     required: RequiredEbN0
     cn0_dbhz: float
-    notes: list[str] = field(default_factory=list)
 
     def ebn0_db(self, rate_bps):
         """Eb/N0 per information bit at information rate ``rate_bps``."""

@@ -129,6 +129,8 @@ def _budget(args) -> int:
         given = [o for o, v in (("-p", args.profile), ("--sample-rate-hz", args.sample_rate_hz),
                                 ("--basis", args.basis), ("--reference", args.reference),
                                 ("--frame-length", args.frame_length)) if v is not None]
+        if args.fidelity != DEFAULT_FIDELITIES:
+            given.append("--fidelity")
         if given:
             raise InputError(f"{', '.join(given)} describe the stream and need --input SAMPLE",
                              "command line")
@@ -227,6 +229,8 @@ def _print(args, budget: Budget, rows, best, passing, rate_info) -> None:
 def _check_plot_path(path: str) -> None:
     if Path(path).suffix.lower() not in (".png", ".svg", ".pdf"):
         raise InputError("the plot must be a .png, .svg or .pdf file", path)
+    if not Path(path).resolve().parent.is_dir():
+        raise InputError("the plot's folder does not exist; create it first", path)
 
 
 def _plot(path: str, budget: Budget, rows, passing) -> None:

@@ -212,6 +212,8 @@ def test_bad_fidelity_list(hand_link, motions, tmp_path, capsys, extra, words):
 def test_stream_options_need_input(hand_link, capsys):
     assert main(["budget", str(hand_link), "--sample-rate-hz", "10"]) == 2
     assert "need --input" in capsys.readouterr().err
+    assert main(["budget", str(hand_link), "--fidelity", "0.9"]) == 2
+    assert "--fidelity" in capsys.readouterr().err
 
 
 def test_bad_link_file_exits_2_without_output(tmp_path, capsys):
