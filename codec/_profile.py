@@ -136,7 +136,8 @@ def load_profile(path: str | Path) -> Profile:
     except FileNotFoundError:
         raise ProfileError("no such profile file; check the path", str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise ProfileError(f"cannot read the profile ({exc.__class__.__name__})", str(path)) from None
+        raise ProfileError(f"cannot read the profile ({exc.__class__.__name__})",
+                           str(path)) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -108,9 +108,18 @@ def choose_steps(
     scale = np.abs(cx).max(axis=1)
     if mean is not None:
         scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
-    lo = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
-    hi = np.full(nf, STEP_CODE_MAX, dtype=np.int64)
+    floor = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
     limit = budget * _MARGIN
+    # Bracket: rounding errs by at most half a step per term, so a step of
+    # sqrt(4 B / N) always fits the budget B; a step of 4x the largest
+    # coefficient zeroes every term.  Bisection then needs ~6 rounds, not 10.
+    safe = code_for_step(np.sqrt(4.0 * limit / n))
+    safe = np.where(step_from_code(safe) > np.sqrt(4.0 * limit / n), safe - 1, safe)
+    lo = np.maximum(floor, np.clip(safe, 0, STEP_CODE_MAX))
+    ok_lo = code_frame(cx, mean, dc, lo)[2] <= limit
+    lo = np.where(ok_lo, lo, floor)  # float rounding at the edge: fall back to the floor
+    hi = np.minimum(code_for_step(4.0 * np.maximum(scale, 1e-300)) + 1, STEP_CODE_MAX)
+    hi = np.maximum(hi, lo)
     ok_hi = code_frame(cx, mean, dc, hi)[2] <= limit
     lo = np.where(ok_hi, hi, lo)
     while True:
