@@ -161,8 +161,24 @@ def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN
                            f"{min_err} bit errors; remake it with more bits", str(path))
     trusted = np.flatnonzero(ok)
     lowest = trusted[np.argmin(ber[trusted])]
+    rate = float(curve.get("rate_on_air") or code_rate(fec))
+    rate_source = ("rate on air recorded with the measured curve (every bit on air counted)"
+                   if curve.get("rate_on_air") else "nominal code rate")
+    made = ", ".join(f"{k} {str(prov[k]).strip()}" for k in ("command", "seed", "date_utc",
+                                                  "trimlink_version") if k in prov)
+    floor = curve.get("below_floor_at_db")
+    if target_ber < ber[lowest] and floor is not None and bits and 3.0 / bits <= target_ber:
+        # No error at all in `bits` trials: the one-sided 95 % upper bound on the BER is
+        # about 3 / bits (the "rule of three": Hanley & Lippman-Hand, JAMA 249, 1983).  If
+        # that bound is already below the target, the floor point's Eb/N0 is enough: a
+        # conservative requirement, measured rather than extrapolated.
+        source = (f"conservative bound from the measured curve ({measured}; {made}): no bit "
+                  f"error in {bits} information bits at {floor:g} dB, so BER < 3/{bits} = "
+                  f"{3.0 / bits:.2g} there (rule of three, 95 %), below the target "
+                  f"{target_ber:g}; the true requirement lies between {x[lowest]:g} and "
+                  f"{floor:g} dB; file {path.name}")
+        return RequiredEbN0(float(floor), source, rate, rate_source)
     if target_ber < ber[lowest]:
-        floor = curve.get("below_floor_at_db")
         bound = (f"; from {floor:g} dB no error at all was seen in {bits} bits, so there the "
                  f"BER is only known to be below about 1/{bits}" if floor is not None and bits
                  else "")
@@ -183,14 +199,9 @@ def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN
             f"target_ber {target_ber:g} is not bracketed by two measured points of the "
             f"fec = '{fec}' curve ({x[0]:g} to {x[-1]:g} dB); the budget does not extrapolate: "
             "remake the curves over a wider Eb/N0 range", str(path))
-    rate = float(curve.get("rate_on_air") or code_rate(fec))
-    made = ", ".join(f"{k} {str(prov[k]).strip()}" for k in ("command", "seed", "date_utc",
-                                                  "trimlink_version") if k in prov)
     source = (f"measured post-FEC BER curve ({measured}, {bits} information bits per point; "
               f"{made}) interpolated in log10 BER between {x[i]:g} and {x[i + 1]:g} dB "
               f"at BER {target_ber:g}; file {path.name}")
-    rate_source = ("rate on air recorded with the measured curve (every bit on air counted)"
-                   if curve.get("rate_on_air") else "nominal code rate")
     return RequiredEbN0(value, source, rate, rate_source)
 
 

@@ -74,6 +74,27 @@ def test_target_below_the_measured_floor_is_refused(tmp_path):
     assert required_ebn0("bpsk", "rs255", 1e-3, curves_path=path).ebn0_db > 0
 
 
+def test_zero_error_point_gives_a_conservative_requirement(tmp_path):
+    # Measured to BER ~1e-4 with >= 10 errors at 4 dB, then no error at all in 4e6 bits at
+    # 4.5 dB.  The one-sided 95 % upper bound for zero events in n trials is 3/n (the "rule of
+    # three", Hanley & Lippman-Hand, JAMA 249, 1983): 7.5e-7 here.  A target of 1e-5 is
+    # therefore met at 4.5 dB, a conservative answer; a target of 1e-7 (< 7.5e-7) is not known.
+    doc = {"provenance": {"command": "test", "bits_info_per_point": 4_000_000,
+                          "min_errors_for_interpolation": 10},
+           "curves": {"rs255": {"modulation": "bpsk", "rate_on_air": 0.8,
+                                "bits_info_per_point": 4_000_000,
+                                "ebn0_db": [3.0, 3.5, 4.0, 4.5],
+                                "ber_post_fec": [1e-2, 1e-3, 1e-4, 0.0],
+                                "errors_post_fec": [40000, 4000, 400, 0],
+                                "below_floor_at_db": 4.5}}}
+    path = tmp_path / "c.json"
+    path.write_text(json.dumps(doc), encoding="utf-8")
+    got = required_ebn0("bpsk", "rs255", 1e-5, curves_path=path)
+    assert got.ebn0_db == 4.5 and "rule of three" in got.source
+    with pytest.raises(ProfileError, match="does not extrapolate"):
+        required_ebn0("bpsk", "rs255", 1e-7, curves_path=path)
+
+
 def test_missing_fec_entry_and_unreadable_file(tmp_path):
     path = _write_curves(tmp_path / "c.json", np.arange(0.0, 12.01, 0.5))
     with pytest.raises(ProfileError, match="no entry for fec = 'conv'"):
