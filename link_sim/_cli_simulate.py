@@ -28,7 +28,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "simulate", help="send a coded sample file across a simulated noisy link",
         description="Encode INPUT, protect the stream with an FEC, pass it through a channel "
-        "model and report what the receiver reconstructs (mean and 95%% interval over trials).")
+        "model and report what the receiver reconstructs (mean and 95 % interval over trials).")
     p.add_argument("input", metavar="INPUT")
     add_profile_options(p)
     p.add_argument("--channel", choices=CHANNEL_KINDS, default="awgn")
