@@ -11,9 +11,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._bases import Basis, as_basis, basis_from_code
+from ._bases import Basis, basis_from_code
 from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
+from ._klt import profile_basis
 from ._layout import (
     K_INIT_BITS,
     LAYOUT_VERSION,
@@ -141,13 +142,13 @@ def encode(samples, profile: Profile) -> EncodeResult:
     x = as_samples(samples)
     profile = _bind(profile, x.shape[1])
     n = profile.frame_length
-    basis = as_basis(profile.basis, n)
+    basis = profile_basis(profile)  # loads and hash-checks a trained basis
     frames, valid, channel, window = split_frames(x, n)
     mask = np.arange(n) < valid[:, None]
     resolution = np.array([c.resolution for c in profile.channels])[channel]
     peak = np.abs(np.where(mask, frames, 0.0)).max(axis=1)
     e_ref = reference_energy(frames, valid, profile.reference)
-    budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak)
+    budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak, n)
     mean = None
     if profile.reference == "ac":
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
@@ -202,8 +203,16 @@ def encode(samples, profile: Profile) -> EncodeResult:
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
         rows = bad
         drop = step_drop(rows)
+        if not (drop > 0).any():
+            # Synthesize all frames in one call, as the decoder does: BLAS may round a
+            # subset differently from the whole batch, so the check is redone on this.
+            recon = reconstruct(q, mean_int, code, basis)
+            err = _valid_error(frames, recon, mask)
+            rows = np.arange(code.size)
+            drop = step_drop(rows)
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     met = err <= budget
+    floor = budget > (1.0 - profile.fidelity) * e_ref
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
     if profile.layout_version == 1:
         kept = q != 0
@@ -222,10 +231,10 @@ def encode(samples, profile: Profile) -> EncodeResult:
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
-        "reference_energy": e_ref, "fidelity": fidelity, "met": met,
+        "reference_energy": e_ref, "fidelity": fidelity, "met": met, "floor": floor,
         "max_abs_error": _valid_max_error(frames, recon, mask),
     }
-    report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met,
+    report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met, floor,
                            header_bits=header_bits)
     return EncodeResult(data, profile, x_hat, info, report)
 
@@ -318,7 +327,7 @@ def decode(data: bytes, profile: Profile, samples: int | None = None) -> DecodeR
     channels = len(profile.channels)
     if channels == 0:
         raise ProfileError("the profile lists no channels; decode with the stream's own profile")
-    basis = as_basis(profile.basis, n)
+    basis = profile_basis(profile)  # loads and hash-checks a trained basis
     loc = locate_frames(data)
     if loc.offsets.size == 0:
         raise FrameError(

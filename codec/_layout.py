@@ -281,27 +281,20 @@ def pack_frame_reference(fields: dict, mean: int | None, index: list[int], value
 
 def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list[int], list[int]]:
     """Parse one frame with bitstring; the inverse of :func:`pack_frame_reference`."""
-    s = bitstring.Bits(frame)
-    pos = 0
-
-    def take(width: int, signed: bool = False) -> int:
-        nonlocal pos
-        field = s[pos : pos + width]
-        pos += width
-        return field.int if signed else field.uint
-
-    if s[:16].tobytes() != SYNC:
+    bits = bitstring.Bits(frame)
+    if bits[:16].tobytes() != SYNC:
         raise ValueError("no sync marker")
-    pos = 16
-    head = {name: take(b) for name, b, _ in HEADER_FIELDS}
-    mean = take(head["mean_width"], True) if head["mean_width"] else None
+    names = [name for name, _, _ in HEADER_FIELDS]
+    values = bits[16:].unpack(",".join(f"uint:{b}" for _, b, _ in HEADER_FIELDS))
+    head = dict(zip(names, values))
+    mw, vw, terms = head["mean_width"], head["value_width"], head["terms"]
     ib = index_bits(n)
-    index, value = [], []
-    for _ in range(head["terms"]):
-        index.append(take(ib))
-        value.append(take(head["value_width"], True) if head["value_width"] else 0)
-    pos += (-pos) % 8
-    crc = take(16)
+    fmt = _bitstring_format(mw, terms, ib, vw, 0)[1 + len(HEADER_FIELDS):]
+    rest = bits[8 * HEADER_BYTES :].unpack(",".join(fmt)) if fmt else []
+    mean = rest[0] if mw else None
+    pairs = rest[1:] if mw else rest
+    index, value = list(pairs[0::2]), list(pairs[1::2])
+    crc = bits[-16:].uint
     if crc != crc16_ibm3740(frame[len(SYNC) : -CRC_BYTES]):
         raise ValueError("CRC mismatch")
     return head, mean, index, value

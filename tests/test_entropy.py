@@ -138,8 +138,10 @@ def test_exp_golomb_large_round_trip(values):
 def test_pack_bits_matches_bit_level_packer(fields):
     w = np.array([f[0] for f in fields], dtype=np.int64)
     v = np.array([f[1] % (1 << f[0]) if f[0] < 64 else f[1] for f in fields], dtype=np.uint64)
-    assert pack_bits(v, w).tobytes() == pack_fields(v, w).tobytes()
-    assert bits_of(v, w) == "".join(format(b, "08b") for b in pack_bits(v, w))[: int(w.sum())]
+    packed = pack_bits(v, w)
+    assert bits_of(v, w) == "".join(format(b, "08b") for b in packed)[: int(w.sum())]
+    if w.size == 0 or w.max() <= 57:  # the bit-level packer takes fields up to 57 bits
+        assert packed.tobytes() == pack_fields(v, w).tobytes()
 
 
 def test_zigzag_round_trip_and_order():

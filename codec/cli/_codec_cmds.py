@@ -28,7 +28,7 @@ from .._report import error_figures
 from .._stream import locate_frames
 from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
 
-__all__ = ["register", "roundtrip_report"]
+__all__ = ["register", "roundtrip_report", "write_stream"]
 
 _CAUTION = ("caution: lossy coding; do not use it for signals on which safety depends "
             "unless the fidelity has been justified for that use.")
@@ -88,25 +88,40 @@ def _stream_profile(args) -> tuple[Profile, StreamNote | None]:
     return load_stream_note(note)
 
 
+def write_stream(path: str | Path, table: SampleTable, profile: Profile):
+    """Encode ``table`` and write the stream plus its recorded profile, atomically together."""
+    result = encode(table.values, profile)
+    note = _note_for(table)
+    with contextlib.ExitStack() as stack:
+        tmp_stream = stack.enter_context(atomic_output(path))
+        tmp_note = stack.enter_context(atomic_output(note_path(path)))
+        tmp_stream.write_bytes(result.data)
+        save_stream_note(result.profile, note, tmp_note)
+    return result
+
+
+def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
+    """The per-frame part of a JSON report, one list per column (compact for long streams)."""
+    return {
+        "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
+        "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
+        "fidelity": frames["fidelity"] if fidelity is None else fidelity,
+        "at_floor": frames["floor"], "met": frames["met"],
+    }
+
+
 def _encode(args) -> int:
     check_distinct(args.input, args.output)
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
-    result = encode(table.values, profile)
-    note = _note_for(table)
-    with contextlib.ExitStack() as stack:
-        tmp_stream = stack.enter_context(atomic_output(args.output))
-        tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
-        tmp_stream.write_bytes(result.data)
-        save_stream_note(result.profile, note, tmp_note)
-        if args.json:
-            write_json(args.json, result.report)
+    result = write_stream(args.output, table, profile)
+    write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
-          f"ratio {fmt(r['compression_ratio'], '.2f')}); "
-          f"fidelity min {fmt(r['fidelity_min'], '.5f')}"
-          f" (target {r['fidelity_target']}), SNR {fmt(r['snr_db'], '.2f')} dB")
+          f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
+          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']}), "
+          f"SNR {fmt(r['snr_db'], '.2f')} dB")
     print(_CAUTION)
     return 0
 
@@ -157,13 +172,14 @@ def _decode(args) -> int:
     return 0
 
 
-def roundtrip_report(values: np.ndarray, profile: Profile) -> tuple[dict, bool]:
-    """Encode, decode the bytes, and check every frame on the decoded samples.
+def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
+    """Encode (unless ``enc`` is given), decode the bytes, check every frame on the decoded samples.
 
     The check is independent of the encoder's own: error energy per frame is
     recomputed from the decoded output and compared with the frame's budget.
+    Returns ``(report, ok, decoded)``.
     """
-    enc = encode(values, profile)
+    enc = enc if enc is not None else encode(values, profile)
     dec = decode(enc.data, enc.profile, samples=values.shape[0])
     if dec.samples.shape != values.shape or not dec.delivered.all():
         raise RuntimeError("a clean round trip lost samples")  # our bug
@@ -181,25 +197,29 @@ def roundtrip_report(values: np.ndarray, profile: Profile) -> tuple[dict, bool]:
     e_ref = info["reference_energy"]
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     report = dict(enc.report)
+    judged = fidelity[~info["floor"]]
     report.update({
-        "fidelity_min": float(fidelity.min()),
-        "fidelity_mean": float(fidelity.mean()),
+        "fidelity_min": float(judged.min()) if judged.size else None,
+        "fidelity_mean": float(judged.mean()) if judged.size else None,
         "frames_below_target": int((~met).sum()),
         "decoded_check": "error energy per frame recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
-    return report, bool(met.all())
+    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
+    return report, bool(met.all()), dec
 
 
 def _roundtrip(args) -> int:
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
-    report, ok = roundtrip_report(table.values, profile)
+    report, ok, _ = roundtrip_report(table.values, profile)
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
           f"(ratio {fmt(report['compression_ratio'], '.2f')}), fidelity min "
           f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']}), "
-          f"{report['frames_below_target']} frames below target, SNR {fmt(report['snr_db'], '.2f')}"
+          f"{report['frames_below_target']} frames below target "
+          f"({report['frames_at_floor']} held to "
+          f"the resolution floor), SNR {fmt(report['snr_db'], '.2f')}"
           f" dB, PRD {fmt(report['prd_percent'], '.3f')} %, max abs error "
           f"{report['max_abs_error']:.6g}")
     print(_CAUTION)
@@ -230,9 +250,8 @@ def _inspect(args) -> int:
            f"{'bits':>6}  crc"]
     for off, status, i in rows:
         if i is None:
-            dash = "-"
-            out.append(f"{off:>9} {dash:>6} {dash:<14} {dash:<9} {dash:>5} {dash:>11} "
-                       f"{dash:>6}  {status}")
+            out.append(f"{off:>9} {'-':>6} {'-':<14} {'-':<9} {'-':>5} {'-':>11} {'-':>6}  "
+                       f"{status}")
             continue
         ch = int(head["channel"][i])
         chan = names[ch] if names and ch < len(names) else str(ch)
@@ -252,8 +271,6 @@ def _inspect(args) -> int:
     return 0
 
 
-
-
 def _inspect_v2(data: bytes, loc, profile: Profile | None, where: str) -> int:
     """Frame table of a layout-2 stream (its payload needs the profile to be read)."""
     if profile is None:
@@ -262,11 +279,11 @@ def _inspect_v2(data: bytes, loc, profile: Profile | None, where: str) -> int:
     dec = decode(data, profile)
     f = dec.frames
     names = [c.name for c in profile.channels]
-    out = [f"{'byte':>9} {'seq':>6} {'channel':<14} {'terms':>5} {'step':>11} {'bits':>6}"]
+    out = [f"{'byte':>9} {'seq':>6} {'channel':<14} {'terms':>5} {'step':>11} {'bits':>6}  crc"]
     for i in range(f["offset"].size):
         out.append(f"{int(f['offset'][i]):>9} {int(f['sequence'][i]):>6} "
                    f"{names[int(f['channel'][i])]:<14} {int(f['terms'][i]):>5} "
-                   f"{step_from_code(f['step_code'][i]):>11.4g} {int(f['bits'][i]):>6}")
+                   f"{step_from_code(f['step_code'][i]):>11.4g} {int(f['bits'][i]):>6}  ok")
     out += [f"{off:>9} CRC FAILED" for off in loc.crc_failures]
     out.append(f"{loc.offsets.size} frames ok (layout 2), {len(loc.crc_failures)} CRC failures, "
                f"{loc.skipped_bytes} bytes outside frames")
