@@ -278,6 +278,7 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
 
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
 RD_OFFSETS = (0.5, 0.36)
+_RD_BLOCK = 4096
 
 
 def _rate_fidelity_choice(cx, mean, dc, budget, n):
@@ -286,6 +287,13 @@ def _rate_fidelity_choice(cx, mean, dc, budget, n):
     For each candidate offset the largest step that meets the budget is found,
     and the exact v2 payload size of the result is counted; the cheaper wins.
     """
+    nf = cx.shape[0]
+    if nf > _RD_BLOCK:  # frames are independent: work block by block so temporaries stay cached
+        parts = [_rate_fidelity_choice(cx[a : a + _RD_BLOCK],
+                                       None if mean is None else mean[a : a + _RD_BLOCK],
+                                       dc, budget[a : a + _RD_BLOCK], n)
+                 for a in range(0, nf, _RD_BLOCK)]
+        return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
     best_code = best_off = best_bits = None
     for off in RD_OFFSETS:
         code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
