@@ -16,13 +16,10 @@ from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
 from ._klt import profile_basis
 from ._layout import (
-    K_INIT_BITS,
     LAYOUT_VERSION,
     LAYOUT_VERSION_2,
-    STEP_BITS,
     FrameBatch,
     FrameBatchV2,
-    count_bits,
     expected_length,
     frame_version,
     index_bits,
@@ -266,13 +263,12 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     batch = FrameBatchV2(
         multi=np.full(first.size, multi), channel=channel[first], sequence=window[first],
         valid=valid[first], frame=frame, step_code=code, mean=mean_int, q=q)
-    data, lengths, sub_bits = pack_frames_v2(batch, profile_id(profile), n)
+    data, lengths, sub_bits, side_bits = pack_frames_v2(batch, profile_id(profile), n)
     cnt = np.bincount(frame, minlength=first.size)
     overhead = lengths * 8 - np.add.reduceat(sub_bits, first)
     bits = sub_bits + (overhead // cnt)[frame]
     bits[first] += overhead - (overhead // cnt) * cnt
-    coef_bits = sub_bits - (STEP_BITS + count_bits(n) + np.where((q != 0).any(axis=1),
-                                                                  K_INIT_BITS, 0))
+    coef_bits = sub_bits - side_bits
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
 
 

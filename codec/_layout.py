@@ -437,7 +437,11 @@ def initial_parameter(mag0: np.ndarray) -> np.ndarray:
 
 
 def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.ndarray:
-    """Exact bits of each subframe (rows of ``q``) in layout v2, frame header excluded."""
+    """Bits of each subframe (rows of ``q``) in layout v2, frame header excluded.
+
+    Exact for a subframe that leads its frame; a later subframe of a
+    multi-channel frame sends its step as a difference, usually in fewer bits.
+    """
     from ._entropy import bit_length as _bit_length
     from ._entropy import zigzag
 
@@ -477,7 +481,8 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
                    ) -> tuple[bytes, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout v2.
 
-    Returns the bytes, each frame's byte length and each subframe's payload bits.
+    Returns the bytes, each frame's byte length, each subframe's payload bits
+    and, of those, its side-information bits (step, count, k_init).
     """
     from ._entropy import bit_length as _bit_length
     from ._entropy import pack_bits, zigzag
@@ -498,8 +503,13 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     wid = np.zeros((ns, slots), dtype=np.int64)
     # subframe header
     s0 = nh
-    val[:, s0] = batch.step_code
-    wid[:, s0] = STEP_BITS
+    # The first subframe of a frame sends its step code in 10 bits; the others
+    # send the change from the previous subframe's code, exp-Golomb order 0 of
+    # its zigzag (channels of one window usually have similar steps).
+    lead = np.r_[True, batch.frame[1:] != batch.frame[:-1]]
+    dz = zigzag(np.diff(batch.step_code, prepend=0)) + 1
+    val[:, s0] = np.where(lead, batch.step_code, dz)
+    wid[:, s0] = np.where(lead, STEP_BITS, 2 * _bit_length(dz) - 1)
     if batch.mean is not None:
         zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
         nb = _bit_length(zz)
@@ -515,6 +525,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
         val[:, c0 + i : c0 + 3 * n : 3] = v
         wid[:, c0 + i : c0 + 3 * n : 3] = w
     sub_bits = wid.sum(axis=1)
+    side_bits = wid[:, s0] + wid[:, s0 + 3] + wid[:, s0 + 4]  # step, count, k_init
 
     # frame header (in the first subframe row of each frame)
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
@@ -555,7 +566,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     cpos = ostart + length - CRC_BYTES
     out[cpos] = crc >> 8
     out[cpos + 1] = crc & 0xFF
-    return out.tobytes(), length, sub_bits
+    return out.tobytes(), length, sub_bits, side_bits
 
 
 def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
@@ -609,8 +620,15 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
         pp = p[fr]
-        step[rows] = r.read(pp, STEP_BITS)
-        pp = pp + STEP_BITS
+        if s == 0:
+            step[rows] = r.read(pp, STEP_BITS)
+            pp = pp + STEP_BITS
+        else:
+            v, used = r.exp_golomb(pp)
+            code = step[rows - 1] + unzigzag(v)
+            ok[fr] &= (code >= 0) & (code < (1 << STEP_BITS))
+            step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
+            pp = pp + used
         if has_mean:
             v, used = r.exp_golomb(pp)
             mean[rows] = unzigzag(v)

@@ -55,7 +55,7 @@ def _batch():
 
 def test_hand_computed_frame_packs_to_exact_bytes():
     assert len(HAND_BITS) == 72
-    data, lengths, _ = pack_frames_v2(_batch(), 0xABCD, 8)
+    data, lengths, _, _ = pack_frames_v2(_batch(), 0xABCD, 8)
     assert data == _hand_frame()
     assert data.hex() == "e35a200dcd0500a0020b70108f"  # the hex printed in FRAME_LAYOUT.md
     assert list(lengths) == [13]
@@ -196,7 +196,7 @@ def test_rate_estimate_is_the_packed_size(fidelity):
     batch = FrameBatchV2(multi=np.zeros(nf, bool), channel=np.zeros(nf, np.int64),
                          sequence=np.arange(nf), valid=np.full(nf, n), frame=np.arange(nf),
                          step_code=np.full(nf, 500), mean=None, q=q)
-    _, _, sub_bits = pack_frames_v2(batch, 1, n)
+    _, _, sub_bits, _ = pack_frames_v2(batch, 1, n)
     assert np.array_equal(payload_bits_v2(q, None, n), sub_bits)
 
 
