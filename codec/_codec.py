@@ -260,10 +260,20 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     else:
         frame = np.arange(rows)
         first = frame
-    batch = FrameBatchV2(
-        multi=np.full(first.size, multi), channel=channel[first], sequence=window[first],
-        valid=valid[first], frame=frame, step_code=code, mean=mean_int, q=q)
-    data, lengths, sub_bits, side_bits = pack_frames_v2(batch, profile_id(profile), n)
+    pid = profile_id(profile)
+    parts = []
+    bounds = np.r_[first, rows]
+    for a in range(0, first.size, _PACK_BLOCK):  # blocks of frames: temporaries stay cached
+        b = min(a + _PACK_BLOCK, first.size)
+        r0, r1 = bounds[a], bounds[b]
+        fs = first[a:b]
+        batch = FrameBatchV2(
+            multi=np.full(b - a, multi), channel=channel[fs], sequence=window[fs],
+            valid=valid[fs], frame=frame[r0:r1] - frame[r0], step_code=code[r0:r1],
+            mean=None if mean_int is None else mean_int[r0:r1], q=q[r0:r1])
+        parts.append(pack_frames_v2(batch, pid, n))
+    data = b"".join(p[0] for p in parts)
+    lengths, sub_bits, side_bits = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
     cnt = np.bincount(frame, minlength=first.size)
     overhead = lengths * 8 - np.add.reduceat(sub_bits, first)
     bits = sub_bits + (overhead // cnt)[frame]
@@ -275,6 +285,7 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
 RD_OFFSETS = (0.5, 0.36)
 _RD_BLOCK = 4096
+_PACK_BLOCK = 4096
 
 
 def _rate_fidelity_choice(cx, mean, dc, budget, n):

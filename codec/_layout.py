@@ -498,7 +498,14 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     k_init = initial_parameter(mag[:, 0])
 
     nh, nsub = 9, 5
-    slots = nh + nsub + 3 * n + 1
+    items = coefficient_items(q, k_init, last)
+    (rv, rw), (mv, mw), (ev, ew) = items
+    total_w = rw + mw + ew
+    merged = bool((total_w <= 64).all())
+    # Usually a coefficient's run codeword, codeword and remainder fit one 64-bit
+    # field together: one slot per coefficient instead of three (less to pack).
+    per = 1 if merged else 3
+    slots = nh + nsub + per * n + 1
     val = np.zeros((ns, slots), dtype=np.uint64)
     wid = np.zeros((ns, slots), dtype=np.int64)
     # subframe header
@@ -521,9 +528,17 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     val[:, s0 + 4] = k_init
     wid[:, s0 + 4] = np.where(last > 0, K_INIT_BITS, 0)
     c0 = nh + nsub
-    for i, (v, w) in enumerate(coefficient_items(q, k_init, last)):
-        val[:, c0 + i : c0 + 3 * n : 3] = v
-        wid[:, c0 + i : c0 + 3 * n : 3] = w
+    if merged:
+        zero = np.uint64(0)
+        comb = np.where(ew > 0, ev, zero)
+        comb |= np.where(mw > 0, mv << np.where(mw > 0, ew, 0).astype(np.uint64), zero)
+        comb |= np.where(rw > 0, rv << np.where(rw > 0, mw + ew, 0).astype(np.uint64), zero)
+        val[:, c0 : c0 + n] = comb
+        wid[:, c0 : c0 + n] = total_w
+    else:
+        for i, (v, w) in enumerate(items):
+            val[:, c0 + i : c0 + 3 * n : 3] = np.where(w > 0, v, np.uint64(0))
+            wid[:, c0 + i : c0 + 3 * n : 3] = w
     sub_bits = wid.sum(axis=1)
     side_bits = wid[:, s0] + wid[:, s0 + 3] + wid[:, s0 + 4]  # step, count, k_init
 
