@@ -682,12 +682,15 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
     from ._entropy import rice_k_from_context
 
     m = pos.size
-    mag = np.zeros((m, n + 1), dtype=np.int64)  # column n absorbs malformed run targets
-    neg = np.zeros((m, n + 1), dtype=bool)
+    w1 = n + 1
+    mag = np.zeros(m * w1, dtype=np.int64)  # rows of n + 1: column n absorbs bad run targets
+    neg = np.zeros(m * w1, dtype=bool)
     bad = np.zeros(m, dtype=bool)
     pos = pos.copy()
     rows = np.arange(m)  # subframes still reading (compacted as they finish)
     p, cnt, jf, k0 = pos.copy(), count.copy(), np.zeros(m, np.int64), k_init
+    # the last CONTEXT_WINDOW magnitudes of each subframe, most recent first
+    hist = np.zeros((CONTEXT_WINDOW, m), dtype=np.int64)
     words = r._words
     limit = r.size_bits
     while True:
@@ -696,27 +699,32 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
             break
         if act.sum() * 2 < rows.size:  # compact: drop finished subframes
             pos[rows] = p
-            rows, p, cnt, jf, k0, act = rows[act], p[act], cnt[act], jf[act], k0[act], act[act]
-        tot = np.zeros(rows.size, np.int64)
-        for i in range(1, CONTEXT_WINDOW + 1):
-            tot += np.where(jf >= i, mag[rows, np.maximum(jf - i, 0)], 0)
+            rows, p, cnt, jf, k0 = rows[act], p[act], cnt[act], jf[act], k0[act]
+            hist, act = hist[:, act], act[act]
+        tot = hist.sum(axis=0)
         have = np.minimum(jf, CONTEXT_WINDOW)
-        k = np.where(jf == 0, k0, rice_k_from_context(tot, np.maximum(have, 1)))
+        if (have == CONTEXT_WINDOW).all():
+            k = rice_k_from_context(tot, CONTEXT_WINDOW)
+        else:
+            k = np.where(jf == 0, k0, rice_k_from_context(tot, np.maximum(have, 1)))
         runm = act & (jf >= 1) & (tot == 0)
-        p2 = p.copy()
-        run = np.zeros(rows.size, np.int64)
+        p2 = p
+        run = 0
         if runm.any():
             ri = np.flatnonzero(runm)
             v, used = r.exp_golomb(p[ri])
+            run = np.zeros(rows.size, np.int64)
             run[ri] = v
+            p2 = p.copy()
             p2[ri] += used
+            k = k.copy()
             k[ri] = 0
         pc = np.minimum(p2, limit)
         w = words[pc >> 3] << (pc & 7).astype(np.uint64)
         qq = 33 - _bit_length((w >> np.uint64(31)).astype(np.int64))
         ku = k.astype(np.uint64)
         low = ((w << (qq + 1).astype(np.uint64)) >> np.uint64(1)) >> (63 - ku)
-        mg = (qq.astype(np.int64) << k) | low.astype(np.int64)
+        mg = (qq << k) | low.astype(np.int64)
         sign = (w << ((qq + 1 + k).astype(np.uint64) % np.uint64(64))) >> np.uint64(63)
         used = qq + 1 + k
         slow = act & ((qq >= 32) | (qq + k + 2 > 57))
@@ -732,12 +740,20 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
         nz = mg > 0
         target = jf + run
         over = act & (target >= cnt)
-        bad[rows[over]] = True
+        if over.any():
+            bad[rows[over]] = True
         target = np.where(act & ~over, target, n)
-        mag[rows, target] = np.where(act, mg, 0)
-        neg[rows, target] = (sign == 1) & nz & act
+        flat = rows * w1 + target
+        mag[flat] = np.where(act, mg, 0)
+        neg[flat] = (sign == 1) & nz & act
         p = np.where(act, p2 + used + nz, p)
         jf = np.where(act, np.where(over, cnt, target + 1), jf)
+        # context: a regular step shifts the history; a run leaves (m, 0, 0, 0)
+        shifted = np.empty_like(hist)
+        shifted[1:] = hist[:-1]
+        shifted[0] = mg
+        shifted[1:, runm] = 0
+        hist = np.where(act, shifted, hist)
     pos[rows] = p
-    mag, neg = mag[:, :n], neg[:, :n]
+    mag, neg = mag.reshape(m, w1)[:, :n], neg.reshape(m, w1)[:, :n]
     return np.where(neg, -mag, mag), pos, bad
