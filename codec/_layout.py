@@ -308,7 +308,6 @@ def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list
 LAYOUT_VERSION_2 = 2
 #: Coefficients whose magnitudes set the Rice parameter of the next one.
 CONTEXT_WINDOW = 4
-_RUN_MODE = True
 K_INIT_BITS = 5
 STEP_BITS = 10
 PROFILE_BITS_V2 = 8
@@ -376,7 +375,7 @@ def coefficient_bits(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> np.
     nz = mag > 0
     k, ctx = rice_parameters(mag, k_init)
     inside = np.arange(n) < last[:, None]
-    run = (ctx == 0) & inside & _RUN_MODE
+    run = (ctx == 0) & inside
     srow, _, eg_w, _ = _runs(run, nz)
     m = np.where(run, mag - 1, mag)
     w = rice_escape_bits(np.maximum(m, 0), np.where(run, 0, k)) + nz
@@ -408,7 +407,7 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
     nz = mag > 0
     k, ctx = rice_parameters(mag, k_init)
     inside = np.arange(n) < last[:, None]
-    run = (ctx == 0) & inside & _RUN_MODE
+    run = (ctx == 0) & inside
     srow, scol, eg_w, eg = _runs(run, nz)
     run_w = np.zeros((ns, n), dtype=np.int64)
     run_v = np.zeros((ns, n), dtype=np.uint64)
