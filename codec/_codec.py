@@ -30,7 +30,9 @@ from ._layout import (
     parse_payloads,
     payload_bits_v2,
 )
+from ._layout_v3 import LAYOUT_VERSION_3, FrameBatchV3, pack_frames_v3, parse_frames_v3
 from ._profile import Profile, profile_id
+from ._range import coefficient_cost_bits
 from ._quantize import code_for_step, step_from_code
 from ._report import stream_report
 from ._select import (
@@ -155,7 +157,7 @@ def encode(samples, profile: Profile) -> EncodeResult:
         offset = np.full(cx.shape[0], 0.5)
         code = choose_steps(cx, mean, dc, budget)
     else:
-        code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n)
+        code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n, profile.layout_version)
 
     q, mean_int, _ = code_frame(cx, mean, dc, code, offset)
     recon = reconstruct(q, mean_int, code, basis)
@@ -222,8 +224,11 @@ def encode(samples, profile: Profile) -> EncodeResult:
         data, lengths = pack_frames(batch, profile_id(profile), n)
         frame_bits = lengths * 8
         header_bits = int(frame_bits.sum()) - int(_v1_term_bits(batch, n))
-    else:
+    elif profile.layout_version == 2:
         data, frame_bits, header_bits = _pack_v2(profile, channel, window, valid, code,
+                                                 mean_int, q, n)
+    else:
+        data, frame_bits, header_bits = _pack_v3(profile, channel, window, valid, code,
                                                  mean_int, q, n)
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
@@ -282,13 +287,56 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
 
 
+def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
+    """Layout v3 frames; returns (bytes, bits per subframe, header bits of the stream).
+
+    Header bits are everything but the range-coded coefficient bytes.
+    """
+    multi = profile.multi_channel_frames
+    w = profile.windows_per_frame
+    channels = len(profile.channels)
+    group = window // w
+    if multi:
+        order = np.arange(channel.size)  # rows are window-major, channel-minor already
+        frame = group
+    else:
+        order = np.lexsort((window, channel, group))
+        frame = group[order] * channels + channel[order]
+    frame = np.unique(frame, return_inverse=True)[1]
+    first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
+    lastrow = np.r_[first[1:] - 1, frame.size - 1]
+    fo = order[first]
+    pid = profile_id(profile)
+    nwin = window[order[lastrow]] - window[fo] + 1
+    parts = []
+    bounds = np.r_[first, frame.size]
+    for a in range(0, first.size, _PACK_BLOCK):  # blocks of frames: temporaries stay cached
+        b = min(a + _PACK_BLOCK, first.size)
+        r0, r1 = bounds[a], bounds[b]
+        rows = order[r0:r1]
+        batch = FrameBatchV3(
+            multi=np.full(b - a, multi), channel=channel[fo[a:b]], sequence=window[fo[a:b]],
+            windows=nwin[a:b], valid=valid[order[lastrow[a:b]]],
+            frame=frame[r0:r1] - frame[r0], step_code=code[rows],
+            mean=None if mean_int is None else mean_int[rows], q=q[rows])
+        parts.append(pack_frames_v3(batch, pid, n, channels))
+    data = b"".join(p[0] for p in parts)
+    lengths, sub_bits, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
+    cnt = np.bincount(frame, minlength=first.size)
+    bits_sorted = np.repeat(lengths * 8 // cnt, cnt)
+    bits_sorted[first] += lengths * 8 - (lengths * 8 // cnt) * cnt
+    bits = np.empty_like(bits_sorted)
+    bits[order] = bits_sorted
+    return data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8)
+
+
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
 RD_OFFSETS = (0.5, 0.36)
 _RD_BLOCK = 4096
 _PACK_BLOCK = 4096
 
 
-def _rate_fidelity_choice(cx, mean, dc, budget, n):
+def _rate_fidelity_choice(cx, mean, dc, budget, n, version=2):
     """Per frame, the (step code, rounding offset) pair that meets the budget in fewest bits.
 
     For each candidate offset the largest step that meets the budget is found,
@@ -298,14 +346,14 @@ def _rate_fidelity_choice(cx, mean, dc, budget, n):
     if nf > _RD_BLOCK:  # frames are independent: work block by block so temporaries stay cached
         parts = [_rate_fidelity_choice(cx[a : a + _RD_BLOCK],
                                        None if mean is None else mean[a : a + _RD_BLOCK],
-                                       dc, budget[a : a + _RD_BLOCK], n)
+                                       dc, budget[a : a + _RD_BLOCK], n, version)
                  for a in range(0, nf, _RD_BLOCK)]
         return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
     best_code = best_off = best_bits = None
     for off in RD_OFFSETS:
         code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
         q, mean_int, _ = code_frame(cx, mean, dc, code, off)
-        bits = payload_bits_v2(q, mean_int, n)
+        bits = payload_bits_v2(q, mean_int, n) if version == 2 else coefficient_cost_bits(q)
         if best_bits is None:
             best_code, best_off, best_bits = code, np.full(code.size, off), bits
             continue
@@ -352,10 +400,13 @@ def decode(data: bytes, profile: Profile, samples: int | None = None) -> DecodeR
     versions = frame_version(buf, loc.offsets)
     if (versions == LAYOUT_VERSION_2).all():
         return _decode_v2(data, loc, profile, basis, n, channels, samples)
-    if (versions == LAYOUT_VERSION_2).any():
+    if (versions == LAYOUT_VERSION_3).all():
+        return _decode_v2(data, loc, profile, basis, n, channels, samples, version=3)
+    if (versions != versions[0]).any():
         f = int(np.argmax(versions != versions[0]))
-        raise FrameError("the stream mixes frame layout versions 1 and 2; decode each part "
-                         "separately", f"frame at byte {int(loc.offsets[f])}")
+        raise FrameError(f"the stream mixes frame layout versions {int(versions[0])} and "
+                         f"{int(versions[f])}; decode each part separately",
+                         f"frame at byte {int(loc.offsets[f])}")
     head = parse_headers(buf, loc.offsets)
     _check_headers(head, loc.offsets, profile, basis, n)
     mean, index, value = parse_payloads(buf, loc.offsets, head, n)
@@ -391,10 +442,11 @@ def _unwrap(sequence: np.ndarray, modulus: int = 65536) -> np.ndarray:
 
 
 def _decode_v2(data: bytes, loc, profile: Profile, basis: Basis, n: int, channels: int,
-               samples: int | None) -> DecodeResult:
-    """Decode a stream of layout-v2 frames (all frames located and CRC-checked)."""
+               samples: int | None, version: int = 2) -> DecodeResult:
+    """Decode a stream of layout-v2 or v3 frames (all frames located and CRC-checked)."""
     has_mean = profile.reference == "ac"
-    p = parse_frames_v2(data, loc.offsets, loc.lengths, n, channels, has_mean)
+    parse = parse_frames_v2 if version == 2 else parse_frames_v3
+    p = parse(data, loc.offsets, loc.lengths, n, channels, has_mean)
     pid = profile_id(profile) & 0xFF
 
     def refuse(bad: np.ndarray, message: str) -> None:
@@ -412,8 +464,8 @@ def _decode_v2(data: bytes, loc, profile: Profile, basis: Basis, n: int, channel
            "that passed its CRC, or a frame from another profile)")
     fr = p["frame"]
     window_f = _unwrap(p["sequence"], 256)
-    window = window_f[fr]
-    valid = p["valid"][fr]
+    window = window_f[fr] + p.get("window_offset", 0)
+    valid = p["sub_valid"] if "sub_valid" in p else p["valid"][fr]
     recon = reconstruct(p["q"], p["mean"], p["step_code"], basis)
     total = int((window * n + valid).max()) if samples is None else int(samples)
     out, delivered = merge_frames(recon, p["channel"], window, total, channels)
@@ -423,7 +475,7 @@ def _decode_v2(data: bytes, loc, profile: Profile, basis: Basis, n: int, channel
         "bits": (loc.lengths * 8 // cnt)[fr], "sequence": p["sequence"][fr], "window": window,
         "channel": p["channel"], "basis": np.full(fr.size, basis.code),
         "terms": (p["q"] != 0).sum(axis=1), "step_code": p["step_code"], "valid": valid,
-        "version": np.full(fr.size, LAYOUT_VERSION_2),
+        "version": np.full(fr.size, version),
     }
     return DecodeResult(out, delivered, frames, loc.crc_failures, loc.skipped_bytes)
 

@@ -83,7 +83,7 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
     This is the envelope rule a receiver uses before it trusts anything else:
     None when the bytes cannot start a frame of a layout version we know (too
     short to hold a header, unknown version, impossible length).  Version 1
-    carries a 16-bit length after the version and flags nibbles; version 2 a
+    carries a 16-bit length after the version and flags nibbles; versions 2 and 3 a
     1-bit long flag and an 11-bit (or 27-bit) length after the version nibble.
     Stream search never depends on how a payload is coded.
     """
@@ -96,14 +96,15 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
             return None
         length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
         return length if length >= HEADER_BYTES + CRC_BYTES else None
-    if version == LAYOUT_VERSION_2:
+    if version in (LAYOUT_VERSION_2, _LAYOUT_VERSION_3):
         if b0 & 0x08:  # long length field: 27 bits
             if pos + len(SYNC) + 4 > len(mv):
                 return None
             length = int.from_bytes(mv[pos + 2 : pos + 6], "big") & ((1 << 27) - 1)
             return length if length >= (1 << SHORT_LENGTH_BITS) else None
         length = int.from_bytes(mv[pos + 2 : pos + 4], "big") & ((1 << 11) - 1)
-        return length if length >= _MIN_V2_BYTES else None
+        return length if length >= (_MIN_V2_BYTES if version == LAYOUT_VERSION_2
+                                    else _MIN_V3_BYTES) else None
     return None
 
 
@@ -316,6 +317,9 @@ SHORT_LENGTH_BITS = 11
 LONG_LENGTH_BITS = 27
 #: Smallest possible v2 frame: sync, 2 length bytes, 3 header bytes, CRC.
 _MIN_V2_BYTES = len(SYNC) + 2 + 3 + CRC_BYTES
+# Version 3 (``_layout_v3.py``) has the same envelope as version 2.
+_LAYOUT_VERSION_3 = 3
+_MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
 
 
 def count_bits(n: int) -> int:

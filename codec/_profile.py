@@ -83,9 +83,12 @@ class Profile(BaseModel):
     fidelity: float = Field(default=0.99, ge=0.0, le=1.0)
     reference: Literal["total", "ac"] = "ac"
     #: Frame layout the encoder writes (the decoder reads both).
-    layout_version: Literal[1, 2] = 2
-    #: Layout 2 only: one frame (one header) carries all channels of a time window.
+    layout_version: Literal[1, 2, 3] = 3
+    #: Layouts 2 and 3: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
+    #: Layout 3 only: consecutive time windows one frame carries (1 to 16); more
+    #: windows share one header but a lost frame loses them all.
+    windows_per_frame: int = Field(default=4, ge=1, le=16)
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
     #: A trained basis (basis = "klt"): its .npz file and the SHA-256 of its matrix.
     basis_file: str | None = None
@@ -156,7 +159,7 @@ def profile_id(profile: Profile) -> int:
     # so profiles written before they existed keep their identifier.  The basis
     # file's path may differ between the two ends; its hash may not.
     canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
-                                        "multi_channel_frames"})
+                                        "multi_channel_frames", "windows_per_frame"})
     for ch in canon["channels"]:
         ch.pop("max_error", None)
     if canon["basis_sha256"] is None:

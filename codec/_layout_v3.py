@@ -1,0 +1,253 @@
+"""Frame layout version 3: several windows per frame, range-coded coefficients.
+
+Written down bit by bit in ``FRAME_LAYOUT.md`` ("Version 3").  A frame::
+
+    sync(16) | version(4)=3 long(1) length(11 or 27) profile(8) sequence(8)
+    windows-1(4) multi(1) [channel(cb) if multi = 0] short(1) [valid-1(ib) if short]
+    | per subframe: step(10, or exp-Golomb of the zigzag change) [mean: exp-Golomb
+      of zigzag, reference ac] count(bit_length(N))
+    | zero padding to a byte | range-coded coefficients of every subframe | crc(16)
+
+Subframes come window by window (the ``windows`` consecutive windows from
+``sequence``), and inside a window channel by channel (every channel of the
+profile when multi = 1, else the one ``channel``).  ``short`` marks that the
+frame's last window is a short last window.  ``cb = bit_length(channels - 1)``.
+The coefficients are one range-coded lane (:mod:`codec._range`) running from
+the first byte after the padding to the CRC; bytes past its end read as zero.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._crc import crc16_ibm3740
+from ._entropy import BitReader, bit_length, pack_bits, unzigzag, zigzag
+from ._layout import (
+    CRC_BYTES,
+    LONG_LENGTH_BITS,
+    SHORT_LENGTH_BITS,
+    STEP_BITS,
+    SYNC,
+    count_bits,
+    index_bits,
+)
+from ._range import RangeDecoder, coefficient_ops, decode_coefficients, encode_lanes
+
+__all__ = [
+    "LAYOUT_VERSION_3",
+    "MAX_WINDOWS",
+    "MIN_V3_BYTES",
+    "FrameBatchV3",
+    "pack_frames_v3",
+    "parse_frames_v3",
+    "channel_bits",
+]
+
+LAYOUT_VERSION_3 = 3
+WINDOW_BITS = 4
+#: Most windows one frame carries.
+MAX_WINDOWS = 1 << WINDOW_BITS
+#: Smallest possible v3 frame: sync, 4 header bytes, CRC.
+MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
+
+
+def channel_bits(channels: int) -> int:
+    """Bits of the channel field of a single-channel frame."""
+    return int(max(channels, 1) - 1).bit_length()
+
+
+@dataclass
+class FrameBatchV3:
+    """Frames of layout v3 as parallel arrays.
+
+    Per frame: ``multi``, ``channel`` (when not multi), ``sequence`` (first
+    window), ``windows`` (1..16), ``valid`` (real samples of the last window).
+    Per subframe (rows of ``q``, grouped by frame in order): ``frame``,
+    ``step_code``, ``mean`` (or None).
+    """
+
+    multi: np.ndarray
+    channel: np.ndarray
+    sequence: np.ndarray
+    windows: np.ndarray
+    valid: np.ndarray
+    frame: np.ndarray
+    step_code: np.ndarray
+    mean: np.ndarray | None
+    q: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.multi.size)
+
+
+def _counts(q: np.ndarray) -> np.ndarray:
+    nz = q != 0
+    return np.where(nz.any(axis=1), q.shape[1] - np.argmax(nz[:, ::-1], axis=1), 0)
+
+
+def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
+                   ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
+    """Pack every frame of ``batch`` in layout v3.
+
+    Returns the bytes, each frame's byte length, each subframe's header bits
+    (step, mean, count) and each frame's range-coded bytes.
+    """
+    nf = len(batch)
+    q = batch.q
+    ns = q.shape[0]
+    vb = index_bits(n)
+    cb = channel_bits(channels)
+    count = _counts(q)
+    cum, freq, shift, row = coefficient_ops(q, count)
+    lane_bytes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
+
+    first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
+    lastrow = np.r_[first[1:] - 1, ns - 1]
+    nh, nsub = 10, 4
+    slots = nh + nsub + 1
+    val = np.zeros((ns, slots), dtype=np.uint64)
+    wid = np.zeros((ns, slots), dtype=np.int64)
+    lead = np.zeros(ns, dtype=bool)
+    lead[first] = True
+    dz = zigzag(np.diff(batch.step_code, prepend=0)) + 1
+    val[:, nh] = np.where(lead, batch.step_code, dz)
+    wid[:, nh] = np.where(lead, STEP_BITS, 2 * bit_length(dz) - 1)
+    if batch.mean is not None:
+        zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
+        nb = bit_length(zz)
+        wid[:, nh + 1] = nb - 1
+        val[:, nh + 2] = zz.astype(np.uint64)
+        wid[:, nh + 2] = nb
+    val[:, nh + 3] = count
+    wid[:, nh + 3] = count_bits(n)
+    sub_bits = wid[:, nh:].sum(axis=1)
+
+    short = batch.valid < n
+    multi = batch.multi.astype(bool)
+    head_bits = (4 + 1 + 8 + 8 + WINDOW_BITS + 1 + np.where(multi, 0, cb) + 1
+                 + np.where(short, vb, 0))
+    payload = np.add.reduceat(sub_bits, first)
+    bits = head_bits + SHORT_LENGTH_BITS + payload
+    length = len(SYNC) + (bits + 7) // 8 + lane_len + CRC_BYTES
+    long = length >= (1 << SHORT_LENGTH_BITS)
+    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
+    head_bytes = (bits + 7) // 8
+    length = len(SYNC) + head_bytes + lane_len + CRC_BYTES
+    if (length >= (1 << LONG_LENGTH_BITS)).any():
+        raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
+    head = [(LAYOUT_VERSION_3, 4), (long, 1),
+            (length, np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)),
+            (profile_id & 0xFF, 8), (batch.sequence % 256, 8), (batch.windows - 1, WINDOW_BITS),
+            (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, cb)),
+            (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
+    for i, (v, w) in enumerate(head):
+        val[first, i] = np.broadcast_to(v, (nf,))
+        wid[first, i] = np.broadcast_to(w, (nf,))
+    wid[lastrow, slots - 1] = head_bytes * 8 - bits
+    heads = pack_bits(val.ravel(), wid.ravel())
+
+    # frame = sync | header bytes | lane bytes | crc
+    ostart = np.cumsum(length) - length
+    out = np.zeros(int(length.sum()), dtype=np.uint8)
+    hstart = np.cumsum(head_bytes) - head_bytes
+    dest = np.repeat(ostart + len(SYNC) - hstart, head_bytes) + np.arange(heads.size)
+    out[dest] = heads
+    lstart = np.cumsum(lane_len) - lane_len
+    dest = np.repeat(ostart + len(SYNC) + head_bytes - lstart, lane_len) \
+        + np.arange(lane_bytes.size)
+    out[dest] = lane_bytes
+    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
+    mv = memoryview(out)
+    cpos = ostart + length - CRC_BYTES
+    crc = np.fromiter(
+        (crc16_ibm3740(mv[s + len(SYNC) : e]) for s, e in zip(ostart.tolist(), cpos.tolist())),
+        dtype=np.int64, count=nf,
+    )
+    out[cpos] = crc >> 8
+    out[cpos + 1] = crc & 0xFF
+    return out.tobytes(), length, sub_bits, lane_len
+
+
+def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
+                    channels: int, has_mean: bool) -> dict[str, np.ndarray]:
+    """Parse CRC-checked v3 frames at ``offsets`` into per-subframe arrays.
+
+    Returns per-frame ``profile``, ``sequence``, ``multi``, ``valid``, ``length``,
+    ``consumed_ok`` and per-subframe ``frame``, ``channel``, ``window_offset``
+    (window index relative to the frame's ``sequence``), ``sub_valid``,
+    ``step_code``, ``mean`` (or None), ``count``, ``q``.  ``consumed_ok`` is
+    False for a frame whose contents do not match its length.
+    """
+    r = BitReader(data)
+    nf = offsets.size
+    vb = index_bits(n)
+    lb = count_bits(n)
+    cb = channel_bits(channels)
+    offsets = offsets.astype(np.int64)
+    p = offsets * 8 + 8 * len(SYNC) + 4
+    long = r.read(p, 1)
+    lw = np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
+    length = r.read(p + 1, lw)
+    p = p + 1 + lw
+    profile = r.read(p, 8)
+    sequence = r.read(p + 8, 8)
+    windows = r.read(p + 16, WINDOW_BITS) + 1
+    p = p + 16 + WINDOW_BITS
+    multi = r.read(p, 1).astype(bool)
+    p = p + 1
+    channel = r.read(p, np.where(multi, 0, cb))
+    p = p + np.where(multi, 0, cb)
+    short = r.read(p, 1).astype(bool)
+    valid = np.where(short, r.read(p + 1, np.where(short, vb, 0)) + 1, n)
+    p = p + 1 + np.where(short, vb, 0)
+
+    per_win = np.where(multi, channels, 1)
+    cnt = windows * per_win
+    ns = int(cnt.sum())
+    sstart = np.cumsum(cnt) - cnt
+    owner = np.repeat(np.arange(nf), cnt)
+    slot = np.arange(ns) - sstart[owner]
+    woff = slot // per_win[owner]
+    sub_channel = np.where(multi[owner], slot % per_win[owner], channel[owner])
+    sub_valid = np.where(woff == windows[owner] - 1, valid[owner], n)
+    step = np.zeros(ns, np.int64)
+    mean = np.zeros(ns, np.int64) if has_mean else None
+    count = np.zeros(ns, np.int64)
+    ok = np.ones(nf, dtype=bool)
+    for s in range(int(cnt.max(initial=0))):
+        fr = np.flatnonzero(cnt > s)
+        rows = sstart[fr] + s
+        pp = p[fr]
+        if s == 0:
+            step[rows] = r.read(pp, STEP_BITS)
+            pp = pp + STEP_BITS
+        else:
+            v, used = r.exp_golomb(pp)
+            code = step[rows - 1] + unzigzag(v)
+            ok[fr] &= (code >= 0) & (code < (1 << STEP_BITS))
+            step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
+            pp = pp + used
+        if has_mean:
+            v, used = r.exp_golomb(pp)
+            mean[rows] = unzigzag(v)
+            pp = pp + used
+        c = r.read(pp, lb)
+        ok[fr] &= c <= n
+        count[rows] = np.minimum(c, n)
+        p[fr] = pp + lb
+    start = offsets + (p - offsets * 8 + 7) // 8
+    end = offsets + lengths - CRC_BYTES
+    ok &= (start <= end) & (length == lengths)
+    start = np.minimum(start, end)
+    dec = RangeDecoder(np.frombuffer(data, dtype=np.uint8), start, end)
+    q = decode_coefficients(dec, owner, count, n)
+    # the lane must be used: no byte past what the decoder read, and no trailing zero byte
+    lane_len = end - start
+    last = np.frombuffer(data, dtype=np.uint8)[np.maximum(end - 1, 0)]
+    ok &= ~dec.bad & (lane_len <= dec.reads + 1) & ((lane_len == 0) | (last != 0))
+    return {"profile": profile, "sequence": sequence, "multi": multi, "valid": valid,
+            "length": length, "consumed_ok": ok, "frame": owner, "channel": sub_channel,
+            "window_offset": woff, "sub_valid": sub_valid, "windows": windows,
+            "step_code": step, "mean": mean, "count": count, "q": q}
