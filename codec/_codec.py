@@ -32,7 +32,6 @@ from ._layout import (
 )
 from ._layout_v3 import LAYOUT_VERSION_3, FrameBatchV3, pack_frames_v3, parse_frames_v3
 from ._profile import Profile, profile_id
-from ._range import coefficient_cost_bits
 from ._quantize import code_for_step, step_from_code
 from ._report import stream_report
 from ._select import (
@@ -159,7 +158,8 @@ def encode(samples, profile: Profile) -> EncodeResult:
     else:
         code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n, profile.layout_version)
 
-    q, mean_int, _ = code_frame(cx, mean, dc, code, offset)
+    slack_budget = budget if profile.layout_version == 3 else None
+    q, mean_int, _ = code_frame(cx, mean, dc, code, offset, slack_budget)
     recon = reconstruct(q, mean_int, code, basis)
     err = _valid_error(frames, recon, mask)
     limit = _peak_limits(profile, channel)
@@ -332,6 +332,8 @@ def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
 
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
 RD_OFFSETS = (0.5, 0.36)
+#: Layout 3: the one rounding offset (a slightly widened dead zone).
+RD_OFFSET_V3 = 0.42
 _RD_BLOCK = 4096
 _PACK_BLOCK = 4096
 
@@ -349,11 +351,16 @@ def _rate_fidelity_choice(cx, mean, dc, budget, n, version=2):
                                        dc, budget[a : a + _RD_BLOCK], n, version)
                  for a in range(0, nf, _RD_BLOCK)]
         return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
+    if version == 3:
+        # With the rest of each budget spent by zeroing +-1 codes (spend_slack), one
+        # rounding offset does as well as trying two: measured in FRAME_LAYOUT.md.
+        code = choose_steps(cx, mean, dc, budget, RD_OFFSET_V3)
+        return code, np.full(code.size, RD_OFFSET_V3)
     best_code = best_off = best_bits = None
     for off in RD_OFFSETS:
         code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
         q, mean_int, _ = code_frame(cx, mean, dc, code, off)
-        bits = payload_bits_v2(q, mean_int, n) if version == 2 else coefficient_cost_bits(q)
+        bits = payload_bits_v2(q, mean_int, n)
         if best_bits is None:
             best_code, best_off, best_bits = code, np.full(code.size, off), bits
             continue

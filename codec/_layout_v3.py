@@ -33,7 +33,7 @@ from ._layout import (
     count_bits,
     index_bits,
 )
-from ._range import RangeDecoder, coefficient_ops, decode_coefficients, encode_lanes
+from ._range import coefficient_ops, decode_coefficients, encode_lanes
 
 __all__ = [
     "LAYOUT_VERSION_3",
@@ -241,12 +241,12 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     end = offsets + lengths - CRC_BYTES
     ok &= (start <= end) & (length == lengths)
     start = np.minimum(start, end)
-    dec = RangeDecoder(np.frombuffer(data, dtype=np.uint8), start, end)
-    q = decode_coefficients(dec, owner, count, n)
+    buf = np.frombuffer(data, dtype=np.uint8)
+    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n)
     # the lane must be used: no byte past what the decoder read, and no trailing zero byte
     lane_len = end - start
-    last = np.frombuffer(data, dtype=np.uint8)[np.maximum(end - 1, 0)]
-    ok &= ~dec.bad & (lane_len <= dec.reads + 1) & ((lane_len == 0) | (last != 0))
+    last = buf[np.maximum(end - 1, 0)]
+    ok &= ~bad & (lane_len <= reads + 1) & ((lane_len == 0) | (last != 0))
     return {"profile": profile, "sequence": sequence, "multi": multi, "valid": valid,
             "length": length, "consumed_ok": ok, "frame": owner, "channel": sub_channel,
             "window_offset": woff, "sub_valid": sub_valid, "windows": windows,

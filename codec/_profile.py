@@ -88,7 +88,7 @@ class Profile(BaseModel):
     multi_channel_frames: bool = False
     #: Layout 3 only: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
-    windows_per_frame: int = Field(default=4, ge=1, le=16)
+    windows_per_frame: int = Field(default=8, ge=1, le=16)
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
     #: A trained basis (basis = "klt"): its .npz file and the SHA-256 of its matrix.
     basis_file: str | None = None

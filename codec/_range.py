@@ -154,12 +154,19 @@ def _bit_length(x: np.ndarray) -> np.ndarray:
 def context_class(total: np.ndarray, count: np.ndarray, j: np.ndarray) -> np.ndarray:
     """Model class of coefficient j >= 1 from the sum of the previous ``count`` magnitudes."""
     total = np.asarray(total, dtype=np.int64)
-    u = (total << 4) // np.maximum(count, 1)
-    bl = _bit_length(u)
+    return _classes(total, (total << 4) // np.maximum(count, 1), _band(j))
+
+
+def _band(j: np.ndarray) -> np.ndarray:
+    return np.minimum(_bit_length(j) - 1, _BAND_CLASSES - 1)
+
+
+def _classes(total: np.ndarray, u: np.ndarray, band: np.ndarray) -> np.ndarray:
+    bl = np.frexp(u.astype(np.float64))[1]  # exact bit length below 2**53
+    bl = bl.astype(np.int64)
     h = (u >> np.maximum(bl - 2, 0)) & 1
-    c = _BAND_CLASSES + 2 * (bl - 3) + h
-    c = np.clip(c, _BAND_CLASSES, _BAND_CLASSES + _HALF_OCTAVES - 1)
-    band = np.minimum(_bit_length(j) - 1, _BAND_CLASSES - 1)
+    c = np.clip(2 * bl + h + (_BAND_CLASSES - 6), _BAND_CLASSES,
+                _BAND_CLASSES + _HALF_OCTAVES - 1)
     return np.where(total == 0, band, c)
 
 
@@ -171,69 +178,84 @@ def _contexts(mag: np.ndarray) -> np.ndarray:
     j = np.arange(1, n)
     lo = np.maximum(j - CONTEXT_WINDOW, 0)
     total = c[:, j] - c[:, lo]
+    u = total << 2  # 16 S / 4 once four magnitudes are known
+    w = min(CONTEXT_WINDOW, n) - 1
+    u[:, :w] = (total[:, :w] << 4) // j[:w]
     cls = np.full((ns, n), -1, dtype=np.int64)
-    cls[:, 1:] = context_class(total, np.minimum(j, CONTEXT_WINDOW), j)
+    cls[:, 1:] = _classes(total, u, _band(j))
     return cls
-
-
-def _split_bypass(v: np.ndarray, w: np.ndarray, parts: int):
-    """``w``-bit values as ``parts`` chunks of <= 16 bits, most significant first."""
-    out = []
-    rem = w.copy()
-    for _ in range(parts):
-        cw = np.minimum(rem, _BYPASS_MAX)
-        rem = rem - cw
-        out.append(((v >> rem) & ((np.int64(1) << cw) - 1), cw))
-    return out
 
 
 def coefficient_ops(q: np.ndarray, count: np.ndarray):
     """Coding operations of the coded coefficients (j < count) of each row of ``q``.
 
     Returns ``(cum, freq, shift, row)`` flat in row-major order (rows in order,
-    coefficients in order), ``row`` giving each operation's row.
+    coefficients in order), ``row`` giving each operation's row.  Per
+    coefficient: the model symbol; on escape (or for coefficient 0) the bit
+    length symbol and the bits below the leading one; the ``s`` low bits; the
+    sign of a non-zero.  Rare operations are built only where present.
     """
     ns, n = q.shape
-    mag = np.abs(q).astype(np.int64)
-    cls = _contexts(mag)
-    j = np.arange(n)
-    coded = j < count[:, None]
-    first = j == 0
+    mag2 = np.abs(q).astype(np.int64)
+    cls2 = _contexts(mag2)
+    flat = np.flatnonzero((np.arange(n) < count[:, None]).ravel())
+    row = flat // n
+    first = (flat % n) == 0
+    mag = mag2.ravel()[flat]
+    cls = cls2.ravel()[flat]
+    neg = q.ravel()[flat] < 0
     s = np.where(first, 0, SHIFT[np.maximum(cls, 0)])
     hi = mag >> s
     esc = ~first & (hi >= MODEL_SYMBOLS)
+    big = first | esc
     sym = np.where(first, _bit_length(mag), np.minimum(hi, MODEL_SYMBOLS))
-    row_cls = np.where(first, LEN_ROW, cls)
-    e = np.where(first, mag, hi - MODEL_SYMBOLS)
-    eb = _bit_length(np.where(first | esc, e, 0))
-    slots = []  # list of (cum, freq, shift, present) each (ns, n)
-    fl = row_cls * _W + sym
-    slots.append((_FLAT[fl], _FLAT[fl + 1] - _FLAT[fl], np.full_like(sym, TOTAL_BITS),
-                  coded))
-    # escape: bit length of e as a uniform symbol
-    fe = LEN_ROW * _W + eb
-    slots.append((_FLAT[fe], _FLAT[fe + 1] - _FLAT[fe], np.full_like(sym, TOTAL_BITS),
-                  coded & esc))
-    # bits of e below its leading one (coefficient 0 and escapes)
-    wbits = np.where((first | esc) & coded, np.maximum(eb - 1, 0), 0)
-    ev = e & ((np.int64(1) << np.maximum(eb - 1, 0)) - 1)
-    for v, w in _split_bypass(ev, wbits, 4):
-        slots.append((v, np.ones_like(v), w, w > 0))
-    # low bits and sign
+    tab = np.where(first, LEN_ROW, cls) * _W + sym
+    bi = np.flatnonzero(big)
+    e = np.where(first[bi], mag[bi], hi[bi] - MODEL_SYMBOLS)
+    eb = _bit_length(e)
+    ew = np.maximum(eb - 1, 0)
+    ev = e & ((np.int64(1) << ew) - 1)
     nz = mag > 0
-    lw = np.where(coded, s, 0)
-    lv = mag & ((np.int64(1) << s) - 1)
-    for v, w in _split_bypass(lv, lw, 4):
-        slots.append((v, np.ones_like(v), w, w > 0))
-    sg = (q < 0).astype(np.int64)
-    slots.append((sg, np.ones_like(sg), np.ones_like(sg), coded & nz))
-    present = np.stack([p for *_, p in slots], axis=2)
-    sel = present.ravel()
-    cum = np.stack([a for a, *_ in slots], axis=2).ravel()[sel]
-    freq = np.stack([b for _, b, *_ in slots], axis=2).ravel()[sel]
-    shift = np.stack([c for _, _, c, _ in slots], axis=2).ravel()[sel]
-    row = np.repeat(np.arange(ns), present.reshape(ns, -1).sum(axis=1))
-    return cum, freq, shift, row
+    ce = np.zeros(mag.size, np.int64)
+    ce[bi] = (ew + _BYPASS_MAX - 1) // _BYPASS_MAX
+    cl = (s + _BYPASS_MAX - 1) // _BYPASS_MAX
+    nops = 1 + esc + ce + cl + nz
+    base = np.cumsum(nops) - nops
+    total = int(nops.sum())
+    cum = np.empty(total, np.int64)
+    freq = np.ones(total, np.int64)
+    shift = np.empty(total, np.int64)
+    cum[base] = _FLAT[tab]
+    freq[base] = _FLAT[tab + 1] - _FLAT[tab]
+    shift[base] = TOTAL_BITS
+    at = base + 1
+    # escape: bit length of hi - M from the uniform table
+    ei = np.flatnonzero(esc)
+    if ei.size:
+        fe = LEN_ROW * _W + eb[np.searchsorted(bi, ei)]
+        cum[at[ei]] = _FLAT[fe]
+        freq[at[ei]] = _FLAT[fe + 1] - _FLAT[fe]
+        shift[at[ei]] = TOTAL_BITS
+        at[ei] += 1
+    for idx, v, w in ((bi, ev, ew), (np.flatnonzero(cl), None, None)):
+        if not idx.size:
+            continue
+        if v is None:  # the s low bits
+            w = s[idx]
+            v = mag[idx] & ((np.int64(1) << w) - 1)
+        rem = w.copy()
+        while (rem > 0).any():  # chunks of <= 16 bits, most significant first
+            cw = np.minimum(rem, _BYPASS_MAX)
+            rem = rem - cw
+            k = np.flatnonzero(cw > 0)
+            pos = at[idx[k]]
+            cum[pos] = (v[k] >> rem[k]) & ((np.int64(1) << cw[k]) - 1)
+            shift[pos] = cw[k]
+            at[idx[k]] += 1
+    zi = np.flatnonzero(nz)
+    cum[at[zi]] = neg[zi]
+    shift[at[zi]] = 1
+    return cum, freq, shift, np.repeat(row, nops)
 
 
 def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None) -> np.ndarray:
@@ -356,11 +378,31 @@ def _renorm_encode(buf, low, rng, pos, active) -> None:
         rng[need] <<= 8
 
 
+# Symbol of every (class, value t >> _LUT_DROP): most t decode with one lookup.
+_LUT_DROP = 3
+
+
+def _build_lut():
+    width = TOTAL >> _LUT_DROP
+    t = np.arange(width, dtype=np.int64) << _LUT_DROP
+    lo = np.empty((CUM.shape[0], width), dtype=np.int64)
+    hi = np.empty_like(lo)
+    for c in range(CUM.shape[0]):
+        lo[c] = np.searchsorted(CUM[c], t, side="right") - 1
+        hi[c] = np.searchsorted(CUM[c], t + (1 << _LUT_DROP) - 1, side="right") - 1
+    return lo.astype(np.int8).ravel(), (lo == hi).ravel()
+
+
+_LUT, _LUT_EXACT = _build_lut()
+
+
 class RangeDecoder:
     """Decoder state for many lanes at once; lane i reads ``data[start[i] : end[i]]``.
 
     Bytes past a lane's end read as zero.  ``bad`` marks lanes whose state
-    became impossible (a corrupt lane that still passed its CRC).
+    became impossible (a corrupt lane that still passed its CRC); ``reads``
+    counts the bytes each lane took after its first four.  ``lanes``
+    arguments are index arrays or slices into the lane arrays.
     """
 
     def __init__(self, data: np.ndarray, start: np.ndarray, end: np.ndarray):
@@ -374,43 +416,50 @@ class RangeDecoder:
         lanes = np.arange(start.size)
         for _ in range(4):
             self.value = (self.value << 8) | self._next(lanes)
+        self.reads[:] = 0
 
-    def _next(self, lanes: np.ndarray) -> np.ndarray:
+    def _next(self, lanes) -> np.ndarray:
         p = self.pos[lanes]
         ok = p < self.end[lanes]
-        b = np.where(ok, self.data[np.where(ok, p, self.data.size - 1)], 0).astype(np.int64)
+        b = self.data[np.where(ok, p, self.data.size - 1)].astype(np.int64)
         self.pos[lanes] = p + 1
+        self.reads[lanes] += 1
         return b
 
-    def _renorm(self, lanes: np.ndarray) -> None:
+    def _renorm(self, lanes) -> None:
         for _ in range(3):
-            need = lanes[self.rng[lanes] < _TOP]
-            if not need.size:
+            need = self.rng[lanes] < _TOP
+            if not need.any():
                 return
+            if isinstance(lanes, slice):
+                need = np.flatnonzero(need) + (lanes.start or 0)
+            else:
+                need = lanes[need]
             self.value[need] = ((self.value[need] << 8) | self._next(need))
             self.rng[need] <<= 8
-            self.reads[need] += 1
 
-    def symbol(self, lanes: np.ndarray, row: np.ndarray) -> np.ndarray:
+    def symbol(self, lanes, row: np.ndarray) -> np.ndarray:
         """Decode one model symbol per lane with cumulative table row ``row``."""
         r = self.rng[lanes] >> TOTAL_BITS
         val = self.value[lanes]
         t = np.minimum(val // r, TOTAL - 1)
+        li = row * (TOTAL >> _LUT_DROP) + (t >> _LUT_DROP)
+        s = _LUT[li].astype(np.int64)
         base = row * _W
-        s = np.zeros(lanes.size, dtype=np.int64)
-        step = 1 << (_W - 2).bit_length()
-        while step:
-            cand = np.minimum(s + step, _W - 2)
-            ok = _FLAT[base + cand] <= t
-            s = np.where(ok, cand, s)
-            step >>= 1
+        slow = ~_LUT_EXACT[li]
+        if slow.any():  # t falls where a table step sits inside the lookup cell
+            k = np.flatnonzero(slow)
+            while True:
+                more = (s[k] < _W - 2) & (_FLAT[base[k] + s[k] + 1] <= t[k])
+                if not more.any():
+                    break
+                s[k] += more
         c0 = _FLAT[base + s]
         self._narrow(lanes, r, val - r * c0, r * (_FLAT[base + s + 1] - c0))
         return s
 
-    def bits(self, lanes: np.ndarray, width: np.ndarray) -> np.ndarray:
+    def bits(self, lanes, width) -> np.ndarray:
         """Decode a ``width``-bit bypass value per lane (0 <= width <= 16)."""
-        width = np.broadcast_to(np.asarray(width, dtype=np.int64), lanes.shape)
         r = self.rng[lanes] >> width
         val = self.value[lanes]
         v = np.minimum(val // r, (np.int64(1) << width) - 1)
@@ -431,72 +480,83 @@ class RangeDecoder:
 
     def _narrow(self, lanes, r, val, rng) -> None:
         bad = val >= rng
-        self.bad[lanes[bad]] = True
-        self.value[lanes] = np.minimum(val, rng - 1)
+        if bad.any():
+            self.bad[np.arange(self.bad.size)[lanes][bad]] = True
+            val = np.minimum(val, rng - 1)
+        self.value[lanes] = val
         self.rng[lanes] = rng
         self._renorm(lanes)
 
 
-def decode_coefficients(dec: RangeDecoder, lane_of_row: np.ndarray, count: np.ndarray,
-                        n: int) -> np.ndarray:
-    """Decode the coded coefficients of subframes (rows) whose lanes are ``lane_of_row``.
+def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
+                        lane_of_row: np.ndarray, count: np.ndarray, n: int
+                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Decode the coded coefficients of subframes (rows) in lanes ``data[start:end]``.
 
-    Rows of one lane are decoded in row order; row i has ``count[i]``
-    coefficients.  The inverse of :func:`coefficient_ops` + :func:`encode_lanes`.
+    Rows of one lane are decoded in row order; row i, in lane
+    ``lane_of_row[i]``, has ``count[i]`` coefficients.  The inverse of
+    :func:`coefficient_ops` + :func:`encode_lanes`.  Returns ``(q, bad, reads)``:
+    per lane, whether its state became impossible and the bytes it read
+    after its first four.
     """
     ns = count.size
+    lanes_n = start.size
     q = np.zeros((ns, n), dtype=np.int64)
-    if ns == 0:
-        return q
-    lanes_n = int(lane_of_row.max()) + 1
     per_lane = np.bincount(lane_of_row, weights=count, minlength=lanes_n).astype(np.int64)
-    lstart = np.cumsum(per_lane) - per_lane
-    tot = int(count.sum())
-    sym_row = np.repeat(np.arange(ns), count)
-    sym_j = np.arange(tot) - np.repeat(np.cumsum(count) - count, count)
-    # symbol index k within its lane
+    # Lanes sorted longest first, so the lanes still decoding are a prefix (slices, no gathers).
     order = np.argsort(-per_lane, kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(lanes_n)
+    dec = RangeDecoder(data, start[order], end[order])
+    if ns == 0 or lanes_n == 0:
+        return q, dec.bad[rank], dec.reads[rank]
+    srow = np.argsort(rank[lane_of_row], kind="stable")  # rows in sorted-lane order
+    cnt_s = count[srow]
+    tot = int(cnt_s.sum())
+    sym_row = np.repeat(srow, cnt_s)
+    sym_j = np.arange(tot) - np.repeat(np.cumsum(cnt_s) - cnt_s, cnt_s)
     nsorted = per_lane[order]
+    lstart = np.cumsum(nsorted) - nsorted
     hist = np.zeros((CONTEXT_WINDOW, lanes_n), dtype=np.int64)
     active = lanes_n
-    for k in range(int(nsorted[0]) if lanes_n else 0):
+    for k in range(int(nsorted[0])):
         while active and nsorted[active - 1] <= k:
             active -= 1
-        lanes = order[:active]
-        idx = lstart[lanes] + k
+        lanes = slice(0, active)
+        idx = lstart[:active] + k
         row = sym_row[idx]
         j = sym_j[idx]
         first = j == 0
-        h = hist[:, lanes]
+        h = hist[:, :active]
         h[:, first] = 0
         tot_ctx = h.sum(axis=0)
         cls = context_class(tot_ctx, np.minimum(j, CONTEXT_WINDOW), j)
-        cls = np.where(first, LEN_ROW, cls)
-        s = np.where(first, 0, SHIFT[np.maximum(cls, 0)])
+        cls[first] = LEN_ROW
+        s = SHIFT[cls]
+        s[first] = 0
         sym = dec.symbol(lanes, cls)
         esc = ~first & (sym == MODEL_SYMBOLS)
-        mag = sym.copy()
+        mag = sym
         lng = first | esc
         if lng.any():
             li = np.flatnonzero(lng)
             eb = np.where(first[li], sym[li], 0)
             ei = np.flatnonzero(esc[li])
             if ei.size:
-                eb[ei] = dec.symbol(lanes[li[ei]], np.full(ei.size, LEN_ROW))
-            low = dec.long_bits(lanes[li], np.maximum(eb - 1, 0))
+                eb[ei] = dec.symbol(li[ei], np.full(ei.size, LEN_ROW))
+            low = dec.long_bits(li, np.maximum(eb - 1, 0))
             e = np.where(eb > 0, (np.int64(1) << np.maximum(eb - 1, 0)) | low, 0)
             mag[li] = np.where(first[li], e, e + MODEL_SYMBOLS)
-        # low bits then sign
-        if s.any():
-            si = np.flatnonzero(s > 0)
-            mag[si] = (mag[si] << s[si]) | dec.long_bits(lanes[si], s[si])
-        nz = mag > 0
-        neg = np.zeros(lanes.size, dtype=bool)
-        if nz.any():
-            zi = np.flatnonzero(nz)
-            neg[zi] = dec.bits(lanes[zi], np.ones(zi.size, np.int64)) == 1
-        q[row, j] = np.where(neg, -mag, mag)
-        h = np.roll(h, 1, axis=0)
+        si = np.flatnonzero(s)
+        if si.size:  # the s low bits
+            mag[si] = (mag[si] << s[si]) | dec.long_bits(si, s[si])
+        zi = np.flatnonzero(mag)
+        val = mag
+        if zi.size:  # sign of each non-zero
+            neg = dec.bits(zi, 1) == 1
+            val = mag.copy()
+            val[zi[neg]] = -mag[zi[neg]]
+        q[row, j] = val
+        h[1:] = h[:-1].copy()
         h[0] = mag
-        hist[:, lanes] = h
-    return q
+    return q, dec.bad[rank], dec.reads[rank]

@@ -19,7 +19,8 @@ import numpy as np
 from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
 
 __all__ = [
-    "frame_budgets", "reference_energy", "choose_steps", "code_frame", "FLOAT_FLOOR",
+    "frame_budgets", "reference_energy", "choose_steps", "code_frame", "spend_slack",
+    "FLOAT_FLOOR",
 ]
 
 #: Relative precision below which a frame's error is float noise, not signal:
@@ -78,7 +79,7 @@ def frame_budgets(
 
 def code_frame(
     cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, code: np.ndarray,
-    offset: np.ndarray | float = 0.5,
+    offset: np.ndarray | float = 0.5, budget: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
     """Quantize frames at step ``code`` with rounding ``offset`` (0.5: nearest).
 
@@ -92,7 +93,42 @@ def code_frame(
     the decoder is unaffected, it always reconstructs ``q * step``).
     """
     qf, mean_int, err = _quantized(cx, mean, dc, code, offset)
-    return qf.astype(np.int64), mean_int, err
+    q = qf.astype(np.int64)
+    if budget is not None:
+        c = cx
+        if mean_int is not None:
+            c = cx - (mean_int * (step_from_code(code) / np.sqrt(cx.shape[1])))[:, None] * dc
+        q, err = spend_slack(c, q, step_from_code(code), err, budget)
+    return q, mean_int, err
+
+
+def spend_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.ndarray,
+                budget: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Zero the +-1 codes that cost least error until the frame's budget is used up.
+
+    The step search moves in eighth-octave steps, so a frame usually ends
+    below its budget; the rest buys bits: zeroing a code of +-1 at
+    coefficient ``c`` adds ``step * (2 |c| - step)`` of error energy and saves
+    its magnitude and sign (a few bits each, nearly the same for every such
+    code), so the cheapest ones in error go first (a greedy rate-distortion
+    choice; the decoder is unaffected).  Returns the new codes and error.
+    """
+    cand = np.abs(q) == 1
+    if not cand.any():
+        return q, err
+    st = step[:, None]
+    add = np.where(cand, st * (2.0 * np.abs(c) - st), np.inf)
+    srt = np.sort(add, axis=1)
+    with np.errstate(invalid="ignore"):
+        cs = np.cumsum(srt, axis=1)
+    slack = budget * _MARGIN - err
+    k = (cs <= slack[:, None]).sum(axis=1)
+    km = np.maximum(k - 1, 0)[:, None]
+    thr = np.where(k > 0, np.take_along_axis(srt, km, 1)[:, 0], -np.inf)
+    # ties at the threshold could overshoot; the encoder's closed loop re-checks every frame
+    zero = add <= thr[:, None]
+    extra = np.where(k > 0, np.take_along_axis(cs, km, 1)[:, 0], 0.0)
+    return np.where(zero, 0, q), err + extra
 
 
 def _quantized(cx, mean, dc, code, offset):
