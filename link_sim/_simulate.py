@@ -25,6 +25,7 @@ import numpy as np
 from scipy import stats
 
 import codec
+from codec._stream import locate_frames
 
 from ._channels import GilbertElliott, awgn, bsc, erase_frames, gilbert_elliott
 from ._fec import make_code
@@ -85,7 +86,7 @@ def run_trial(x: np.ndarray, enc, code, cfg: ChannelConfig, rng: np.random.Gener
               policy: str = "hold") -> dict:
     """Send the coded stream ``enc`` (codec.EncodeResult of ``x``) once; return its figures."""
     tx = np.frombuffer(enc.data, np.uint8)
-    lengths = enc.frames["bits"] // 8
+    lengths = locate_frames(enc.data).lengths  # a frame may carry several windows/channels
     air = code.encode(tx)
     rate = 8.0 * tx.size / air.size
     received = transmit_bits(air, cfg, rng, rate, code.soft)
@@ -170,7 +171,8 @@ def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int 
         p = float(ber_theory(cfg.modulation, cfg.ebn0_db + 10 * math.log10(codec_bits / air_bits)))
         out["ber_channel_theory"] = p
         if fec == "none":  # a frame survives only if all its bits do (independent errors)
-            out["frame_error_rate_theory"] = float(np.mean(1.0 - (1.0 - p) ** enc.frames["bits"]))
+            frame_bits = 8 * locate_frames(enc.data).lengths
+            out["frame_error_rate_theory"] = float(np.mean(1.0 - (1.0 - p) ** frame_bits))
     for key in rows[0]:
         if key == "ebn0_db":
             continue

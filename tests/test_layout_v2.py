@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import codec
-from codec import FrameError, Profile
+from codec import FrameError
 from codec._layout import (
     FrameBatchV2,
     frame_crc_ok,
@@ -17,6 +17,11 @@ from codec._layout import (
     parse_frames_v2,
 )
 from codec._stream import locate_frames
+
+
+def Profile(**kw):  # noqa: N802  (these tests are about layout 2, which is no longer the default)
+    return codec.Profile(**{"layout_version": 2, **kw})
+
 
 # The frame of FRAME_LAYOUT.md, "Version 2 worked example", written out bit by bit
 # by hand from the layout table: N = 8, reference total, profile id 0xABCD,

@@ -101,7 +101,7 @@ def test_decoder_refuses_other_profile_and_basis():
 
 def test_crc_failure_never_reaches_output():
     x = np.random.default_rng(0).normal(size=(256, 1))
-    enc = codec.encode(x, codec.Profile())
+    enc = codec.encode(x, codec.Profile(windows_per_frame=1))
     bad = bytearray(enc.data)
     bad[30] ^= 0x10  # inside the first frame's payload
     dec = codec.decode(bytes(bad), enc.profile, samples=256)
