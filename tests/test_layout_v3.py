@@ -1,0 +1,128 @@
+"""Frame layout version 3: the worked example of FRAME_LAYOUT.md and stream behaviour."""
+
+import binascii
+
+import numpy as np
+import pytest
+
+import codec
+from codec import FrameError
+from codec._layout import frame_crc_ok, frame_extent
+from codec._layout_v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
+from codec._stream import locate_frames
+
+# FRAME_LAYOUT.md, "Version 3 worked example": N = 8, reference total, two
+# channels, profile id 0xABCD, window 5, channel 1 alone, one full window,
+# step code 512, q = [3, -1, 0, 0, 0, 0, 0, 0].  Header bits written out by
+# hand from the layout table; the two coefficient bytes computed by hand with
+# the range-coder arithmetic shown in the document.
+HEADER_BITS = (
+    "0011" "0" "00000001101" "11001101" "00000101" "0000" "0" "1" "0"
+    "1000000000" "0010" "000"
+)
+EXAMPLE = bytes.fromhex("e35a") + int(HEADER_BITS, 2).to_bytes(7, "big") + bytes([0x0A, 0x41])
+
+
+def _example_batch():
+    return FrameBatchV3(
+        multi=np.array([False]), channel=np.array([1]), sequence=np.array([5]),
+        windows=np.array([1]), valid=np.array([8]), frame=np.array([0]),
+        step_code=np.array([512]), mean=None, q=np.array([[3, -1, 0, 0, 0, 0, 0, 0]]))
+
+
+def test_worked_example_packs_to_the_documented_bytes():
+    # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
+    crc = binascii.crc_hqx(EXAMPLE[2:], 0xFFFF).to_bytes(2, "big")
+    want = EXAMPLE + crc
+    assert want.hex() == "e35a300dcd050500100a41b210"
+    data, length, _, lane = pack_frames_v3(_example_batch(), 0xABCD, 8, 2)
+    assert data == want and length.tolist() == [13] and lane.tolist() == [2]
+    mv = memoryview(data)
+    assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13)
+    p = parse_frames_v3(data, np.array([0]), np.array([13]), 8, 2, False)
+    assert p["consumed_ok"].all()
+    assert p["channel"].tolist() == [1] and p["sequence"].tolist() == [5]
+    assert p["step_code"].tolist() == [512] and p["count"].tolist() == [2]
+    assert p["q"].tolist() == [[3, -1, 0, 0, 0, 0, 0, 0]]
+
+
+def _signal(n=3000, c=3, seed=0):
+    return np.random.default_rng(seed).standard_normal((n, c)).cumsum(axis=0)
+
+
+@pytest.mark.parametrize("kw", [dict(), dict(multi_channel_frames=True),
+                                dict(windows_per_frame=1), dict(windows_per_frame=16),
+                                dict(reference="total", frame_length=256),
+                                dict(basis="haar", frame_length=32, fidelity=0.999)])
+def test_v3_round_trip_is_the_encoders_reconstruction(kw):
+    x = _signal()
+    enc = codec.encode(x, codec.Profile(**kw))
+    assert enc.data[2] >> 4 == 3
+    dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
+    assert np.array_equal(dec.samples, enc.reconstruction)
+    assert enc.frames["met"].all()
+    assert enc.report["bits_total"] == 8 * len(enc.data)
+    assert 0 < enc.report["header_bits_per_sample"] < enc.report["bits_per_sample"]
+
+
+@pytest.mark.parametrize("multi", [False, True])
+def test_every_v3_frame_decodes_on_its_own(multi):
+    x = _signal(1000)
+    enc = codec.encode(x, codec.Profile(multi_channel_frames=multi, windows_per_frame=4))
+    loc = locate_frames(enc.data)
+    covered = np.zeros(x.shape, bool)
+    for off, ln in zip(loc.offsets.tolist(), loc.lengths.tolist()):
+        dec = codec.decode(enc.data[off : off + ln], enc.profile, samples=x.shape[0])
+        ok = dec.delivered
+        assert np.array_equal(dec.samples[ok], enc.reconstruction[ok])
+        assert not (covered & ok).any()
+        covered |= ok
+    assert covered.all()
+
+
+def test_corrupt_v3_frame_costs_only_its_windows():
+    x = _signal()
+    enc = codec.encode(x, codec.Profile(windows_per_frame=4))
+    loc = locate_frames(enc.data)
+    bad = bytearray(enc.data)
+    bad[int(loc.offsets[2]) + 9] ^= 0x10
+    dec = codec.decode(bytes(bad), enc.profile, samples=x.shape[0])
+    assert len(dec.crc_failures) == 1
+    assert (~dec.delivered).sum() == 4 * 64  # one channel of four windows
+    ok = dec.delivered
+    assert np.array_equal(dec.samples[ok], enc.reconstruction[ok])
+
+
+def test_a_frame_whose_coefficient_bytes_do_not_match_is_refused():
+    # a trailing zero byte added to the coefficient bytes (CRC recomputed) is not a v3 frame
+    data, *_ = pack_frames_v3(_example_batch(), 0xABCD, 8, 2)
+    body = bytearray(data[:-2]) + b"\x00"
+    body[3] += 1  # length 13 -> 14
+    frame = bytes(body) + binascii.crc_hqx(bytes(body[2:]), 0xFFFF).to_bytes(2, "big")
+    p = parse_frames_v3(frame, np.array([0]), np.array([14]), 8, 2, False)
+    assert not p["consumed_ok"].any()
+
+
+def test_v2_and_v3_frames_are_not_mixed():
+    x = _signal()
+    a = codec.encode(x, codec.Profile(layout_version=2))
+    b = codec.encode(x, codec.Profile())
+    with pytest.raises(FrameError, match="mixes frame layout versions 2 and 3"):
+        codec.decode(a.data + b.data, a.profile)
+
+
+def test_short_last_window_and_long_frames():
+    x = np.random.default_rng(1).standard_normal((4096 * 2 + 100, 1))
+    enc = codec.encode(x, codec.Profile(frame_length=4096, fidelity=0.9999, reference="total"))
+    assert enc.data[2] & 0x08  # long-length flag set
+    dec = codec.decode(enc.data, enc.profile)
+    assert dec.samples.shape[0] == x.shape[0]
+    assert np.array_equal(dec.samples, enc.reconstruction)
+
+
+def test_more_windows_per_frame_spend_fewer_header_bits():
+    x = _signal()
+    one = codec.encode(x, codec.Profile(windows_per_frame=1))
+    eight = codec.encode(x, codec.Profile(windows_per_frame=8))
+    assert eight.report["header_bits_per_sample"] < one.report["header_bits_per_sample"]
+    assert len(eight.data) < len(one.data)
