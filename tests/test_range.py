@@ -153,7 +153,7 @@ def test_coded_length_is_within_a_few_bytes_of_the_ideal():
     for ln in range(15):
         bits = 0.0
         for i in np.flatnonzero(lane == ln):
-            for cum, freq, shift in _ops_scalar(q[i].tolist(), n):
+            for _cum, freq, shift in _ops_scalar(q[i].tolist(), n):
                 bits += shift - math.log2(freq)
         assert bits / 8 - 1 <= length[ln] <= bits / 8 + 3
     # and the encoder's estimate is that same ideal length
