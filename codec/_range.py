@@ -20,8 +20,9 @@ and trailing zero bytes are dropped: the decoder reads zeros past a lane's end.
 
 Coefficient model (all integer, the same on every machine): magnitude
 ``|q_j|`` of coefficient j >= 1 gets a context class from the sum S of the
-previous min(j, 4) magnitudes of the same subframe (:func:`context_class`); the
-class fixes a shift ``s`` and a geometric law of ratio ``a / 2**16``.  The
+previous min(j, 4) magnitudes of the same subframe and from the octave of
+j / N (:func:`context_class`); the class fixes a shift ``s`` and a
+zero-modified geometric law (:func:`geometric_cum`).  The
 high part ``|q| >> s`` is a model symbol 0 .. M-1, or the escape M followed by
 the bit length of ``hi - M`` (uniform table) and its bits below the leading
 one; then ``s`` low bits and, for a non-zero, a sign bit are bypass bits.
@@ -46,6 +47,7 @@ __all__ = [
     "CONTEXT_WINDOW",
     "geometric_cum",
     "context_class",
+    "band_class",
     "CUM",
     "SHIFT",
     "LEN_ROW",
@@ -91,41 +93,172 @@ def _uniform_cum(m: int = MODEL_SYMBOLS, total: int = TOTAL) -> list[int]:
     return [(total * i) // m for i in range(m + 1)] + [total]
 
 
-# Context classes: 0 for S = 0 (split by band, see context_class), then half-octave
-# classes of u = 16 S / count (16 x the mean magnitude of the context).
-_BAND_CLASSES = 6
-_HALF_OCTAVES = 120
+# Context classes: a scale class from the recent magnitudes (0 for S = 0, then
+# 1 + half-octaves of u = 16 S / count, 16 x their mean) times a band class
+# from the coefficient's relative position j / N (octaves of 256 j / N), since
+# a spectrum falls with frequency at a given local scale.
+_SCALES = 121
+_BANDS = 8
 
-
-#: (shift s, z, a) of each class, measured on the quantized DCT coefficients of
-#: Gaussian AR(1) sources (rho 0.9, 0.95, 0.99; F 0.95, 0.99, 0.999; N = 256;
-#: seed 99, not the benchmark's): the high part |q| >> s has P(0) = z / 2**16
-#: and, from 1 on, a geometric tail of ratio a / 2**16.  Classes 0-5: S = 0 at
-#: j = 1, 2-3, 4-7, 8-15, 16-31, >= 32; then half-octaves of 16 S / count.
-_MEASURED = (
-    (0, 41286, 6796), (0, 41286, 6796), (0, 41286, 6796), (0, 41286, 6796),
-    (0, 44711, 7470), (0, 54304, 3966), (0, 44435, 9045), (0, 44435, 9045),
-    (0, 36343, 14291), (0, 29263, 20604), (0, 21267, 29246), (0, 15223, 35292),
-    (0, 11381, 41170), (0, 8476, 46772), (0, 6291, 51683), (0, 4325, 55375),
-    (1, 8910, 51266), (1, 6921, 54950), (1, 4782, 57598), (2, 7738, 54380),
-    (2, 6403, 56167), (2, 5369, 57148), (3, 9860, 50883), (3, 7068, 53899),
+#: (shift s, z, a) measured per (scale, band) cell on the quantized DCT
+#: coefficients of Gaussian AR(1) sources (rho 0.9, 0.95, 0.99; F 0.9 to 0.999;
+#: N = 64 and 256; seeds 99-101, not the benchmark's) by tools/fit_range_model.py:
+#: the high part |q| >> s has P(0) = z / 2**16 and, from 1 on, a geometric tail
+#: of ratio a / 2**16.  Cells with too few samples use their scale's row of
+#: _SCALE_PARAMS (all bands together); beyond that, each scale pair doubles.
+_CELL_PARAMS: dict[tuple[int, int], tuple[int, int, int]] = {
+    (0, 0): (0, 3104, 57191),
+    (0, 2): (0, 5229, 54900),
+    (0, 3): (0, 37725, 29789),
+    (0, 4): (0, 43723, 7350),
+    (0, 5): (0, 47902, 5439),
+    (0, 6): (0, 52950, 4244),
+    (0, 7): (0, 54084, 4440),
+    (1, 3): (0, 36547, 19737),
+    (1, 4): (0, 38919, 11764),
+    (1, 5): (0, 41929, 9498),
+    (1, 6): (0, 45678, 9241),
+    (1, 7): (0, 45213, 9352),
+    (3, 2): (0, 29612, 23336),
+    (3, 3): (0, 28939, 33988),
+    (3, 4): (0, 33036, 16676),
+    (3, 5): (0, 36546, 14477),
+    (3, 6): (0, 38266, 14582),
+    (3, 7): (0, 37603, 15190),
+    (4, 2): (0, 27129, 29032),
+    (4, 3): (0, 27662, 25657),
+    (4, 4): (0, 29044, 21370),
+    (4, 5): (0, 31386, 19762),
+    (4, 6): (0, 31500, 20193),
+    (4, 7): (0, 30911, 21752),
+    (5, 0): (0, 4846, 55573),
+    (5, 1): (0, 9600, 47579),
+    (5, 2): (0, 11104, 51740),
+    (5, 3): (0, 19000, 35344),
+    (5, 4): (0, 24035, 27097),
+    (5, 5): (0, 25062, 27102),
+    (5, 6): (0, 24356, 28050),
+    (5, 7): (0, 23199, 29412),
+    (6, 1): (0, 9491, 47273),
+    (6, 2): (0, 16556, 38950),
+    (6, 3): (0, 15815, 37568),
+    (6, 4): (0, 19931, 32241),
+    (6, 5): (0, 18764, 34482),
+    (6, 6): (0, 17886, 36081),
+    (6, 7): (0, 17456, 35164),
+    (7, 0): (0, 5599, 55806),
+    (7, 1): (0, 11668, 45659),
+    (7, 2): (0, 10326, 47611),
+    (7, 3): (0, 14432, 40126),
+    (7, 4): (0, 16050, 38827),
+    (7, 5): (0, 13849, 41382),
+    (7, 6): (0, 13109, 42616),
+    (7, 7): (0, 14718, 39002),
+    (8, 0): (0, 6962, 55887),
+    (8, 1): (0, 10726, 48184),
+    (8, 2): (0, 10496, 48571),
+    (8, 3): (0, 11888, 45237),
+    (8, 4): (0, 11751, 44943),
+    (8, 5): (0, 10037, 47549),
+    (8, 6): (0, 10043, 46730),
+    (8, 7): (0, 12740, 42521),
+    (9, 0): (0, 7977, 56644),
+    (9, 1): (0, 8178, 52109),
+    (9, 2): (0, 8958, 52425),
+    (9, 3): (0, 9433, 50794),
+    (9, 4): (0, 8417, 51187),
+    (9, 5): (0, 7266, 52087),
+    (9, 6): (0, 8407, 49602),
+    (9, 7): (0, 11097, 45637),
+    (10, 0): (1, 16163, 52416),
+    (10, 1): (0, 5881, 56221),
+    (10, 2): (0, 6645, 56801),
+    (10, 3): (0, 5662, 56586),
+    (10, 4): (0, 6215, 54336),
+    (10, 5): (0, 5414, 54739),
+    (10, 6): (0, 7083, 51951),
+    (10, 7): (0, 10289, 49400),
+    (11, 0): (1, 12168, 56745),
+    (11, 1): (1, 8116, 56050),
+    (11, 2): (1, 9622, 54184),
+    (11, 3): (0, 4754, 56931),
+    (11, 4): (0, 5031, 56739),
+    (11, 5): (0, 4653, 56506),
+    (11, 6): (0, 6133, 54072),
+    (12, 0): (2, 13388, 54789),
+    (12, 1): (1, 5819, 56486),
+    (12, 2): (1, 7316, 54766),
+    (12, 3): (1, 9832, 53722),
+    (12, 4): (1, 6706, 54173),
+    (12, 5): (1, 8520, 50472),
+    (12, 6): (0, 5362, 55933),
+    (13, 0): (2, 8358, 55021),
+    (13, 1): (1, 5624, 57616),
+    (13, 2): (1, 7491, 57114),
+    (13, 3): (2, 9206, 53334),
+    (13, 4): (1, 5865, 55655),
+    (13, 5): (1, 7224, 51839),
+    (14, 0): (2, 8864, 54719),
+    (14, 1): (2, 7644, 57890),
+    (14, 2): (2, 6225, 56949),
+    (14, 3): (2, 8517, 52902),
+    (14, 4): (1, 6051, 54951),
+    (14, 5): (1, 5578, 52744),
+    (15, 0): (2, 8881, 57897),
+    (15, 1): (3, 9374, 51953),
+    (15, 2): (2, 5145, 56590),
+    (15, 3): (1, 4625, 57524),
+    (15, 4): (1, 6601, 53099),
+    (16, 0): (3, 7745, 55355),
+    (16, 1): (3, 8529, 51360),
+    (16, 2): (2, 5047, 55132),
+    (16, 3): (1, 5482, 55414),
+    (17, 0): (3, 7442, 55115),
+    (17, 1): (2, 4528, 57417),
+    (17, 2): (1, 4142, 57286),
+    (18, 0): (3, 7022, 54419),
+}
+_SCALE_PARAMS: tuple[tuple[int, int, int], ...] = (
+    (0, 52999, 10505),
+    (0, 44798, 9505),
+    (0, 44798, 9505),
+    (0, 37396, 15390),
+    (0, 31026, 21034),
+    (0, 23640, 29818),
+    (0, 17952, 35245),
+    (0, 14127, 41012),
+    (0, 11064, 45981),
+    (0, 8491, 50805),
+    (0, 6136, 54699),
+    (0, 4816, 57104),
+    (1, 7981, 53711),
+    (1, 5925, 57002),
+    (2, 10470, 51882),
+    (2, 8904, 53456),
+    (2, 6278, 55459),
+    (2, 7422, 54938),
+    (3, 8998, 53175),
 )
 
 
-def _class_params(c: int) -> tuple[int, int, int]:
-    """(s, z, a) of class c; beyond the measured ones each half-octave pair doubles the scale."""
-    if c < len(_MEASURED):
-        return _MEASURED[c]
-    base = len(_MEASURED) - 2
-    s, z, a = _MEASURED[base + (c - base) % 2]
-    return s + (c - base) // 2, z, a
+def _class_params(scale: int, band: int) -> tuple[int, int, int]:
+    """(s, z, a) of a (scale, band) cell."""
+    if (scale, band) in _CELL_PARAMS:
+        return _CELL_PARAMS[(scale, band)]
+    if scale < len(_SCALE_PARAMS):
+        return _SCALE_PARAMS[scale]
+    base = len(_SCALE_PARAMS) - 2
+    s, z, a = _SCALE_PARAMS[base + (scale - base) % 2]
+    return s + (scale - base) // 2, z, a
 
 
 def _build_tables():
-    rows, shifts = [], []
-    for c in range(_BAND_CLASSES + _HALF_OCTAVES):
-        s, z, a = _class_params(c)
-        rows.append(geometric_cum(a, z))
+    rows, shifts, cache = [], [], {}
+    for c in range(_SCALES * _BANDS):
+        s, z, a = _class_params(c // _BANDS, c % _BANDS)
+        if (z, a) not in cache:
+            cache[(z, a)] = geometric_cum(a, z)
+        rows.append(cache[(z, a)])
         shifts.append(s)
     rows.append(_uniform_cum())
     shifts.append(0)
@@ -151,23 +284,23 @@ def _bit_length(x: np.ndarray) -> np.ndarray:
     return out
 
 
-def context_class(total: np.ndarray, count: np.ndarray, j: np.ndarray) -> np.ndarray:
-    """Model class of coefficient j >= 1 from the sum of the previous ``count`` magnitudes."""
+def context_class(total: np.ndarray, count: np.ndarray, j: np.ndarray, n: int) -> np.ndarray:
+    """Model class of coefficient j >= 1 of N = ``n`` from the sum of the previous ``count``."""
     total = np.asarray(total, dtype=np.int64)
-    return _classes(total, (total << 4) // np.maximum(count, 1), _band(j))
+    return _classes(total, (total << 4) // np.maximum(count, 1), band_class(j, n))
 
 
-def _band(j: np.ndarray) -> np.ndarray:
-    return np.minimum(_bit_length(j) - 1, _BAND_CLASSES - 1)
+def band_class(j: np.ndarray, n: int) -> np.ndarray:
+    """Octave of 256 j / N, 0 .. 7."""
+    return np.clip(_bit_length((np.asarray(j, dtype=np.int64) << 8) // n) - 1, 0, _BANDS - 1)
 
 
 def _classes(total: np.ndarray, u: np.ndarray, band: np.ndarray) -> np.ndarray:
     bl = np.frexp(u.astype(np.float64))[1]  # exact bit length below 2**53
     bl = bl.astype(np.int64)
     h = (u >> np.maximum(bl - 2, 0)) & 1
-    c = np.clip(2 * bl + h + (_BAND_CLASSES - 6), _BAND_CLASSES,
-                _BAND_CLASSES + _HALF_OCTAVES - 1)
-    return np.where(total == 0, band, c)
+    scale = np.clip(2 * bl + h - 5, 1, _SCALES - 1)  # 1 + 2 (bl - 3) + h
+    return np.where(total == 0, 0, scale) * _BANDS + band
 
 
 def _contexts(mag: np.ndarray) -> np.ndarray:
@@ -182,7 +315,7 @@ def _contexts(mag: np.ndarray) -> np.ndarray:
     w = min(CONTEXT_WINDOW, n) - 1
     u[:, :w] = (total[:, :w] << 4) // j[:w]
     cls = np.full((ns, n), -1, dtype=np.int64)
-    cls[:, 1:] = _classes(total, u, _band(j))
+    cls[:, 1:] = _classes(total, u, band_class(j, n))
     return cls
 
 
@@ -530,7 +663,7 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
         h = hist[:, :active]
         h[:, first] = 0
         tot_ctx = h.sum(axis=0)
-        cls = context_class(tot_ctx, np.minimum(j, CONTEXT_WINDOW), j)
+        cls = context_class(tot_ctx, np.minimum(j, CONTEXT_WINDOW), j, n)
         cls[first] = LEN_ROW
         s = SHIFT[cls]
         s[first] = 0

@@ -20,7 +20,7 @@ HEADER_BITS = (
     "0011" "0" "00000001101" "11001101" "00000101" "0000" "0" "1" "0"
     "1000000000" "0010" "000"
 )
-EXAMPLE = bytes.fromhex("e35a") + int(HEADER_BITS, 2).to_bytes(7, "big") + bytes([0x0A, 0x41])
+EXAMPLE = bytes.fromhex("e35a") + int(HEADER_BITS, 2).to_bytes(7, "big") + bytes([0x0A, 0x45])
 
 
 def _example_batch():
@@ -34,7 +34,7 @@ def test_worked_example_packs_to_the_documented_bytes():
     # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
     crc = binascii.crc_hqx(EXAMPLE[2:], 0xFFFF).to_bytes(2, "big")
     want = EXAMPLE + crc
-    assert want.hex() == "e35a300dcd050500100a41b210"
+    assert want.hex() == "e35a300dcd050500100a45f294"
     data, length, _, lane = pack_frames_v3(_example_batch(), 0xABCD, 8, 2)
     assert data == want and length.tolist() == [13] and lane.tolist() == [2]
     mv = memoryview(data)

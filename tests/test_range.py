@@ -21,14 +21,15 @@ from codec import _range as R
 TOP = 1 << 24
 
 
-def _klass(s: int, cnt: int, j: int) -> int:
+def _klass(s: int, cnt: int, j: int, n: int) -> int:
     """Context class by the rule of FRAME_LAYOUT.md, scalar."""
+    band = min(max(((256 * j) // n).bit_length() - 1, 0), 7)
     if s == 0:
-        return min(j.bit_length() - 1, 5)
+        return band
     u = (16 * s) // cnt
     bl = u.bit_length()
-    c = 6 + 2 * (bl - 3) + ((u >> (bl - 2)) & 1)
-    return min(max(c, 6), 125)
+    scale = min(max(1 + 2 * (bl - 3) + ((u >> (bl - 2)) & 1), 1), 120)
+    return 8 * scale + band
 
 
 def _ops_scalar(row: list[int], count: int) -> list[tuple[int, int, int]]:
@@ -54,7 +55,7 @@ def _ops_scalar(row: list[int], count: int) -> list[tuple[int, int, int]]:
             bypass(m & ((1 << max(b - 1, 0)) - 1), max(b - 1, 0))
         else:
             prev = mags[max(0, j - 4) : j]
-            c = _klass(sum(prev), len(prev), j)
+            c = _klass(sum(prev), len(prev), j, len(row))
             s = int(R.SHIFT[c])
             hi = m >> s
             if hi >= R.MODEL_SYMBOLS:
