@@ -10,6 +10,8 @@ from ._crc import crc16_ibm3740, crc32_iso_hdlc
 from ._errors import FrameError, InputError, ProfileError, TrimlinkError
 from ._profile import ChannelSpec, Profile, default_profile, load_profile, profile_id, save_profile
 from ._report import error_figures
+from ._stream import CONCEALED, DELIVERED, GAP, LOST, STATUS_NAMES
+from ._streaming import StreamDecoder, StreamEncoder
 
 __all__ = [
     "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
@@ -18,4 +20,5 @@ __all__ = [
     "FrameError", "InputError", "ProfileError", "TrimlinkError",
     "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "save_profile",
     "error_figures",
+    "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
 ]

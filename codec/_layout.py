@@ -31,6 +31,8 @@ from ._crc import crc16_ibm3740
 __all__ = [
     "LAYOUT_VERSION",
     "SYNC",
+    "GAP_KIND",
+    "FLAG_GAP_MASK",
     "HEADER_FIELDS",
     "HEADER_BYTES",
     "FrameBatch",
@@ -46,11 +48,16 @@ __all__ = [
 
 LAYOUT_VERSION = 1
 SYNC = b"\xe3\x5a"
+#: Version nibble of the gap-mask frame kind (layout in ``_gaps.py``), valid beside any version.
+GAP_KIND = 15
+#: Flag bit of a data frame whose samples have a gap mask in a frame of kind GAP_KIND.
+FLAG_GAP_MASK = 1
 
 #: (field, bits, meaning) after the sync marker, in order.
 HEADER_FIELDS: tuple[tuple[str, int, str], ...] = (
     ("version", 4, "frame layout version (1)"),
-    ("flags", 4, "reserved, must be 0"),
+    ("flags", 4, "bit 0 (value 1): a gap-mask frame for this window and channel exists "
+     "(codec/_gaps.py); bits 1-3 reserved, 0"),
     ("length", 16, "bytes in the whole frame, sync marker to CRC"),
     ("profile", 16, "profile identifier (first 16 bits of SHA-256 of its canonical form)"),
     ("channel", 8, "channel index in the profile"),
@@ -81,7 +88,7 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
     if pos + HEADER_BYTES > len(mv) or mv[pos : pos + len(SYNC)] != SYNC:
         return None
     version = mv[pos + len(SYNC)] >> 4
-    if version != LAYOUT_VERSION:
+    if version not in (LAYOUT_VERSION, GAP_KIND):
         return None
     length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
     return length if length >= HEADER_BYTES + CRC_BYTES else None
@@ -120,6 +127,8 @@ class FrameBatch:
     terms: np.ndarray
     term_index: np.ndarray
     term_value: np.ndarray
+    #: Header flags per frame (FLAG_GAP_MASK); None means all zero.
+    flags: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.channel.size)
@@ -145,7 +154,7 @@ def pack_frames(batch: FrameBatch, profile_id: int, n: int) -> tuple[bytes, np.n
     length = len(SYNC) + body_bytes + CRC_BYTES
 
     header = np.stack(
-        [np.full(nf, LAYOUT_VERSION), np.zeros(nf), length, np.full(nf, profile_id),
+        [np.full(nf, LAYOUT_VERSION), np.zeros(nf) if batch.flags is None else batch.flags, length, np.full(nf, profile_id),
          batch.channel, batch.sequence % 65536, batch.basis, batch.step_code, terms,
          vwidth, mwidth, batch.valid]
     ).T.astype(np.int64)
