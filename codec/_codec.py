@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._bases import Basis, as_basis, basis_from_code
+from ._bases import Basis, as_basis
 from ._bits import MAX_FIELD_BITS
 from ._errors import InputError, ProfileError
 from ._framing import merge_frames, split_frames
