@@ -163,7 +163,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     resolution = np.array([c.resolution for c in profile.channels])[channel]
     peak = np.abs(np.where(mask, frames, 0.0)).max(axis=1)
     e_ref = reference_energy(frames, valid, profile.reference)
-    budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak)
+    budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak, n)
     mean = None
     if profile.reference == "ac":
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
@@ -186,6 +186,12 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         recon[bad] = reconstruct(qb, mb, code[bad], basis)
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
         bad = bad[err[bad] > budget[bad] * _MARGIN]
+        if not bad.size:
+            # Synthesize all frames in one call, as the decoder does: BLAS may round a
+            # subset differently from the whole batch, so the check is redone on this.
+            recon = reconstruct(q, mean_int, code, basis)
+            err = _valid_error(frames, recon, mask)
+            bad = np.flatnonzero(err > budget * _MARGIN)
 
     kept = q != 0
     batch = FrameBatch(
@@ -207,13 +213,14 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
                                                     profile_id(profile), n)
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     met = err <= budget
+    floor = budget > (1.0 - profile.fidelity) * e_ref
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
     info = {
         "channel": channel, "window": window, "bits": lengths * 8, "terms": batch.terms,
         "step_code": code, "error_energy": err, "budget": budget,
-        "reference_energy": e_ref, "fidelity": fidelity, "met": met,
+        "reference_energy": e_ref, "fidelity": fidelity, "met": met, "floor": floor,
     }
-    report = stream_report(x, x_hat, profile, lengths * 8, channel, fidelity, met,
+    report = stream_report(x, x_hat, profile, lengths * 8, channel, fidelity, met, floor,
                            extra_bits=extra_bits)
     report["gap_policy"] = gaps
     report["samples_gap"] = 0 if missing is None else int(missing.sum())

@@ -154,7 +154,8 @@ def pack_frames(batch: FrameBatch, profile_id: int, n: int) -> tuple[bytes, np.n
     length = len(SYNC) + body_bytes + CRC_BYTES
 
     header = np.stack(
-        [np.full(nf, LAYOUT_VERSION), np.zeros(nf) if batch.flags is None else batch.flags, length, np.full(nf, profile_id),
+        [np.full(nf, LAYOUT_VERSION), np.zeros(nf) if batch.flags is None else batch.flags,
+         length, np.full(nf, profile_id),
          batch.channel, batch.sequence % 65536, batch.basis, batch.step_code, terms,
          vwidth, mwidth, batch.valid]
     ).T.astype(np.int64)
@@ -270,18 +271,20 @@ def pack_frame_reference(fields: dict, mean: int | None, index: list[int], value
 
 def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list[int], list[int]]:
     """Parse one frame with bitstring; the inverse of :func:`pack_frame_reference`."""
-    s = bitstring.ConstBitStream(frame)
-    if s.read("bytes:2") != SYNC:
+    bits = bitstring.Bits(frame)
+    if bits[:16].tobytes() != SYNC:
         raise ValueError("no sync marker")
-    head = {name: s.read(f"uint:{b}") for name, b, _ in HEADER_FIELDS}
-    mean = s.read(f"int:{head['mean_width']}") if head["mean_width"] else None
+    names = [name for name, _, _ in HEADER_FIELDS]
+    values = bits[16:].unpack(",".join(f"uint:{b}" for _, b, _ in HEADER_FIELDS))
+    head = dict(zip(names, values))
+    mw, vw, terms = head["mean_width"], head["value_width"], head["terms"]
     ib = index_bits(n)
-    index, value = [], []
-    for _ in range(head["terms"]):
-        index.append(s.read(f"uint:{ib}"))
-        value.append(s.read(f"int:{head['value_width']}") if head["value_width"] else 0)
-    s.bytealign()
-    crc = s.read("uint:16")
+    fmt = _bitstring_format(mw, terms, ib, vw, 0)[1 + len(HEADER_FIELDS):]
+    rest = bits[8 * HEADER_BYTES :].unpack(",".join(fmt)) if fmt else []
+    mean = rest[0] if mw else None
+    pairs = rest[1:] if mw else rest
+    index, value = list(pairs[0::2]), list(pairs[1::2])
+    crc = bits[-16:].uint
     if crc != crc16_ibm3740(frame[len(SYNC) : -CRC_BYTES]):
         raise ValueError("CRC mismatch")
     return head, mean, index, value

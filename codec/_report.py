@@ -51,6 +51,7 @@ def stream_report(
     frame_channel: np.ndarray,
     frame_fidelity: np.ndarray,
     frame_met: np.ndarray,
+    frame_floor: np.ndarray | None = None,
     extra_bits: int = 0,
 ) -> dict:
     """The JSON report of ``encode`` and ``roundtrip``.
@@ -65,15 +66,22 @@ def stream_report(
         Bits and channel of every frame.
     frame_fidelity, frame_met : ndarray
         Achieved fidelity of every frame and whether it met its budget.
+    frame_floor : ndarray of bool, optional
+        Frames held to a floor (sensor resolution) rather than to the fidelity
+        target, because their signal lies within the sensor's resolution.  They
+        are counted in ``frames_at_floor`` and left out of ``fidelity_min``.
     extra_bits : int
         Stream bits that belong to no frame (counted in ``bits_total``).
     """
     samples, channels = x.shape
     raw = np.array([c.raw_bits_per_sample for c in profile.channels], dtype=np.float64)
     bits_total = int(frame_bits.sum()) + int(extra_bits)
+    if frame_floor is None:
+        frame_floor = np.zeros(frame_bits.size, dtype=bool)
 
-    def figures(xs, xh, bits, raw_bits, fid, met, nframes):
+    def figures(xs, xh, bits, raw_bits, fid, met, floor, nframes):
         count = xs.size
+        judged = fid[~floor]
         out = {
             "frames": int(nframes),
             "samples": int(xs.shape[0]),
@@ -83,14 +91,16 @@ def stream_report(
             "raw_bits_per_sample": float(raw_bits),
             "compression_ratio": (raw_bits * count / bits) if bits else None,
             "fidelity_target": profile.fidelity,
-            "fidelity_min": float(fid.min()) if fid.size else None,
-            "fidelity_mean": float(fid.mean()) if fid.size else None,
+            "fidelity_min": float(judged.min()) if judged.size else None,
+            "fidelity_mean": float(judged.mean()) if judged.size else None,
             "frames_below_target": int((~met).sum()),
+            "frames_at_floor": int(floor.sum()),
         }
         out.update(error_figures(xs, xh))
         return out
 
-    report = figures(x, x_hat, bits_total, raw.mean(), frame_fidelity, frame_met, frame_bits.size)
+    report = figures(x, x_hat, bits_total, raw.mean(), frame_fidelity, frame_met, frame_floor,
+                     frame_bits.size)
     report["channels"] = channels
     report["reference"] = profile.reference
     report["basis"] = profile.basis
@@ -100,7 +110,7 @@ def stream_report(
         sel = frame_channel == c
         per[spec.name] = figures(
             x[:, c : c + 1], x_hat[:, c : c + 1], int(frame_bits[sel].sum()),
-            raw[c], frame_fidelity[sel], frame_met[sel], int(sel.sum()),
+            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()),
         )
     report["per_channel"] = per
     return report

@@ -41,7 +41,7 @@ def reference_energy(frames: np.ndarray, valid: np.ndarray, reference: str) -> n
 
 def frame_budgets(
     e_ref: np.ndarray, fidelity: float, resolution: np.ndarray, valid: np.ndarray,
-    peak: np.ndarray,
+    peak: np.ndarray, n: int,
 ) -> np.ndarray:
     """Allowed error energy per frame.
 
@@ -57,10 +57,21 @@ def frame_budgets(
         Real samples in each frame.
     peak : ndarray
         Largest absolute sample of each frame (sets the float floor).
+    n : int
+        Frame length.
+
+    Notes
+    -----
+    Besides the sensor floor, two floors keep every budget reachable: float
+    precision (2**-40 of the frame's peak) and the finest quantizer step the
+    layout can name, 2**-64 engineering units (rounding error at most half a
+    step per coefficient, so N * (2**-65)**2).
     """
     floor_sensor = valid * resolution**2 / 12.0
     floor_float = valid * (peak * FLOAT_FLOOR) ** 2
-    return np.maximum.reduce([(1.0 - fidelity) * e_ref, floor_sensor, floor_float])
+    floor_layout = n * (0.5 * float(step_from_code(0))) ** 2
+    return np.maximum.reduce(
+        [(1.0 - fidelity) * e_ref, floor_sensor, floor_float, np.full(e_ref.shape, floor_layout)])
 
 
 def code_frame(

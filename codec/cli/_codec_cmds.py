@@ -180,9 +180,10 @@ def roundtrip_report(values: np.ndarray, profile: Profile) -> tuple[dict, bool]:
     e_ref = info["reference_energy"]
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     report = dict(enc.report)
+    judged = fidelity[~info["floor"]]
     report.update({
-        "fidelity_min": float(fidelity.min()),
-        "fidelity_mean": float(fidelity.mean()),
+        "fidelity_min": float(judged.min()) if judged.size else None,
+        "fidelity_mean": float(judged.mean()) if judged.size else None,
         "frames_below_target": int((~met).sum()),
         "decoded_check": "error energy per frame recomputed from the decoded samples",
     })

@@ -1,0 +1,140 @@
+"""Generate the bundled demo scenarios (seeded) and their profiles.
+
+Both scenarios are invented:
+
+* ``ridge_station`` -- a solar-powered environmental station on an imaginary
+  upland ridge, reporting once a minute for two days: a daily temperature
+  cycle, a weather front passing on the second afternoon (pressure drop,
+  temperature fall, humidity rise, gusts), a battery charged by day.
+* ``orbiter_hk`` -- housekeeping of an imaginary small research satellite in
+  a 95-minute low orbit, sampled every 4 s over two orbits: panel temperature
+  cooling through eclipse, sun sensor, battery voltage, bus current stepping
+  when the payload switches on, and a 3-axis magnetometer with a slow tumble.
+
+Every channel carries sensor noise and the quantization of its stated
+resolution, plus an occasional spike, as real telemetry does.
+
+Run ``python tools/make_demo.py`` to rewrite ``codec/data/*.csv`` and the
+profiles in ``profiles/`` and ``codec/data/`` (the installed demo reads the
+latter).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+SEED = 20261201
+
+
+def _quantize(x: np.ndarray, resolution: float) -> np.ndarray:
+    return np.round(x / resolution) * resolution
+
+
+def ridge_station(rng: np.random.Generator):
+    dt = 60.0
+    t = np.arange(2 * 24 * 60) * dt
+    day = 2 * np.pi * t / 86400.0
+    sun = np.clip(np.sin(day - np.pi / 2 + 0.3), 0, None)  # daylight bump, peak early afternoon
+    front = 1 / (1 + np.exp(-(t - 1.55 * 86400) / 1800.0))  # the front arrives on day 2
+    temp = 276.0 + 5.5 * np.sin(day - 2.2) - 4.0 * front + 0.05 * np.cumsum(rng.normal(0, 0.02, t.size))
+    humid = np.clip(78 - 12 * np.sin(day - 2.2) + 15 * front + rng.normal(0, 0.15, t.size), 5, 100)
+    press = 1012.0 - 9.0 * front + 0.8 * np.sin(day / 2) + rng.normal(0, 0.05, t.size)
+    gust = np.abs(rng.normal(0, 1.0 + 3.0 * front, t.size))
+    wind = np.clip(3.0 + 2.0 * sun + 5.0 * front + gust, 0, None)
+    clouds = 1 - 0.6 * front * np.abs(np.sin(t / 900.0))
+    solar = 820.0 * sun * clouds + rng.normal(0, 2.0, t.size)
+    batt = 12.4 + 0.9 * np.convolve(sun, np.ones(90) / 90, mode="same") + rng.normal(0, 0.004, t.size)
+    spikes = rng.choice(t.size, 3, replace=False)
+    wind[spikes] += 14.0  # a few gust spikes
+    chans = [
+        ("air_temp_k", temp, 0.01, 12), ("rel_humidity_pct", humid, 0.1, 10),
+        ("pressure_hpa", press, 0.1, 14), ("wind_speed_m_s", wind, 0.1, 10),
+        ("solar_w_m2", np.clip(solar, 0, None), 1.0, 12), ("battery_v", batt, 0.001, 14),
+    ]
+    return t, dt, chans
+
+
+def orbiter_hk(rng: np.random.Generator):
+    dt = 4.0
+    period = 95 * 60.0
+    t = np.arange(int(2 * period / dt)) * dt
+    phase = (t % period) / period
+    eclipse = (phase > 0.62) & (phase < 0.99)
+    sun_sensor = np.where(eclipse, 0.0, np.clip(np.cos(2 * np.pi * t / 240.0), 0, None))
+    # Panel temperature relaxes towards a sunlit or an eclipse equilibrium (first-order lag).
+    target = np.where(eclipse, 243.0, 318.0)
+    alpha = dt / 900.0
+    temp = np.empty(t.size)
+    temp[0] = 300.0
+    for i in range(1, t.size):  # a physical lag model, run once when the demo data is made
+        temp[i] = temp[i - 1] + alpha * (target[i] - temp[i - 1])
+    temp += rng.normal(0, 0.05, t.size)
+    payload_on = ((t % period) > 1200) & ((t % period) < 2400)
+    current = 0.45 + 0.85 * payload_on + 0.3 * (~eclipse) * 0 + rng.normal(0, 0.004, t.size)
+    batt = 7.6 + 0.35 * np.where(eclipse, -1, 1) * np.minimum(1, (t % period) / 1500) \
+        - 0.08 * payload_on + rng.normal(0, 0.003, t.size)
+    orbit = 2 * np.pi * t / period
+    tumble = 2 * np.pi * t / 310.0
+    mag_x = 28000 * np.cos(orbit) * np.cos(tumble) + rng.normal(0, 12, t.size)
+    mag_y = 28000 * np.cos(orbit) * np.sin(tumble) + rng.normal(0, 12, t.size)
+    mag_z = 42000 * np.sin(orbit) + rng.normal(0, 12, t.size)
+    spikes = rng.choice(t.size, 2, replace=False)
+    mag_x[spikes] += 3000.0  # single-event upsets in the magnetometer read-out
+    chans = [
+        ("panel_temp_k", temp, 0.05, 12), ("sun_sensor", sun_sensor, 0.001, 10),
+        ("battery_v", batt, 0.002, 12), ("bus_current_a", current, 0.001, 12),
+        ("mag_x_nt", mag_x, 5.0, 16), ("mag_y_nt", mag_y, 5.0, 16), ("mag_z_nt", mag_z, 5.0, 16),
+    ]
+    return t, dt, chans
+
+
+SCENARIOS = {
+    "ridge_station": (ridge_station, "Invented upland environmental station, 1 sample/min"),
+    "orbiter_hk": (orbiter_hk, "Invented small research satellite housekeeping, 1 sample/4 s"),
+}
+
+
+def _profile_toml(description: str, dt: float, chans) -> str:
+    lines = [
+        f'description = "{description}"',
+        "frame_length = 64",
+        'basis = "dct"',
+        "fidelity = 0.99",
+        'reference = "ac"',
+        "",
+    ]
+    for name, values, res, bits in chans:
+        lo, hi = float(values.min()), float(values.max())
+        pad = 0.5 * (hi - lo) + 10 * res
+        lines += [
+            "[[channels]]",
+            f'name = "{name}"',
+            f"resolution = {res}",
+            f"raw_bits_per_sample = {bits}",
+            f"sample_rate_hz = {1.0 / dt!r}",
+            f"valid_min = {round(lo - pad, 3)!r}",
+            f"valid_max = {round(hi + pad, 3)!r}",
+            "",
+        ]
+    return "\n".join(lines)
+
+
+def main() -> None:
+    for name, (make, description) in SCENARIOS.items():
+        rng = np.random.default_rng([SEED, len(name)])
+        t, dt, chans = make(rng)
+        cols = [t] + [_quantize(v, res) for _, v, res, _ in chans]
+        header = ",".join(["time"] + [c[0] for c in chans])
+        np.savetxt(ROOT / "codec/data" / f"{name}.csv", np.column_stack(cols), delimiter=",",
+                   header=header, comments="", fmt="%.6g")
+        toml = _profile_toml(description, dt, chans)
+        for folder in (ROOT / "profiles", ROOT / "codec/data"):
+            (folder / f"{name}.toml").write_text(toml, encoding="utf-8")
+        print(f"{name}: {t.size} samples x {len(chans)} channels")
+
+
+if __name__ == "__main__":
+    main()
