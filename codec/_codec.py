@@ -13,7 +13,7 @@ import numpy as np
 
 from ._bases import Basis, as_basis
 from ._bits import MAX_FIELD_BITS
-from ._errors import InputError, ProfileError
+from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
 from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
 from ._layout import (
@@ -34,6 +34,7 @@ from ._select import _MARGIN, choose_steps, code_frame, frame_budgets, reference
 from ._stream import DELIVERED
 
 __all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
+           "check_some_frame",
            "as_samples", "reconstruct"]
 
 
@@ -373,7 +374,7 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
 
 
 def decode(data: bytes, profile: Profile, samples: int | None = None,
-           reorder: int = 16) -> DecodeResult:
+           reorder: int = 16, strict: bool = True) -> DecodeResult:
     """Decode a whole stream made under ``profile`` (bound: one channel spec per column).
 
     The same machine as the streaming decoder (:class:`codec._streaming.StreamDecoder`)
@@ -382,12 +383,18 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     frames become events in the result, not errors.  ``samples`` (the stream
     note's count) fixes the output length; without it the stream runs to the
     last frame received, and ``end_known`` says whether that end is certain.
-    Raises :class:`ProfileError` only when the profile lists no channels.
+
+    Raises :class:`ProfileError` when the profile lists no channels and, when
+    ``strict``, :class:`FrameError` when not one frame was accepted (saying
+    why: no frame at all, or frames of another profile).  With ``strict``
+    False such a stream gives an all-lost result and its counts.
     """
     from ._streaming import StreamDecoder  # the streaming module builds on this one
 
     dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True)
     blocks = dec.feed(data) + dec.close()
+    if strict:
+        check_some_frame(dec.counts(), dec.events)
     channels = len(profile.channels)
     values = np.concatenate([b.samples for b in blocks]) if blocks else np.zeros((0, channels))
     status = (np.concatenate([b.status for b in blocks]) if blocks
@@ -395,3 +402,22 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     return DecodeResult(values, status == DELIVERED, dec.frame_table(), dec.scanner.crc_failures,
                         dec.scanner.skipped_bytes, status, dec.events, dec.counts(),
                         dec.end_known)
+
+
+def check_some_frame(counts: dict, events: list) -> None:
+    """Raise :class:`FrameError` saying why, when a stream delivered no frame at all."""
+    if counts.get("frames_ok", 0) or counts.get("gap_frames_ok", 0):
+        return
+    foreign = [e for e in events if e["event"] == "foreign_profile"]
+    if foreign:
+        raise FrameError(
+            f"{counts.get('frames_foreign_profile', 0)} frames passed their CRC but were "
+            f"{foreign[0].get('detail', 'made under another profile')}; decode with the profile "
+            "the stream was encoded with", f"frame at byte {foreign[0]['offset']}")
+    refused = [e for e in events if e["event"] == "bad_header"]
+    if refused:
+        raise FrameError(f"every CRC-valid frame was refused ({refused[0].get('detail')}); the "
+                         "stream does not match this profile", f"frame at byte "
+                         f"{refused[0]['offset']}")
+    raise FrameError("no frame with a valid sync marker and CRC was found; is this a trimlink "
+                     "stream?")
