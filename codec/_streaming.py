@@ -118,6 +118,25 @@ class StreamDecoder:
     def end_known(self) -> bool:
         return self.end_sample is not None
 
+    def complete(self) -> bool:
+        """Whether every window up to the stream's known end has all its frames.
+
+        A live receiver stops here instead of waiting for a timeout; always
+        False while the end is unknown.
+        """
+        if self.end_sample is None:
+            return False
+        end = -(-self.end_sample // self.n)
+        for win in range(self.tracker.released, end):
+            w = self._windows.get(win)
+            if w is None:
+                return False
+            have = (w.status != LOST).any(axis=1) | np.isin(np.arange(self.channels),
+                                                             list(w.masks))
+            if not have.all() or any(int(c) not in w.masks for c in np.flatnonzero(w.flagged)):
+                return False
+        return True
+
     # -- input ------------------------------------------------------------------------------
     def feed(self, chunk: bytes) -> list[Block]:
         """Bytes in; the blocks of samples they complete out."""
