@@ -309,11 +309,13 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
     masks: dict[int, np.ndarray] = {}
     pid = profile_id(profile)
 
+    ok = np.ones(nf, dtype=bool)  # mirror of verdict == "ok", for whole-array selection
+
     def refuse(idx: np.ndarray, bad: np.ndarray, key: str, words) -> None:
-        for f in idx[bad]:
-            if verdict[f] == "ok":
-                verdict[f] = key
-                detail[f] = words(f) if callable(words) else words
+        for f in idx[bad & ok[idx]].tolist():  # only the refused frames, usually none
+            ok[f] = False
+            verdict[f] = key
+            detail[f] = words(f) if callable(words) else words
 
     data = np.flatnonzero(version == LAYOUT_VERSION)
     if data.size:
@@ -335,13 +337,13 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         refuse(data, (h["mean_width"] > 0) != (profile.reference == "ac"), "bad_header",
                "mean field does not match the profile's reference")
         # Only now, with terms and widths bounded, is the implied length safe to compute.
-        sane = np.array([verdict[f] == "ok" for f in data], dtype=bool)
+        sane = ok[data]
         implied = np.where(sane, expected_length({k: np.where(sane, v, 0) for k, v in h.items()},
                                                  n), h["length"])
         refuse(data, implied != h["length"], "bad_header", "length field does not match contents")
-        good = data[np.array([verdict[f] == "ok" for f in data], dtype=bool)]
+        good = data[ok[data]]
         if good.size:
-            gh = {k: v[np.isin(data, good)] for k, v in h.items()}
+            gh = {k: v[ok[data]] for k, v in h.items()}
             mean, index, value = parse_payloads(buf, offsets[good], gh, n)
             owner = np.repeat(np.arange(good.size), gh["terms"])
             badidx = np.zeros(good.size, dtype=bool)

@@ -68,6 +68,8 @@ CONCEALED = 3  # filled by a receiver's concealment policy (set by link_sim, nev
 FIRST_FREE_STATUS = 4
 STATUS_NAMES = {LOST: "lost", DELIVERED: "delivered", GAP: "gap", CONCEALED: "concealed"}
 
+#: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
+MAX_LISTED = 100_000
 #: No frame can claim more bytes than its 16-bit length field holds.
 MAX_FRAME_BYTES = 65535
 _SYNC_LEN = len(SYNC)
@@ -111,7 +113,8 @@ class FrameScanner:
         self._pos = 0  # index in _buf where the walk stands
         self._expected = True  # _pos is a frame boundary (not found by searching)
         self._need = 0  # bytes _buf must hold before the walk can move on
-        self.crc_failures: list[int] = []
+        self.crc_failures: list[int] = []  # offsets, the first MAX_LISTED of them
+        self.crc_failure_count = 0
         self.skipped_bytes = 0
         self.bytes_in = 0
 
@@ -158,12 +161,14 @@ class FrameScanner:
                     self._need = pos + length
                     return out
                 if length is not None and frame_crc_ok(mv, pos, length):
-                    out.append((self._base + pos, bytes(buf[pos : pos + length])))
+                    out.append((self._base + pos, mv[pos : pos + length].tobytes()))
                     self._pos = pos + length
                     self._expected = True
                     continue
                 if self._expected:
-                    self.crc_failures.append(self._base + pos)
+                    self.crc_failure_count += 1
+                    if len(self.crc_failures) < MAX_LISTED:
+                        self.crc_failures.append(self._base + pos)
                 self._expected = False
                 self._search(pos + 1, size, final)
         finally:
@@ -254,7 +259,11 @@ class SequenceTracker:
         return self.head + 1 if final else max(self.released, self.head - self.reorder + 1)
 
     def release(self, upto: int) -> None:
-        """Close windows below ``upto`` and forget their duplicate keys (bounded memory)."""
+        """Close windows below ``upto`` and forget their duplicate keys (bounded memory).
+
+        Keys of closed windows are never consulted again (a frame there is
+        ``late`` before duplicates are looked up), so pruning changes no verdict.
+        """
         self.released = max(self.released, upto)
         if len(self._seen) > 4 * 256 * (self.reorder + 2):
             self._seen = {k: v for k, v in self._seen.items() if k[0] >= self.released}

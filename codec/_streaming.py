@@ -49,29 +49,6 @@ class Block:
     status: np.ndarray
 
 
-class _Window:
-    """One time window being assembled: values, status and gap bookkeeping per channel."""
-
-    __slots__ = ("values", "status", "flagged", "masks")
-
-    def __init__(self, channels: int, n: int):
-        self.values = np.full((channels, n), np.nan)
-        self.status = np.full((channels, n), LOST, dtype=np.uint8)
-        self.flagged = np.zeros(channels, dtype=bool)
-        self.masks: dict[int, np.ndarray] = {}
-
-    def settle(self) -> None:
-        """Apply gap masks; a data frame announcing a mask that never came is not vouched for."""
-        for c in np.flatnonzero(self.flagged):
-            if int(c) not in self.masks:
-                self.values[c] = np.nan
-                self.status[c] = LOST
-        for c, mask in self.masks.items():
-            k = mask.size
-            self.values[c, :k][mask] = np.nan
-            self.status[c, :k][mask] = GAP
-
-
 class StreamDecoder:
     """Incremental decoder: :meth:`feed` bytes, get :class:`Block` lists; :meth:`close` at the end.
 
@@ -95,23 +72,26 @@ class StreamDecoder:
                                "profile")
         if reorder < 0:
             raise ValueError("reorder must be >= 0")
+        from ._bases import as_basis
+
         self.profile = profile
         self.n = profile.frame_length
         self.channels = len(profile.channels)
-        from ._bases import as_basis
-
         self.basis = as_basis(profile.basis, self.n)
         self.scanner = FrameScanner()
         self.end_sample = int(samples) if samples is not None else None
         end_window = None if samples is None else -(-int(samples) // self.n)
         self.tracker = SequenceTracker(reorder=reorder, end_window=end_window)
-        self._windows: dict[int, _Window] = {}
+        # Accepted data frames not yet released: window, channel, valid, flags, rows.
+        self._pending: list[tuple[np.ndarray, ...]] = []
+        self._masks: dict[tuple[int, int], np.ndarray] = {}  # (window, channel) -> gap mask
+        self._next = 0  # first window not yet emitted
         self.events: list[dict] = []
         self._frame_counts: dict[str, int] = {}
         self._sample_counts = dict.fromkeys(STATUS_NAMES.values(), 0)
         self._emitted = 0
         self._keep = keep_frames
-        self._table: list[tuple] = []
+        self._table: list[np.ndarray] = []
         self._closed = False
 
     @property
@@ -119,7 +99,7 @@ class StreamDecoder:
         return self.end_sample is not None
 
     def complete(self) -> bool:
-        """Whether every window up to the stream's known end has all its frames.
+        """Whether every (window, channel) up to the stream's known end has arrived.
 
         A live receiver stops here instead of waiting for a timeout; always
         False while the end is unknown.
@@ -127,15 +107,13 @@ class StreamDecoder:
         if self.end_sample is None:
             return False
         end = -(-self.end_sample // self.n)
-        for win in range(self.tracker.released, end):
-            w = self._windows.get(win)
-            if w is None:
-                return False
-            have = (w.status != LOST).any(axis=1) | np.isin(np.arange(self.channels),
-                                                             list(w.masks))
-            if not have.all() or any(int(c) not in w.masks for c in np.flatnonzero(w.flagged)):
-                return False
-        return True
+        have = {(int(w), int(c)) for p in self._pending for w, c in zip(p[0], p[1])}
+        have |= set(self._masks)
+        flagged = {(int(w), int(c)) for p in self._pending
+                   for w, c, f in zip(p[0], p[1], p[3]) if f & FLAG_GAP_MASK}
+        if flagged - set(self._masks):
+            return False
+        return all((w, c) in have for w in range(self._next, end) for c in range(self.channels))
 
     # -- input ------------------------------------------------------------------------------
     def feed(self, chunk: bytes) -> list[Block]:
@@ -152,81 +130,111 @@ class StreamDecoder:
         return self._frames(self.scanner.close(), final=True)
 
     def _frames(self, found: list[tuple[int, bytes]], final: bool) -> list[Block]:
-        out: list[Block] = []
         if found:
-            fr = decode_frames([f for _, f in found], self.profile, self.basis)
-            for i, (offset, frame) in enumerate(found):  # one placement per frame
-                self._place(i, offset, frame, fr)
-                out += self._release(self.tracker.releasable(False))
+            self._place_all(found)
+        tr = self.tracker
         if final:
-            if self.end_sample is None and self.tracker.head is not None:
-                upto = self.tracker.head + 1
-            else:
-                upto = self.tracker.end_window or 0
-            out += self._release(max(upto, self.tracker.released))
-        return _join(out)
+            if self.end_sample is not None:
+                tr.released = max(tr.released, -(-self.end_sample // self.n))
+            elif tr.head is not None:
+                tr.released = max(tr.released, tr.head + 1)
+        out = self._emit(tr.released)
+        tr.release(tr.released)
+        return out
 
-    def _place(self, i: int, offset: int, frame: bytes, fr) -> None:
-        verdict = fr.verdict[i]
-        kind = int(fr.kind[i])
+    def _place_all(self, found: list[tuple[int, bytes]]) -> None:
+        """Verdict and window of every frame, in arrival order (plain integers, no arrays)."""
+        fr = decode_frames([f for _, f in found], self.profile, self.basis)
         head = fr.head
-        if verdict != "ok":
-            self._event(verdict, offset, detail=fr.detail[i])
-            return
-        seq, ch, valid = int(head["sequence"][i]), int(head["channel"][i]), int(head["valid"][i])
-        window, where = self.tracker.place(seq, ch, kind, int(fr.crc[i]))
-        if where != "ok":
-            self._event(where, offset, window=window, channel=ch)
-            return
-        self._count("frames_ok" if kind == 0 else "gap_frames_ok")
-        w = self._windows.get(window)
-        if w is None:
-            w = self._windows[window] = _Window(self.channels, self.n)
-        if kind == 1:
-            w.masks[ch] = fr.masks[i]
-        else:
-            w.values[ch, :valid] = fr.rows[i, :valid]
-            w.status[ch, :valid] = DELIVERED
-            w.flagged[ch] = bool(head["flags"][i] & FLAG_GAP_MASK)
+        tr = self.tracker
+        seqs, chans, valids = (head[k].tolist() for k in ("sequence", "channel", "valid"))
+        kinds, crcs = fr.kind.tolist(), fr.crc.tolist()
+        take, wins = [], []
+        for i, (offset, _) in enumerate(found):  # one decision per frame, in order
+            if fr.verdict[i] != "ok":
+                self._event(fr.verdict[i], offset, detail=fr.detail[i])
+                continue
+            window, where = tr.place(seqs[i], chans[i], kinds[i], crcs[i])
+            if where != "ok":
+                self._event(where, offset, window=window, channel=chans[i])
+                continue
+            self._count("frames_ok" if kinds[i] == 0 else "gap_frames_ok")
+            if kinds[i] == 1:
+                self._masks[(window, chans[i])] = fr.masks[i]
+            else:
+                take.append(i)
+                wins.append(window)
+            if valids[i] < self.n and self.end_sample is None:
+                # A short frame is the last window of its stream: the end is now known.
+                self.end_sample = window * self.n + valids[i]
+                tr.end_window = window + 1
+            tr.released = tr.releasable(False)
+        if take:
+            idx = np.array(take)
+            win = np.array(wins, dtype=np.int64)
+            self._pending.append((win, head["channel"][idx], head["valid"][idx],
+                                  head["flags"][idx], fr.rows[idx]))
             if self._keep:
-                self._table.append((offset, len(frame), seq, window, ch, int(head["basis"][i]),
-                                    int(head["terms"][i]), int(head["step_code"][i]), valid))
-        if valid < self.n and self.end_sample is None:
-            # A short frame is the last window of its stream: the end is now known.
-            self.end_sample = window * self.n + valid
-            self.tracker.end_window = window + 1
+                offs = np.array([found[i][0] for i in take], dtype=np.int64)
+                lens = np.array([len(found[i][1]) for i in take], dtype=np.int64)
+                self._table.append(np.stack([offs, lens, head["sequence"][idx], win,
+                                             head["channel"][idx], head["basis"][idx],
+                                             head["terms"][idx], head["step_code"][idx],
+                                             head["valid"][idx]], axis=1))
 
-    def _release(self, upto: int) -> list[Block]:
-        lo = self.tracker.released
-        if upto <= lo:
-            return []
+    def _emit(self, upto: int) -> list[Block]:
+        """Blocks for windows ``[next, upto)``, whole-array work over their frames."""
         if self.end_sample is not None:
             upto = min(upto, -(-self.end_sample // self.n))
+        if upto <= self._next:
+            return []
+        if self._pending:
+            win, ch, valid, flags, rows = (np.concatenate(c) for c in zip(*self._pending))
+        else:
+            win = ch = valid = flags = np.zeros(0, np.int64)
+            rows = np.zeros((0, self.n))
+        go = win < upto
         blocks = []
+        n, nc = self.n, self.channels
         # A long run of windows with no frame is released in pieces (bounded size each).
-        for a in range(lo, upto, 256):
+        for a in range(self._next, upto, 256):
             b = min(upto, a + 256)
-            vals = np.full((b - a, self.n, self.channels), np.nan)
-            stat = np.full((b - a, self.n, self.channels), LOST, dtype=np.uint8)
-            for win in [k for k in self._windows if a <= k < b]:
-                w = self._windows.pop(win)
-                w.settle()
-                vals[win - a] = w.values.T
-                stat[win - a] = w.status.T
-            vals = vals.reshape(-1, self.channels)
-            stat = stat.reshape(-1, self.channels)
-            start = a * self.n
+            sel = go & (win >= a) & (win < b)
+            vals = np.full((b - a, nc, n), np.nan)
+            stat = np.full((b - a, nc, n), LOST, dtype=np.uint8)
+            have = np.arange(n) < valid[sel][:, None]
+            w, c = win[sel] - a, ch[sel]
+            vals[w, c] = np.where(have, rows[sel], np.nan)
+            stat[w, c] = np.where(have, DELIVERED, LOST)
+            masked = flags[sel] & FLAG_GAP_MASK != 0
+            for k in np.flatnonzero(masked):  # frames whose gap mask never came: not vouched for
+                if (int(win[sel][k]), int(c[k])) not in self._masks:
+                    vals[w[k], c[k]] = np.nan
+                    stat[w[k], c[k]] = LOST
+            for key in [key for key in self._masks if a <= key[0] < b]:  # rare: one per gap frame
+                mask = self._masks.pop(key)
+                vals[key[0] - a, key[1], : mask.size][mask] = np.nan
+                stat[key[0] - a, key[1], : mask.size][mask] = GAP
+            vals = vals.transpose(0, 2, 1).reshape(-1, nc)
+            stat = stat.transpose(0, 2, 1).reshape(-1, nc)
+            start = a * n
             if self.end_sample is not None:
                 keep = max(0, min(vals.shape[0], self.end_sample - start))
                 vals, stat = vals[:keep], stat[:keep]
+            counts = np.bincount(stat.ravel(), minlength=len(STATUS_NAMES))
             for code, name in STATUS_NAMES.items():
-                self._sample_counts[name] += int(np.count_nonzero(stat == code))
+                self._sample_counts[name] += int(counts[code])
             self._emitted = start + vals.shape[0]
             blocks.append(Block(start, vals, stat))
-        self.tracker.release(upto)
-        for win in [k for k in self._windows if k < upto]:  # beyond a now-known end
-            del self._windows[win]
-        return blocks
+        self._next = upto
+        rest = ~go
+        if self.end_sample is not None:  # frames past a now-known end are never released
+            rest &= win < -(-self.end_sample // n)
+        self._pending = [(win[rest], ch[rest], valid[rest], flags[rest], rows[rest])] \
+            if rest.any() else []
+        for key in [key for key in self._masks if key[0] < upto]:  # beyond a now-known end
+            del self._masks[key]
+        return _join(blocks)
 
     # -- accounting -------------------------------------------------------------------------
     def _count(self, key: str) -> None:
@@ -241,7 +249,7 @@ class StreamDecoder:
     def counts(self) -> dict:
         """Frame and sample counts so far (samples only for released windows)."""
         c = {"frames_ok": 0, "gap_frames_ok": 0, **self._frame_counts}
-        c["frames_crc_failed"] = len(self.scanner.crc_failures)
+        c["frames_crc_failed"] = self.scanner.crc_failure_count
         c["bytes_in"] = self.scanner.bytes_in
         c["bytes_skipped"] = self.scanner.skipped_bytes
         c["samples"] = self._emitted
@@ -254,7 +262,8 @@ class StreamDecoder:
         """Accepted data frames as arrays (only with ``keep_frames``)."""
         cols = ("offset", "length", "sequence", "window", "channel", "basis", "terms",
                 "step_code", "valid")
-        arr = np.array(self._table, dtype=np.int64).reshape(-1, len(cols))
+        arr = (np.concatenate(self._table) if self._table
+               else np.zeros((0, len(cols)), np.int64))
         table = {k: arr[:, i] for i, k in enumerate(cols)}
         table["bits"] = table["length"] * 8
         return table

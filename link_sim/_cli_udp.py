@@ -11,7 +11,7 @@ from pathlib import Path
 
 from codec import InputError, StreamDecoder
 from codec._io import atomic_output, is_stdio, write_csv_block
-from codec._profile import load_stream_note, note_path
+from codec._profile import load_stream_note
 from codec.cli._common import write_json
 
 from ._udp import parse_endpoint, receive_frames, send_frames, split_frames_of

@@ -119,7 +119,7 @@ def _stream_profile(args) -> tuple[Profile, StreamNote | None]:
 
 
 def _quiet_broken_pipe(handler):
-    """A reader that closes the pipe early (``| head``) ends the command quietly, not a traceback."""
+    """A reader that closes the pipe early (``| head``) ends the command quietly."""
     def run(args) -> int:
         try:
             return handler(args)
