@@ -96,8 +96,9 @@ def test_unstuffer_bounds_memory_and_resyncs():
     assert u.feed(b"\x05" * (MAX_PACKET + 10)) == []
     assert u.overlong == 1 and len(u._buf) == 0
     good = cobs_encode(b"frame")
-    assert u.feed(b"junk" + b"\x00" + good) == [b"frame"]  # junk ends at the delimiter
-    assert u.bad_packets == 1  # "junk": code byte 0x6A points past the packet, not COBS
+    # "junk" still belongs to the overlong packet, dropped up to its delimiter.
+    assert u.feed(b"junk" + b"\x00" + good) == [b"frame"] and u.bad_packets == 0
+    assert u.feed(b"junk\x00") == [] and u.bad_packets == 1  # 0x6A points past the packet
 
 
 def test_stuffed_stream_decodes_like_the_plain_one():
