@@ -17,21 +17,39 @@ from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
 from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
 from ._layout import (
-    FLAG_GAP_MASK,
     GAP_KIND,
+    K_INIT_BITS,
     LAYOUT_VERSION,
+    LAYOUT_VERSION_2,
+    PROFILE_BITS_V2,
+    SEQUENCE_BITS_V2,
+    STEP_BITS,
     SYNC,
     FrameBatch,
+    FrameBatchV2,
+    count_bits,
     expected_length,
+    frame_crc_ok,
+    frame_extent,
+    index_bits,
     pack_frames,
+    pack_frames_v2,
+    parse_frames_v2,
     parse_headers,
     parse_payloads,
+    payload_bits_v2,
 )
 from ._profile import Profile, profile_id
 from ._quantize import step_from_code
 from ._report import stream_report
-from ._select import _MARGIN, choose_steps, code_frame, frame_budgets, reference_energy
-from ._stream import DELIVERED
+from ._select import (
+    _MARGIN,
+    choose_steps,
+    code_frame,
+    frame_budgets,
+    reference_energy,
+)
+from ._stream import DELIVERED, locate_frames
 
 __all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
            "check_some_frame",
@@ -170,59 +188,88 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
     cx = basis.analyze(frames)
     dc = basis.analyze(np.ones(n))
-    code = choose_steps(cx, mean, dc, budget)
+    if profile.layout_version == 1:
+        offset = np.full(cx.shape[0], 0.5)
+        code = choose_steps(cx, mean, dc, budget)
+    else:
+        code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n)
 
-    q, mean_int, _ = code_frame(cx, mean, dc, code)
+    q, mean_int, _ = code_frame(cx, mean, dc, code, offset)
     recon = reconstruct(q, mean_int, code, basis)
     err = _valid_error(frames, recon, mask)
-    bad = np.flatnonzero(err > budget * _MARGIN)
-    while bad.size:  # closed loop: tighten the step of frames that miss on the samples
+    limit = _peak_limits(profile, channel)
+    peak_mode = bool(np.isfinite(limit).any())
+
+    def step_drop(rows: np.ndarray) -> np.ndarray:
+        """Eighth-octave step codes by which each frame's step must shrink (0: it passes)."""
+        drop = (err[rows] > budget[rows] * _MARGIN).astype(np.int64)
+        if peak_mode:
+            pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
+            over = pk > limit[rows]
+            # a uniform quantizer's error scales with its step
+            est = np.ceil(8.0 * np.log2(np.maximum(pk / limit[rows], 1.0))).astype(np.int64)
+            drop = np.maximum(drop, np.where(over, np.maximum(est, 1), 0))
+        return drop
+
+    rows = np.arange(code.size)
+    drop = step_drop(rows)
+    while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
+        bad, d = rows[drop > 0], drop[drop > 0]
         if (code[bad] == 0).any():
+            if peak_mode:
+                raise InputError("the peak-error limit is finer than any quantizer step can "
+                                 "meet; raise max_error", "profile")
             raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
-        code[bad] -= 1
-        qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad])
+        code[bad] = np.maximum(code[bad] - d, 0)
+        qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad],
+                               offset[bad])
         q[bad] = qb
         if mean_int is not None:
             mean_int[bad] = mb
         recon[bad] = reconstruct(qb, mb, code[bad], basis)
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
-        bad = bad[err[bad] > budget[bad] * _MARGIN]
-        if not bad.size:
-            # Synthesize all frames in one call, as the decoder does: BLAS may round a
-            # subset differently from the whole batch, so the check is redone on this.
-            recon = reconstruct(q, mean_int, code, basis)
-            err = _valid_error(frames, recon, mask)
-            bad = np.flatnonzero(err > budget * _MARGIN)
-
-    kept = q != 0
-    batch = FrameBatch(
-        channel=channel, sequence=window + first_window,
-        basis=np.full(channel.size, basis.code),
-        step_code=code, valid=valid, has_mean=mean_int is not None,
-        mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
-        terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
-    )
-    gap_frames = None
-    if missing is not None and gaps == "mark":
-        fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
-        gap_frames = fmiss.any(axis=1)
-        batch.flags = np.where(gap_frames, FLAG_GAP_MASK, 0)
-    data, lengths = pack_frames(batch, profile_id(profile), n)
-    extra_bits = 0
-    if gap_frames is not None:
-        data, lengths, extra_bits = _add_gap_frames(data, lengths, fmiss, gap_frames, batch,
-                                                    profile_id(profile), n)
+        rows = bad
+        drop = step_drop(rows)
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     met = err <= budget
     floor = budget > (1.0 - profile.fidelity) * e_ref
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
+    fmiss = gap_rows = None
+    if missing is not None and gaps == "mark":
+        fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
+        gap_rows = fmiss.any(axis=1)
+    if profile.layout_version == 1:
+        kept = q != 0
+        batch = FrameBatch(
+            channel=channel, sequence=window + first_window,
+            basis=np.full(channel.size, basis.code),
+            step_code=code, valid=valid, has_mean=mean_int is not None,
+            mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
+            terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
+        )
+        data, lengths = pack_frames(batch, profile_id(profile), n)
+        frame_bits = lengths * 8
+        header_bits = int(frame_bits.sum()) - int(_v1_term_bits(batch, n))
+        row_frame = np.arange(channel.size)
+    else:
+        data, frame_bits, header_bits = _pack_v2(profile, channel, window + first_window,
+                                                 valid, code, mean_int, q, n)
+        row_frame = (np.unique(window, return_inverse=True)[1] if profile.multi_channel_frames
+                     else np.arange(channel.size))
+    extra_bits = 0
+    if gap_rows is not None:
+        data, dropped, extra_bits = _add_gap_frames(
+            data, row_frame, fmiss, gap_rows, channel, window + first_window, valid,
+            profile_id(profile), n)
+        frame_bits = np.where(dropped, 0, frame_bits)
     info = {
-        "channel": channel, "window": window, "bits": lengths * 8, "terms": batch.terms,
+        "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
         "reference_energy": e_ref, "fidelity": fidelity, "met": met, "floor": floor,
+        "max_abs_error": _valid_max_error(frames, recon, mask),
     }
-    report = stream_report(x, x_hat, profile, lengths * 8, channel, fidelity, met, floor,
-                           extra_bits=extra_bits)
+    report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met, floor,
+                           extra_bits=extra_bits, header_bits=header_bits)
     report["gap_policy"] = gaps
     report["samples_gap"] = 0 if missing is None else int(missing.sum())
     if missing is not None and gaps == "mark":
@@ -230,32 +277,110 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     return EncodeResult(data, profile, x_hat, info, report)
 
 
-def _add_gap_frames(data: bytes, lengths: np.ndarray, fmiss: np.ndarray, has_gap: np.ndarray,
-                    batch: FrameBatch, pid: int, n: int) -> tuple[bytes, np.ndarray, int]:
-    """Put a gap-mask frame after each data frame with gaps; drop data frames that are all gap.
+def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_gap: np.ndarray,
+                    channel: np.ndarray, sequence: np.ndarray, valid: np.ndarray, pid: int,
+                    n: int) -> tuple[bytes, np.ndarray, int]:
+    """Wrap every data frame holding a gap in a gap-mask frame (``codec._gaps``).
 
-    Returns the new stream, the data frames' lengths (0 for a dropped one) and
-    the gap frames' bits.
+    ``row_frame`` maps each row (one window of one channel) to its data frame
+    (several rows share a multi-channel frame).  A window whose rows are all
+    gap sends the masks alone.  Returns the new stream, which rows lost their
+    data frame, and the bits the gap-mask frames add.
     """
-    starts = np.cumsum(lengths) - lengths
+    loc = locate_frames(data)  # our own clean stream: one entry per data frame
+    nframes = loc.offsets.size
+    full = (fmiss & (np.arange(n) < valid[:, None])).sum(axis=1) == valid
+    all_gap = np.ones(nframes, dtype=bool)
+    np.logical_and.at(all_gap, row_frame, full)
+    masks: list[list] = [[] for _ in range(nframes)]
+    for r in np.flatnonzero(has_gap).tolist():  # rows with gaps only
+        masks[row_frame[r]].append((int(channel[r]), fmiss[r]))
+    first = np.searchsorted(row_frame, np.arange(nframes))
     pieces: list[bytes] = []
-    out_len = lengths.copy()
     extra = 0
     mv = memoryview(data)
-    for f in range(len(batch)):  # one slice per frame; gap frames are packed one by one
-        valid = int(batch.valid[f])
-        if not has_gap[f]:
-            pieces.append(mv[starts[f] : starts[f] + lengths[f]])
+    for f, (o, ln) in enumerate(zip(loc.offsets.tolist(), loc.lengths.tolist())):
+        frame = mv[o : o + ln]
+        if not masks[f]:
+            pieces.append(frame)
             continue
-        if not fmiss[f, :valid].all():
-            pieces.append(mv[starts[f] : starts[f] + lengths[f]])
-        else:
-            out_len[f] = 0
-        g = pack_gap_frame(pid, int(batch.channel[f]), int(batch.sequence[f]), valid,
-                           fmiss[f], n)
+        r = first[f]
+        inner = b"" if all_gap[f] else bytes(frame)
+        g = pack_gap_frame(pid, int(sequence[r]), int(valid[r]), masks[f], inner, n)
         pieces.append(g)
-        extra += 8 * len(g)
-    return b"".join(pieces), out_len, extra
+        extra += 8 * (len(g) - len(inner))
+    return b"".join(pieces), all_gap[row_frame], extra
+
+
+def _v1_term_bits(batch: FrameBatch, n: int) -> int:
+    """Bits of the v1 payload that carry terms and the mean (the rest is header)."""
+    from ._bits import signed_width
+
+    terms = batch.terms.astype(np.int64)
+    vw = np.zeros(terms.size, np.int64)
+    if batch.term_value.size:
+        starts = np.cumsum(terms) - terms
+        nz = terms > 0
+        vw[nz] = np.maximum.reduceat(signed_width(batch.term_value[:, None]), starts[nz])
+    mw = signed_width(batch.mean[:, None]) if batch.has_mean else np.zeros(terms.size, np.int64)
+    return int((mw + terms * (index_bits(n) + vw)).sum())
+
+
+def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
+    """Layout v2 frames; returns (bytes, bits per subframe, header bits of the stream)."""
+    multi = profile.multi_channel_frames
+    rows = channel.size
+    if multi:
+        frame = window.copy()
+        first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
+    else:
+        frame = np.arange(rows)
+        first = frame
+    batch = FrameBatchV2(
+        multi=np.full(first.size, multi), channel=channel[first], sequence=window[first],
+        valid=valid[first], frame=frame, step_code=code, mean=mean_int, q=q)
+    data, lengths, sub_bits = pack_frames_v2(batch, profile_id(profile), n)
+    cnt = np.bincount(frame, minlength=first.size)
+    overhead = lengths * 8 - np.add.reduceat(sub_bits, first)
+    bits = sub_bits + (overhead // cnt)[frame]
+    bits[first] += overhead - (overhead // cnt) * cnt
+    coef_bits = sub_bits - (STEP_BITS + count_bits(n) + np.where((q != 0).any(axis=1),
+                                                                  K_INIT_BITS, 0))
+    return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
+
+
+#: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
+RD_OFFSETS = (0.5, 0.36)
+
+
+def _rate_fidelity_choice(cx, mean, dc, budget, n):
+    """Per frame, the (step code, rounding offset) pair that meets the budget in fewest bits.
+
+    For each candidate offset the largest step that meets the budget is found,
+    and the exact v2 payload size of the result is counted; the cheaper wins.
+    """
+    best_code = best_off = best_bits = None
+    for off in RD_OFFSETS:
+        code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
+        q, mean_int, _ = code_frame(cx, mean, dc, code, off)
+        bits = payload_bits_v2(q, mean_int, n)
+        if best_bits is None:
+            best_code, best_off, best_bits = code, np.full(code.size, off), bits
+            continue
+        better = bits < best_bits
+        best_code = np.where(better, code, best_code)
+        best_off = np.where(better, off, best_off)
+        best_bits = np.where(better, bits, best_bits)
+    return best_code, best_off
+
+
+def _peak_limits(profile: Profile, channel: np.ndarray) -> np.ndarray:
+    lim = np.array([np.inf if c.max_error is None else c.max_error for c in profile.channels])
+    return lim[channel]
+
+
+def _valid_max_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    return np.abs(np.where(mask, frames - recon, 0.0)).max(axis=1)
 
 
 def _valid_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.ndarray:
@@ -267,49 +392,64 @@ def _valid_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.
 class FrameRows:
     """CRC-valid frames interpreted under a profile (the decode half's per-frame step).
 
-    One entry per frame, in arrival order.  ``verdict`` is ``"ok"`` or the
-    reason the frame is refused (a short key; ``detail`` says it in words).
-    ``rows`` holds the decoded samples of accepted data frames (NaN elsewhere);
-    ``masks`` the gap masks of accepted gap-mask frames, by frame index.
+    Per frame, in arrival order: ``kind`` (0 data, 1 gap mask), ``verdict``
+    (``"ok"`` or a short key saying why the frame is refused; ``detail`` says
+    it in words), ``crc``, ``sequence`` and its ``modulus`` (the layout's
+    sequence range), ``valid`` and a few header fields in ``head`` for the
+    frame table.  Per row (one window of one channel; a multi-channel frame
+    has several): ``row_frame``, ``row_channel``, ``row_flags`` and the decoded
+    ``rows`` (NaN for refused frames).  ``masks`` holds the ``(channel, mask)``
+    pairs of each accepted gap-mask frame, by frame index; the rows of its
+    inner data frame, if any, belong to the same frame index.
     """
 
-    kind: np.ndarray  # 0 data frame, 1 gap-mask frame
+    kind: np.ndarray
     verdict: list
     detail: list
-    head: dict  # header fields of data frames (0 where not a data frame)
     crc: np.ndarray
+    sequence: np.ndarray
+    modulus: np.ndarray
+    valid: np.ndarray
+    head: dict
+    row_frame: np.ndarray
+    row_channel: np.ndarray
+    row_flags: np.ndarray
     rows: np.ndarray
     masks: dict
 
 
-_HEAD_KEYS = ("profile", "channel", "sequence", "basis", "terms", "step_code", "valid", "flags",
-              "version")
+_HEAD_KEYS = ("basis", "terms", "step_code")
 
 
 def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameRows:
     """Interpret CRC-valid frames; a foreign or impossible frame becomes a verdict, never an error.
 
     Every length and count read from the wire is checked against the profile
-    (terms <= N, widths <= 57 bits, valid in 1..N, term index < N, length field
-    equal to the length the fields imply) before any payload field is read.
+    before use: v1 terms <= N, widths <= 57 bits, valid in 1..N, term index < N
+    and the length field equal to the length the fields imply, all before any
+    payload field is read; v2 coefficient counts <= N and the coded contents
+    filling the frame exactly (checked by the v2 parser); gap masks by
+    :func:`codec._gaps.parse_gap_frame`.
     """
     n = profile.frame_length
+    channels = len(profile.channels)
     nf = len(frames)
     lengths = np.fromiter((len(f) for f in frames), dtype=np.int64, count=nf)
     offsets = np.cumsum(lengths) - lengths
-    buf = np.frombuffer(b"".join(frames), dtype=np.uint8)
-    version = buf[offsets + len(SYNC)] >> 4 if nf else np.zeros(0, np.int64)
-    crc = ((buf[offsets + lengths - 2].astype(np.int64) << 8) | buf[offsets + lengths - 1]
-           if nf else np.zeros(0, np.int64))
+    joined = b"".join(frames)
+    buf = np.frombuffer(joined, dtype=np.uint8)
+    version = (buf[offsets + len(SYNC)] >> 4).astype(np.int64)
+    crc = (buf[offsets + lengths - 2].astype(np.int64) << 8) | buf[offsets + lengths - 1]
     kind = np.where(version == GAP_KIND, 1, 0)
     verdict = ["ok"] * nf
     detail = [""] * nf
-    head = {k: np.zeros(nf, dtype=np.int64) for k in _HEAD_KEYS}
-    rows = np.full((nf, n), np.nan)
-    masks: dict[int, np.ndarray] = {}
-    pid = profile_id(profile)
-
     ok = np.ones(nf, dtype=bool)  # mirror of verdict == "ok", for whole-array selection
+    sequence = np.zeros(nf, np.int64)
+    modulus = np.where(version == LAYOUT_VERSION_2, 1 << SEQUENCE_BITS_V2, 65536)
+    # A gap-mask frame's rows and masks are keyed by its own 16-bit sequence number.
+    valid = np.zeros(nf, np.int64)
+    head = {k: np.zeros(nf, dtype=np.int64) for k in _HEAD_KEYS}
+    pid = profile_id(profile)
 
     def refuse(idx: np.ndarray, bad: np.ndarray, key: str, words) -> None:
         for f in idx[bad & ok[idx]].tolist():  # only the refused frames, usually none
@@ -317,62 +457,130 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
             verdict[f] = key
             detail[f] = words(f) if callable(words) else words
 
-    data = np.flatnonzero(version == LAYOUT_VERSION)
-    if data.size:
-        h = parse_headers(buf, offsets[data])
+    # Rows: one per v1 / gap frame, one per subframe of a v2 frame (filled below).
+    parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
+
+    v1 = np.flatnonzero(version == LAYOUT_VERSION)
+    if v1.size:
+        h = parse_headers(buf, offsets[v1])
+        sequence[v1], valid[v1] = h["sequence"], h["valid"]
         for k in _HEAD_KEYS:
-            head[k][data] = h[k]
-        refuse(data, h["profile"] != pid, "foreign_profile",
-               lambda f: f"made under profile id {int(head['profile'][f]):#06x}, not {pid:#06x}")
-        refuse(data, (h["flags"] & ~FLAG_GAP_MASK) != 0, "bad_header", "reserved flags set")
-        refuse(data, h["channel"] >= len(profile.channels), "bad_header",
-               f"channel not in the profile ({len(profile.channels)} channels)")
-        refuse(data, h["basis"] != basis.code, "bad_header",
+            head[k][v1] = h[k]
+        refuse(v1, h["profile"] != pid, "foreign_profile",
+               lambda f: f"made under profile id {int(h['profile'][v1 == f][0]):#06x}, not "
+                         f"{pid:#06x}")
+        refuse(v1, h["flags"] != 0, "bad_header", "reserved flags set")
+        refuse(v1, h["channel"] >= channels, "bad_header",
+               f"channel not in the profile ({channels} channels)")
+        refuse(v1, h["basis"] != basis.code, "bad_header",
                f"basis code differs from the profile's {basis.name!r}")
-        refuse(data, h["terms"] > n, "bad_header", f"claims more terms than the {n} of a frame")
-        refuse(data, (h["value_width"] > MAX_FIELD_BITS) | (h["mean_width"] > MAX_FIELD_BITS),
+        refuse(v1, h["terms"] > n, "bad_header", f"claims more terms than the {n} of a frame")
+        refuse(v1, (h["value_width"] > MAX_FIELD_BITS) | (h["mean_width"] > MAX_FIELD_BITS),
                "bad_header", f"a field width exceeds {MAX_FIELD_BITS} bits")
-        refuse(data, (h["valid"] < 1) | (h["valid"] > n), "bad_header",
+        refuse(v1, (h["valid"] < 1) | (h["valid"] > n), "bad_header",
                f"valid samples outside 1..{n}")
-        refuse(data, (h["mean_width"] > 0) != (profile.reference == "ac"), "bad_header",
+        refuse(v1, (h["mean_width"] > 0) != (profile.reference == "ac"), "bad_header",
                "mean field does not match the profile's reference")
         # Only now, with terms and widths bounded, is the implied length safe to compute.
-        sane = ok[data]
+        sane = ok[v1]
         implied = np.where(sane, expected_length({k: np.where(sane, v, 0) for k, v in h.items()},
                                                  n), h["length"])
-        refuse(data, implied != h["length"], "bad_header", "length field does not match contents")
-        good = data[ok[data]]
-        if good.size:
-            gh = {k: v[ok[data]] for k, v in h.items()}
-            mean, index, value = parse_payloads(buf, offsets[good], gh, n)
-            owner = np.repeat(np.arange(good.size), gh["terms"])
-            badidx = np.zeros(good.size, dtype=bool)
+        refuse(v1, implied != h["length"], "bad_header", "length field does not match contents")
+        rows = np.full((v1.size, n), np.nan)
+        good = ok[v1]
+        if good.any():
+            gh = {k: v[good] for k, v in h.items()}
+            mean, index, value = parse_payloads(buf, offsets[v1[good]], gh, n)
+            owner = np.repeat(np.arange(int(good.sum())), gh["terms"])
+            badidx = np.zeros(int(good.sum()), dtype=bool)
             badidx[owner[index >= n]] = True
-            refuse(good, badidx, "bad_header", f"a term index is not below the frame length {n}")
-            q = np.zeros((good.size, n), dtype=np.int64)
+            refuse(v1[good], badidx, "bad_header",
+                   f"a term index is not below the frame length {n}")
+            q = np.zeros((int(good.sum()), n), dtype=np.int64)
             ok_t = ~badidx[owner]
             q[owner[ok_t], index[ok_t]] = value[ok_t]
-            mean_int = np.where(gh["mean_width"] > 0, mean, 0) if profile.reference == "ac" \
-                else None
+            mean_int = (np.where(gh["mean_width"] > 0, mean, 0) if profile.reference == "ac"
+                        else None)
             recon = reconstruct(q, mean_int, gh["step_code"], basis)
             recon[badidx] = np.nan
             rows[good] = recon
-    for f in np.flatnonzero(kind == 1):  # gap-mask frames are rare: one parse each
-        parsed = parse_gap_frame(frames[f], n)
+        parts.append((v1, np.minimum(h["channel"], 255), h["flags"], rows))
+
+    v2 = np.flatnonzero(version == LAYOUT_VERSION_2)
+    if v2.size:
+        p = parse_frames_v2(joined, offsets[v2], lengths[v2], n, channels,
+                            profile.reference == "ac")
+        sequence[v2], valid[v2] = p["sequence"], p["valid"]
+        head["basis"][v2] = basis.code
+        np.add.at(head["terms"], v2[p["frame"]], (p["q"] != 0).sum(axis=1))
+        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
+        refuse(v2, p["profile"] != pid8, "foreign_profile",
+               lambda f: f"made under profile id byte {int(p['profile'][v2 == f][0]):#04x}, "
+                         f"not {pid8:#04x}")
+        refuse(v2, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
+        bad_ch = np.zeros(v2.size, dtype=bool)
+        np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
+        refuse(v2, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
+        refuse(v2, ~p["consumed_ok"], "bad_header",
+               "contents do not fill the length field exactly")
+        good = ok[v2][p["frame"]]
+        rows = np.full((p["q"].shape[0], n), np.nan)
+        if good.any():
+            rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
+                                     p["step_code"][good], basis)
+        parts.append((v2[p["frame"]], np.minimum(p["channel"], 255),
+                      np.zeros(p["frame"].size, np.int64), rows))
+
+    masks: dict[int, list] = {}
+    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames are rare: one parse each
+        parsed = parse_gap_frame(frames[f], n, channels)
         if isinstance(parsed, str):
-            verdict[f], detail[f] = "bad_header", parsed
+            ok[f], verdict[f], detail[f] = False, "bad_header", parsed
             continue
-        gh, mask = parsed
-        for k in ("profile", "channel", "sequence", "valid"):
-            head[k][f] = gh[k]
-        head["version"][f] = GAP_KIND
+        gh, fmasks, inner = parsed
+        sequence[f], valid[f] = gh["sequence"], gh["valid"]
         if gh["profile"] != pid:
-            verdict[f], detail[f] = "foreign_profile", f"gap frame of profile {gh['profile']:#06x}"
-        elif gh["channel"] >= len(profile.channels):
-            verdict[f], detail[f] = "bad_header", "gap frame channel not in the profile"
-        else:
-            masks[int(f)] = mask
-    return FrameRows(kind, verdict, detail, head, crc, rows, masks)
+            ok[f], verdict[f] = False, "foreign_profile"
+            detail[f] = f"gap frame of profile {gh['profile']:#06x}"
+            continue
+        masks[f] = fmasks
+        if not inner:
+            continue
+        why = _inner_problem(inner)
+        sub = None if why else decode_frames([inner], profile, basis)
+        if sub is not None and sub.verdict[0] != "ok":
+            why = sub.detail[0] or sub.verdict[0]
+        elif sub is not None and (sub.valid[0] != gh["valid"] or
+                                  (gh["sequence"] - sub.sequence[0]) % sub.modulus[0]):
+            why = "inner frame is not of the gap frame's window"
+        if why:
+            ok[f], verdict[f], detail[f] = False, "bad_header", f"gap frame: {why}"
+            del masks[f]
+            continue
+        parts.append((np.full(sub.rows.shape[0], f), sub.row_channel, sub.row_flags, sub.rows))
+        for k in _HEAD_KEYS:
+            head[k][f] = sub.head[k][0]
+
+    if parts:
+        rf, rc, rfl, rr = (np.concatenate(c) for c in zip(*parts))
+        order = np.argsort(rf, kind="stable")  # rows in frame order
+        rf, rc, rfl, rr = rf[order], rc[order], rfl[order], rr[order]
+    else:
+        rf = rc = rfl = np.zeros(0, np.int64)
+        rr = np.zeros((0, n))
+    return FrameRows(kind, verdict, detail, crc, sequence, modulus, valid, head, rf, rc, rfl,
+                     rr, masks)
+
+
+def _inner_problem(inner: bytes) -> str:
+    """Why the bytes inside a gap-mask frame are not one whole, CRC-valid data frame ('' if ok)."""
+    mv = memoryview(inner)
+    length = frame_extent(mv, 0)
+    if length is None or length != len(inner) or (inner[len(SYNC)] >> 4) == GAP_KIND:
+        return "inner bytes are not one data frame"
+    if not frame_crc_ok(mv, 0, length):
+        return "inner frame fails its CRC"
+    return ""
 
 
 def decode(data: bytes, profile: Profile, samples: int | None = None,

@@ -4,24 +4,29 @@
 * ``fill``: missing samples are replaced by linear interpolation between the
   nearest known samples of the same channel (held flat at the edges); the
   report says how many.  The receiver cannot tell them from data.
-* ``mark``: missing samples are filled the same way for the coder, and a
-  *gap-mask frame* tells the receiver which positions were missing, so it
-  reproduces them as NaN exactly.  A data frame whose window holds gaps has
-  flag bit ``FLAG_GAP_MASK`` set; if its gap-mask frame is lost, the receiver
-  marks the whole frame lost rather than hand out interpolated values as data.
-  A frame that is all gap sends only its gap-mask frame.
+* ``mark``: missing samples are filled the same way for the coder, and the
+  receiver is told which positions were missing, so it reproduces them as NaN
+  exactly.  A data frame whose window holds gaps travels *inside* a gap-mask
+  frame, with the masks of its channels: mask and data arrive together or not
+  at all, so the receiver can never hand out interpolated values as data.  A
+  window that is all gap sends the gap-mask frame alone.  This works beside
+  every data layout version (the inner frame is a whole frame of any version).
 
-Gap-mask frame (its own frame kind, valid beside any data layout version; the
-envelope is the data frames' one, so stream search needs no change)::
+Gap-mask frame (its own frame kind; the envelope rule knows its length field)::
 
-    sync(16) | kind(4) = 15 | flags(4) = 0 | length(16) | profile(16) | channel(8)
-    | sequence(16) | valid(13) | runs(13) | reserved(30) = 0
-    | runs x [start(ib), count_minus_1(ib)] | zero padding to a byte | crc(16)
+    sync(16) | kind(4) = 15 | flags(4) = 0 | length(16) | profile(16)
+    | sequence(16) | valid(13) | masks(9) | reserved(2) = 0
+    | masks x [channel(8) | runs(13) | runs x [start(ib), count_minus_1(ib)]]
+    | zero padding to a byte | inner frame (0 or more bytes) | crc(16)
 
-All fields unsigned, MSB first; ``ib`` is ``index_bits(N)`` as in the data
-layout.  Runs are the maximal runs of missing samples among the frame's
-``valid`` samples, in increasing order, non-overlapping and not touching.  The
-CRC is CRC-16/IBM-3740 over every byte after the sync marker up to the CRC.
+All fields unsigned, MSB first.  ``length`` counts the whole frame, sync to
+CRC; ``profile`` is the full 16-bit profile identifier; ``sequence`` the time
+window modulo 65 536; ``valid`` the real samples of the window; ``ib`` is
+``index_bits(N)`` as in the data layout.  Runs are the maximal runs of missing
+samples among the ``valid`` samples of that channel, increasing, neither
+overlapping nor touching.  The inner frame, when present, is one complete data
+frame (its own sync marker and CRC) of the same window.  The CRC is
+CRC-16/IBM-3740 over every byte after the sync marker up to the CRC.
 """
 
 from __future__ import annotations
@@ -46,8 +51,8 @@ GAP_POLICIES = ("refuse", "fill", "mark")
 
 #: (field, bits) after the sync marker, in order.
 GAP_HEADER_FIELDS: tuple[tuple[str, int], ...] = (
-    ("kind", 4), ("flags", 4), ("length", 16), ("profile", 16), ("channel", 8),
-    ("sequence", 16), ("valid", 13), ("runs", 13), ("reserved", 30),
+    ("kind", 4), ("flags", 4), ("length", 16), ("profile", 16), ("sequence", 16),
+    ("valid", 13), ("masks", 9), ("reserved", 2),
 )
 _GAP_HEADER_BITS = sum(b for _, b in GAP_HEADER_FIELDS)
 assert _GAP_HEADER_BITS % 8 == 0
@@ -87,53 +92,83 @@ def mask_runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return start, stop - start
 
 
-def pack_gap_frame(profile: int, channel: int, sequence: int, valid: int, mask: np.ndarray,
-                   n: int) -> bytes:
-    """One gap-mask frame for the ``valid`` first positions of ``mask`` (True = missing)."""
+def pack_gap_frame(profile: int, sequence: int, valid: int,
+                   masks: list[tuple[int, np.ndarray]], inner: bytes, n: int) -> bytes:
+    """One gap-mask frame: ``(channel, mask)`` pairs (True = missing) and the inner data frame.
+
+    ``inner`` is the complete data frame of the same window (empty when every
+    sample of the window is a gap).
+    """
     ib = index_bits(n)
-    start, count = mask_runs(mask[:valid])
-    runs = start.size
-    body_bits = _GAP_HEADER_BITS + runs * 2 * ib
-    length = len(SYNC) + (body_bits + 7) // 8 + 2
-    head = [GAP_KIND, 0, length, profile, channel, sequence % 65536, valid, runs, 0]
-    values = np.concatenate([head, np.stack([start, count - 1], axis=1).reshape(-1)])
-    widths = np.concatenate([[b for _, b in GAP_HEADER_FIELDS], np.full(2 * runs, ib)])
-    body = pack_fields(values.astype(np.uint64), widths).tobytes()
+    values: list = []
+    widths: list = []
+    for channel, mask in masks:
+        start, count = mask_runs(np.asarray(mask[:valid], dtype=bool))
+        values += [channel, start.size]
+        widths += [8, 13]
+        values += np.stack([start, count - 1], axis=1).reshape(-1).tolist()
+        widths += [ib] * (2 * start.size)
+    body_bits = _GAP_HEADER_BITS + int(sum(widths))
+    length = len(SYNC) + (body_bits + 7) // 8 + len(inner) + 2
+    head = [GAP_KIND, 0, length, profile, sequence % 65536, valid, len(masks), 0]
+    fields = pack_fields(np.array(head + values, dtype=np.uint64),
+                         np.array([b for _, b in GAP_HEADER_FIELDS] + widths))
+    body = fields.tobytes() + inner
     return SYNC + body + crc16_ibm3740(body).to_bytes(2, "big")
 
 
-def parse_gap_frame(frame: bytes, n: int) -> tuple[dict, np.ndarray] | str:
-    """Header and mask (length ``valid``) of a CRC-checked gap-mask frame, or why it is refused.
+def parse_gap_frame(frame: bytes, n: int, channels: int
+                    ) -> tuple[dict, list[tuple[int, np.ndarray]], bytes] | str:
+    """Header, ``(channel, mask)`` pairs and inner frame of a CRC-checked gap-mask frame.
 
-    Every count read from the wire is bounded before use: ``valid`` by N, the
-    number of runs by what N allows and by the frame's own length, each run by
-    ``valid`` and by the previous run.
+    Returns a string saying why when the frame is refused.  Every count read
+    from the wire is bounded before use: ``valid`` by N, the number of masks by
+    the profile's channels, each run count by what ``valid`` allows, and the
+    bits they imply by the frame's own length; runs are checked for order and
+    range, channels for range and repeats.
     """
-    if len(frame) < _GAP_HEADER_BYTES + 2:
+    size = len(frame)
+    if size < _GAP_HEADER_BYTES + 2:
         return "gap frame shorter than its header"
     buf = np.frombuffer(frame, dtype=np.uint8)
     widths = np.array([b for _, b in GAP_HEADER_FIELDS])
     pos = np.cumsum(widths) - widths + 8 * len(SYNC)
-    vals = read_fields(buf, pos, widths)
-    head = {name: int(v) for (name, _), v in zip(GAP_HEADER_FIELDS, vals)}
+    head = {name: int(v) for (name, _), v in zip(GAP_HEADER_FIELDS, read_fields(buf, pos, widths))}
     ib = index_bits(n)
     if head["flags"] or head["reserved"]:
         return "gap frame with reserved bits set"
-    if not 1 <= head["valid"] <= n:
-        return f"gap frame claims {head['valid']} valid samples; a frame holds 1 to {n}"
-    runs = head["runs"]
-    if runs > (head["valid"] + 1) // 2:
-        return f"gap frame claims {runs} runs in {head['valid']} samples"
-    want = len(SYNC) + (_GAP_HEADER_BITS + runs * 2 * ib + 7) // 8 + 2
-    if head["length"] != want or len(frame) != want:
-        return "gap frame length does not match its run count"
-    rpos = 8 * _GAP_HEADER_BYTES + np.arange(2 * runs) * ib
-    rv = read_fields(buf, rpos, np.full(2 * runs, ib)).reshape(runs, 2)
-    start, count = rv[:, 0], rv[:, 1] + 1
-    stop = start + count
-    if runs and (stop[-1] > head["valid"] or (start[1:] <= stop[:-1]).any()):
-        return "gap frame runs overlap, touch or pass the valid samples"
-    mask = np.zeros(head["valid"], dtype=bool)
-    cover = np.repeat(start - (np.cumsum(count) - count), count) + np.arange(int(count.sum()))
-    mask[cover] = True
-    return head, mask
+    if head["length"] != size:
+        return "gap frame length field does not match its size"
+    valid = head["valid"]
+    if not 1 <= valid <= n:
+        return f"gap frame claims {valid} valid samples; a frame holds 1 to {n}"
+    if not 1 <= head["masks"] <= channels:
+        return f"gap frame claims {head['masks']} masks for {channels} channels"
+    limit = 8 * (size - 2)  # bits before the CRC
+    bit = 8 * _GAP_HEADER_BYTES
+    out: list[tuple[int, np.ndarray]] = []
+    seen: set[int] = set()
+    for _ in range(head["masks"]):  # at most `channels` iterations, each bounded below
+        if bit + 21 > limit:
+            return "gap frame masks run past its end"
+        ch, runs = (int(v) for v in read_fields(buf, np.array([bit, bit + 8]), np.array([8, 13])))
+        bit += 21
+        if ch >= channels or ch in seen:
+            return f"gap frame mask for channel {ch} is out of range or repeated"
+        seen.add(ch)
+        if runs < 1 or runs > (valid + 1) // 2 or bit + 2 * ib * runs > limit:
+            return f"gap frame claims {runs} runs in {valid} samples"
+        rv = read_fields(buf, bit + np.arange(2 * runs) * ib, np.full(2 * runs, ib))
+        bit += 2 * ib * runs
+        start, count = rv[0::2], rv[1::2] + 1
+        stop = start + count
+        if stop[-1] > valid or (start[1:] <= stop[:-1]).any():
+            return "gap frame runs overlap, touch or pass the valid samples"
+        mask = np.zeros(valid, dtype=bool)
+        cover = np.repeat(start - (np.cumsum(count) - count), count) + np.arange(int(count.sum()))
+        mask[cover] = True
+        out.append((ch, mask))
+    inner_at = (bit + 7) // 8
+    if read_fields(buf, np.array([bit]), np.array([8 * inner_at - bit]))[0] != 0:
+        return "gap frame padding is not zero"
+    return head, out, bytes(frame[inner_at : size - 2])

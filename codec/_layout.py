@@ -32,7 +32,6 @@ __all__ = [
     "LAYOUT_VERSION",
     "SYNC",
     "GAP_KIND",
-    "FLAG_GAP_MASK",
     "HEADER_FIELDS",
     "HEADER_BYTES",
     "FrameBatch",
@@ -44,20 +43,26 @@ __all__ = [
     "unpack_frame_reference",
     "frame_extent",
     "frame_crc_ok",
+    "LAYOUT_VERSION_2",
+    "CONTEXT_WINDOW",
+    "FrameBatchV2",
+    "pack_frames_v2",
+    "parse_frames_v2",
+    "payload_bits_v2",
+    "rice_parameters",
+    "frame_version",
 ]
 
 LAYOUT_VERSION = 1
 SYNC = b"\xe3\x5a"
 #: Version nibble of the gap-mask frame kind (layout in ``_gaps.py``), valid beside any version.
 GAP_KIND = 15
-#: Flag bit of a data frame whose samples have a gap mask in a frame of kind GAP_KIND.
-FLAG_GAP_MASK = 1
+_GAP_MIN_BYTES = 14  # its fixed header (12 bytes with the sync marker) and CRC
 
 #: (field, bits, meaning) after the sync marker, in order.
 HEADER_FIELDS: tuple[tuple[str, int, str], ...] = (
     ("version", 4, "frame layout version (1)"),
-    ("flags", 4, "bit 0 (value 1): a gap-mask frame for this window and channel exists "
-     "(codec/_gaps.py); bits 1-3 reserved, 0"),
+    ("flags", 4, "reserved, must be 0"),
     ("length", 16, "bytes in the whole frame, sync marker to CRC"),
     ("profile", 16, "profile identifier (first 16 bits of SHA-256 of its canonical form)"),
     ("channel", 8, "channel index in the profile"),
@@ -81,17 +86,34 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
 
     This is the envelope rule a receiver uses before it trusts anything else:
     None when the bytes cannot start a frame of a layout version we know (too
-    short to hold a header, unknown version, impossible length).  Later layout
-    versions add their own rule here, so stream search never depends on how a
-    payload is coded.
+    short to hold a header, unknown version, impossible length).  Version 1
+    carries a 16-bit length after the version and flags nibbles; version 2 a
+    1-bit long flag and an 11-bit (or 27-bit) length after the version nibble.
+    Stream search never depends on how a payload is coded.
     """
-    if pos + HEADER_BYTES > len(mv) or mv[pos : pos + len(SYNC)] != SYNC:
+    if pos + len(SYNC) + 2 > len(mv) or mv[pos : pos + len(SYNC)] != SYNC:
         return None
-    version = mv[pos + len(SYNC)] >> 4
-    if version not in (LAYOUT_VERSION, GAP_KIND):
-        return None
-    length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
-    return length if length >= HEADER_BYTES + CRC_BYTES else None
+    b0 = mv[pos + len(SYNC)]
+    version = b0 >> 4
+    if version == GAP_KIND:  # gap-mask frame: 16-bit length where v1 keeps it
+        if pos + 5 > len(mv):
+            return None
+        length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
+        return length if length >= _GAP_MIN_BYTES else None
+    if version == LAYOUT_VERSION:
+        if pos + HEADER_BYTES > len(mv):
+            return None
+        length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
+        return length if length >= HEADER_BYTES + CRC_BYTES else None
+    if version == LAYOUT_VERSION_2:
+        if b0 & 0x08:  # long length field: 27 bits
+            if pos + len(SYNC) + 4 > len(mv):
+                return None
+            length = int.from_bytes(mv[pos + 2 : pos + 6], "big") & ((1 << 27) - 1)
+            return length if length >= (1 << SHORT_LENGTH_BITS) else None
+        length = int.from_bytes(mv[pos + 2 : pos + 4], "big") & ((1 << 11) - 1)
+        return length if length >= _MIN_V2_BYTES else None
+    return None
 
 
 def frame_crc_ok(mv: memoryview, pos: int, length: int) -> bool:
@@ -127,8 +149,6 @@ class FrameBatch:
     terms: np.ndarray
     term_index: np.ndarray
     term_value: np.ndarray
-    #: Header flags per frame (FLAG_GAP_MASK); None means all zero.
-    flags: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.channel.size)
@@ -154,8 +174,7 @@ def pack_frames(batch: FrameBatch, profile_id: int, n: int) -> tuple[bytes, np.n
     length = len(SYNC) + body_bytes + CRC_BYTES
 
     header = np.stack(
-        [np.full(nf, LAYOUT_VERSION), np.zeros(nf) if batch.flags is None else batch.flags,
-         length, np.full(nf, profile_id),
+        [np.full(nf, LAYOUT_VERSION), np.zeros(nf), length, np.full(nf, profile_id),
          batch.channel, batch.sequence % 65536, batch.basis, batch.step_code, terms,
          vwidth, mwidth, batch.valid]
     ).T.astype(np.int64)
@@ -288,3 +307,385 @@ def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list
     if crc != crc16_ibm3740(frame[len(SYNC) : -CRC_BYTES]):
         raise ValueError("CRC mismatch")
     return head, mean, index, value
+
+
+# ---------------------------------------------------------------------------
+# Layout version 2: compact header, multi-channel frames, Rice-coded payload.
+# Written down bit by bit in FRAME_LAYOUT.md ("Version 2").
+# ---------------------------------------------------------------------------
+
+LAYOUT_VERSION_2 = 2
+#: Coefficients whose magnitudes set the Rice parameter of the next one.
+CONTEXT_WINDOW = 4
+_RUN_MODE = True
+K_INIT_BITS = 5
+STEP_BITS = 10
+PROFILE_BITS_V2 = 8
+SEQUENCE_BITS_V2 = 8
+SHORT_LENGTH_BITS = 11
+LONG_LENGTH_BITS = 27
+#: Smallest possible v2 frame: sync, 2 length bytes, 3 header bytes, CRC.
+_MIN_V2_BYTES = len(SYNC) + 2 + 3 + CRC_BYTES
+
+
+def count_bits(n: int) -> int:
+    """Bits of the coded-coefficient count, which runs 0..n."""
+    return int(n).bit_length()
+
+
+def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Rice parameter and context of every coefficient of every frame (rows).
+
+    Coefficient 0 uses the frame's ``k_init``; coefficient j >= 1 uses the
+    LOCO-I rule on ``total``, the sum of the previous ``min(j, CONTEXT_WINDOW)``
+    magnitudes.  Returns ``(k, total)`` (``total[:, 0]`` is -1: no context).
+    """
+    from ._entropy import rice_k_from_context
+
+    nf, n = mag.shape
+    c = np.zeros((nf, n + 1), dtype=np.int64)
+    np.cumsum(mag, axis=1, out=c[:, 1:])
+    j = np.arange(1, n)
+    lo = np.maximum(j - CONTEXT_WINDOW, 0)
+    total = c[:, j] - c[:, lo]
+    k = np.empty((nf, n), dtype=np.int64)
+    k[:, 0] = k_init
+    w = min(CONTEXT_WINDOW, n)
+    for jj in range(1, w):  # the first few coefficients see a shorter context
+        k[:, jj] = rice_k_from_context(total[:, jj - 1], jj)
+    k[:, w:] = rice_k_from_context(total[:, w - 1 :], CONTEXT_WINDOW)
+    ctx = np.empty((nf, n), dtype=np.int64)
+    ctx[:, 0] = -1
+    ctx[:, 1:] = total
+    return k, ctx
+
+
+def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> list:
+    """The coded coefficients of each subframe as three (value, width) slot pairs per index.
+
+    Regular mode (coefficient 0, or a non-zero context): the magnitude in the
+    layout's Rice code with the context's parameter, then a sign bit if it is
+    not zero.  Run mode (context sum 0, i.e. the previous CONTEXT_WINDOW
+    magnitudes were all zero): at the first such index one exp-Golomb (order 0)
+    codeword gives the number r of zeros that follow, and the coefficient r
+    places further on, which is not zero, is sent as ``magnitude - 1`` in the
+    Rice code with k = 0 and a sign bit.  Run mode follows the run-length
+    method of Golomb (1966) and the run mode of LOCO-I / JPEG-LS.
+
+    Returns ``[(run_v, run_w), (main_v, main_w), (extra_v, extra_w)]``, each (rows, n):
+    the run codeword at a run's first index; the codeword (whole when it fits
+    64 bits, else its unary part) and its remainder, at the index it codes.
+    """
+    from ._entropy import bit_length, rice_escape_fields
+
+    ns, n = q.shape
+    mag = np.abs(q)
+    nz = mag > 0
+    k, ctx = rice_parameters(mag, k_init)
+    inside = np.arange(n) < last[:, None]
+    run = (ctx == 0) & inside & _RUN_MODE
+    prev = np.zeros_like(run)
+    prev[:, 1:] = run[:, :-1]
+    start = run & ~prev
+    # a run ends at the next non-zero coefficient: its index, seen from every index
+    idx = np.where(nz, np.arange(n), n)
+    nxt = np.minimum.accumulate(idx[:, ::-1], axis=1)[:, ::-1]
+    r = np.where(start, nxt - np.arange(n), 0)
+    eg = r + 1
+    run_w = np.where(start, 2 * bit_length(eg) - 1, 0)
+    run_v = eg.astype(np.uint64)
+    coded = inside & (~run | nz)  # regular indices, and the non-zero ending each run
+    m = np.where(run, mag - 1, mag)
+    kk = np.where(run, 0, k)
+    _, uw, lv, lw = rice_escape_fields(np.maximum(m, 0), kk)
+    sw = nz.astype(np.int64)
+    tail = (lv << sw.astype(np.uint64)) | (q < 0).astype(np.uint64)
+    tw = lw + sw
+    whole = uw + tw <= 64
+    main_v = np.where(whole, (np.uint64(1) << tw.astype(np.uint64)) | tail, np.uint64(1))
+    main_w = np.where(coded, np.where(whole, uw + tw, uw), 0)
+    extra_v = np.where(whole, np.uint64(0), tail)
+    extra_w = np.where(coded & ~whole, tw, 0)
+    return [(run_v, run_w), (main_v, main_w), (extra_v, extra_w)]
+
+
+def initial_parameter(mag0: np.ndarray) -> np.ndarray:
+    """``k_init`` the encoder sends: the Rice parameter that codes coefficient 0 shortest."""
+    from ._entropy import bit_length as _bit_length
+
+    return np.clip(_bit_length(mag0) - 1, 0, (1 << K_INIT_BITS) - 1)
+
+
+def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.ndarray:
+    """Exact bits of each subframe (rows of ``q``) in layout v2, frame header excluded."""
+    from ._entropy import bit_length as _bit_length
+    from ._entropy import zigzag
+
+    nz = q != 0
+    last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
+    items = coefficient_items(q, initial_parameter(np.abs(q[:, 0])), last)
+    coef = sum(w.sum(axis=1) for _, w in items)
+    bits = STEP_BITS + count_bits(n) + np.where(last > 0, K_INIT_BITS, 0) + coef
+    if mean_int is not None:
+        bits += 2 * _bit_length(zigzag(mean_int) + 1) - 1
+    return bits
+
+
+@dataclass
+class FrameBatchV2:
+    """Frames of layout v2 as parallel arrays.
+
+    Subframes (one per channel carried) are the rows of ``q``; ``frame`` gives
+    each subframe's frame, non-decreasing, so a frame's subframes are
+    consecutive rows.  Per frame: ``multi`` (all channels, in profile order),
+    ``channel`` (when not multi), ``sequence`` and ``valid``.
+    """
+
+    multi: np.ndarray
+    channel: np.ndarray
+    sequence: np.ndarray
+    valid: np.ndarray
+    frame: np.ndarray
+    step_code: np.ndarray
+    mean: np.ndarray | None
+    q: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.multi.size)
+
+
+def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
+                   ) -> tuple[bytes, np.ndarray, np.ndarray]:
+    """Pack every frame of ``batch`` in layout v2.
+
+    Returns the bytes, each frame's byte length and each subframe's payload bits.
+    """
+    from ._entropy import bit_length as _bit_length
+    from ._entropy import pack_bits, zigzag
+
+    nf = len(batch)
+    q = batch.q
+    ns = q.shape[0]
+    vb = index_bits(n)
+    lb = count_bits(n)
+    mag = np.abs(q)
+    nz = mag > 0
+    last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
+    k_init = initial_parameter(mag[:, 0])
+
+    nh, nsub = 9, 5
+    slots = nh + nsub + 3 * n + 1
+    val = np.zeros((ns, slots), dtype=np.uint64)
+    wid = np.zeros((ns, slots), dtype=np.int64)
+    # subframe header
+    s0 = nh
+    val[:, s0] = batch.step_code
+    wid[:, s0] = STEP_BITS
+    if batch.mean is not None:
+        zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
+        nb = _bit_length(zz)
+        wid[:, s0 + 1] = nb - 1
+        val[:, s0 + 2] = zz.astype(np.uint64)
+        wid[:, s0 + 2] = nb
+    val[:, s0 + 3] = last
+    wid[:, s0 + 3] = lb
+    val[:, s0 + 4] = k_init
+    wid[:, s0 + 4] = np.where(last > 0, K_INIT_BITS, 0)
+    c0 = nh + nsub
+    for i, (v, w) in enumerate(coefficient_items(q, k_init, last)):
+        val[:, c0 + i : c0 + 3 * n : 3] = v
+        wid[:, c0 + i : c0 + 3 * n : 3] = w
+    sub_bits = wid.sum(axis=1)
+
+    # frame header (in the first subframe row of each frame)
+    first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
+    lastrow = np.r_[first[1:] - 1, ns - 1]
+    short = batch.valid < n
+    multi = batch.multi.astype(bool)
+    head_bits = 4 + 1 + 8 + 8 + 1 + np.where(multi, 0, 8) + 1 + np.where(short, vb, 0)
+    payload = np.add.reduceat(sub_bits, first)
+    bits = head_bits + SHORT_LENGTH_BITS + payload
+    length = len(SYNC) + (bits + 7) // 8 + CRC_BYTES
+    long = length >= (1 << SHORT_LENGTH_BITS)
+    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
+    body_bytes = (bits + 7) // 8
+    length = len(SYNC) + body_bytes + CRC_BYTES
+    if (length >= (1 << LONG_LENGTH_BITS)).any():
+        raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
+    head = [(LAYOUT_VERSION_2, 4), (long, 1), (length, np.where(long, LONG_LENGTH_BITS,
+            SHORT_LENGTH_BITS)), (profile_id & 0xFF, 8), (batch.sequence % 256, 8),
+            (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, 8)),
+            (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
+    for i, (v, w) in enumerate(head):
+        val[first, i] = np.broadcast_to(v, (nf,))
+        wid[first, i] = np.broadcast_to(w, (nf,))
+    wid[lastrow, slots - 1] = body_bytes * 8 - bits
+    body = pack_bits(val.ravel(), wid.ravel())
+
+    out = np.empty(int(length.sum()), dtype=np.uint8)
+    ostart = np.cumsum(length) - length
+    bstart = np.cumsum(body_bytes) - body_bytes
+    dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
+    out[dest] = body
+    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
+    mv = memoryview(body)
+    crc = np.fromiter(
+        (crc16_ibm3740(mv[s : s + b]) for s, b in zip(bstart.tolist(), body_bytes.tolist())),
+        dtype=np.int64, count=nf,
+    )
+    cpos = ostart + length - CRC_BYTES
+    out[cpos] = crc >> 8
+    out[cpos + 1] = crc & 0xFF
+    return out.tobytes(), length, sub_bits
+
+
+def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """Layout version nibble of the frames at ``offsets``."""
+    return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
+
+
+def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
+                    channels: int, has_mean: bool) -> dict[str, np.ndarray]:
+    """Parse CRC-checked v2 frames at ``offsets`` into per-subframe arrays.
+
+    Returns a dict with per-frame ``profile``, ``sequence``, ``multi``,
+    ``valid``, ``length``, ``consumed_ok`` and per-subframe ``frame``,
+    ``channel``, ``step_code``, ``mean`` (or None), ``count``, ``q`` (rows of n).
+    ``consumed_ok`` is False for a frame whose contents do not fill its length
+    exactly (to the byte), which the decoder refuses.
+    """
+    from ._entropy import BitReader, unzigzag
+
+    r = BitReader(data)
+    nf = offsets.size
+    vb = index_bits(n)
+    lb = count_bits(n)
+    p = offsets.astype(np.int64) * 8 + 8 * len(SYNC) + 4
+    long = r.read(p, 1)
+    lw = np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
+    length = r.read(p + 1, lw)
+    p = p + 1 + lw
+    profile = r.read(p, 8)
+    sequence = r.read(p + 8, 8)
+    multi = r.read(p + 16, 1).astype(bool)
+    p = p + 17
+    channel = r.read(p, np.where(multi, 0, 8))
+    p = p + np.where(multi, 0, 8)
+    short = r.read(p, 1).astype(bool)
+    valid = np.where(short, r.read(p + 1, np.where(short, vb, 0)) + 1, n)
+    p = p + 1 + np.where(short, vb, 0)
+
+    cnt = np.where(multi, channels, 1)
+    ns = int(cnt.sum())
+    sstart = np.cumsum(cnt) - cnt
+    owner = np.repeat(np.arange(nf), cnt)
+    slot = np.arange(ns) - sstart[owner]
+    sub_channel = np.where(multi[owner], slot, channel[owner])
+    step = np.zeros(ns, np.int64)
+    mean = np.zeros(ns, np.int64) if has_mean else None
+    count = np.zeros(ns, np.int64)
+    q = np.zeros((ns, n), dtype=np.int64)
+    ok = np.ones(nf, dtype=bool)
+    for s in range(int(cnt.max(initial=0))):
+        fr = np.flatnonzero(cnt > s)
+        rows = sstart[fr] + s
+        pp = p[fr]
+        step[rows] = r.read(pp, STEP_BITS)
+        pp = pp + STEP_BITS
+        if has_mean:
+            v, used = r.exp_golomb(pp)
+            mean[rows] = unzigzag(v)
+            pp = pp + used
+        c = r.read(pp, lb)
+        pp = pp + lb
+        bad = c > n
+        c = np.minimum(c, n)
+        count[rows] = c
+        kk = r.read(pp, np.where(c > 0, K_INIT_BITS, 0))
+        pp = pp + np.where(c > 0, K_INIT_BITS, 0)
+        # Coefficients: one vectorized step per coefficient index over all frames.
+        qv, pp, bad_c = _read_coefficients(r, pp, c, kk, n)
+        q[rows] = qv
+        bad |= bad_c
+        ok[fr] &= ~bad
+        p[fr] = pp
+    end_bytes = (p - offsets * 8 + 7) // 8 + CRC_BYTES
+    ok &= (end_bytes == lengths) & (length == lengths)
+    return {"profile": profile, "sequence": sequence, "multi": multi, "valid": valid,
+            "length": length, "consumed_ok": ok, "frame": owner, "channel": sub_channel,
+            "step_code": step, "mean": mean, "count": count, "q": q}
+
+
+def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray, n: int
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Read the coded coefficients (indices below ``count``) of subframes starting at ``pos``.
+
+    The inverse of :func:`coefficient_items`.  One vectorized step per
+    codeword over every subframe still reading, each at its own coefficient
+    index: one 64-bit gather gives the unary part, low bits and sign of a
+    codeword of up to 57 bits; longer codewords and escapes take the general
+    path.  Returns ``(q, end positions, malformed)``.
+    """
+    from ._entropy import bit_length as _bit_length
+    from ._entropy import rice_k_from_context
+
+    m = pos.size
+    mag = np.zeros((m, n + 1), dtype=np.int64)  # column n absorbs malformed run targets
+    neg = np.zeros((m, n + 1), dtype=bool)
+    bad = np.zeros(m, dtype=bool)
+    pos = pos.copy()
+    rows = np.arange(m)  # subframes still reading (compacted as they finish)
+    p, cnt, jf, k0 = pos.copy(), count.copy(), np.zeros(m, np.int64), k_init
+    words = r._words
+    limit = r.size_bits
+    while True:
+        act = jf < cnt
+        if not act.any():
+            break
+        if act.sum() * 2 < rows.size:  # compact: drop finished subframes
+            pos[rows] = p
+            rows, p, cnt, jf, k0, act = rows[act], p[act], cnt[act], jf[act], k0[act], act[act]
+        tot = np.zeros(rows.size, np.int64)
+        for i in range(1, CONTEXT_WINDOW + 1):
+            tot += np.where(jf >= i, mag[rows, np.maximum(jf - i, 0)], 0)
+        have = np.minimum(jf, CONTEXT_WINDOW)
+        k = np.where(jf == 0, k0, rice_k_from_context(tot, np.maximum(have, 1)))
+        runm = act & (jf >= 1) & (tot == 0)
+        p2 = p.copy()
+        run = np.zeros(rows.size, np.int64)
+        if runm.any():
+            ri = np.flatnonzero(runm)
+            v, used = r.exp_golomb(p[ri])
+            run[ri] = v
+            p2[ri] += used
+            k[ri] = 0
+        pc = np.minimum(p2, limit)
+        w = words[pc >> 3] << (pc & 7).astype(np.uint64)
+        qq = 33 - _bit_length((w >> np.uint64(31)).astype(np.int64))
+        ku = k.astype(np.uint64)
+        low = ((w << (qq + 1).astype(np.uint64)) >> np.uint64(1)) >> (63 - ku)
+        mg = (qq.astype(np.int64) << k) | low.astype(np.int64)
+        sign = (w << ((qq + 1 + k).astype(np.uint64) % np.uint64(64))) >> np.uint64(63)
+        used = qq + 1 + k
+        slow = act & ((qq >= 32) | (qq + k + 2 > 57))
+        if slow.any():
+            sl = np.flatnonzero(slow)
+            mv, uv = r.rice_escape(p2[sl], k[sl])
+            bad[rows[sl[mv < 0]]] = True
+            mv = np.maximum(mv, 0)
+            mg[sl] = mv
+            used[sl] = uv
+            sign[sl] = r.read(p2[sl] + uv, 1).astype(np.uint64)
+        mg = mg + runm  # a run ends on a non-zero coefficient, sent as magnitude - 1
+        nz = mg > 0
+        target = jf + run
+        over = act & (target >= cnt)
+        bad[rows[over]] = True
+        target = np.where(act & ~over, target, n)
+        mag[rows, target] = np.where(act, mg, 0)
+        neg[rows, target] = (sign == 1) & nz & act
+        p = np.where(act, p2 + used + nz, p)
+        jf = np.where(act, np.where(over, cnt, target + 1), jf)
+    pos[rows] = p
+    mag, neg = mag[:, :n], neg[:, :n]
+    return np.where(neg, -mag, mag), pos, bad

@@ -55,6 +55,9 @@ class ChannelSpec(BaseModel):
     #: Plausible range of the physical quantity; decoded values outside are flagged.
     valid_min: float | None = Field(default=None, allow_inf_nan=False)
     valid_max: float | None = Field(default=None, allow_inf_nan=False)
+    #: Peak-error limit in engineering units: no decoded sample of this channel
+    #: is further than this from the input (None: no limit).
+    max_error: float | None = Field(default=None, gt=0.0, allow_inf_nan=False)
 
 
 class Profile(BaseModel):
@@ -69,8 +72,13 @@ class Profile(BaseModel):
     description: str = ""
     frame_length: int = Field(default=64, ge=2, le=MAX_FRAME_LENGTH)
     basis: str = "dct"
-    fidelity: float = Field(default=0.99, gt=0.0, le=1.0)
+    #: 0 means no energy target (a peak-error limit alone then sets the quality).
+    fidelity: float = Field(default=0.99, ge=0.0, le=1.0)
     reference: Literal["total", "ac"] = "ac"
+    #: Frame layout the encoder writes (the decoder reads both).
+    layout_version: Literal[1, 2] = 2
+    #: Layout 2 only: one frame (one header) carries all channels of a time window.
+    multi_channel_frames: bool = False
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
 
     @field_validator("basis")
@@ -123,7 +131,13 @@ def default_profile() -> Profile:
 
 def profile_id(profile: Profile) -> int:
     """16-bit identifier of the profile's canonical form (SHA-256, first two bytes)."""
-    canon = profile.model_dump(exclude={"description"})
+    # Settings a frame describes itself (layout version, multi-channel frames)
+    # or that only steer the encoder (peak-error limits) stay out of the hash,
+    # so profiles written before they existed keep their identifier.
+    canon = profile.model_dump(exclude={"description", "layout_version",
+                                        "multi_channel_frames"})
+    for ch in canon["channels"]:
+        ch.pop("max_error", None)
     blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
     return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
 

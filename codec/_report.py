@@ -53,6 +53,7 @@ def stream_report(
     frame_met: np.ndarray,
     frame_floor: np.ndarray | None = None,
     extra_bits: int = 0,
+    header_bits: int | None = None,
 ) -> dict:
     """The JSON report of ``encode`` and ``roundtrip``.
 
@@ -72,6 +73,10 @@ def stream_report(
         are counted in ``frames_at_floor`` and left out of ``fidelity_min``.
     extra_bits : int
         Stream bits that belong to no frame (counted in ``bits_total``).
+    header_bits : int, optional
+        Bits of the stream that carry no coefficient (sync markers, headers,
+        side information, padding, CRCs); reported per input sample as
+        ``header_bits_per_sample``.
     """
     samples, channels = x.shape
     raw = np.array([c.raw_bits_per_sample for c in profile.channels], dtype=np.float64)
@@ -102,6 +107,8 @@ def stream_report(
     report = figures(x, x_hat, bits_total, raw.mean(), frame_fidelity, frame_met, frame_floor,
                      frame_bits.size)
     report["channels"] = channels
+    if header_bits is not None:
+        report["header_bits_per_sample"] = (header_bits + int(extra_bits)) / x.size
     report["reference"] = profile.reference
     report["basis"] = profile.basis
     report["frame_length"] = profile.frame_length

@@ -18,7 +18,9 @@ import numpy as np
 
 from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
 
-__all__ = ["frame_budgets", "reference_energy", "choose_steps", "code_frame", "FLOAT_FLOOR"]
+__all__ = [
+    "frame_budgets", "reference_energy", "choose_steps", "code_frame", "FLOAT_FLOOR",
+]
 
 #: Relative precision below which a frame's error is float noise, not signal:
 #: the budget is never below N * (peak * FLOAT_FLOOR)**2.
@@ -75,14 +77,26 @@ def frame_budgets(
 
 
 def code_frame(
-    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, code: np.ndarray
+    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, code: np.ndarray,
+    offset: np.ndarray | float = 0.5,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
-    """Quantize frames at step ``code``.
+    """Quantize frames at step ``code`` with rounding ``offset`` (0.5: nearest).
 
     Returns ``(q, mean_int, err)``: integer coefficient codes, integer mean codes
     (or None) and the error energy by Parseval.  ``dc`` is the basis applied to a
     frame of ones, so the coefficients of ``x - mean_hat`` are ``cx - mean_hat * dc``.
+    An offset below 0.5 widens the dead zone around zero (|c| < (1 - offset) step
+    codes to 0) and rounds every magnitude down a little: fewer and smaller codes
+    at a slightly larger error, which a finer step may then buy back; the
+    encoder picks per frame whichever costs fewer bits (rate-distortion choice;
+    the decoder is unaffected, it always reconstructs ``q * step``).
     """
+    qf, mean_int, err = _quantized(cx, mean, dc, code, offset)
+    return qf.astype(np.int64), mean_int, err
+
+
+def _quantized(cx, mean, dc, code, offset):
+    """(q as floats, mean_int, error energy); few full-size temporaries (memory bound)."""
     step = step_from_code(code)
     c = cx
     mean_int = None
@@ -90,13 +104,25 @@ def code_frame(
         mstep = step / np.sqrt(cx.shape[1])
         mean_int = np.rint(mean / mstep).astype(np.int64)
         c = cx - (mean_int * mstep)[:, None] * dc
-    q = np.rint(c / step[:, None])
-    r = c - q * step[:, None]
-    return q.astype(np.int64), mean_int, np.einsum("ij,ij->i", r, r)
+    st = step[:, None]
+    if np.isscalar(offset) and offset == 0.5:
+        q = np.divide(c, st)
+        np.rint(q, out=q)
+    else:
+        off = np.broadcast_to(np.asarray(offset, dtype=np.float64), step.shape)[:, None]
+        q = np.abs(c)
+        np.divide(q, st, out=q)
+        np.add(q, off, out=q)
+        np.floor(q, out=q)
+        np.copysign(q, c, out=q)
+    r = np.multiply(q, st)
+    np.subtract(c, r, out=r)
+    return q, mean_int, np.einsum("ij,ij->i", r, r)
 
 
 def choose_steps(
-    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, budget: np.ndarray
+    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, budget: np.ndarray,
+    offset: float = 0.5, hint: np.ndarray | None = None,
 ) -> np.ndarray:
     """Largest step code per frame whose error fits ``budget`` (bisection).
 
@@ -108,16 +134,36 @@ def choose_steps(
     scale = np.abs(cx).max(axis=1)
     if mean is not None:
         scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
-    lo = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
-    hi = np.full(nf, STEP_CODE_MAX, dtype=np.int64)
+    floor = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
+    # Bracket: with rounding offset o every term errs by at most (1 - o) * step,
+    # so a step of sqrt(budget / n) / (1 - o) always fits (one code below, for
+    # rounding); a step above 2 * scale rounds every term to zero, so nothing
+    # coarser changes the error.  A ``hint`` (the code found for another offset)
+    # narrows the bracket to an octave around it; it is checked, not trusted.
+    lo = np.maximum(floor, code_for_step(np.sqrt(budget / n) / (1.0 - offset)) - 1)
+    hi = np.clip(code_for_step(2.0 * np.maximum(scale, 1e-300)) + 1, lo + 1, STEP_CODE_MAX)
     limit = budget * _MARGIN
-    ok_hi = code_frame(cx, mean, dc, hi)[2] <= limit
-    lo = np.where(ok_hi, hi, lo)
+
+    def err(code):
+        return _quantized(cx, mean, dc, code, offset)[2]
+
+    if hint is None:
+        # lo holds by the bound (the caller's closed loop catches float rounding)
+        lo = np.minimum(lo, hi - 1)
+        ok_hi = err(hi) <= limit
+        lo = np.where(ok_hi, hi, lo)
+    else:
+        # a wider dead zone errs more at the same step: search below the hint
+        hi = np.clip(hint + 1, lo + 1, hi)
+        lo = np.clip(hint - 6, lo, hi - 1)
+        ok_lo = err(lo) <= limit
+        lo = np.where(ok_lo, lo, np.maximum(floor, code_for_step(
+            np.sqrt(budget / n) / (1.0 - offset)) - 1))
     while True:
         active = hi - lo > 1
         if not active.any():
             return lo
         mid = np.where(active, (lo + hi) // 2, lo)
-        ok = code_frame(cx, mean, dc, mid)[2] <= limit
+        ok = err(mid) <= limit
         lo = np.where(active & ok, mid, lo)
         hi = np.where(active & ~ok, mid, hi)

@@ -9,17 +9,17 @@ after the failed candidate, so garbage, a truncated frame, a bit slip or a false
 sync marker inside payload bytes costs only that candidate.  The scanner takes
 bytes in chunks of any size and gives exactly the same frames, failures and
 skipped-byte count as one call on the whole stream (:func:`locate_frames` is
-that one call), holding at most one frame (<= 65 535 bytes, the length field's
-range) plus the current chunk.
+that one call), holding at most one frame (at most ``max_frame`` bytes, which
+the streaming decoder derives from the profile) plus the current chunk.
 
 :class:`SequenceTracker` turns 16-bit sequence numbers into time windows and
 applies the duplicate / out-of-order policy, written down here once:
 
 * The *head* is the highest window accepted so far.  A frame's window is the
   one nearest the head whose number is congruent to its sequence number modulo
-  65 536 (serial-number arithmetic in the manner of RFC 1982), so the counter
-  may wrap any number of times as long as consecutive frames are less than
-  32 768 windows apart.
+  the field's range M (65 536 in layout v1, 256 in layout v2; serial-number
+  arithmetic in the manner of RFC 1982), so the counter may wrap any number
+  of times as long as frames are less than M/2 windows from the head.
 * A frame up to ``reorder`` windows behind the head is placed where it belongs
   (out-of-order delivery is repaired).  A frame further behind arrives after
   its window was released and is dropped as ``late``.
@@ -70,7 +70,7 @@ STATUS_NAMES = {LOST: "lost", DELIVERED: "delivered", GAP: "gap", CONCEALED: "co
 
 #: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
 MAX_LISTED = 100_000
-#: No frame can claim more bytes than its 16-bit length field holds.
+#: No layout-v1 frame can claim more bytes than its 16-bit length field holds.
 MAX_FRAME_BYTES = 65535
 _SYNC_LEN = len(SYNC)
 
@@ -107,7 +107,10 @@ class FrameScanner:
     ``skipped_bytes`` accumulate as in :class:`Located`.
     """
 
-    def __init__(self) -> None:
+    def __init__(self, max_frame: int | None = None) -> None:
+        #: Longest frame accepted; a candidate claiming more is treated as not a frame, so
+        #: the buffer never waits for more than this (layout v2's long form can claim 2^27).
+        self.max_frame = max_frame
         self._buf = bytearray()
         self._base = 0  # stream offset of _buf[0]
         self._pos = 0  # index in _buf where the walk stands
@@ -154,6 +157,8 @@ class FrameScanner:
                         return out
                     continue
                 length = frame_extent(mv, pos)
+                if length is not None and self.max_frame is not None and length > self.max_frame:
+                    length = None
                 if length is None and not final and size - pos < HEADER_BYTES:
                     self._need = pos + HEADER_BYTES
                     return out
@@ -231,12 +236,19 @@ class SequenceTracker:
     released: int = 0  # windows below this were handed out and are closed
     _seen: dict = field(default_factory=dict)  # (window, channel, kind) -> CRC of first copy
 
-    def place(self, sequence: int, channel: int, kind: int, crc: int) -> tuple[int, str]:
-        """Window of one frame and the verdict: ``ok`` or why it is dropped."""
+    def place(self, sequence: int, channel: int, kind: int, crc: int,
+              modulus: int = 65536) -> tuple[int, str]:
+        """Window of one frame (row) and the verdict: ``ok`` or why it is dropped.
+
+        ``modulus`` is the range of the frame's sequence field (65 536 in layout
+        v1 and gap-mask frames, 256 in layout v2: there a frame more than 128
+        windows away from the head is ambiguous).
+        """
         if self.head is None:
             window = int(sequence)  # the first frame fixes the unwrapping
         else:
-            step = (int(sequence) - self.head + 32768) % 65536 - 32768
+            half = modulus // 2
+            step = (int(sequence) - self.head + half) % modulus - half
             window = self.head + step
         if window < 0:
             return window, "before_start"

@@ -30,11 +30,10 @@ import numpy as np
 from ._codec import _bind, decode_frames, encode
 from ._errors import ProfileError
 from ._gaps import GAP_POLICIES
-from ._layout import FLAG_GAP_MASK
 from ._profile import Profile
 from ._stream import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
 
-__all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS"]
+__all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "max_frame_bytes"]
 
 #: Events kept in detail; later ones are only counted.
 MAX_EVENTS = 1000
@@ -47,6 +46,16 @@ class Block:
     start: int
     samples: np.ndarray
     status: np.ndarray
+
+
+def max_frame_bytes(profile: Profile) -> int:
+    """A bound on the bytes of any frame under ``profile`` (every layout version).
+
+    Generous: 16 bytes per coefficient of every channel (a coefficient never
+    takes 128 bits in any layout), plus headers.  A candidate claiming more is
+    not a frame of this profile, so a receiver never buffers more than this.
+    """
+    return 64 + max(1, len(profile.channels)) * (16 * profile.frame_length + 16)
 
 
 class StreamDecoder:
@@ -78,7 +87,7 @@ class StreamDecoder:
         self.n = profile.frame_length
         self.channels = len(profile.channels)
         self.basis = as_basis(profile.basis, self.n)
-        self.scanner = FrameScanner()
+        self.scanner = FrameScanner(max_frame_bytes(profile))
         self.end_sample = int(samples) if samples is not None else None
         end_window = None if samples is None else -(-int(samples) // self.n)
         self.tracker = SequenceTracker(reorder=reorder, end_window=end_window)
@@ -109,10 +118,6 @@ class StreamDecoder:
         end = -(-self.end_sample // self.n)
         have = {(int(w), int(c)) for p in self._pending for w, c in zip(p[0], p[1])}
         have |= set(self._masks)
-        flagged = {(int(w), int(c)) for p in self._pending
-                   for w, c, f in zip(p[0], p[1], p[3]) if f & FLAG_GAP_MASK}
-        if flagged - set(self._masks):
-            return False
         return all((w, c) in have for w in range(self._next, end) for c in range(self.channels))
 
     # -- input ------------------------------------------------------------------------------
@@ -143,44 +148,52 @@ class StreamDecoder:
         return out
 
     def _place_all(self, found: list[tuple[int, bytes]]) -> None:
-        """Verdict and window of every frame, in arrival order (plain integers, no arrays)."""
+        """Verdict and window of every frame row, in arrival order (plain integers, no arrays)."""
         fr = decode_frames([f for _, f in found], self.profile, self.basis)
-        head = fr.head
         tr = self.tracker
-        seqs, chans, valids = (head[k].tolist() for k in ("sequence", "channel", "valid"))
+        seqs, mods, valids = fr.sequence.tolist(), fr.modulus.tolist(), fr.valid.tolist()
         kinds, crcs = fr.kind.tolist(), fr.crc.tolist()
+        row_ch = fr.row_channel.tolist()
+        first_row = np.searchsorted(fr.row_frame, np.arange(len(found) + 1)).tolist()
         take, wins = [], []
-        for i, (offset, _) in enumerate(found):  # one decision per frame, in order
+        for i, (offset, _) in enumerate(found):  # one decision per frame row, in order
             if fr.verdict[i] != "ok":
                 self._event(fr.verdict[i], offset, detail=fr.detail[i])
                 continue
-            window, where = tr.place(seqs[i], chans[i], kinds[i], crcs[i])
-            if where != "ok":
-                self._event(where, offset, window=window, channel=chans[i])
-                continue
-            self._count("frames_ok" if kinds[i] == 0 else "gap_frames_ok")
-            if kinds[i] == 1:
-                self._masks[(window, chans[i])] = fr.masks[i]
-            else:
-                take.append(i)
-                wins.append(window)
-            if valids[i] < self.n and self.end_sample is None:
-                # A short frame is the last window of its stream: the end is now known.
-                self.end_sample = window * self.n + valids[i]
-                tr.end_window = window + 1
+            placed = False
+            items = [(row_ch[r], 0, r) for r in range(first_row[i], first_row[i + 1])]
+            items += [(ch, 1, mask) for ch, mask in fr.masks.get(i, ())]
+            for ch, kind, what in items:  # data rows, then the gap masks of a gap-mask frame
+                window, where = tr.place(seqs[i], ch, kind, crcs[i], mods[i])
+                if where != "ok":
+                    self._event(where, offset, window=window, channel=ch)
+                    continue
+                placed = True
+                if kind == 1:
+                    self._masks[(window, ch)] = what
+                else:
+                    take.append(what)
+                    wins.append(window)
+                if valids[i] < self.n and self.end_sample is None:
+                    # A short frame is the last window of its stream: the end is now known.
+                    self.end_sample = window * self.n + valids[i]
+                    tr.end_window = window + 1
+            if placed:
+                self._count("frames_ok" if kinds[i] == 0 else "gap_frames_ok")
             tr.released = tr.releasable(False)
         if take:
             idx = np.array(take)
             win = np.array(wins, dtype=np.int64)
-            self._pending.append((win, head["channel"][idx], head["valid"][idx],
-                                  head["flags"][idx], fr.rows[idx]))
+            fidx = fr.row_frame[idx]
+            self._pending.append((win, fr.row_channel[idx], fr.valid[fidx], fr.row_flags[idx],
+                                  fr.rows[idx]))
             if self._keep:
-                offs = np.array([found[i][0] for i in take], dtype=np.int64)
-                lens = np.array([len(found[i][1]) for i in take], dtype=np.int64)
-                self._table.append(np.stack([offs, lens, head["sequence"][idx], win,
-                                             head["channel"][idx], head["basis"][idx],
-                                             head["terms"][idx], head["step_code"][idx],
-                                             head["valid"][idx]], axis=1))
+                offs = np.array([found[f][0] for f in fidx.tolist()], dtype=np.int64)
+                lens = np.array([len(found[f][1]) for f in fidx.tolist()], dtype=np.int64)
+                self._table.append(np.stack([offs, lens, fr.sequence[fidx], win,
+                                             fr.row_channel[idx], fr.head["basis"][fidx],
+                                             fr.head["terms"][fidx], fr.head["step_code"][fidx],
+                                             fr.valid[fidx]], axis=1))
 
     def _emit(self, upto: int) -> list[Block]:
         """Blocks for windows ``[next, upto)``, whole-array work over their frames."""
@@ -206,11 +219,6 @@ class StreamDecoder:
             w, c = win[sel] - a, ch[sel]
             vals[w, c] = np.where(have, rows[sel], np.nan)
             stat[w, c] = np.where(have, DELIVERED, LOST)
-            masked = flags[sel] & FLAG_GAP_MASK != 0
-            for k in np.flatnonzero(masked):  # frames whose gap mask never came: not vouched for
-                if (int(win[sel][k]), int(c[k])) not in self._masks:
-                    vals[w[k], c[k]] = np.nan
-                    stat[w[k], c[k]] = LOST
             for key in [key for key in self._masks if a <= key[0] < b]:  # rare: one per gap frame
                 mask = self._masks.pop(key)
                 vals[key[0] - a, key[1], : mask.size][mask] = np.nan

@@ -5,10 +5,10 @@ from __future__ import annotations
 import binascii
 
 import numpy as np
+from realdata import basic_motions
 
 import codec
 from codec._stream import locate_frames
-from realdata import basic_motions
 
 __all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting"]
 

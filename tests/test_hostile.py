@@ -17,13 +17,13 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from streams import assert_accounting, crc_ok_reference, frames_of, real_stream
 
 import codec
 from codec import TrimlinkError
 from codec._crc import crc16_ibm3740
 from codec._layout import HEADER_FIELDS, SYNC
 from codec.cli import main
-from streams import assert_accounting, crc_ok_reference, frames_of, real_stream
 
 X, ENC = real_stream(400, 2, n=32)
 CLEAN = codec.decode(ENC.data, ENC.profile, samples=400)
@@ -79,8 +79,17 @@ def _mutate(rng, data: bytes) -> bytes:
 
 def test_mutated_valid_streams():
     rng = np.random.default_rng(7)
-    for _ in range(1000):  # 10^4 in tools/fuzz_mutations.py
+    for _ in range(100):  # layout v2 (the default); 10^4 in tools/fuzz_mutations.py
         _check(_mutate(rng, ENC.data))
+    enc1 = codec.encode(X, codec.Profile(frame_length=32, layout_version=1))
+    clean1 = codec.decode(enc1.data, enc1.profile, samples=400)
+    for _ in range(1000):  # layout v1
+        data = _mutate(rng, enc1.data)
+        dec = codec.decode(data, enc1.profile, samples=400, strict=False)
+        assert_accounting(dec, 2)
+        for off, n in zip(dec.frames["offset"].tolist(), dec.frames["length"].tolist()):
+            assert crc_ok_reference(data[off : off + n])
+        assert np.array_equal(dec.samples[dec.delivered], clean1.samples[dec.delivered])
 
 
 @settings(max_examples=60, deadline=None)
@@ -149,9 +158,12 @@ def _forge(frame: bytes, **fields) -> bytes:
     ({"basis": 3}, "bad_header"),
 ])
 def test_forged_headers_become_events(fields, reason):
-    f = [ENC.data[a : a + n] for a, n in frames_of(ENC.data)]
+    # Layout v1 (fixed header fields); the v2 parser is exercised below without the CRC gate.
+    enc1 = codec.encode(X, codec.Profile(frame_length=32, layout_version=1))
+    f = [enc1.data[a : a + n] for a, n in frames_of(enc1.data)]
     forged = _forge(f[0], **fields)
-    dec = _check(forged + b"".join(f[1:]))
+    dec = codec.decode(forged + b"".join(f[1:]), enc1.profile, samples=400, strict=False)
+    assert_accounting(dec, 2)
     assert not dec.delivered[:32, 0].any()
     if reason:
         assert dec.counts[f"frames_{reason}"] == 1
@@ -205,3 +217,39 @@ def test_cli_decode_reports_on_damaged_streams(tmp_path, damage):
     assert rep["samples"] == 400
     assert rep["samples_delivered"] + rep["samples_lost"] + rep["samples_gap"] == 800
     assert "lost" in out
+
+
+@pytest.mark.parametrize("version", [1, 2, 15])
+def test_frame_interpreter_never_raises_on_crc_valid_garbage(version):
+    # Past the CRC gate an adversary controls every byte: build frames with a right
+    # envelope, random contents and a correct CRC, and hand them to the interpreter.
+    from codec._codec import decode_frames
+    from codec._layout import frame_extent
+
+    rng = np.random.default_rng(version)
+    basis = codec.as_basis(ENC.profile.basis, ENC.profile.frame_length)
+    frames = []
+    for _ in range(400):
+        size = int(rng.integers(8, 300))
+        body = bytearray(rng.bytes(size))
+        body[0] = (version << 4) | (body[0] & 0x0F if version == 2 else 0)
+        if version == 2:
+            body[0] &= 0xF7  # short length form: 11 bits
+            body[0] = (body[0] & 0xF8) | ((size + 4) >> 8 & 0x07)
+            body[1] = (size + 4) & 0xFF
+            if rng.random() < 0.9:  # mostly our profile byte, to reach the payload parser
+                body[2] = codec.profile_id(ENC.profile) & 0xFF
+                body[4] &= 0x7F if rng.random() < 0.5 else 0xFF
+        else:
+            body[1:3] = (size + 4).to_bytes(2, "big")
+            if version == 1 and rng.random() < 0.9:
+                body[3:5] = codec.profile_id(ENC.profile).to_bytes(2, "big")
+        frame = SYNC + bytes(body) + crc16_ibm3740(bytes(body)).to_bytes(2, "big")
+        if frame_extent(memoryview(frame), 0) == len(frame):
+            frames.append(frame)
+    assert len(frames) > 300
+    fr = decode_frames(frames, ENC.profile, basis)  # must not raise
+    assert len(fr.verdict) == len(frames)
+    assert sum(v != "foreign_profile" for v in fr.verdict) > 200  # the parsers were reached
+    ok_rows = np.isin(fr.row_frame, np.flatnonzero(np.array(fr.verdict) == "ok"))
+    assert np.isfinite(fr.rows[ok_rows]).all()

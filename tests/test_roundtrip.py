@@ -2,13 +2,13 @@
 
 import numpy as np
 import pytest
+from checks import assert_meets_target, assert_roundtrip
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
+from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
 
 import codec
-from checks import assert_meets_target, assert_roundtrip
-from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
 
 BUILTIN = ["identity", "dct", "legendre", "haar", "walsh"]
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from streams import frames_of, real_stream
 
 import codec
 from codec._stuffing import (
@@ -16,7 +17,6 @@ from codec._stuffing import (
     slip_encode,
     stuff,
 )
-from streams import frames_of, real_stream
 
 
 def test_slip_constants_and_escapes_rfc1055():

@@ -12,11 +12,11 @@ import threading
 
 import numpy as np
 import pytest
+from streams import real_stream
 
 import codec
 from codec.cli import main
 from link_sim._udp import parse_endpoint, receive_frames, send_frames, split_frames_of
-from streams import real_stream
 
 
 def test_loopback_moves_a_stream_without_loss():

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._errors import InputError
+from .._errors import InputError, ProfileError
 from .._io import atomic_output
 from .._profile import Profile, default_profile, load_profile
 
@@ -27,6 +27,10 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
     p.add_argument("--reference", choices=("total", "ac"),
                    help="reference energy: total = sum x^2, ac = sum (x - mean)^2")
     p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
+    p.add_argument("--max-error", type=float, metavar="E",
+                   help="peak-error limit in engineering units for every channel: no decoded "
+                   "sample differs from the input by more than E (with --fidelity 0 it is the "
+                   "only target)")
 
 
 def resolve_profile(args: argparse.Namespace, names: list[str] | None = None) -> Profile:
@@ -34,7 +38,18 @@ def resolve_profile(args: argparse.Namespace, names: list[str] | None = None) ->
     profile = load_profile(args.profile) if args.profile else default_profile()
     profile = profile.override(basis=args.basis, fidelity=args.fidelity,
                                reference=args.reference, frame_length=args.frame_length)
-    return profile.bind(names) if names is not None else profile
+    profile = profile.bind(names) if names is not None else profile
+    max_error = getattr(args, "max_error", None)
+    if max_error is not None:
+        if not (math.isfinite(max_error) and max_error > 0):
+            raise ProfileError(f"--max-error must be a positive number, got {max_error}",
+                               "command line")
+        if not profile.channels:
+            raise ProfileError("--max-error needs the input's channels; give the input file",
+                               "command line")
+        profile = profile.model_copy(update={"channels": tuple(
+            c.model_copy(update={"max_error": max_error}) for c in profile.channels)})
+    return profile
 
 
 def json_ready(obj):
