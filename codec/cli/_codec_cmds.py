@@ -10,9 +10,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .._bases import basis_from_code, basis_names
-from .._codec import check_some_frame, decode, encode
-from .._errors import FrameError, InputError, TrimlinkError
+from .._bases import as_basis, basis_names
+from .._codec import check_some_frame, decode, decode_frames, encode
+from .._errors import FrameError, InputError
 from .._gaps import GAP_POLICIES
 from .._io import (
     CsvBlockReader,
@@ -23,17 +23,15 @@ from .._io import (
     write_csv_block,
     write_samples,
 )
-from .._layout import parse_headers
+from .._layout import GAP_KIND
 from .._profile import (
     Profile,
     StreamNote,
     load_profile,
     load_stream_note,
     note_path,
-    profile_id,
     save_stream_note,
 )
-from .._quantize import step_from_code
 from .._report import error_figures
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
@@ -256,7 +254,9 @@ def _decode(args) -> int:
     write_json(args.json, report)
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     c = report
-    print(f"{c['frames_ok']} frames decoded -> {c['samples']} samples x {c['channels']} "
+    gapf = f" ({c['gap_frames_ok']} with gap masks)" if c["gap_frames_ok"] else ""
+    print(f"{c['frames_ok'] + c['gap_frames_ok']} frames decoded{gapf} -> {c['samples']} "
+          f"samples x {c['channels']} "
           f"channels: {c['samples_delivered']} delivered, {c['samples_lost']} lost, "
           f"{c['samples_gap']} gap; {c['frames_crc_failed']} CRC failures, "
           f"{c['bytes_skipped']} bytes skipped" + _event_summary(c)
@@ -400,6 +400,11 @@ def _roundtrip(args) -> int:
 
 
 def _inspect(args) -> int:
+    """List every frame: where, which version/kind, which window and channels, and verdict.
+
+    Goes through the same per-frame interpreter as the decoder, so it reads
+    every layout version and gap-mask frames, and a damaged frame is a line.
+    """
     data = _read_stream(args.stream)
     profile = None
     if args.profile:
@@ -410,35 +415,33 @@ def _inspect(args) -> int:
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a trimlink stream?", args.stream)
-    head = parse_headers(np.frombuffer(data, np.uint8), loc.offsets)
-    pid = profile_id(profile) if profile else None
-    names = [c.name for c in profile.channels] if profile else None
-    n = profile.frame_length if profile else None
-    rows = [(int(o), "ok", i) for i, o in enumerate(loc.offsets)]
-    rows += [(int(o), "CRC FAILED", None) for o in loc.crc_failures]
+    frames = [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
+    fr = None
+    if profile is not None and profile.channels:
+        fr = decode_frames(frames, profile, as_basis(profile.basis, profile.frame_length))
+    names = [c.name for c in profile.channels] if profile and profile.channels else None
+    rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
+    rows += [(int(o), None) for o in loc.crc_failures]
     rows.sort()
-    out = [f"{'byte':>9} {'seq':>6} {'channel':<14} {'basis':<9} {'terms':>5} {'step':>11} "
-           f"{'bits':>6}  crc"]
-    for off, status, i in rows:
+    out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'terms':>5} {'bits':>7}  status"]
+    for off, i in rows:
         if i is None:
-            out.append(f"{off:>9} {'-':>6} {'-':<14} {'-':<9} {'-':>5} {'-':>11} {'-':>6}  "
-                       f"{status}")
+            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':>5} {'-':>7}  CRC FAILED")
             continue
-        ch = int(head["channel"][i])
-        chan = names[ch] if names and ch < len(names) else str(ch)
-        try:
-            basis = basis_from_code(int(head["basis"][i]), n or 64).name
-        except TrimlinkError:
-            basis = f"#{int(head['basis'][i])}"
-        flag = status
-        if pid is not None and head["profile"][i] != pid:
-            flag += " (other profile)"
-        out.append(f"{off:>9} {int(head['sequence'][i]):>6} {chan:<14} {basis:<9} "
-                   f"{int(head['terms'][i]):>5} {step_from_code(head['step_code'][i]):>11.4g} "
-                   f"{int(loc.lengths[i]) * 8:>6}  {flag}")
-    out.append(f"{loc.offsets.size} frames ok, {len(loc.crc_failures)} CRC failures, "
+        version = frames[i][2] >> 4
+        kind = "gap" if version == GAP_KIND else f"v{version}"
+        bits = 8 * len(frames[i])
+        if fr is None:
+            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  crc ok "
+                       "(no profile: contents not read)")
+            continue
+        chans = fr.row_channel[fr.row_frame == i].tolist()
+        chans += [c for c, _ in fr.masks.get(i, ())]
+        label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
+        status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
+        out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
+                   f"{int(fr.head['terms'][i]):>5} {bits:>7}  {status}")
+    out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
                f"{loc.skipped_bytes} bytes outside frames")
     sys.stdout.write("\n".join(out) + "\n")
     return 0
-
-
