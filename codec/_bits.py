@@ -22,7 +22,7 @@ def pack_fields(values: np.ndarray, widths: np.ndarray) -> np.ndarray:
     Parameters
     ----------
     values : array of uint64/int64
-        Non-negative field values; each must fit its width.
+        Non-negative field values; each must fit its width (at most 57 bits).
     widths : array of int
         Bit width of each field (0 allowed: the field is absent).
 
@@ -30,17 +30,44 @@ def pack_fields(values: np.ndarray, widths: np.ndarray) -> np.ndarray:
     -------
     ndarray of uint8
         The packed bytes; the last byte is zero-padded.
+
+    Notes
+    -----
+    Each field lands in a window of three 32-bit words starting at the word
+    holding its first bit.  Its three 32-bit parts are summed into their words
+    with ``np.bincount``; fields never overlap, so the sums are ORs and stay
+    below 2**32, exact in float64.  The work is per field, not per bit.
     """
     values = np.asarray(values).astype(np.uint64, copy=False)
     widths = np.asarray(widths, dtype=np.int64)
     total = int(widths.sum())
     if total == 0:
         return np.zeros(0, dtype=np.uint8)
-    item = np.repeat(np.arange(widths.size), widths)
-    starts = np.cumsum(widths) - widths
-    shift = (widths[item] - 1 - (np.arange(total) - starts[item])).astype(np.uint64)
-    bits = ((values[item] >> shift) & np.uint64(1)).astype(np.uint8)
-    return np.packbits(bits)
+    if widths.max() > MAX_FIELD_BITS:
+        raise ValueError(f"field wider than {MAX_FIELD_BITS} bits")
+    pos = np.cumsum(widths) - widths
+    word = pos >> 5
+    shift = 96 - (pos & 31) - widths  # left shift of the value inside the 96-bit window
+    m32 = np.uint64(0xFFFFFFFF)
+
+    def _shl(v, k):  # v << k for 0 <= k < 64, else 0 (NumPy shifts >= 64 are undefined)
+        ok = (k >= 0) & (k < 64)
+        return np.where(ok, v << np.clip(k, 0, 63).astype(np.uint64), np.uint64(0))
+
+    def _shr(v, k):
+        ok = (k >= 0) & (k < 64)
+        return np.where(ok, v >> np.clip(k, 0, 63).astype(np.uint64), np.uint64(0))
+
+    live = widths > 0
+    low = _shl(values, shift) & m32
+    mid = np.where(shift >= 32, _shl(values, shift - 32), _shr(values, 32 - shift)) & m32
+    high = np.where(shift >= 64, _shl(values, shift - 64), _shr(values, 64 - shift)) & m32
+    nwords = (total + 31) // 32 + 2
+    acc = np.bincount(word[live], weights=high[live], minlength=nwords)
+    acc += np.bincount(word[live] + 1, weights=mid[live], minlength=nwords)
+    acc += np.bincount(word[live] + 2, weights=low[live], minlength=nwords)
+    out = acc.astype(">u4").view(np.uint8)
+    return out[: (total + 7) // 8].copy()
 
 
 def read_fields(buf: np.ndarray, bitpos: np.ndarray, widths: np.ndarray) -> np.ndarray:

@@ -11,11 +11,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._bases import Basis, as_basis
+from ._bases import Basis
 from ._bits import MAX_FIELD_BITS
 from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
 from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
+from ._klt import profile_basis
 from ._layout import (
     GAP_KIND,
     K_INIT_BITS,
@@ -176,7 +177,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
             missing = None
     profile = _bind(profile, x.shape[1])
     n = profile.frame_length
-    basis = as_basis(profile.basis, n)
+    basis = profile_basis(profile)  # loads and hash-checks a trained basis
     frames, valid, channel, window = split_frames(x, n)
     mask = np.arange(n) < valid[:, None]
     resolution = np.array([c.resolution for c in profile.channels])[channel]

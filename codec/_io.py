@@ -163,6 +163,10 @@ def atomic_output(path: str | Path) -> Iterator[Path]:
         raise InputError("the output folder does not exist; create it first", str(path))
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=directory)
     os.close(fd)
+    # mkstemp creates the file private (0600); give it the mode a plain open() would.
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield Path(tmp)
         os.replace(tmp, path)

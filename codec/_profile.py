@@ -15,7 +15,14 @@ from pathlib import Path
 from typing import Literal
 
 import tomli_w
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
 
 from ._bases import MAX_FRAME_LENGTH, basis_names
 from ._errors import ProfileError
@@ -80,6 +87,19 @@ class Profile(BaseModel):
     #: Layout 2 only: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
+    #: A trained basis (basis = "klt"): its .npz file and the SHA-256 of its matrix.
+    basis_file: str | None = None
+    basis_sha256: str | None = Field(default=None, pattern=r"^[0-9a-fA-F]{64}$")
+
+    @model_validator(mode="after")
+    def _trained_basis(self) -> Profile:
+        trained = self.basis_file is not None or self.basis_sha256 is not None
+        if self.basis == "klt" and (self.basis_file is None or self.basis_sha256 is None):
+            raise ValueError("basis 'klt' needs basis_file and basis_sha256 (the file and hash "
+                             "'trimlink train' prints)")
+        if self.basis != "klt" and trained:
+            raise ValueError("basis_file and basis_sha256 belong to basis 'klt' only")
+        return self
 
     @field_validator("basis")
     @classmethod
@@ -133,11 +153,16 @@ def profile_id(profile: Profile) -> int:
     """16-bit identifier of the profile's canonical form (SHA-256, first two bytes)."""
     # Settings a frame describes itself (layout version, multi-channel frames)
     # or that only steer the encoder (peak-error limits) stay out of the hash,
-    # so profiles written before they existed keep their identifier.
+    # so profiles written before they existed keep their identifier.  The basis
+    # file's path may differ between the two ends; its hash may not.
     canon = profile.model_dump(exclude={"description", "layout_version",
-                                        "multi_channel_frames"})
+                                        "multi_channel_frames", "basis_file"})
     for ch in canon["channels"]:
         ch.pop("max_error", None)
+    if canon["basis_sha256"] is None:
+        del canon["basis_sha256"]  # profiles without a trained basis keep their identifier
+    else:
+        canon["basis_sha256"] = canon["basis_sha256"].lower()
     blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
     return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
 
@@ -150,12 +175,15 @@ def load_profile(path: str | Path) -> Profile:
     except FileNotFoundError:
         raise ProfileError("no such profile file; check the path", str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise ProfileError(f"cannot read the profile ({exc.__class__.__name__})", str(path)) from None
+        raise ProfileError(f"cannot read the profile ({exc.__class__.__name__})",
+                           str(path)) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ProfileError(f"not valid TOML ({exc})", str(path)) from None
     data.pop("stream", None)  # the note encode writes beside a stream; not part of a profile
+    if isinstance(data.get("basis_file"), str) and not Path(data["basis_file"]).is_absolute():
+        data["basis_file"] = str(path.parent / data["basis_file"])  # relative to the profile
     try:
         return Profile.model_validate(data)
     except ValidationError as exc:
@@ -219,4 +247,6 @@ def _describe(exc: ValidationError) -> str:
     if err["type"] == "extra_forbidden":
         return f"unknown key '{key}'; remove it or check its spelling"
     msg = err["msg"].removeprefix("Value error, ")
+    if not err["loc"]:
+        return msg  # a rule across several keys: the whole input would not help
     return f"key '{key}': {msg} (got {err.get('input')!r})"

@@ -81,12 +81,12 @@ class StreamDecoder:
                                "profile")
         if reorder < 0:
             raise ValueError("reorder must be >= 0")
-        from ._bases import as_basis
+        from ._klt import profile_basis
 
         self.profile = profile
         self.n = profile.frame_length
         self.channels = len(profile.channels)
-        self.basis = as_basis(profile.basis, self.n)
+        self.basis = profile_basis(profile)  # loads and hash-checks a trained basis
         self.scanner = FrameScanner(max_frame_bytes(profile))
         self.end_sample = int(samples) if samples is not None else None
         end_window = None if samples is None else -(-int(samples) // self.n)

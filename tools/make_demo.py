@@ -39,14 +39,16 @@ def ridge_station(rng: np.random.Generator):
     day = 2 * np.pi * t / 86400.0
     sun = np.clip(np.sin(day - np.pi / 2 + 0.3), 0, None)  # daylight bump, peak early afternoon
     front = 1 / (1 + np.exp(-(t - 1.55 * 86400) / 1800.0))  # the front arrives on day 2
-    temp = 276.0 + 5.5 * np.sin(day - 2.2) - 4.0 * front + 0.05 * np.cumsum(rng.normal(0, 0.02, t.size))
+    drift = 0.05 * np.cumsum(rng.normal(0, 0.02, t.size))
+    temp = 276.0 + 5.5 * np.sin(day - 2.2) - 4.0 * front + drift
     humid = np.clip(78 - 12 * np.sin(day - 2.2) + 15 * front + rng.normal(0, 0.15, t.size), 5, 100)
     press = 1012.0 - 9.0 * front + 0.8 * np.sin(day / 2) + rng.normal(0, 0.05, t.size)
     gust = np.abs(rng.normal(0, 1.0 + 3.0 * front, t.size))
     wind = np.clip(3.0 + 2.0 * sun + 5.0 * front + gust, 0, None)
     clouds = 1 - 0.6 * front * np.abs(np.sin(t / 900.0))
     solar = 820.0 * sun * clouds + rng.normal(0, 2.0, t.size)
-    batt = 12.4 + 0.9 * np.convolve(sun, np.ones(90) / 90, mode="same") + rng.normal(0, 0.004, t.size)
+    charge = np.convolve(sun, np.ones(90) / 90, mode="same")
+    batt = 12.4 + 0.9 * charge + rng.normal(0, 0.004, t.size)
     spikes = rng.choice(t.size, 3, replace=False)
     wind[spikes] += 14.0  # a few gust spikes
     chans = [

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._bases import as_basis, basis_names
+from .._bases import basis_names
 from .._codec import check_some_frame, decode, decode_frames, encode
 from .._errors import FrameError, InputError
 from .._gaps import GAP_POLICIES
@@ -23,6 +23,7 @@ from .._io import (
     write_csv_block,
     write_samples,
 )
+from .._klt import profile_basis
 from .._layout import GAP_KIND
 from .._profile import (
     Profile,
@@ -38,7 +39,7 @@ from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import STUFFINGS, Unstuffer, stuff
 from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
 
-__all__ = ["register", "roundtrip_report", "decode_report"]
+__all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
 
 _CAUTION = ("caution: lossy coding; do not use it for signals on which safety depends "
             "unless the fidelity has been justified for that use.")
@@ -128,6 +129,37 @@ def _quiet_broken_pipe(handler):
     return run
 
 
+def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: str = "refuse",
+                 stuffing: str = "none"):
+    """Encode ``table`` and write the stream plus its recorded profile, atomically together.
+
+    ``path`` ``-`` writes the stream to standard output (no profile file then).
+    """
+    result = encode(table.values, profile, gaps=gaps)
+    data = _stuff(result.data, stuffing)
+    if is_stdio(path):
+        sys.stdout.buffer.write(data)
+        sys.stdout.buffer.flush()
+        return result
+    note = _note_for(table)
+    with contextlib.ExitStack() as stack:
+        tmp_stream = stack.enter_context(atomic_output(path))
+        tmp_note = stack.enter_context(atomic_output(note_path(path)))
+        tmp_stream.write_bytes(data)
+        save_stream_note(result.profile, note, tmp_note)
+    return result
+
+
+def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
+    """The per-frame part of a JSON report, one list per column (compact for long streams)."""
+    return {
+        "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
+        "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
+        "fidelity": frames["fidelity"] if fidelity is None else fidelity,
+        "at_floor": frames["floor"], "met": frames["met"],
+    }
+
+
 def _encode(args) -> int:
     if is_stdio(args.input):
         return _encode_live(args)
@@ -135,21 +167,9 @@ def _encode(args) -> int:
         check_distinct(args.input, args.output)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
-    result = encode(table.values, profile, gaps=args.gaps)
-    data = _stuff(result.data, args.stuffing)
-    note = _note_for(table)
+    result = write_stream(args.output, table, profile, args.gaps, args.stuffing)
+    write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
     out = sys.stderr if is_stdio(args.output) else sys.stdout
-    with contextlib.ExitStack() as stack:
-        if is_stdio(args.output):
-            sys.stdout.buffer.write(data)
-            sys.stdout.buffer.flush()
-        else:
-            tmp_stream = stack.enter_context(atomic_output(args.output))
-            tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
-            tmp_stream.write_bytes(data)
-            save_stream_note(result.profile, note, tmp_note)
-        if args.json:
-            write_json(args.json, result.report)
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
@@ -349,13 +369,14 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     return report, blocks, dec
 
 
-def roundtrip_report(values: np.ndarray, profile: Profile) -> tuple[dict, bool]:
-    """Encode, decode the bytes, and check every frame on the decoded samples.
+def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
+    """Encode (unless ``enc`` is given), decode the bytes, check every frame on the decoded samples.
 
     The check is independent of the encoder's own: error energy per frame is
     recomputed from the decoded output and compared with the frame's budget.
+    Returns ``(report, ok, decoded)``.
     """
-    enc = encode(values, profile)
+    enc = enc if enc is not None else encode(values, profile)
     dec = decode(enc.data, enc.profile, samples=values.shape[0])
     if dec.samples.shape != values.shape or not dec.delivered.all():
         raise RuntimeError("a clean round trip lost samples")  # our bug
@@ -381,18 +402,21 @@ def roundtrip_report(values: np.ndarray, profile: Profile) -> tuple[dict, bool]:
         "decoded_check": "error energy per frame recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
-    return report, bool(met.all())
+    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
+    return report, bool(met.all()), dec
 
 
 def _roundtrip(args) -> int:
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
-    report, ok = roundtrip_report(table.values, profile)
+    report, ok, _ = roundtrip_report(table.values, profile)
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
           f"(ratio {fmt(report['compression_ratio'], '.2f')}), fidelity min "
           f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']}), "
-          f"{report['frames_below_target']} frames below target, SNR {fmt(report['snr_db'], '.2f')}"
+          f"{report['frames_below_target']} frames below target "
+          f"({report['frames_at_floor']} held to "
+          f"the resolution floor), SNR {fmt(report['snr_db'], '.2f')}"
           f" dB, PRD {fmt(report['prd_percent'], '.3f')} %, max abs error "
           f"{report['max_abs_error']:.6g}")
     print(_CAUTION)
@@ -418,7 +442,7 @@ def _inspect(args) -> int:
     frames = [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
     fr = None
     if profile is not None and profile.channels:
-        fr = decode_frames(frames, profile, as_basis(profile.basis, profile.frame_length))
+        fr = decode_frames(frames, profile, profile_basis(profile))
     names = [c.name for c in profile.channels] if profile and profile.channels else None
     rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
     rows += [(int(o), None) for o in loc.crc_failures]

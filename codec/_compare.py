@@ -1,0 +1,297 @@
+"""Which basis saves the most bits on this data?  The comparison engine.
+
+Every basis is run through the real encoder and decoder at every fidelity
+target, and scored on the decoded samples: bits per sample with every stream
+bit counted (headers, CRC, payload), bits per frame (mean, 95th percentile),
+compression ratio against the raw sensor bits, bits saved against the
+identity (impulse) basis, fidelity achieved (min, mean), SNR, PRD, peak error
+and encode time, per channel and overall.
+
+The data are split once in time: a trained basis (``klt``) is fitted on the
+first ``train_fraction`` of the samples and EVERY basis, trained or not, is
+scored on the rest, so no basis is scored on data it was fitted on.  The
+identity basis is always scored, because it is the reference for bits saved.
+"""
+
+from __future__ import annotations
+
+import math
+import tempfile
+import time
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ._bases import as_basis, basis_names
+from ._codec import as_samples, decode, encode
+from ._errors import InputError
+from ._framing import split_frames
+from ._klt import TrainedBasis, save_trained_basis, train_klt
+from ._profile import Profile
+from ._report import error_figures
+
+__all__ = ["Comparison", "compare_bases", "energy_compaction", "resolve_bases", "ROW_KEYS"]
+
+#: Keys of every comparison row, in table order.
+ROW_KEYS = (
+    "channel", "basis", "fidelity_target", "bits_per_sample", "bits_per_frame_mean",
+    "bits_per_frame_p95", "compression_ratio", "bits_saved_percent", "fidelity_min",
+    "fidelity_mean", "frames_below_target", "frames_at_floor", "snr_db", "prd_percent",
+    "max_abs_error", "encode_seconds", "winner",
+)
+
+
+@dataclass
+class Comparison:
+    """The result of :func:`compare_bases`.
+
+    Attributes
+    ----------
+    rows : list of dict
+        One row per channel (names, then ``"all"``) x basis x fidelity target,
+        keys :data:`ROW_KEYS`; ``winner`` is True for the basis with the fewest
+        bits per sample for that channel and target.
+    train_samples, test_samples : int
+        Samples used to fit trained bases / to score every basis.
+    bases : list of str
+        The bases scored, in order.
+    fidelities : list of float
+    names : list of str
+        Channel names.
+    trained : TrainedBasis or None
+        The KLT fitted on the training slice, when ``klt`` was asked for.
+    test : ndarray
+        The held-out samples (samples x channels).
+    reconstructions : dict
+        ``(basis, fidelity) -> decoded held-out samples``.
+    """
+
+    rows: list[dict]
+    train_samples: int
+    test_samples: int
+    bases: list[str]
+    fidelities: list[float]
+    names: list[str]
+    trained: TrainedBasis | None
+    test: np.ndarray
+    reconstructions: dict = field(repr=False)
+    frame_length: int = 0
+
+    def winners(self) -> list[dict]:
+        """The winning row per channel and fidelity target."""
+        return [r for r in self.rows if r["winner"]]
+
+
+def resolve_bases(spec: str | Iterable[str] | None, n: int) -> list[str]:
+    """Basis names from ``"all"``, ``"a,b,c"`` or a list; ``all`` skips bases ``n`` rules out.
+
+    Unknown names and explicitly named bases that cannot use ``n`` raise InputError.
+    """
+    if spec is None or spec == "all":
+        out = []
+        for name in basis_names():
+            if name == "klt":
+                out.append(name)
+                continue
+            try:
+                as_basis(name, n)
+            except InputError:
+                continue  # e.g. db10 needs N >= 64; "all" means all that fit
+            out.append(name)
+        return out
+    names = [s.strip() for s in spec.split(",")] if isinstance(spec, str) else list(spec)
+    names = [s for s in names if s]
+    if not names:
+        raise InputError("no basis named; give --bases a,b,... or all")
+    for name in names:
+        if name != "klt":
+            as_basis(name, n)  # raises a clear InputError
+    return list(dict.fromkeys(names))
+
+
+def energy_compaction(frames: np.ndarray, basis, adaptive: bool = True) -> np.ndarray:
+    """Mean fraction of frame energy in the first k terms, k = 1..N.
+
+    ``adaptive=True`` keeps each frame's k largest terms (what the encoder
+    does); ``False`` keeps the k basis rows with the largest mean energy over
+    all frames (the compaction measure of Ahmed, Natarajan & Rao, 1974).
+    """
+    c2 = basis.analyze(frames) ** 2
+    total = c2.sum()
+    if total == 0:
+        return np.ones(frames.shape[1])
+    if adaptive:
+        return np.cumsum(-np.sort(-c2, axis=1), axis=1).sum(axis=0) / total
+    return np.cumsum(np.sort(c2.sum(axis=0))[::-1]) / total
+
+
+def compare_bases(
+    values,
+    profile: Profile,
+    bases: str | Sequence[str] | None = "all",
+    fidelities: Sequence[float] = (0.95, 0.99),
+    train_fraction: float = 0.5,
+    names: list[str] | None = None,
+    input_name: str = "(array)",
+    progress: bool = False,
+) -> Comparison:
+    """Score every basis x fidelity on held-out data.
+
+    Parameters
+    ----------
+    values : array_like
+        Samples x channels.
+    profile : Profile
+        Frame length, reference and channel specs (resolution, raw bits);
+        its basis and fidelity are replaced by each candidate in turn.
+    bases : str or sequence of str
+        ``"all"``, ``"a,b,c"`` or a list of names; ``klt`` means: train on
+        the training slice, score on the rest.
+    fidelities : sequence of float
+        Fidelity targets, each in (0, 1].
+    train_fraction : float
+        Leading fraction of the samples held for training, 0 <= f < 1
+        (must be > 0 when ``klt`` is asked for).
+    names : list of str, optional
+        Channel names (default: the profile's, else ch0, ch1, ...).
+    input_name : str
+        Recorded in the trained basis's note.
+    progress : bool
+        Show a tqdm progress bar on standard error.
+    """
+    x = as_samples(values)
+    if names is None:
+        names = ([c.name for c in profile.channels] if len(profile.channels) == x.shape[1]
+                 else [f"ch{i}" for i in range(x.shape[1])])
+    profile = profile.bind(list(names))  # a profile for other channels is refused here
+    profile = profile.model_copy(update={"basis": "dct", "basis_file": None,
+                                         "basis_sha256": None})
+    n = profile.frame_length
+    fids = _check_fidelities(fidelities)
+    names_b = resolve_bases(bases, n)
+    if "identity" not in names_b:
+        names_b = ["identity"] + names_b
+    if not 0.0 <= train_fraction < 1.0 or not math.isfinite(train_fraction):
+        raise InputError(f"train fraction {train_fraction} is outside [0, 1); give e.g. 0.5")
+    split = int(x.shape[0] * train_fraction)
+    split -= split % n  # whole frames only, so training frames and scored frames never overlap
+    train, test = x[:split], x[split:]
+    if test.shape[0] < n:
+        raise InputError(
+            f"only {test.shape[0]} samples are left to score after the training slice; "
+            f"give more data or a smaller --train-fraction")
+    trained = None
+    jobs: list[tuple[str, float]] = [(b, f) for b in names_b for f in fids]
+    recon: dict = {}
+    measured: dict = {}
+    with tempfile.TemporaryDirectory(prefix="trimlink-compare-") as tmp:
+        if "klt" in names_b:
+            if split == 0:
+                raise InputError("basis klt needs a training slice; give --train-fraction > 0")
+            trained = train_klt(train, n, names, input_name=input_name)
+            path = Path(tmp) / "klt.npz"
+            save_trained_basis(trained, path)
+        bar = _progress(len(jobs), progress)
+        for b, f in jobs:
+            changes = {"basis": b, "fidelity": f}
+            if b == "klt":
+                changes |= {"basis_file": str(path), "basis_sha256": trained.note.sha256}
+            prof = Profile.model_validate({**profile.model_dump(), **changes})
+            t0 = time.perf_counter()
+            enc = encode(test, prof)
+            seconds = time.perf_counter() - t0
+            dec = decode(enc.data, enc.profile, samples=test.shape[0])
+            recon[(b, f)] = dec.samples
+            measured[(b, f)] = (enc, seconds)
+            bar.update(1)
+        bar.close()
+    rows = _rows(test, profile, names_b, fids, measured, recon)
+    return Comparison(rows, split, test.shape[0], names_b, fids, list(names), trained, test,
+                      recon, n)
+
+
+def _check_fidelities(fidelities) -> list[float]:
+    fids = [float(f) for f in fidelities]
+    if not fids:
+        raise InputError("no fidelity target given; give e.g. --fidelity 0.95,0.99")
+    for f in fids:
+        if not 0.0 < f <= 1.0:
+            raise InputError(f"fidelity {f} is outside (0, 1]; give targets like 0.95,0.99")
+    return sorted(set(fids))
+
+
+class _NoBar:
+    def update(self, k: int) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def _progress(total: int, show: bool):
+    if not show:
+        return _NoBar()
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc="bases x targets", unit="run", leave=False,
+                disable=None)  # None: no bar when standard error is not a terminal
+
+
+def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
+    n = profile.frame_length
+    frames, valid, channel, _ = split_frames(test, n)
+    mask = np.arange(n) < valid[:, None]
+    raw = np.array([c.raw_bits_per_sample for c in profile.channels], dtype=np.float64)
+    names = [c.name for c in profile.channels]
+    rows = []
+    for b in bases:
+        for f in fids:
+            enc, seconds = measured[(b, f)]
+            info = enc.frames
+            xh = recon[(b, f)]
+            dframes = split_frames(xh, n)[0]
+            e = np.where(mask, frames - dframes, 0.0)
+            err = np.einsum("ij,ij->i", e, e)  # measured on the decoded samples
+            e_ref = info["reference_energy"]
+            fid = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
+            below = err > info["budget"]
+            # Frames held to the sensor-resolution floor, not to F, are counted apart and
+            # left out of the fidelity figures (as in the encoder's own report).
+            floor = np.asarray(info.get("floor", np.zeros(err.size, bool)), dtype=bool)
+            bits = info["bits"].astype(np.float64)
+            for c, name in [*enumerate(names), (None, "all")]:
+                sel = np.ones(channel.size, bool) if c is None else channel == c
+                cols = slice(None) if c is None else slice(c, c + 1)
+                count = test[:, cols].size
+                raw_bits = raw.sum() * test.shape[0] if c is None else raw[c] * test.shape[0]
+                total_bits = bits[sel].sum()
+                judged = sel & ~floor
+                figs = error_figures(test[:, cols], xh[:, cols])
+                rows.append({
+                    "channel": name, "basis": b, "fidelity_target": f,
+                    "bits_per_sample": total_bits / count,
+                    "bits_per_frame_mean": float(bits[sel].mean()),
+                    "bits_per_frame_p95": float(np.percentile(bits[sel], 95)),
+                    "compression_ratio": raw_bits / total_bits if total_bits else None,
+                    "bits_saved_percent": None,
+                    "fidelity_min": float(fid[judged].min()) if judged.any() else None,
+                    "fidelity_mean": float(fid[judged].mean()) if judged.any() else None,
+                    "frames_below_target": int(below[sel].sum()),
+                    "frames_at_floor": int(floor[sel].sum()),
+                    "snr_db": figs["snr_db"], "prd_percent": figs["prd_percent"],
+                    "max_abs_error": figs["max_abs_error"], "encode_seconds": seconds,
+                    "winner": False,
+                })
+    ref = {(r["channel"], r["fidelity_target"]): r["bits_per_sample"]
+           for r in rows if r["basis"] == "identity"}
+    best: dict = {}
+    for r in rows:
+        key = (r["channel"], r["fidelity_target"])
+        r["bits_saved_percent"] = 100.0 * (1.0 - r["bits_per_sample"] / ref[key])
+        if key not in best or r["bits_per_sample"] < best[key]["bits_per_sample"]:
+            best[key] = r
+    for r in best.values():
+        r["winner"] = True
+    return rows

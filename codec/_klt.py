@@ -1,0 +1,257 @@
+"""A basis trained on the user's own history: the Karhunen-Loeve transform (KLT).
+
+The rows are the principal components of frames of past data, ordered by the
+energy they carry, so the first few terms hold as much of a typical frame as
+any orthonormal basis can (for data like the history).
+
+The constant vector 1/sqrt(N) is kept as the first row and the other N - 1
+rows are the principal components of the mean-removed frames: the codec sends
+a frame's mean on its own in the ``ac`` reference, and with the constant row
+first the ``total`` reference codes the mean as one term.  Each channel is
+scaled by its RMS about the frame means before pooling, so a channel with a
+large range does not decide the shapes of every other channel.
+
+Basis file (``.npz``, our own format, read without pickle):
+
+==============  ==========================================================
+key             contents
+==============  ==========================================================
+``matrix``      float64 (N, N), rows = orthonormal basis vectors
+``energy``      float64 (N,), mean energy per frame along each row (training)
+``note``        0-d unicode: a TOML note, the :class:`BasisNote` fields
+==============  ==========================================================
+
+The note records ``format`` ("trimlink-klt"), ``format_version`` (1),
+``frame_length``, ``input_name``, ``channels``, ``frames_used``,
+``trained_utc`` (ISO 8601) and ``sha256``: the SHA-256 of the matrix as
+little-endian float64 bytes in row-major order.  A profile names the basis
+as ``basis = "klt"`` with ``basis_file`` and ``basis_sha256``; encoder and
+decoder load the file and refuse it when the hash differs.
+
+References
+----------
+K. Karhunen (1947), M. Loeve (1955): expansion of a random process in the
+eigenvectors of its covariance.  N. Ahmed, T. Natarajan, K. R. Rao, "Discrete
+Cosine Transform", IEEE Trans. Computers C-23 (1974) 90-93, compare the DCT's
+energy compaction with the KLT's on a first-order Markov source.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import tomllib
+import zipfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import tomli_w
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from ._bases import Basis, as_basis, register_basis
+from ._errors import InputError, ProfileError
+from ._framing import split_frames
+from ._io import atomic_output
+
+__all__ = [
+    "KLT_CODE",
+    "BasisNote",
+    "TrainedBasis",
+    "train_klt",
+    "save_trained_basis",
+    "load_trained_basis",
+    "matrix_sha256",
+    "profile_basis",
+    "note_toml",
+]
+
+#: Header code of a trained basis (the header's basis field is 8 bits).
+KLT_CODE = 31
+_FORMAT = "trimlink-klt"
+_FORMAT_VERSION = 1
+
+
+class BasisNote(BaseModel):
+    """Provenance of a trained basis, stored as TOML inside the basis file."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    format: str = _FORMAT
+    format_version: int = _FORMAT_VERSION
+    frame_length: int = Field(ge=2)
+    input_name: str
+    channels: tuple[str, ...]
+    frames_used: int = Field(ge=1)
+    trained_utc: str
+    sha256: str = Field(pattern=r"^[0-9a-f]{64}$")
+
+
+@dataclass(frozen=True)
+class TrainedBasis:
+    """A trained basis: the matrix, training energies and its provenance note."""
+
+    matrix: np.ndarray
+    energy: np.ndarray
+    note: BasisNote
+
+    def basis(self) -> Basis:
+        """As a :class:`~codec.Basis` named ``klt`` with header code 31."""
+        m = np.ascontiguousarray(self.matrix, dtype=np.float64)
+        m.setflags(write=False)
+        return Basis("klt", KLT_CODE, m)
+
+
+def matrix_sha256(matrix: np.ndarray) -> str:
+    """SHA-256 (hex) of the matrix as little-endian float64, row-major."""
+    return hashlib.sha256(np.ascontiguousarray(matrix, dtype="<f8").tobytes()).hexdigest()
+
+
+def train_klt(values: np.ndarray, n: int, names: list[str] | None = None,
+              input_name: str = "(array)") -> TrainedBasis:
+    """Fit the KLT on frames of ``values`` (samples x channels).
+
+    Parameters
+    ----------
+    values : ndarray
+        History, samples x channels; every full frame of every channel is used.
+    n : int
+        Frame length.
+    names : list of str, optional
+        Channel names for the note.
+    input_name : str
+        Where the history came from, for the note.
+
+    Raises
+    ------
+    InputError
+        When there are fewer full frames than ``n``: the covariance would be
+        singular and its principal components mostly arbitrary.
+    """
+    x = np.asarray(values, dtype=np.float64)
+    if x.ndim == 1:
+        x = x[:, None]
+    names = list(names) if names is not None else [f"ch{i}" for i in range(x.shape[1])]
+    if not np.isfinite(x).all():
+        raise InputError("the history holds non-finite values; fill the gaps before training")
+    if not 2 <= n <= 4096:
+        raise InputError(f"frame length {n} is outside 2-4096; choose a length in that range")
+    frames, valid, channel, _ = split_frames(x, n)
+    full = valid == n
+    frames, channel = frames[full], channel[full]
+    if frames.shape[0] < n:
+        raise InputError(
+            f"only {frames.shape[0]} full frames of {n} samples in the history; training a "
+            f"basis of {n} vectors needs at least {n} frames: give more history, more "
+            "channels, or a shorter frame length")
+    y = frames - frames.mean(axis=1, keepdims=True)
+    rms = np.sqrt(np.bincount(channel, np.einsum("ij,ij->i", y, y), minlength=x.shape[1])
+                  / (n * np.maximum(np.bincount(channel, minlength=x.shape[1]), 1)))
+    scale = np.where(rms > 0, rms, 1.0)[channel]
+    y = y / scale[:, None]
+    # An orthonormal basis of the vectors orthogonal to the constant: DCT rows 1..N-1.
+    q = as_basis("dct", n).matrix[1:]
+    z = y @ q.T
+    cov = z.T @ z / z.shape[0]
+    eigval, eigvec = np.linalg.eigh(cov)
+    order = np.argsort(eigval)[::-1]
+    rows = (eigvec[:, order]).T @ q
+    # Deterministic sign: the largest entry of each vector is positive.
+    pick = np.argmax(np.abs(rows), axis=1)
+    rows *= np.sign(rows[np.arange(n - 1), pick])[:, None]
+    matrix = np.vstack([np.full(n, 1.0 / np.sqrt(n)), rows])
+    # Re-orthonormalise to full precision (QR keeps the rows' directions and order).
+    qm, r = np.linalg.qr(matrix.T)
+    matrix = (qm * np.sign(np.diag(r))).T
+    energy = np.concatenate([[np.mean(frames.mean(axis=1) ** 2 * n / scale**2)],
+                             np.maximum(eigval[order], 0.0)])
+    note = BasisNote(
+        frame_length=n, input_name=str(input_name), channels=tuple(names),
+        frames_used=int(frames.shape[0]),
+        trained_utc=_dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
+        sha256=matrix_sha256(matrix),
+    )
+    return TrainedBasis(matrix, energy, note)
+
+
+def save_trained_basis(trained: TrainedBasis, path: str | Path) -> None:
+    """Write the basis file (format in the module docstring), atomically."""
+    path = Path(path)
+    if path.suffix.lower() != ".npz":
+        raise InputError("a basis file must end in .npz", str(path))
+    note = tomli_w.dumps(trained.note.model_dump())
+    with atomic_output(path) as tmp, open(tmp, "wb") as fh:
+        np.savez(fh, matrix=np.ascontiguousarray(trained.matrix, dtype="<f8"),
+                 energy=np.asarray(trained.energy, dtype="<f8"), note=np.array(note))
+
+
+def load_trained_basis(path: str | Path, sha256: str | None = None) -> TrainedBasis:
+    """Read a basis file and check it; with ``sha256`` refuse any other matrix.
+
+    Raises :class:`ProfileError` naming the file when it is missing, not ours,
+    not orthonormal, or its hash differs from the note or from ``sha256``.
+    """
+    path = Path(path)
+    where = str(path)
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            matrix, energy, note_text = z["matrix"], z["energy"], str(z["note"])
+    except FileNotFoundError:
+        raise ProfileError("no such basis file; check basis_file in the profile", where) from None
+    except (OSError, ValueError, KeyError, zipfile.BadZipFile) as exc:
+        raise ProfileError(f"not a trimlink basis file ({exc.__class__.__name__}); make one "
+                           "with 'trimlink train'", where) from None
+    try:
+        note = BasisNote.model_validate(tomllib.loads(note_text))
+    except (tomllib.TOMLDecodeError, ValidationError):
+        raise ProfileError("the basis file's note is damaged; train the basis again",
+                           where) from None
+    if note.format != _FORMAT or note.format_version != _FORMAT_VERSION:
+        raise ProfileError(f"basis format {note.format} v{note.format_version} is not one this "
+                           "trimlink reads", where)
+    n = note.frame_length
+    if matrix.shape != (n, n) or matrix.dtype != np.float64:
+        raise ProfileError(f"the matrix is {matrix.shape} {matrix.dtype}, not ({n}, {n}) "
+                           "float64; train the basis again", where)
+    actual = matrix_sha256(matrix)
+    if actual != note.sha256:
+        raise ProfileError(f"the matrix's SHA-256 ({actual[:12]}...) differs from the one in "
+                           f"its note ({note.sha256[:12]}...); the file was altered", where)
+    if sha256 is not None and actual != sha256.lower():
+        raise ProfileError(
+            f"the trained basis has SHA-256 {actual[:12]}... but the profile expects "
+            f"{sha256.lower()[:12]}...; use the basis file the stream was made with", where)
+    if not np.allclose(matrix @ matrix.T, np.eye(n), atol=1e-9):
+        raise ProfileError("the matrix is not orthonormal; train the basis again", where)
+    return TrainedBasis(matrix, energy, note)
+
+
+def note_toml(trained: TrainedBasis) -> str:
+    """The provenance note as TOML text (what the basis file stores)."""
+    return tomli_w.dumps(trained.note.model_dump())
+
+
+def profile_basis(profile) -> Basis:
+    """The basis a profile names; a trained basis is loaded and its hash checked.
+
+    This is the one place encoder and decoder resolve ``profile.basis``.
+    """
+    n = profile.frame_length
+    if profile.basis != "klt":
+        return as_basis(profile.basis, n)
+    trained = load_trained_basis(profile.basis_file, profile.basis_sha256)
+    if trained.note.frame_length != n:
+        raise ProfileError(
+            f"the trained basis is for frames of {trained.note.frame_length} samples but the "
+            f"profile's frame_length is {n}; train a basis for this frame length",
+            str(profile.basis_file))
+    return trained.basis()
+
+
+def _klt_placeholder(n: int) -> np.ndarray:  # pragma: no cover - check() always refuses first
+    raise RuntimeError("a trained basis is loaded from its file, never built")
+
+
+register_basis("klt", KLT_CODE, _klt_placeholder,
+               lambda n: "is trained on data: name its file with basis_file and basis_sha256 "
+               "in the profile (make one with 'trimlink train')")

@@ -1,0 +1,178 @@
+"""What the ground station makes of the bytes that come out of the FEC decoder.
+
+Frame search, CRC check and sequence-number placement are the codec's own
+(:func:`codec.decode`); this module adds what a receiver on a noisy link needs
+around it:
+
+* a CRC-valid frame whose header does not fit the profile (possible through a
+  noisy channel: CRC-16 lets about 2^-16 of corrupted frames through) is
+  rejected and counted, instead of stopping the decode;
+* every delivered frame is compared with what was sent (the simulator knows
+  the truth) to count undetected errors;
+* delivered frames whose values fall outside the channel's plausible range
+  (``ChannelSpec.valid_min``/``valid_max``) are flagged;
+* lost spans are filled by a concealment policy, and every output sample is
+  marked delivered, concealed or lost.
+
+Concealment policies (per channel, on the sample grid):
+
+``hold``    repeat the last delivered value; a span before the first delivered
+            sample stays lost.
+``linear``  straight line between the delivered samples on either side; a span
+            at either end holds the nearest delivered value.
+``zero``    fill with 0.
+``none``    leave NaN (lost).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+import codec
+from codec._stream import locate_frames
+
+__all__ = ["CONCEAL_POLICIES", "LOST", "DELIVERED", "CONCEALED", "Reception", "receive",
+           "conceal"]
+
+CONCEAL_POLICIES = ("hold", "linear", "zero", "none")
+LOST, DELIVERED, CONCEALED = 0, 1, 2
+
+
+@dataclass
+class Reception:
+    """Output samples, their status and an account of every frame received.
+
+    ``status`` holds LOST, DELIVERED or CONCEALED per sample and channel;
+    ``out_of_range`` marks delivered samples of frames flagged implausible.
+    """
+
+    samples: np.ndarray
+    status: np.ndarray
+    out_of_range: np.ndarray
+    frames_delivered: int
+    frames_undetected_errors: int
+    frames_rejected_header: int
+    frames_out_of_range: int
+    crc_failures: int
+
+
+def _decode_tolerant(rx: bytes, profile, total: int):
+    """codec.decode, falling back to one frame at a time when a frame's header is refused."""
+    try:
+        d = codec.decode(rx, profile, samples=total)
+        return d.samples, d.delivered, d.frames["offset"], d.frames["length"], \
+            d.frames["window"], d.frames["channel"], len(d.crc_failures), 0
+    except codec.FrameError:
+        pass
+    except IndexError:
+        pass  # a corrupted sequence number placed a frame outside the grid
+    loc = locate_frames(rx)
+    out = np.full((total, len(profile.channels)), np.nan)
+    got = np.zeros(out.shape, bool)
+    keep, lens, windows, chans = [], [], [], []
+    for off, length in zip(loc.offsets.tolist(), loc.lengths.tolist()):
+        try:
+            d = codec.decode(rx[off: off + length], profile, samples=total)
+        except (codec.FrameError, IndexError):
+            continue
+        out = np.where(d.delivered, d.samples, out)
+        got |= d.delivered
+        keep.append(off)
+        lens.append(length)
+        windows.append(int(d.frames["window"][0]))
+        chans.append(int(d.frames["channel"][0]))
+    offs = np.asarray(keep, np.int64)
+    rejected = loc.offsets.size - offs.size
+    return (out, got, offs, np.asarray(lens, np.int64), np.asarray(windows, np.int64),
+            np.asarray(chans, np.int64), len(loc.crc_failures), rejected)
+
+
+def conceal(samples: np.ndarray, delivered: np.ndarray, policy: str):
+    """Fill the undelivered samples by ``policy``; return (filled, status)."""
+    if policy not in CONCEAL_POLICIES:
+        raise ValueError(f"unknown concealment policy {policy!r}")
+    out = np.where(delivered, samples, np.nan)
+    status = np.where(delivered, DELIVERED, LOST).astype(np.int8)
+    gap = ~delivered
+    if policy == "none" or not gap.any():
+        return out, status
+    if policy == "zero":
+        out[gap] = 0.0
+    elif policy == "hold":
+        rows = np.arange(out.shape[0])[:, None]
+        last = np.maximum.accumulate(np.where(delivered, rows, -1), axis=0)
+        fill = gap & (last >= 0)
+        out[fill] = out[last[fill], np.nonzero(fill)[1]]
+    else:  # linear
+        rows = np.arange(out.shape[0])
+        for c in range(out.shape[1]):  # np.interp is 1-D; one call per channel
+            d = delivered[:, c]
+            if d.any():
+                out[~d, c] = np.interp(rows[~d], rows[d], out[d, c])
+    status[gap & np.isfinite(out)] = CONCEALED
+    return out, status
+
+
+def receive(rx: bytes, tx: bytes, arrived: np.ndarray, frame_lengths: np.ndarray,
+            profile, total: int, policy: str = "hold") -> Reception:
+    """Decode the received stream ``rx`` and account for every frame against ``tx``.
+
+    Parameters
+    ----------
+    rx, tx : bytes
+        The FEC decoder's output and the stream that was sent (same length).
+    arrived : ndarray of bool
+        Per sent frame, False where the frame was erased (never arrived).
+    frame_lengths : ndarray
+        Byte length of every sent frame, in stream order.
+    profile : codec.Profile
+        The bound profile the stream was encoded with.
+    total : int
+        Samples per channel that were sent.
+    policy : str
+        Concealment policy (see module docstring).
+    """
+    byte_keep = np.repeat(arrived, frame_lengths)
+    rxa = np.frombuffer(rx, np.uint8)[byte_keep]
+    txa = np.frombuffer(tx, np.uint8)[byte_keep]
+    kept_len = frame_lengths[arrived]
+    kept_start = np.cumsum(kept_len) - kept_len
+    channels = len(profile.channels)
+    if rxa.size == 0:
+        samples, got = np.full((total, channels), np.nan), np.zeros((total, channels), bool)
+        offs = lens = windows = chans = np.zeros(0, np.int64)
+        crc_fail = rejected = 0
+    else:
+        try:
+            samples, got, offs, lens, windows, chans, crc_fail, rejected = _decode_tolerant(
+                rxa.tobytes(), profile, total)
+        except codec.FrameError:  # no frame of ours at all survived
+            samples, got = np.full((total, channels), np.nan), np.zeros((total, channels), bool)
+            offs = lens = windows = chans = np.zeros(0, np.int64)
+            crc_fail = rejected = 0
+    # Truth: a delivered frame is right when it sits where a sent frame started, has
+    # that frame's length and every byte matches.
+    diff = np.concatenate([[0], np.cumsum(rxa != txa)])
+    slot = np.searchsorted(kept_start, offs)
+    aligned = (slot < kept_start.size) & (kept_start[np.minimum(slot, kept_start.size - 1)]
+                                          == offs)
+    same_len = aligned & (kept_len[np.minimum(slot, max(kept_len.size - 1, 0))] == lens) \
+        if kept_len.size else aligned
+    clean = same_len & (diff[offs + lens] - diff[offs] == 0)
+    # Plausible range per channel from the profile.
+    lo = np.array([-np.inf if c.valid_min is None else c.valid_min for c in profile.channels])
+    hi = np.array([np.inf if c.valid_max is None else c.valid_max for c in profile.channels])
+    bad = got & ((samples < lo) | (samples > hi))
+    n = profile.frame_length
+    w_total = -(-total // n)
+    bad_w = np.zeros((w_total * n, channels), bool)
+    bad_w[:total] = bad
+    bad_wc = bad_w.reshape(w_total, n, channels).any(axis=1)
+    inside = windows < w_total
+    flagged = np.zeros(windows.size, bool)
+    flagged[inside] = bad_wc[windows[inside], chans[inside]]
+    out, status = conceal(samples, got, policy)
+    return Reception(out, status, bad, int(offs.size), int((~clean).sum()), int(rejected),
+                     int(flagged.sum()), int(crc_fail))

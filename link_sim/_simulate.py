@@ -1,0 +1,231 @@
+"""Monte-Carlo link simulation: codec frames -> FEC -> channel -> FEC decoder -> receiver.
+
+One trial sends the whole coded stream once.  Every figure is computed per
+trial; over K trials the report gives the mean and a 95% confidence interval
+(Student t on the trial means, the usual interval for K independent
+replications).  Eb is the energy per *codec* bit: all overhead on air (FEC
+parity, block padding, sync markers, trellis tail) is charged to it, so a code
+only shows a gain if it pays for its own bits.
+
+Sample figures: ``*_delivered`` are over the samples that arrived in frames
+that passed the CRC; ``*_end_to_end`` over every sample the receiver outputs a
+value for (delivered + concealed).  Lost samples have no value; they are
+counted in ``samples_lost`` and left out of those figures.  Frame counts:
+``frames_delivered`` counts every frame that reached the output, including the
+``frames_undetected_errors`` among them; ``frames_sent = frames_delivered +
+frames_dropped_crc + frames_erased``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+from scipy import stats
+
+import codec
+
+from ._channels import GilbertElliott, awgn, bsc, erase_frames, gilbert_elliott
+from ._fec import make_code
+from ._receiver import CONCEALED, DELIVERED, LOST, receive
+from ._theory import ber_theory
+
+__all__ = ["ChannelConfig", "CHANNEL_KINDS", "transmit_bits", "run_trial", "simulate", "sweep",
+           "measured_ber_curve", "ci95"]
+
+CHANNEL_KINDS = ("bsc", "awgn", "burst", "erasure")
+
+
+@dataclass(frozen=True)
+class ChannelConfig:
+    """Which channel and its parameters.
+
+    ``ber`` is the BSC error rate (or the good-state rate of ``burst``),
+    ``ebn0_db`` the AWGN Eb/N0, ``burst_length_bits``/``bad_fraction``/
+    ``ber_bad`` the Gilbert-Elliott bad state, ``loss_rate`` the chance that a
+    whole frame never arrives (any channel; the ``erasure`` channel has only that).
+    """
+
+    kind: str = "awgn"
+    ber: float = 0.0
+    ebn0_db: float = 6.0
+    modulation: str = "bpsk"
+    burst_length_bits: float = 20.0
+    bad_fraction: float = 0.01
+    ber_bad: float = 0.5
+    loss_rate: float = 0.0
+
+
+def transmit_bits(bits: np.ndarray, cfg: ChannelConfig, rng: np.random.Generator,
+                  rate: float, soft: bool) -> np.ndarray:
+    """Pass channel bits through ``cfg``; soft values for AWGN when ``soft``."""
+    if cfg.kind == "bsc":
+        return bsc(bits, cfg.ber, rng)
+    if cfg.kind == "awgn":
+        return awgn(bits, cfg.ebn0_db, rng, cfg.modulation, rate=rate, soft=soft)
+    if cfg.kind == "burst":
+        model = GilbertElliott(cfg.burst_length_bits, cfg.bad_fraction, cfg.ber, cfg.ber_bad)
+        return gilbert_elliott(bits, model, rng)
+    if cfg.kind == "erasure":
+        return bits.copy()
+    raise ValueError(f"unknown channel {cfg.kind!r}")
+
+
+def _hard(received: np.ndarray) -> np.ndarray:
+    return (received < 0).view(np.uint8) if received.dtype != np.uint8 else received
+
+
+def _bit_errors(a: np.ndarray, b: np.ndarray) -> int:
+    """Bit errors between two byte arrays (popcount of XOR)."""
+    return int(np.unpackbits(np.bitwise_xor(a, b)).sum())
+
+
+def run_trial(x: np.ndarray, enc, code, cfg: ChannelConfig, rng: np.random.Generator,
+              policy: str = "hold") -> dict:
+    """Send the coded stream ``enc`` (codec.EncodeResult of ``x``) once; return its figures."""
+    tx = np.frombuffer(enc.data, np.uint8)
+    lengths = enc.frames["bits"] // 8
+    air = code.encode(tx)
+    rate = 8.0 * tx.size / air.size
+    received = transmit_bits(air, cfg, rng, rate, code.soft)
+    ch_errors = int(np.count_nonzero(_hard(received) != air))
+    rx, dstats = code.decode(received, tx.size)
+    arrived = erase_frames(lengths.size, cfg.loss_rate, rng)
+    rec = receive(rx.tobytes(), enc.data, arrived, lengths, enc.profile, x.shape[0], policy)
+
+    have = rec.status != LOST
+    dl = rec.status == DELIVERED
+    fig_d = codec.error_figures(x[dl], rec.samples[dl]) if dl.any() else {}
+    fig_a = codec.error_figures(x[have], rec.samples[have]) if have.any() else {}
+    sig = float(np.einsum("i,i->", x[have], x[have]))
+    sig_d = float(np.einsum("i,i->", x[dl], x[dl]))
+    sent = int(lengths.size)
+    erased = int((~arrived).sum())
+    return {
+        "ebn0_db": cfg.ebn0_db if cfg.kind == "awgn" else None,
+        "ber_channel": ch_errors / air.size,
+        "ber_post_fec": _bit_errors(rx, tx) / (8 * tx.size),
+        "codewords": dstats.codewords, "codewords_failed": dstats.codewords_failed,
+        "frames_sent": sent, "frames_erased": erased,
+        "frames_delivered": rec.frames_delivered,
+        "frames_dropped_crc": max(sent - erased - rec.frames_delivered, 0),
+        "frames_undetected_errors": rec.frames_undetected_errors,
+        "frames_rejected_header": rec.frames_rejected_header,
+        "frames_out_of_range": rec.frames_out_of_range,
+        "frame_error_rate": 1.0 - (rec.frames_delivered - rec.frames_undetected_errors) / sent,
+        "samples_in": int(x.size),
+        "samples_delivered": int(dl.sum()),
+        "samples_concealed": int((rec.status == CONCEALED).sum()),
+        "samples_lost": int((rec.status == LOST).sum()),
+        "samples_out_of_range": int(rec.out_of_range.sum()),
+        "snr_db_delivered": fig_d.get("snr_db"),
+        "max_abs_error_delivered": fig_d.get("max_abs_error"),
+        "fidelity_delivered": (1.0 - fig_d["error_energy"] / sig_d) if fig_d and sig_d else None,
+        "snr_db_end_to_end": fig_a.get("snr_db"),
+        "max_abs_error_end_to_end": fig_a.get("max_abs_error"),
+        "fidelity_end_to_end": (1.0 - fig_a["error_energy"] / sig) if fig_a and sig else None,
+    }
+
+
+def ci95(values) -> tuple[float | None, list | None]:
+    """Mean and 95% Student-t interval of per-trial values (None entries skipped)."""
+    v = np.array([x for x in values if x is not None and math.isfinite(x)], dtype=np.float64)
+    if v.size == 0:
+        return None, None
+    m = float(v.mean())
+    if v.size < 2:
+        return m, None
+    half = float(stats.t.ppf(0.975, v.size - 1) * v.std(ddof=1) / math.sqrt(v.size))
+    return m, [m - half, m + half]
+
+
+def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int = 1,
+             trials: int = 1, seed: int = 0, policy: str = "hold", enc=None) -> dict:
+    """Encode ``x`` under ``profile`` and run ``trials`` independent trials over ``cfg``.
+
+    Returns one report row: every per-trial figure as its mean over trials,
+    ``<key>_ci95`` beside it, plus the bits on air.
+    """
+    x = codec.as_samples(x)
+    enc = enc if enc is not None else codec.encode(x, profile)
+    code = make_code(fec, interleave)
+    rng = np.random.default_rng(seed)
+    rows = [run_trial(x, enc, code, cfg, rng, policy) for _ in range(trials)]
+    codec_bits = 8 * len(enc.data)
+    air_bits = code.channel_bits(len(enc.data))
+    nf = rows[0]["frames_sent"]
+    out = {"ebn0_db": rows[0]["ebn0_db"], "channel": cfg.kind,
+           "modulation": cfg.modulation if cfg.kind == "awgn" else None,
+           "fec": fec, "interleave": interleave if fec == "rs255" else None,
+           "conceal": policy, "trials": trials, "seed": seed,
+           "bits_codec": codec_bits, "bits_on_air": air_bits,
+           "bits_fec_overhead": air_bits - codec_bits,
+           "bits_codec_per_frame": codec_bits / nf,
+           "bits_on_air_per_frame": air_bits / nf,
+           "bits_codec_per_sample": codec_bits / x.size,
+           "bits_on_air_per_sample": air_bits / x.size,
+           "snr_db_codec_only": enc.report.get("snr_db") if isinstance(enc.report, dict) else None}
+    if cfg.kind == "awgn":
+        p = float(ber_theory(cfg.modulation, cfg.ebn0_db + 10 * math.log10(codec_bits / air_bits)))
+        out["ber_channel_theory"] = p
+        if fec == "none":  # a frame survives only if all its bits do (independent errors)
+            out["frame_error_rate_theory"] = float(np.mean(1.0 - (1.0 - p) ** enc.frames["bits"]))
+    for key in rows[0]:
+        if key == "ebn0_db":
+            continue
+        vals = [r[key] for r in rows]
+        m, ci = ci95(vals)
+        if ci is not None and not key.startswith(("snr_", "fidelity_")):
+            ci = [max(ci[0], 0.0), ci[1]]  # counts and rates are never negative
+        out[key] = m
+        out[f"{key}_ci95"] = ci
+    return out
+
+
+def sweep(x, profile, cfg: ChannelConfig, ebn0_list, **kw) -> list[dict]:
+    """:func:`simulate` at every Eb/N0 of ``ebn0_list`` (one encode, one row each)."""
+    x = codec.as_samples(x)
+    enc = codec.encode(x, profile)
+    seed = kw.pop("seed", 0)
+    return [simulate(x, profile, replace(cfg, ebn0_db=float(e)), seed=seed + i, enc=enc, **kw)
+            for i, e in enumerate(ebn0_list)]
+
+
+def measured_ber_curve(fec: str, modulation: str, ebn0_grid, bits: int, seed: int = 0,
+                       interleave: int = 1, stop_at_zero: bool = False) -> dict:
+    """Simulated BER of ``fec`` over AWGN at each Eb/N0 of ``ebn0_grid``.
+
+    ``bits`` random information bits are coded once (a whole number of code
+    blocks, so no padding) and sent at every grid point.  Eb is per information
+    bit with every bit on air charged (parity, sync marker, tail).  With
+    ``stop_at_zero`` the run ends after the first grid point (in increasing
+    Eb/N0) without a decoded bit error; the arrays then cover only the points run.
+
+    Returns
+    -------
+    dict of ndarray
+        ``ebn0_db``, ``ber_channel``, ``ber_post_fec``, ``errors_post_fec``,
+        ``bits_info``, ``rate_on_air``.
+    """
+    code = make_code(fec, interleave)
+    unit = {"rs255": 223 * interleave, "conv": 256}.get(fec, 1)
+    nbytes = max(unit, (bits // 8) // unit * unit)
+    rng = np.random.default_rng(seed)
+    data = rng.integers(0, 256, nbytes, dtype=np.uint8)
+    air = code.encode(data)
+    rate = 8.0 * nbytes / air.size
+    grid = np.asarray(ebn0_grid, dtype=np.float64)
+    ch = np.zeros(grid.size)
+    post = np.zeros(grid.size, np.int64)
+    for i, e in enumerate(grid):
+        received = awgn(air, float(e), rng, modulation, rate=rate, soft=code.soft)
+        ch[i] = np.count_nonzero(_hard(received) != air) / air.size
+        out, _ = code.decode(received, nbytes)
+        post[i] = _bit_errors(out, data)
+        if stop_at_zero and post[i] == 0:
+            grid, ch, post = grid[: i + 1], ch[: i + 1], post[: i + 1]
+            break
+    return {"ebn0_db": grid, "ber_channel": ch, "ber_post_fec": post / (8.0 * nbytes),
+            "errors_post_fec": post, "bits_info": np.full(grid.size, 8 * nbytes),
+            "rate_on_air": np.full(grid.size, rate)}
