@@ -33,6 +33,7 @@ from .._profile import (
     note_path,
     save_stream_note,
 )
+from .._quantize import step_from_code
 from .._report import error_figures
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
@@ -296,9 +297,16 @@ def _event_summary(c: dict) -> str:
 
 
 def check_some_frame_foreign(dec: StreamDecoder) -> None:
-    """A stream whose every CRC-valid frame is of another profile is a user error (exit 2)."""
+    """No frame at all is a user error (exit 2) when there is nothing to account for.
+
+    With the stream's length known (its note) a damaged stream is reported, all
+    samples lost, exit 0; with frames only of another profile, or with no frame
+    and no known length, the command says why and exits 2.
+    """
     c = dec.counts()
-    if c.get("frames_foreign_profile") and not (c["frames_ok"] or c["gap_frames_ok"]):
+    if c["frames_ok"] or c["gap_frames_ok"]:
+        return
+    if c.get("frames_foreign_profile") or not dec.end_known:
         check_some_frame(c, dec.events)
 
 
