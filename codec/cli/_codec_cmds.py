@@ -255,8 +255,9 @@ def _decode(args) -> int:
                          "standard input")
     if args.reorder < 0:
         raise InputError("--reorder must be 0 or more windows", "command line")
-    profile, note = _stream_profile(args) if not is_stdio(args.stream) else (
-        load_profile(args.profile), None)
+    # A profile recorded beside a stream (STREAM.profile.toml) also gives its length.
+    profile, note = (_stream_profile(args) if not is_stdio(args.stream)
+                     else load_stream_note(args.profile))
     if not profile.channels:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
@@ -342,13 +343,16 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     live = output is not None and is_stdio(output)
     blocks: list = []
     names = [c.name for c in profile.channels]
+    timed = note is not None and note.time_start is not None
     if live:
-        sys.stdout.write(",".join(names) + "\n")
+        sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
     def take(new) -> None:
         if live:
             for b in new:
-                write_csv_block(sys.stdout, b.samples)
+                time = (note.time_start + note.time_step * (b.start + np.arange(len(b.samples)))
+                        if timed else None)
+                write_csv_block(sys.stdout, b.samples, time)
             sys.stdout.flush()
         else:
             blocks.extend(new)
