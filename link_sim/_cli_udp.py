@@ -95,7 +95,8 @@ def _receive(args) -> int:
     counts["channels"] = len(names)
     counts["events"] = decoder.events
     write_json(args.json, counts)
-    print(f"{counts['datagrams']} datagrams, {counts['frames_ok']} frames decoded in "
+    print(f"{counts['datagrams']} datagrams, {counts['frames_ok'] + counts['gap_frames_ok']} "
+          f"frames decoded in "
           f"{counts['seconds']:.2f} s -> {counts['samples']} samples x {len(names)} channels: "
           f"{counts['samples_delivered']} delivered, {counts['samples_lost']} lost, "
           f"{counts['samples_gap']} gap" + ("" if counts["end_known"] else
