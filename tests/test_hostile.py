@@ -51,6 +51,9 @@ def test_random_bytes_of_every_length_0_to_4096():
     for k in range(4097):
         dec = _check(pool[k : 2 * k], samples=None if k % 2 else 400)
         assert dec.counts["frames_ok"] == 0
+    for k in range(0, 4097, 64):  # strict mode: the documented FrameError, nothing else
+        with pytest.raises(codec.FrameError, match="no frame"):
+            codec.decode(pool[k : 2 * k], ENC.profile)
 
 
 def _mutate(rng, data: bytes) -> bytes:
