@@ -19,16 +19,13 @@ from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
 from ._klt import profile_basis
 from ._layout import (
     GAP_KIND,
-    K_INIT_BITS,
     LAYOUT_VERSION,
     LAYOUT_VERSION_2,
     PROFILE_BITS_V2,
     SEQUENCE_BITS_V2,
-    STEP_BITS,
     SYNC,
     FrameBatch,
     FrameBatchV2,
-    count_bits,
     expected_length,
     frame_crc_ok,
     frame_extent,
@@ -41,7 +38,7 @@ from ._layout import (
     payload_bits_v2,
 )
 from ._profile import Profile, profile_id
-from ._quantize import step_from_code
+from ._quantize import code_for_step, step_from_code
 from ._report import stream_report
 from ._select import (
     _MARGIN,
@@ -208,20 +205,27 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
             pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
             over = pk > limit[rows]
             # a uniform quantizer's error scales with its step
-            est = np.ceil(8.0 * np.log2(np.maximum(pk / limit[rows], 1.0))).astype(np.int64)
+            with np.errstate(over="ignore"):
+                ratio = np.minimum(pk / limit[rows], 2.0**1000)
+            est = np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(np.int64)
             drop = np.maximum(drop, np.where(over, np.maximum(est, 1), 0))
         return drop
 
+    # finest step: keeps every integer code below 2**52 (exact in float64)
+    scale = np.abs(cx).max(axis=1)
+    if mean is not None:
+        scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
+    finest = np.minimum(code_for_step(np.maximum(scale, 1e-300) * 2.0**-52), code)
     rows = np.arange(code.size)
     drop = step_drop(rows)
     while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
         bad, d = rows[drop > 0], drop[drop > 0]
-        if (code[bad] == 0).any():
+        if (code[bad] <= finest[bad]).any():
             if peak_mode:
                 raise InputError("the peak-error limit is finer than any quantizer step can "
-                                 "meet; raise max_error", "profile")
+                                 "meet at this signal's magnitude; raise max_error", "profile")
             raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
-        code[bad] = np.maximum(code[bad] - d, 0)
+        code[bad] = np.maximum(code[bad] - d, finest[bad])
         qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad],
                                offset[bad])
         q[bad] = qb
@@ -231,6 +235,13 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
         rows = bad
         drop = step_drop(rows)
+        if not (drop > 0).any():
+            # Synthesize all frames in one call, as the decoder does: BLAS may round a
+            # subset differently from the whole batch, so the check is redone on this.
+            recon = reconstruct(q, mean_int, code, basis)
+            err = _valid_error(frames, recon, mask)
+            rows = np.arange(code.size)
+            drop = step_drop(rows)
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     met = err <= budget
     floor = budget > (1.0 - profile.fidelity) * e_ref
@@ -337,21 +348,32 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     else:
         frame = np.arange(rows)
         first = frame
-    batch = FrameBatchV2(
-        multi=np.full(first.size, multi), channel=channel[first], sequence=window[first],
-        valid=valid[first], frame=frame, step_code=code, mean=mean_int, q=q)
-    data, lengths, sub_bits = pack_frames_v2(batch, profile_id(profile), n)
+    pid = profile_id(profile)
+    parts = []
+    bounds = np.r_[first, rows]
+    for a in range(0, first.size, _PACK_BLOCK):  # blocks of frames: temporaries stay cached
+        b = min(a + _PACK_BLOCK, first.size)
+        r0, r1 = bounds[a], bounds[b]
+        fs = first[a:b]
+        batch = FrameBatchV2(
+            multi=np.full(b - a, multi), channel=channel[fs], sequence=window[fs],
+            valid=valid[fs], frame=frame[r0:r1] - frame[r0], step_code=code[r0:r1],
+            mean=None if mean_int is None else mean_int[r0:r1], q=q[r0:r1])
+        parts.append(pack_frames_v2(batch, pid, n))
+    data = b"".join(p[0] for p in parts)
+    lengths, sub_bits, side_bits = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
     cnt = np.bincount(frame, minlength=first.size)
     overhead = lengths * 8 - np.add.reduceat(sub_bits, first)
     bits = sub_bits + (overhead // cnt)[frame]
     bits[first] += overhead - (overhead // cnt) * cnt
-    coef_bits = sub_bits - (STEP_BITS + count_bits(n) + np.where((q != 0).any(axis=1),
-                                                                  K_INIT_BITS, 0))
+    coef_bits = sub_bits - side_bits
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
 
 
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
 RD_OFFSETS = (0.5, 0.36)
+_RD_BLOCK = 4096
+_PACK_BLOCK = 4096
 
 
 def _rate_fidelity_choice(cx, mean, dc, budget, n):
@@ -360,6 +382,13 @@ def _rate_fidelity_choice(cx, mean, dc, budget, n):
     For each candidate offset the largest step that meets the budget is found,
     and the exact v2 payload size of the result is counted; the cheaper wins.
     """
+    nf = cx.shape[0]
+    if nf > _RD_BLOCK:  # frames are independent: work block by block so temporaries stay cached
+        parts = [_rate_fidelity_choice(cx[a : a + _RD_BLOCK],
+                                       None if mean is None else mean[a : a + _RD_BLOCK],
+                                       dc, budget[a : a + _RD_BLOCK], n)
+                 for a in range(0, nf, _RD_BLOCK)]
+        return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
     best_code = best_off = best_bits = None
     for off in RD_OFFSETS:
         code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
@@ -468,8 +497,8 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         for k in _HEAD_KEYS:
             head[k][v1] = h[k]
         refuse(v1, h["profile"] != pid, "foreign_profile",
-               lambda f: f"made under profile id {int(h['profile'][v1 == f][0]):#06x}, not "
-                         f"{pid:#06x}")
+               lambda f: f"made under another profile (id {int(h['profile'][v1 == f][0]):#06x}, "
+                         f"not {pid:#06x})")
         refuse(v1, h["flags"] != 0, "bad_header", "reserved flags set")
         refuse(v1, h["channel"] >= channels, "bad_header",
                f"channel not in the profile ({channels} channels)")
@@ -516,8 +545,8 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         np.add.at(head["terms"], v2[p["frame"]], (p["q"] != 0).sum(axis=1))
         pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
         refuse(v2, p["profile"] != pid8, "foreign_profile",
-               lambda f: f"made under profile id byte {int(p['profile'][v2 == f][0]):#04x}, "
-                         f"not {pid8:#04x}")
+               lambda f: f"made under another profile (id byte "
+                         f"{int(p['profile'][v2 == f][0]):#04x}, not {pid8:#04x})")
         refuse(v2, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
         bad_ch = np.zeros(v2.size, dtype=bool)
         np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)

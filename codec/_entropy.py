@@ -218,7 +218,7 @@ class BitReader:
         return np.where(width > 0, out, 0).astype(np.int64)
 
     def unary(self, pos: np.ndarray, limit: int = _MAX_UNARY) -> np.ndarray:
-        """Zeros before the next 1 bit at each position; ``limit + 1`` when none within ``limit``."""
+        """Zeros before the next 1 bit at each position (``limit + 1``: none within limit)."""
         t = self.read(pos, limit + 1)
         return limit + 1 - _bit_length(t)
 

@@ -317,7 +317,6 @@ def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list
 LAYOUT_VERSION_2 = 2
 #: Coefficients whose magnitudes set the Rice parameter of the next one.
 CONTEXT_WINDOW = 4
-_RUN_MODE = True
 K_INIT_BITS = 5
 STEP_BITS = 10
 PROFILE_BITS_V2 = 8
@@ -360,6 +359,40 @@ def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> tuple[np.ndarray, np
     return k, ctx
 
 
+def _runs(run: np.ndarray, nz: np.ndarray):
+    """Run-mode runs: (row, first index, exp-Golomb width, r + 1) of each, in stream order.
+
+    A run is a maximal block of run-mode indices; it always ends on a non-zero
+    coefficient, so starts and ends pair up in row-major order.
+    """
+    from ._entropy import bit_length
+
+    prev = np.zeros_like(run)
+    prev[:, 1:] = run[:, :-1]
+    srow, scol = np.nonzero(run & ~prev)
+    _, ecol = np.nonzero(run & nz)
+    eg = (ecol - scol + 1).astype(np.int64)
+    return srow, scol, 2 * bit_length(eg) - 1, eg
+
+
+def coefficient_bits(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> np.ndarray:
+    """Bits of the coded coefficients of each subframe (what :func:`coefficient_items` packs)."""
+    from ._entropy import rice_escape_bits
+
+    ns, n = q.shape
+    mag = np.abs(q)
+    nz = mag > 0
+    k, ctx = rice_parameters(mag, k_init)
+    inside = np.arange(n) < last[:, None]
+    run = (ctx == 0) & inside
+    srow, _, eg_w, _ = _runs(run, nz)
+    m = np.where(run, mag - 1, mag)
+    w = rice_escape_bits(np.maximum(m, 0), np.where(run, 0, k)) + nz
+    coded = inside & (~run | nz)
+    return np.where(coded, w, 0).sum(axis=1) + np.bincount(srow, eg_w, minlength=ns).astype(
+        np.int64)
+
+
 def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> list:
     """The coded coefficients of each subframe as three (value, width) slot pairs per index.
 
@@ -376,24 +409,19 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
     the run codeword at a run's first index; the codeword (whole when it fits
     64 bits, else its unary part) and its remainder, at the index it codes.
     """
-    from ._entropy import bit_length, rice_escape_fields
+    from ._entropy import rice_escape_fields
 
     ns, n = q.shape
     mag = np.abs(q)
     nz = mag > 0
     k, ctx = rice_parameters(mag, k_init)
     inside = np.arange(n) < last[:, None]
-    run = (ctx == 0) & inside & _RUN_MODE
-    prev = np.zeros_like(run)
-    prev[:, 1:] = run[:, :-1]
-    start = run & ~prev
-    # a run ends at the next non-zero coefficient: its index, seen from every index
-    idx = np.where(nz, np.arange(n), n)
-    nxt = np.minimum.accumulate(idx[:, ::-1], axis=1)[:, ::-1]
-    r = np.where(start, nxt - np.arange(n), 0)
-    eg = r + 1
-    run_w = np.where(start, 2 * bit_length(eg) - 1, 0)
-    run_v = eg.astype(np.uint64)
+    run = (ctx == 0) & inside
+    srow, scol, eg_w, eg = _runs(run, nz)
+    run_w = np.zeros((ns, n), dtype=np.int64)
+    run_v = np.zeros((ns, n), dtype=np.uint64)
+    run_w[srow, scol] = eg_w
+    run_v[srow, scol] = eg
     coded = inside & (~run | nz)  # regular indices, and the non-zero ending each run
     m = np.where(run, mag - 1, mag)
     kk = np.where(run, 0, k)
@@ -417,14 +445,17 @@ def initial_parameter(mag0: np.ndarray) -> np.ndarray:
 
 
 def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.ndarray:
-    """Exact bits of each subframe (rows of ``q``) in layout v2, frame header excluded."""
+    """Bits of each subframe (rows of ``q``) in layout v2, frame header excluded.
+
+    Exact for a subframe that leads its frame; a later subframe of a
+    multi-channel frame sends its step as a difference, usually in fewer bits.
+    """
     from ._entropy import bit_length as _bit_length
     from ._entropy import zigzag
 
     nz = q != 0
     last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
-    items = coefficient_items(q, initial_parameter(np.abs(q[:, 0])), last)
-    coef = sum(w.sum(axis=1) for _, w in items)
+    coef = coefficient_bits(q, initial_parameter(np.abs(q[:, 0])), last)
     bits = STEP_BITS + count_bits(n) + np.where(last > 0, K_INIT_BITS, 0) + coef
     if mean_int is not None:
         bits += 2 * _bit_length(zigzag(mean_int) + 1) - 1
@@ -458,7 +489,8 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
                    ) -> tuple[bytes, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout v2.
 
-    Returns the bytes, each frame's byte length and each subframe's payload bits.
+    Returns the bytes, each frame's byte length, each subframe's payload bits
+    and, of those, its side-information bits (step, count, k_init).
     """
     from ._entropy import bit_length as _bit_length
     from ._entropy import pack_bits, zigzag
@@ -474,13 +506,25 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     k_init = initial_parameter(mag[:, 0])
 
     nh, nsub = 9, 5
-    slots = nh + nsub + 3 * n + 1
+    items = coefficient_items(q, k_init, last)
+    (rv, rw), (mv, mw), (ev, ew) = items
+    total_w = rw + mw + ew
+    merged = bool((total_w <= 64).all())
+    # Usually a coefficient's run codeword, codeword and remainder fit one 64-bit
+    # field together: one slot per coefficient instead of three (less to pack).
+    per = 1 if merged else 3
+    slots = nh + nsub + per * n + 1
     val = np.zeros((ns, slots), dtype=np.uint64)
     wid = np.zeros((ns, slots), dtype=np.int64)
     # subframe header
     s0 = nh
-    val[:, s0] = batch.step_code
-    wid[:, s0] = STEP_BITS
+    # The first subframe of a frame sends its step code in 10 bits; the others
+    # send the change from the previous subframe's code, exp-Golomb order 0 of
+    # its zigzag (channels of one window usually have similar steps).
+    lead = np.r_[True, batch.frame[1:] != batch.frame[:-1]]
+    dz = zigzag(np.diff(batch.step_code, prepend=0)) + 1
+    val[:, s0] = np.where(lead, batch.step_code, dz)
+    wid[:, s0] = np.where(lead, STEP_BITS, 2 * _bit_length(dz) - 1)
     if batch.mean is not None:
         zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
         nb = _bit_length(zz)
@@ -492,10 +536,19 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     val[:, s0 + 4] = k_init
     wid[:, s0 + 4] = np.where(last > 0, K_INIT_BITS, 0)
     c0 = nh + nsub
-    for i, (v, w) in enumerate(coefficient_items(q, k_init, last)):
-        val[:, c0 + i : c0 + 3 * n : 3] = v
-        wid[:, c0 + i : c0 + 3 * n : 3] = w
+    if merged:
+        zero = np.uint64(0)
+        comb = np.where(ew > 0, ev, zero)
+        comb |= np.where(mw > 0, mv << np.where(mw > 0, ew, 0).astype(np.uint64), zero)
+        comb |= np.where(rw > 0, rv << np.where(rw > 0, mw + ew, 0).astype(np.uint64), zero)
+        val[:, c0 : c0 + n] = comb
+        wid[:, c0 : c0 + n] = total_w
+    else:
+        for i, (v, w) in enumerate(items):
+            val[:, c0 + i : c0 + 3 * n : 3] = np.where(w > 0, v, np.uint64(0))
+            wid[:, c0 + i : c0 + 3 * n : 3] = w
     sub_bits = wid.sum(axis=1)
+    side_bits = wid[:, s0] + wid[:, s0 + 3] + wid[:, s0 + 4]  # step, count, k_init
 
     # frame header (in the first subframe row of each frame)
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
@@ -536,7 +589,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     cpos = ostart + length - CRC_BYTES
     out[cpos] = crc >> 8
     out[cpos + 1] = crc & 0xFF
-    return out.tobytes(), length, sub_bits
+    return out.tobytes(), length, sub_bits, side_bits
 
 
 def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
@@ -590,8 +643,15 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
         pp = p[fr]
-        step[rows] = r.read(pp, STEP_BITS)
-        pp = pp + STEP_BITS
+        if s == 0:
+            step[rows] = r.read(pp, STEP_BITS)
+            pp = pp + STEP_BITS
+        else:
+            v, used = r.exp_golomb(pp)
+            code = step[rows - 1] + unzigzag(v)
+            ok[fr] &= (code >= 0) & (code < (1 << STEP_BITS))
+            step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
+            pp = pp + used
         if has_mean:
             v, used = r.exp_golomb(pp)
             mean[rows] = unzigzag(v)
@@ -630,12 +690,15 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
     from ._entropy import rice_k_from_context
 
     m = pos.size
-    mag = np.zeros((m, n + 1), dtype=np.int64)  # column n absorbs malformed run targets
-    neg = np.zeros((m, n + 1), dtype=bool)
+    w1 = n + 1
+    mag = np.zeros(m * w1, dtype=np.int64)  # rows of n + 1: column n absorbs bad run targets
+    neg = np.zeros(m * w1, dtype=bool)
     bad = np.zeros(m, dtype=bool)
     pos = pos.copy()
     rows = np.arange(m)  # subframes still reading (compacted as they finish)
     p, cnt, jf, k0 = pos.copy(), count.copy(), np.zeros(m, np.int64), k_init
+    # the last CONTEXT_WINDOW magnitudes of each subframe, most recent first
+    hist = np.zeros((CONTEXT_WINDOW, m), dtype=np.int64)
     words = r._words
     limit = r.size_bits
     while True:
@@ -644,27 +707,32 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
             break
         if act.sum() * 2 < rows.size:  # compact: drop finished subframes
             pos[rows] = p
-            rows, p, cnt, jf, k0, act = rows[act], p[act], cnt[act], jf[act], k0[act], act[act]
-        tot = np.zeros(rows.size, np.int64)
-        for i in range(1, CONTEXT_WINDOW + 1):
-            tot += np.where(jf >= i, mag[rows, np.maximum(jf - i, 0)], 0)
+            rows, p, cnt, jf, k0 = rows[act], p[act], cnt[act], jf[act], k0[act]
+            hist, act = hist[:, act], act[act]
+        tot = hist.sum(axis=0)
         have = np.minimum(jf, CONTEXT_WINDOW)
-        k = np.where(jf == 0, k0, rice_k_from_context(tot, np.maximum(have, 1)))
+        if (have == CONTEXT_WINDOW).all():
+            k = rice_k_from_context(tot, CONTEXT_WINDOW)
+        else:
+            k = np.where(jf == 0, k0, rice_k_from_context(tot, np.maximum(have, 1)))
         runm = act & (jf >= 1) & (tot == 0)
-        p2 = p.copy()
-        run = np.zeros(rows.size, np.int64)
+        p2 = p
+        run = 0
         if runm.any():
             ri = np.flatnonzero(runm)
             v, used = r.exp_golomb(p[ri])
+            run = np.zeros(rows.size, np.int64)
             run[ri] = v
+            p2 = p.copy()
             p2[ri] += used
+            k = k.copy()
             k[ri] = 0
         pc = np.minimum(p2, limit)
         w = words[pc >> 3] << (pc & 7).astype(np.uint64)
         qq = 33 - _bit_length((w >> np.uint64(31)).astype(np.int64))
         ku = k.astype(np.uint64)
         low = ((w << (qq + 1).astype(np.uint64)) >> np.uint64(1)) >> (63 - ku)
-        mg = (qq.astype(np.int64) << k) | low.astype(np.int64)
+        mg = (qq << k) | low.astype(np.int64)
         sign = (w << ((qq + 1 + k).astype(np.uint64) % np.uint64(64))) >> np.uint64(63)
         used = qq + 1 + k
         slow = act & ((qq >= 32) | (qq + k + 2 > 57))
@@ -680,12 +748,20 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
         nz = mg > 0
         target = jf + run
         over = act & (target >= cnt)
-        bad[rows[over]] = True
+        if over.any():
+            bad[rows[over]] = True
         target = np.where(act & ~over, target, n)
-        mag[rows, target] = np.where(act, mg, 0)
-        neg[rows, target] = (sign == 1) & nz & act
+        flat = rows * w1 + target
+        mag[flat] = np.where(act, mg, 0)
+        neg[flat] = (sign == 1) & nz & act
         p = np.where(act, p2 + used + nz, p)
         jf = np.where(act, np.where(over, cnt, target + 1), jf)
+        # context: a regular step shifts the history; a run leaves (m, 0, 0, 0)
+        shifted = np.empty_like(hist)
+        shifted[1:] = hist[:-1]
+        shifted[0] = mg
+        shifted[1:, runm] = 0
+        hist = np.where(act, shifted, hist)
     pos[rows] = p
-    mag, neg = mag[:, :n], neg[:, :n]
+    mag, neg = mag.reshape(m, w1)[:, :n], neg.reshape(m, w1)[:, :n]
     return np.where(neg, -mag, mag), pos, bad

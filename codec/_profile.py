@@ -155,8 +155,8 @@ def profile_id(profile: Profile) -> int:
     # or that only steer the encoder (peak-error limits) stay out of the hash,
     # so profiles written before they existed keep their identifier.  The basis
     # file's path may differ between the two ends; its hash may not.
-    canon = profile.model_dump(exclude={"description", "layout_version",
-                                        "multi_channel_frames", "basis_file"})
+    canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
+                                        "multi_channel_frames"})
     for ch in canon["channels"]:
         ch.pop("max_error", None)
     if canon["basis_sha256"] is None:

@@ -120,6 +120,23 @@ def _quantized(cx, mean, dc, code, offset):
     return q, mean_int, np.einsum("ij,ij->i", r, r)
 
 
+#: Frames per block in the step search: a block's temporaries stay in the CPU cache,
+#: which makes the search about twice as fast as whole-array passes (measured).
+_BLOCK_ROWS = 2048
+
+
+def _error_only(cx, mean, dc, code, offset):
+    """Error energy per frame at step ``code`` (the search's inner loop), block by block."""
+    nf = cx.shape[0]
+    out = np.empty(nf)
+    off = np.broadcast_to(np.asarray(offset, dtype=np.float64), (nf,))
+    for a in range(0, nf, _BLOCK_ROWS):
+        b = min(a + _BLOCK_ROWS, nf)
+        out[a:b] = _quantized(cx[a:b], None if mean is None else mean[a:b], dc, code[a:b],
+                              offset if np.isscalar(offset) else off[a:b])[2]
+    return out
+
+
 def choose_steps(
     cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, budget: np.ndarray,
     offset: float = 0.5, hint: np.ndarray | None = None,
@@ -141,11 +158,13 @@ def choose_steps(
     # coarser changes the error.  A ``hint`` (the code found for another offset)
     # narrows the bracket to an octave around it; it is checked, not trusted.
     lo = np.maximum(floor, code_for_step(np.sqrt(budget / n) / (1.0 - offset)) - 1)
-    hi = np.clip(code_for_step(2.0 * np.maximum(scale, 1e-300)) + 1, lo + 1, STEP_CODE_MAX)
+    # the mean is sent on its own, so only the terms about it bound the useful step
+    ac = scale if mean is None else np.abs(cx - mean[:, None] * dc).max(axis=1)
+    hi = np.clip(code_for_step(2.0 * np.maximum(ac, 1e-300)) + 1, lo + 1, STEP_CODE_MAX)
     limit = budget * _MARGIN
 
     def err(code):
-        return _quantized(cx, mean, dc, code, offset)[2]
+        return _error_only(cx, mean, dc, code, offset)
 
     if hint is None:
         # lo holds by the bound (the caller's closed loop catches float rounding)

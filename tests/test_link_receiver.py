@@ -21,7 +21,9 @@ def data():
 
 @pytest.fixture(scope="module")
 def coded(data):
-    profile = codec.default_profile().bind(BASIC_MOTIONS_CHANNELS)
+    # layout 1: the forged-frame checks below flip bytes at v1 field offsets
+    profile = codec.default_profile().bind(BASIC_MOTIONS_CHANNELS).model_copy(
+        update={"layout_version": 1})
     return codec.encode(data, profile)
 
 

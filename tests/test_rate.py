@@ -1,0 +1,77 @@
+"""Rate against the Shannon bound: R(D) of the AR(1) source, and the coder's bits counted whole."""
+
+import importlib.util
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import codec
+
+_spec = importlib.util.spec_from_file_location(
+    "bench_rate", Path(__file__).resolve().parents[1] / "tools" / "bench_rate.py")
+bench = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(bench)
+
+
+# Cover & Thomas, Elements of Information Theory, 2nd ed., ch. 10: for a Gaussian
+# AR(1) process and D below the minimum of its spectrum, sigma^2 (1 - rho)/(1 + rho),
+# every frequency is coded and R(D) = 1/2 log2((1 - rho^2) sigma^2 / D).
+@pytest.mark.parametrize("rho", [0.5, 0.9, 0.95, 0.99])
+@pytest.mark.parametrize("sigma2", [1.0, 3.7])
+def test_rd_closed_form_below_spectrum_minimum(rho, sigma2):
+    smin = sigma2 * (1 - rho) / (1 + rho)
+    for d in (0.9 * smin, 0.3 * smin, 0.01 * smin):
+        want = 0.5 * math.log2((1 - rho**2) * sigma2 / d)
+        assert bench.rate_distortion_ar1(rho, sigma2, d) == pytest.approx(want, abs=1e-6)
+
+
+# Cover & Thomas Theorem 10.3.2: a white Gaussian source has R(D) = 1/2 log2(sigma^2 / D)
+# for D <= sigma^2 and 0 above.
+@pytest.mark.parametrize("d", [1e-4, 0.01, 0.3, 0.99])
+def test_rd_white_gaussian(d):
+    assert bench.rate_distortion_ar1(0.0, 2.0, 2.0 * d) == pytest.approx(
+        0.5 * math.log2(1 / d), abs=1e-9)
+    assert bench.rate_distortion_ar1(0.0, 2.0, 2.5) == 0.0
+
+
+def test_rd_water_filling_regime_is_between_bounds():
+    # Above the spectrum minimum some frequencies get no bits: R(D) lies above 0 and
+    # above the closed form (which assumes every frequency costs rate; Cover & Thomas).
+    rho = 0.95
+    d = 0.1
+    r = bench.rate_distortion_ar1(rho, 1.0, d)
+    assert 0.0 < r and r > 0.5 * math.log2((1 - rho**2) / d)
+    assert bench.rate_distortion_ar1(rho, 1.0, 1.0) == 0.0
+
+
+def test_ar1_source_has_the_model_statistics():
+    # variance 1 and lag-1 correlation rho (definition of the AR(1) model)
+    x = bench.ar1_source(0.9, 200_000, 5)
+    assert np.var(x) == pytest.approx(1.0, rel=0.05)
+    assert np.corrcoef(x[:-1], x[1:])[0, 1] == pytest.approx(0.9, abs=0.01)
+
+
+@pytest.mark.parametrize("fidelity", [0.95, 0.99])
+def test_coder_counts_every_bit_and_never_beats_the_bound(fidelity):
+    # Shannon's converse (Cover & Thomas, Theorem 10.2.1): no code reaches the
+    # distortion below R(D) bits/sample, so a measured rate under it means bits
+    # went uncounted.  All frames must meet the target on the decoded samples.
+    x = bench.ar1_source(0.95, 64 * 256, 11)
+    enc = codec.encode(x[:, None], codec.Profile(frame_length=256, fidelity=fidelity,
+                                                 reference="total"))
+    dec = codec.decode(enc.data, enc.profile, samples=x.size)
+    met, total = bench.decoded_frames_met(x, enc, dec)
+    assert met == total
+    bps = 8 * len(enc.data) / x.size
+    assert enc.report["bits_per_sample"] == pytest.approx(bps)
+    mse = float(np.mean((x - dec.samples[:, 0]) ** 2))
+    assert bps > bench.rate_distortion_ar1(0.95, float(np.var(x)), mse)
+
+
+def test_zstd_baselines_meet_the_error_energy():
+    x = bench.ar1_source(0.9, 50_000, 2)
+    plain, diff, mse = bench.zstd_baselines(x, 0.01)
+    assert mse == pytest.approx(0.01, rel=0.05)  # uniform quantizer: step^2 / 12
+    assert 0 < diff < plain < 16
