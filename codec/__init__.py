@@ -13,6 +13,8 @@ from ._errors import FrameError, InputError, ProfileError, TrimlinkError
 from ._klt import TrainedBasis, load_trained_basis, save_trained_basis, train_klt
 from ._profile import ChannelSpec, Profile, default_profile, load_profile, profile_id, save_profile
 from ._report import error_figures
+from ._stream import CONCEALED, DELIVERED, GAP, LOST, STATUS_NAMES
+from ._streaming import StreamDecoder, StreamEncoder
 
 __all__ = [
     "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
@@ -23,4 +25,5 @@ __all__ = [
     "FrameError", "InputError", "ProfileError", "TrimlinkError",
     "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "save_profile",
     "error_figures",
+    "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
 ]

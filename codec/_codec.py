@@ -11,17 +11,24 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._bases import Basis, basis_from_code
+from ._bases import Basis
+from ._bits import MAX_FIELD_BITS
 from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
+from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
 from ._klt import profile_basis
 from ._layout import (
+    GAP_KIND,
     LAYOUT_VERSION,
     LAYOUT_VERSION_2,
+    PROFILE_BITS_V2,
+    SEQUENCE_BITS_V2,
+    SYNC,
     FrameBatch,
     FrameBatchV2,
     expected_length,
-    frame_version,
+    frame_crc_ok,
+    frame_extent,
     index_bits,
     pack_frames,
     pack_frames_v2,
@@ -41,9 +48,11 @@ from ._select import (
     frame_budgets,
     reference_energy,
 )
-from ._stream import locate_frames
+from ._stream import DELIVERED, locate_frames
 
-__all__ = ["EncodeResult", "DecodeResult", "encode", "decode", "as_samples", "reconstruct"]
+__all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
+           "check_some_frame",
+           "as_samples", "reconstruct"]
 
 
 @dataclass
@@ -77,7 +86,8 @@ class DecodeResult:
     """Decoded samples and an account of every frame.
 
     ``samples`` holds NaN where no frame delivered data; ``delivered`` is the
-    matching boolean mask.
+    matching boolean mask and ``status`` the per-sample account (delivered,
+    lost, gap).
     """
 
     samples: np.ndarray
@@ -85,10 +95,21 @@ class DecodeResult:
     frames: dict
     crc_failures: list[int] = field(default_factory=list)
     skipped_bytes: int = 0
+    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec._stream``).
+    status: np.ndarray | None = None
+    #: What happened to frames that did not make it (capped list of dicts).
+    events: list = field(default_factory=list)
+    #: Frame and sample counts; samples_delivered + samples_lost + samples_gap = samples.
+    counts: dict = field(default_factory=dict)
+    #: Whether the stream's end is certain (stream note, or a short last frame received).
+    end_known: bool = False
 
 
-def as_samples(samples, where: str = "input") -> np.ndarray:
-    """Validate and convert samples to a C-contiguous float64 (samples x channels) array."""
+def as_samples(samples, where: str = "input", allow_gaps: bool = False) -> np.ndarray:
+    """Validate and convert samples to a C-contiguous float64 (samples x channels) array.
+
+    NaN and infinite samples are refused unless ``allow_gaps`` (a gap policy handles them).
+    """
     try:
         x = np.asarray(samples, dtype=np.float64)
     except (TypeError, ValueError):
@@ -100,7 +121,7 @@ def as_samples(samples, where: str = "input") -> np.ndarray:
     if x.size == 0:
         raise InputError("there are no samples; give at least one row of data", where)
     bad = ~np.isfinite(x)
-    if bad.any():
+    if bad.any() and not allow_gaps:
         row, col = np.argwhere(bad)[0]
         raise InputError(
             f"sample {row} of channel {col} is {x[row, col]} ({int(bad.sum())} non-finite values "
@@ -114,7 +135,10 @@ def reconstruct(q: np.ndarray, mean_int: np.ndarray | None, code: np.ndarray,
                 basis: Basis) -> np.ndarray:
     """Frames from integer codes: the one synthesis both ends run."""
     step = step_from_code(code)
-    frames = basis.synthesize(q.astype(np.float64) * step[:, None])
+    # einsum (not BLAS matmul): each row's sum runs in one fixed order whatever the
+    # batch size, so a frame decodes bit-identically alone, in any batch, or in the
+    # encoder's closed-loop check -- the streaming decoder relies on it.
+    frames = np.einsum("ij,jk->ik", q.astype(np.float64) * step[:, None], basis.matrix)
     if mean_int is not None:
         frames += (mean_int * (step / np.sqrt(basis.n)))[:, None]
     return frames
@@ -131,13 +155,24 @@ def _bind(profile: Profile, channels: int) -> Profile:
     return profile
 
 
-def encode(samples, profile: Profile) -> EncodeResult:
+def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 0) -> EncodeResult:
     """Code ``samples`` (samples x channels) under ``profile``; every frame meets its budget.
 
     The target is checked on the reconstruction the decoder will produce, and
     any frame that misses it is re-quantized with a finer step until it holds.
+    ``gaps`` is the policy for NaN samples (``codec._gaps``: refuse, fill,
+    mark); ``first_window`` numbers the first time window (the streaming
+    encoder codes a live stream block by block).
     """
-    x = as_samples(samples)
+    if gaps not in GAP_POLICIES:
+        raise InputError(f"unknown gap policy {gaps!r}; choose one of {', '.join(GAP_POLICIES)}")
+    if gaps == "refuse":
+        x = as_samples(samples)
+        missing = None
+    else:
+        x, missing = fill_gaps(as_samples(samples, allow_gaps=True), empty=gaps == "mark")
+        if not missing.any():
+            missing = None
     profile = _bind(profile, x.shape[1])
     n = profile.frame_length
     basis = profile_basis(profile)  # loads and hash-checks a trained basis
@@ -213,10 +248,15 @@ def encode(samples, profile: Profile) -> EncodeResult:
     met = err <= budget
     floor = budget > (1.0 - profile.fidelity) * e_ref
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
+    fmiss = gap_rows = None
+    if missing is not None and gaps == "mark":
+        fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
+        gap_rows = fmiss.any(axis=1)
     if profile.layout_version == 1:
         kept = q != 0
         batch = FrameBatch(
-            channel=channel, sequence=window, basis=np.full(channel.size, basis.code),
+            channel=channel, sequence=window + first_window,
+            basis=np.full(channel.size, basis.code),
             step_code=code, valid=valid, has_mean=mean_int is not None,
             mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
             terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
@@ -224,12 +264,24 @@ def encode(samples, profile: Profile) -> EncodeResult:
         data, lengths = pack_frames(batch, profile_id(profile), n)
         frame_bits = lengths * 8
         header_bits = int(frame_bits.sum()) - int(_v1_term_bits(batch, n))
+        row_frame = np.arange(channel.size)
     elif profile.layout_version == 2:
-        data, frame_bits, header_bits = _pack_v2(profile, channel, window, valid, code,
-                                                 mean_int, q, n)
+        data, frame_bits, header_bits = _pack_v2(profile, channel, window + first_window,
+                                                 valid, code, mean_int, q, n)
+        row_frame = (np.unique(window, return_inverse=True)[1] if profile.multi_channel_frames
+                     else np.arange(channel.size))
     else:
-        data, frame_bits, header_bits = _pack_v3(profile, channel, window, valid, code,
-                                                 mean_int, q, n)
+        # gap-mask frames wrap the data frame of one window: one window per frame then
+        packing = profile if gap_rows is None else profile.model_copy(
+            update={"windows_per_frame": 1})
+        data, frame_bits, header_bits, row_frame = _pack_v3(
+            packing, channel, window + first_window, valid, code, mean_int, q, n)
+    extra_bits = 0
+    if gap_rows is not None:
+        data, dropped, extra_bits = _add_gap_frames(
+            data, row_frame, fmiss, gap_rows, channel, window + first_window, valid,
+            profile_id(profile), n)
+        frame_bits = np.where(dropped, 0, frame_bits)
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
@@ -237,8 +289,47 @@ def encode(samples, profile: Profile) -> EncodeResult:
         "max_abs_error": _valid_max_error(frames, recon, mask),
     }
     report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met, floor,
-                           header_bits=header_bits)
+                           extra_bits=extra_bits, header_bits=header_bits)
+    report["gap_policy"] = gaps
+    report["samples_gap"] = 0 if missing is None else int(missing.sum())
+    if missing is not None and gaps == "mark":
+        x_hat = np.where(missing, np.nan, x_hat)  # what the receiver reproduces
     return EncodeResult(data, profile, x_hat, info, report)
+
+
+def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_gap: np.ndarray,
+                    channel: np.ndarray, sequence: np.ndarray, valid: np.ndarray, pid: int,
+                    n: int) -> tuple[bytes, np.ndarray, int]:
+    """Wrap every data frame holding a gap in a gap-mask frame (``codec._gaps``).
+
+    ``row_frame`` maps each row (one window of one channel) to its data frame
+    (several rows share a multi-channel frame).  A window whose rows are all
+    gap sends the masks alone.  Returns the new stream, which rows lost their
+    data frame, and the bits the gap-mask frames add.
+    """
+    loc = locate_frames(data)  # our own clean stream: one entry per data frame
+    nframes = loc.offsets.size
+    full = (fmiss & (np.arange(n) < valid[:, None])).sum(axis=1) == valid
+    all_gap = np.ones(nframes, dtype=bool)
+    np.logical_and.at(all_gap, row_frame, full)
+    masks: list[list] = [[] for _ in range(nframes)]
+    for r in np.flatnonzero(has_gap).tolist():  # rows with gaps only
+        masks[row_frame[r]].append((int(channel[r]), fmiss[r]))
+    first = np.searchsorted(row_frame, np.arange(nframes))
+    pieces: list[bytes] = []
+    extra = 0
+    mv = memoryview(data)
+    for f, (o, ln) in enumerate(zip(loc.offsets.tolist(), loc.lengths.tolist())):
+        frame = mv[o : o + ln]
+        if not masks[f]:
+            pieces.append(frame)
+            continue
+        r = first[f]
+        inner = b"" if all_gap[f] else bytes(frame)
+        g = pack_gap_frame(pid, int(sequence[r]), int(valid[r]), masks[f], inner, n)
+        pieces.append(g)
+        extra += 8 * (len(g) - len(inner))
+    return b"".join(pieces), all_gap[row_frame], extra
 
 
 def _v1_term_bits(batch: FrameBatch, n: int) -> int:
@@ -288,7 +379,7 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
 
 
 def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
-    """Layout v3 frames; returns (bytes, bits per subframe, header bits of the stream).
+    """Layout v3 frames: (bytes, bits per row, header bits of the stream, frame of each row).
 
     Header bits are everything but the range-coded coefficient bytes.
     """
@@ -327,7 +418,9 @@ def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
     bits_sorted[first] += lengths * 8 - (lengths * 8 // cnt) * cnt
     bits = np.empty_like(bits_sorted)
     bits[order] = bits_sorted
-    return data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8)
+    row_frame = np.empty_like(frame)
+    row_frame[order] = frame
+    return data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8), row_frame
 
 
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
@@ -385,140 +478,279 @@ def _valid_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.
     return np.einsum("ij,ij->i", e, e)
 
 
-def decode(data: bytes, profile: Profile, samples: int | None = None) -> DecodeResult:
-    """Decode a stream made under ``profile`` (bound: one channel spec per column).
+@dataclass
+class FrameRows:
+    """CRC-valid frames interpreted under a profile (the decode half's per-frame step).
 
-    Frames whose CRC fails never reach the output.  ``samples`` fixes the
-    output length; by default it runs to the end of the last frame received.
-    Raises :class:`FrameError` when the stream holds no frame of ours or a
-    frame was made under another profile or layout version.
+    Per frame, in arrival order: ``kind`` (0 data, 1 gap mask), ``verdict``
+    (``"ok"`` or a short key saying why the frame is refused; ``detail`` says
+    it in words), ``crc``, ``sequence`` and its ``modulus`` (the layout's
+    sequence range), ``valid`` and a few header fields in ``head`` for the
+    frame table.  Per row (one window of one channel; a multi-channel frame
+    has several): ``row_frame``, ``row_channel``, ``row_flags`` and the decoded
+    ``rows`` (NaN for refused frames).  ``masks`` holds the ``(channel, mask)``
+    pairs of each accepted gap-mask frame, by frame index; the rows of its
+    inner data frame, if any, belong to the same frame index.
+    """
+
+    kind: np.ndarray
+    verdict: list
+    detail: list
+    crc: np.ndarray
+    sequence: np.ndarray
+    modulus: np.ndarray
+    valid: np.ndarray
+    head: dict
+    row_frame: np.ndarray
+    row_channel: np.ndarray
+    row_flags: np.ndarray
+    rows: np.ndarray
+    masks: dict
+    row_offset: np.ndarray = None  # window of each row minus its frame's window (v3: 0..15)
+    row_valid: np.ndarray = None  # real samples of each row's window
+
+
+_HEAD_KEYS = ("basis", "terms", "step_code")
+
+
+def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameRows:
+    """Interpret CRC-valid frames; a foreign or impossible frame becomes a verdict, never an error.
+
+    Every length and count read from the wire is checked against the profile
+    before use: v1 terms <= N, widths <= 57 bits, valid in 1..N, term index < N
+    and the length field equal to the length the fields imply, all before any
+    payload field is read; v2 coefficient counts <= N and the coded contents
+    filling the frame exactly (checked by the v2 parser); gap masks by
+    :func:`codec._gaps.parse_gap_frame`.
     """
     n = profile.frame_length
     channels = len(profile.channels)
-    if channels == 0:
-        raise ProfileError("the profile lists no channels; decode with the stream's own profile")
-    basis = profile_basis(profile)  # loads and hash-checks a trained basis
-    loc = locate_frames(data)
-    if loc.offsets.size == 0:
-        raise FrameError(
-            "no frame with a valid sync marker and CRC was found; is this a trimlink stream?"
-        )
-    buf = np.frombuffer(data, dtype=np.uint8)
-    versions = frame_version(buf, loc.offsets)
-    if (versions == LAYOUT_VERSION_2).all():
-        return _decode_v2(data, loc, profile, basis, n, channels, samples)
-    if (versions == LAYOUT_VERSION_3).all():
-        return _decode_v2(data, loc, profile, basis, n, channels, samples, version=3)
-    if (versions != versions[0]).any():
-        f = int(np.argmax(versions != versions[0]))
-        raise FrameError(f"the stream mixes frame layout versions {int(versions[0])} and "
-                         f"{int(versions[f])}; decode each part separately",
-                         f"frame at byte {int(loc.offsets[f])}")
-    head = parse_headers(buf, loc.offsets)
-    _check_headers(head, loc.offsets, profile, basis, n)
-    mean, index, value = parse_payloads(buf, loc.offsets, head, n)
-    nf = loc.offsets.size
-    owner = np.repeat(np.arange(nf), head["terms"])
-    if index.size and index.max() >= n:
-        f = owner[np.argmax(index >= n)]
-        raise FrameError(f"term index {index.max()} is not below the frame length {n}",
-                         f"frame at byte {loc.offsets[f]}")
-    q = np.zeros((nf, n), dtype=np.int64)
-    q[owner, index] = value
-    has_mean = head["mean_width"] > 0
-    mean_int = np.where(has_mean, mean, 0) if profile.reference == "ac" else None
-    recon = reconstruct(q, mean_int, head["step_code"], basis)
-    window = _unwrap(head["sequence"])
-    valid = head["valid"]
-    total = int((window * n + valid).max()) if samples is None else int(samples)
-    out, delivered = merge_frames(recon, head["channel"], window, total, channels)
-    # A short frame's padding is not data: blank it unless a later window covers it.
-    frames = {
-        "offset": loc.offsets, "length": loc.lengths, "bits": loc.lengths * 8,
-        "sequence": head["sequence"], "window": window, "channel": head["channel"],
-        "basis": head["basis"], "terms": head["terms"], "step_code": head["step_code"],
-        "valid": valid,
-    }
-    return DecodeResult(out, delivered, frames, loc.crc_failures, loc.skipped_bytes)
-
-
-def _unwrap(sequence: np.ndarray, modulus: int = 65536) -> np.ndarray:
-    """Window index from sequence numbers, assuming steps under half the range."""
-    step = (np.diff(sequence) + modulus // 2) % modulus - modulus // 2
-    return np.concatenate([[sequence[0]], sequence[0] + np.cumsum(step)]).astype(np.int64)
-
-
-def _decode_v2(data: bytes, loc, profile: Profile, basis: Basis, n: int, channels: int,
-               samples: int | None, version: int = 2) -> DecodeResult:
-    """Decode a stream of layout-v2 or v3 frames (all frames located and CRC-checked)."""
-    has_mean = profile.reference == "ac"
-    parse = parse_frames_v2 if version == 2 else parse_frames_v3
-    p = parse(data, loc.offsets, loc.lengths, n, channels, has_mean)
-    pid = profile_id(profile) & 0xFF
-
-    def refuse(bad: np.ndarray, message: str) -> None:
-        if bad.any():
-            f = int(np.argmax(bad))
-            raise FrameError(message, f"frame at byte {int(loc.offsets[f])}")
-
-    refuse(p["profile"] != pid,
-           f"the frame was made under another profile (id byte {{:#04x}} is not this profile's "
-           f"{pid:#04x}); decode with the profile the stream was encoded with".replace(
-               "{:#04x}", f"{int(p['profile'][np.argmax(p['profile'] != pid)]):#04x}"))
-    refuse(p["channel"][np.r_[np.flatnonzero(np.r_[True, np.diff(p["frame"]) != 0])]]
-           >= channels, f"its channel is not in the profile ({channels} channels)")
-    refuse(~p["consumed_ok"], "its contents do not match its length field (a corrupt frame "
-           "that passed its CRC, or a frame from another profile)")
-    fr = p["frame"]
-    window_f = _unwrap(p["sequence"], 256)
-    window = window_f[fr] + p.get("window_offset", 0)
-    valid = p["sub_valid"] if "sub_valid" in p else p["valid"][fr]
-    recon = reconstruct(p["q"], p["mean"], p["step_code"], basis)
-    total = int((window * n + valid).max()) if samples is None else int(samples)
-    out, delivered = merge_frames(recon, p["channel"], window, total, channels)
-    cnt = np.bincount(fr, minlength=loc.offsets.size)
-    frames = {
-        "offset": loc.offsets[fr], "length": loc.lengths[fr],
-        "bits": (loc.lengths * 8 // cnt)[fr], "sequence": p["sequence"][fr], "window": window,
-        "channel": p["channel"], "basis": np.full(fr.size, basis.code),
-        "terms": (p["q"] != 0).sum(axis=1), "step_code": p["step_code"], "valid": valid,
-        "version": np.full(fr.size, version),
-    }
-    return DecodeResult(out, delivered, frames, loc.crc_failures, loc.skipped_bytes)
-
-
-def _check_headers(head: dict, offsets: np.ndarray, profile: Profile, basis: Basis, n: int) -> None:
-    def refuse(bad: np.ndarray, message: str) -> None:
-        if bad.any():
-            f = int(np.argmax(bad))
-            raise FrameError(message.format(**{k: int(v[f]) for k, v in head.items()}),
-                             f"frame at byte {int(offsets[f])}")
-
-    refuse(head["version"] != LAYOUT_VERSION,
-           "layout version {version} is not one this trimlink reads (it reads version "
-           f"{LAYOUT_VERSION}); decode with the trimlink that wrote the stream")
-    refuse(head["flags"] != 0, "reserved flags are set ({flags}); the frame is from a newer layout")
+    nf = len(frames)
+    lengths = np.fromiter((len(f) for f in frames), dtype=np.int64, count=nf)
+    offsets = np.cumsum(lengths) - lengths
+    joined = b"".join(frames)
+    buf = np.frombuffer(joined, dtype=np.uint8)
+    version = (buf[offsets + len(SYNC)] >> 4).astype(np.int64)
+    crc = (buf[offsets + lengths - 2].astype(np.int64) << 8) | buf[offsets + lengths - 1]
+    kind = np.where(version == GAP_KIND, 1, 0)
+    verdict = ["ok"] * nf
+    detail = [""] * nf
+    ok = np.ones(nf, dtype=bool)  # mirror of verdict == "ok", for whole-array selection
+    sequence = np.zeros(nf, np.int64)
+    modulus = np.where((version == LAYOUT_VERSION_2) | (version == LAYOUT_VERSION_3),
+                       1 << SEQUENCE_BITS_V2, 65536)
+    # A gap-mask frame's rows and masks are keyed by its own 16-bit sequence number.
+    valid = np.zeros(nf, np.int64)
+    head = {k: np.zeros(nf, dtype=np.int64) for k in _HEAD_KEYS}
     pid = profile_id(profile)
-    refuse(head["profile"] != pid,
-           "the frame was made under profile id {profile:#06x}, not this profile's "
-           f"{pid:#06x}; decode with the profile the stream was encoded with")
-    refuse(head["channel"] >= len(profile.channels),
-           f"channel {{channel}} is not in the profile ({len(profile.channels)} channels)")
-    if (head["basis"] != basis.code).any():
-        code = int(head["basis"][np.argmax(head["basis"] != basis.code)])
-        try:
-            other = basis_from_code(code, n).name
-        except InputError:
-            other = f"code {code}"
-        refuse(head["basis"] != basis.code,
-               f"the frame uses basis {other!r} but the profile says {basis.name!r}; "
-               "encoder and decoder must agree on the basis")
-    refuse(head["terms"] > n, f"it claims {{terms}} terms but a frame has only {n}")
-    refuse((head["value_width"] > 57) | (head["mean_width"] > 57),
-           "a value width ({value_width}) or mean width ({mean_width}) exceeds 57 bits")
-    refuse((head["valid"] < 1) | (head["valid"] > n),
-           f"it claims {{valid}} valid samples; a frame holds 1 to {n}")
-    refuse((head["mean_width"] > 0) != (profile.reference == "ac"),
-           "its mean field does not match the profile's reference")
-    refuse(head["length"] != expected_length(head, n),
-           "its length field ({length}) does not match its contents")
+
+    def refuse(idx: np.ndarray, bad: np.ndarray, key: str, words) -> None:
+        for f in idx[bad & ok[idx]].tolist():  # only the refused frames, usually none
+            ok[f] = False
+            verdict[f] = key
+            detail[f] = words(f) if callable(words) else words
+
+    # Rows: one per v1 / gap frame, one per subframe of a v2 frame (filled below).
+    parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
+
+    v1 = np.flatnonzero(version == LAYOUT_VERSION)
+    if v1.size:
+        h = parse_headers(buf, offsets[v1])
+        sequence[v1], valid[v1] = h["sequence"], h["valid"]
+        for k in _HEAD_KEYS:
+            head[k][v1] = h[k]
+        refuse(v1, h["profile"] != pid, "foreign_profile",
+               lambda f: f"made under another profile (id {int(h['profile'][v1 == f][0]):#06x}, "
+                         f"not {pid:#06x})")
+        refuse(v1, h["flags"] != 0, "bad_header", "reserved flags set")
+        refuse(v1, h["channel"] >= channels, "bad_header",
+               f"channel not in the profile ({channels} channels)")
+        refuse(v1, h["basis"] != basis.code, "bad_header",
+               f"basis code differs from the profile's {basis.name!r}")
+        refuse(v1, h["terms"] > n, "bad_header", f"claims more terms than the {n} of a frame")
+        refuse(v1, (h["value_width"] > MAX_FIELD_BITS) | (h["mean_width"] > MAX_FIELD_BITS),
+               "bad_header", f"a field width exceeds {MAX_FIELD_BITS} bits")
+        refuse(v1, (h["valid"] < 1) | (h["valid"] > n), "bad_header",
+               f"valid samples outside 1..{n}")
+        refuse(v1, (h["mean_width"] > 0) != (profile.reference == "ac"), "bad_header",
+               "mean field does not match the profile's reference")
+        # Only now, with terms and widths bounded, is the implied length safe to compute.
+        sane = ok[v1]
+        implied = np.where(sane, expected_length({k: np.where(sane, v, 0) for k, v in h.items()},
+                                                 n), h["length"])
+        refuse(v1, implied != h["length"], "bad_header", "length field does not match contents")
+        rows = np.full((v1.size, n), np.nan)
+        good = ok[v1]
+        if good.any():
+            gh = {k: v[good] for k, v in h.items()}
+            mean, index, value = parse_payloads(buf, offsets[v1[good]], gh, n)
+            owner = np.repeat(np.arange(int(good.sum())), gh["terms"])
+            badidx = np.zeros(int(good.sum()), dtype=bool)
+            badidx[owner[index >= n]] = True
+            refuse(v1[good], badidx, "bad_header",
+                   f"a term index is not below the frame length {n}")
+            q = np.zeros((int(good.sum()), n), dtype=np.int64)
+            ok_t = ~badidx[owner]
+            q[owner[ok_t], index[ok_t]] = value[ok_t]
+            mean_int = (np.where(gh["mean_width"] > 0, mean, 0) if profile.reference == "ac"
+                        else None)
+            recon = reconstruct(q, mean_int, gh["step_code"], basis)
+            recon[badidx] = np.nan
+            rows[good] = recon
+        parts.append((v1, np.minimum(h["channel"], 255), h["flags"], rows,
+                      np.zeros(v1.size, np.int64), h["valid"]))
+
+    v2 = np.flatnonzero(version == LAYOUT_VERSION_2)
+    if v2.size:
+        p = parse_frames_v2(joined, offsets[v2], lengths[v2], n, channels,
+                            profile.reference == "ac")
+        sequence[v2], valid[v2] = p["sequence"], p["valid"]
+        head["basis"][v2] = basis.code
+        np.add.at(head["terms"], v2[p["frame"]], (p["q"] != 0).sum(axis=1))
+        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
+        refuse(v2, p["profile"] != pid8, "foreign_profile",
+               lambda f: f"made under another profile (id byte "
+                         f"{int(p['profile'][v2 == f][0]):#04x}, not {pid8:#04x})")
+        refuse(v2, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
+        bad_ch = np.zeros(v2.size, dtype=bool)
+        np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
+        refuse(v2, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
+        refuse(v2, ~p["consumed_ok"], "bad_header",
+               "contents do not fill the length field exactly")
+        good = ok[v2][p["frame"]]
+        rows = np.full((p["q"].shape[0], n), np.nan)
+        if good.any():
+            rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
+                                     p["step_code"][good], basis)
+        parts.append((v2[p["frame"]], np.minimum(p["channel"], 255),
+                      np.zeros(p["frame"].size, np.int64), rows,
+                      np.zeros(p["frame"].size, np.int64), p["valid"][p["frame"]]))
+
+    v3 = np.flatnonzero(version == LAYOUT_VERSION_3)
+    if v3.size:
+        p = parse_frames_v3(joined, offsets[v3], lengths[v3], n, channels,
+                            profile.reference == "ac")
+        sequence[v3], valid[v3] = p["sequence"], p["valid"]
+        head["basis"][v3] = basis.code
+        np.add.at(head["terms"], v3[p["frame"]], (p["q"] != 0).sum(axis=1))
+        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
+        refuse(v3, p["profile"] != pid8, "foreign_profile",
+               lambda f: f"made under another profile (id byte "
+                         f"{int(p['profile'][v3 == f][0]):#04x}, not {pid8:#04x})")
+        refuse(v3, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
+        bad_ch = np.zeros(v3.size, dtype=bool)
+        np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
+        refuse(v3, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
+        refuse(v3, ~p["consumed_ok"], "bad_header",
+               "contents do not fill the length field exactly")
+        good = ok[v3][p["frame"]]
+        rows = np.full((p["q"].shape[0], n), np.nan)
+        if good.any():
+            rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
+                                     p["step_code"][good], basis)
+        parts.append((v3[p["frame"]], np.minimum(p["channel"], 255),
+                      np.zeros(p["frame"].size, np.int64), rows, p["window_offset"],
+                      p["sub_valid"]))
+
+    masks: dict[int, list] = {}
+    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames are rare: one parse each
+        parsed = parse_gap_frame(frames[f], n, channels)
+        if isinstance(parsed, str):
+            ok[f], verdict[f], detail[f] = False, "bad_header", parsed
+            continue
+        gh, fmasks, inner = parsed
+        sequence[f], valid[f] = gh["sequence"], gh["valid"]
+        if gh["profile"] != pid:
+            ok[f], verdict[f] = False, "foreign_profile"
+            detail[f] = f"gap frame of profile {gh['profile']:#06x}"
+            continue
+        masks[f] = fmasks
+        if not inner:
+            continue
+        why = _inner_problem(inner)
+        sub = None if why else decode_frames([inner], profile, basis)
+        if sub is not None and sub.verdict[0] != "ok":
+            why = sub.detail[0] or sub.verdict[0]
+        elif sub is not None and (sub.valid[0] != gh["valid"] or
+                                  (gh["sequence"] - sub.sequence[0]) % sub.modulus[0]):
+            why = "inner frame is not of the gap frame's window"
+        if why:
+            ok[f], verdict[f], detail[f] = False, "bad_header", f"gap frame: {why}"
+            del masks[f]
+            continue
+        parts.append((np.full(sub.rows.shape[0], f), sub.row_channel, sub.row_flags, sub.rows,
+                      sub.row_offset, sub.row_valid))
+        for k in _HEAD_KEYS:
+            head[k][f] = sub.head[k][0]
+
+    if parts:
+        rf, rc, rfl, rr, ro, rv = (np.concatenate(c) for c in zip(*parts))
+        order = np.argsort(rf, kind="stable")  # rows in frame order
+        rf, rc, rfl, rr, ro, rv = rf[order], rc[order], rfl[order], rr[order], ro[order], \
+            rv[order]
+    else:
+        rf = rc = rfl = ro = rv = np.zeros(0, np.int64)
+        rr = np.zeros((0, n))
+    return FrameRows(kind, verdict, detail, crc, sequence, modulus, valid, head, rf, rc, rfl,
+                     rr, masks, ro, rv)
+
+
+def _inner_problem(inner: bytes) -> str:
+    """Why the bytes inside a gap-mask frame are not one whole, CRC-valid data frame ('' if ok)."""
+    mv = memoryview(inner)
+    length = frame_extent(mv, 0)
+    if length is None or length != len(inner) or (inner[len(SYNC)] >> 4) == GAP_KIND:
+        return "inner bytes are not one data frame"
+    if not frame_crc_ok(mv, 0, length):
+        return "inner frame fails its CRC"
+    return ""
+
+
+def decode(data: bytes, profile: Profile, samples: int | None = None,
+           reorder: int = 16, strict: bool = True) -> DecodeResult:
+    """Decode a whole stream made under ``profile`` (bound: one channel spec per column).
+
+    The same machine as the streaming decoder (:class:`codec._streaming.StreamDecoder`)
+    fed the whole stream at once, so both give identical results.  Frames whose
+    CRC fails never reach the output; foreign, damaged, duplicated or late
+    frames become events in the result, not errors.  ``samples`` (the stream
+    note's count) fixes the output length; without it the stream runs to the
+    last frame received, and ``end_known`` says whether that end is certain.
+
+    Raises :class:`ProfileError` when the profile lists no channels and, when
+    ``strict``, :class:`FrameError` when not one frame was accepted (saying
+    why: no frame at all, or frames of another profile).  With ``strict``
+    False such a stream gives an all-lost result and its counts.
+    """
+    from ._streaming import StreamDecoder  # the streaming module builds on this one
+
+    dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True)
+    blocks = dec.feed(data) + dec.close()
+    if strict:
+        check_some_frame(dec.counts(), dec.events)
+    channels = len(profile.channels)
+    values = np.concatenate([b.samples for b in blocks]) if blocks else np.zeros((0, channels))
+    status = (np.concatenate([b.status for b in blocks]) if blocks
+              else np.zeros((0, channels), np.uint8))
+    return DecodeResult(values, status == DELIVERED, dec.frame_table(), dec.scanner.crc_failures,
+                        dec.scanner.skipped_bytes, status, dec.events, dec.counts(),
+                        dec.end_known)
+
+
+def check_some_frame(counts: dict, events: list) -> None:
+    """Raise :class:`FrameError` saying why, when a stream delivered no frame at all."""
+    if counts.get("frames_ok", 0) or counts.get("gap_frames_ok", 0):
+        return
+    foreign = [e for e in events if e["event"] == "foreign_profile"]
+    if foreign:
+        raise FrameError(
+            f"{counts.get('frames_foreign_profile', 0)} frames passed their CRC but were "
+            f"{foreign[0].get('detail', 'made under another profile')}; decode with the profile "
+            "the stream was encoded with", f"frame at byte {foreign[0]['offset']}")
+    refused = [e for e in events if e["event"] == "bad_header"]
+    if refused:
+        raise FrameError(f"every CRC-valid frame was refused ({refused[0].get('detail')}); the "
+                         "stream does not match this profile", f"frame at byte "
+                         f"{refused[0]['offset']}")
+    raise FrameError("no frame with a valid sync marker and CRC was found; is this a trimlink "
+                     "stream?")

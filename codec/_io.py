@@ -12,6 +12,7 @@ import contextlib
 import csv
 import io
 import os
+import sys
 import tempfile
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -21,7 +22,8 @@ import numpy as np
 
 from ._errors import InputError
 
-__all__ = ["SampleTable", "read_samples", "write_samples", "atomic_output"]
+__all__ = ["SampleTable", "read_samples", "write_samples", "atomic_output", "STDIO", "is_stdio",
+           "CsvBlockReader", "write_csv_block"]
 
 _TIME_NAMES = ("time", "t")
 
@@ -36,18 +38,26 @@ class SampleTable:
     time_name: str = "time"
 
 
-def read_samples(path: str | Path) -> SampleTable:
-    """Read a .csv or .npy sample file, naming the row and column of any bad value."""
+def read_samples(path: str | Path, allow_gaps: bool = False) -> SampleTable:
+    """Read a .csv or .npy sample file, naming the row and column of any bad value.
+
+    NaN samples (``nan`` in CSV) are refused unless ``allow_gaps`` (a gap policy
+    will handle them).  ``-`` reads CSV from standard input.
+    """
+    if is_stdio(path):
+        return _read_csv_text(sys.stdin.read(), "standard input", allow_gaps)
     path = Path(path)
     suffix = path.suffix.lower()
     if suffix not in (".csv", ".npy"):
         raise InputError("unknown file type; give a .csv or .npy file", str(path))
     if not path.is_file():
         raise InputError("no such file; check the path", str(path))
-    return _read_csv(path) if suffix == ".csv" else _read_npy(path)
+    if suffix == ".csv":
+        return _read_csv(path, allow_gaps)
+    return _read_npy(path, allow_gaps)
 
 
-def _read_npy(path: Path) -> SampleTable:
+def _read_npy(path: Path, allow_gaps: bool = False) -> SampleTable:
     try:
         arr = np.load(path, allow_pickle=False)
     except (ValueError, OSError, EOFError) as exc:
@@ -60,16 +70,21 @@ def _read_npy(path: Path) -> SampleTable:
     if arr.size == 0:
         raise InputError("the array is empty; give at least one sample", str(path))
     values = arr.astype(np.float64)
-    _check_finite(values, path, [f"ch{i}" for i in range(values.shape[1])], line_offset=None)
+    if not allow_gaps:
+        _check_finite(values, path, [f"ch{i}" for i in range(values.shape[1])], line_offset=None)
     return SampleTable(values, [f"ch{i}" for i in range(values.shape[1])])
 
 
-def _read_csv(path: Path) -> SampleTable:
+def _read_csv(path: Path, allow_gaps: bool = False) -> SampleTable:
     try:
         text = path.read_text(encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the file as UTF-8 text ({exc.__class__.__name__})",
                          str(path)) from None
+    return _read_csv_text(text, path, allow_gaps)
+
+
+def _read_csv_text(text: str, path, allow_gaps: bool) -> SampleTable:
     rows = [r for r in csv.reader(io.StringIO(text)) if r and any(c.strip() for c in r)]
     if not rows:
         raise InputError("the file is empty; give a header row and data rows", str(path))
@@ -102,7 +117,8 @@ def _read_csv(path: Path) -> SampleTable:
     if header[0].lower() in _TIME_NAMES and width > 1:
         time, time_name = values[:, 0].copy(), header[0]
         values, header = values[:, 1:], header[1:]
-    _check_finite(values, path, header, line_offset=2)
+    if not allow_gaps:
+        _check_finite(values, path, header, line_offset=2)
     return SampleTable(np.ascontiguousarray(values), header, time, time_name)
 
 
@@ -158,3 +174,95 @@ def atomic_output(path: str | Path) -> Iterator[Path]:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+
+
+#: Marks standard input / standard output in place of a file name.
+STDIO = "-"
+
+
+def is_stdio(path) -> bool:
+    """Whether ``path`` names standard input or output (``-``)."""
+    return str(path) == STDIO
+
+
+class CsvBlockReader:
+    """Sample blocks from CSV text arriving on a binary stream (a pipe), as it arrives.
+
+    The first line is the header (an optional first column ``time``/``t`` is
+    kept apart); each :meth:`blocks` item holds the complete rows read so far,
+    parsed with NumPy in one go, so a live pipeline codes data as soon as it
+    has a frame's worth.  Holds at most one partial line between reads.
+    """
+
+    def __init__(self, stream, where: str = "standard input", chunk: int = 65536):
+        self._stream = stream
+        self._where = where
+        self._chunk = chunk
+        self._rest = b""
+        self.names: list[str] | None = None
+        self.has_time = False
+        self.time_name = "time"
+        self.rows = 0
+
+    def _read(self) -> bytes:
+        read1 = getattr(self._stream, "read1", None)
+        return read1(self._chunk) if read1 else self._stream.read(self._chunk)
+
+    def blocks(self) -> Iterator[tuple[np.ndarray, np.ndarray | None]]:
+        """Yield ``(values, time)`` blocks until the stream ends."""
+        while True:
+            data = self._read()
+            last = not data
+            text = self._rest + data
+            if last:
+                lines, self._rest = text.splitlines(), b""
+            else:
+                cut = text.rfind(b"\n") + 1
+                lines, self._rest = text[:cut].splitlines(), text[cut:]
+            lines = [ln for ln in lines if ln.strip()]
+            if self.names is None and lines:
+                self._header(lines.pop(0))
+            if lines:
+                yield self._parse(lines)
+            if last:
+                if self.names is None:
+                    raise InputError("no header row arrived; send a CSV header and rows",
+                                     self._where)
+                return
+
+    def _header(self, line: bytes) -> None:
+        try:
+            header = [h.strip() for h in line.decode("utf-8-sig").split(",")]
+        except UnicodeDecodeError:
+            raise InputError("the header row is not UTF-8 text", self._where) from None
+        if any(not h for h in header):
+            raise InputError("the header row has an empty column name", self._where)
+        self.has_time = header[0].lower() in _TIME_NAMES and len(header) > 1
+        if self.has_time:
+            self.time_name, header = header[0], header[1:]
+        self.names = header
+
+    def _parse(self, lines: list[bytes]) -> tuple[np.ndarray, np.ndarray | None]:
+        width = len(self.names) + self.has_time
+        cells = b",".join(lines).split(b",")
+        if len(cells) != width * len(lines):
+            counts = np.array([ln.count(b",") + 1 for ln in lines])
+            k = int(np.argmax(counts != width))
+            raise InputError(f"data row {self.rows + k + 1} has {counts[k]} columns but the "
+                             f"header has {width}", self._where)
+        try:
+            values = np.array(cells, dtype="S").astype(np.float64).reshape(len(lines), width)
+        except ValueError:
+            raise InputError(f"a value in data rows {self.rows + 1}-{self.rows + len(lines)} is "
+                             "not a number", self._where) from None
+        self.rows += len(lines)
+        if self.has_time:
+            return values[:, 1:], values[:, 0]
+        return values, None
+
+
+def write_csv_block(stream, values: np.ndarray, time: np.ndarray | None = None) -> None:
+    """Append rows to a text stream as CSV (NaN written as ``nan``), e.g. standard output."""
+    cols = values if time is None else np.column_stack([time, values])
+    if cols.size:
+        np.savetxt(stream, cols, delimiter=",", fmt="%.17g")

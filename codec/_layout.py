@@ -31,6 +31,7 @@ from ._crc import crc16_ibm3740
 __all__ = [
     "LAYOUT_VERSION",
     "SYNC",
+    "GAP_KIND",
     "HEADER_FIELDS",
     "HEADER_BYTES",
     "FrameBatch",
@@ -54,6 +55,9 @@ __all__ = [
 
 LAYOUT_VERSION = 1
 SYNC = b"\xe3\x5a"
+#: Version nibble of the gap-mask frame kind (layout in ``_gaps.py``), valid beside any version.
+GAP_KIND = 15
+_GAP_MIN_BYTES = 14  # its fixed header (12 bytes with the sync marker) and CRC
 
 #: (field, bits, meaning) after the sync marker, in order.
 HEADER_FIELDS: tuple[tuple[str, int, str], ...] = (
@@ -91,6 +95,11 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
         return None
     b0 = mv[pos + len(SYNC)]
     version = b0 >> 4
+    if version == GAP_KIND:  # gap-mask frame: 16-bit length where v1 keeps it
+        if pos + 5 > len(mv):
+            return None
+        length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
+        return length if length >= _GAP_MIN_BYTES else None
     if version == LAYOUT_VERSION:
         if pos + HEADER_BYTES > len(mv):
             return None

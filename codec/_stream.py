@@ -1,11 +1,39 @@
-"""Finding frames in a byte stream.
+"""Finding frames in a byte stream, and ordering them by sequence number.
 
-A receiver sees bytes, not frames.  :func:`locate_frames` walks the stream: at
-each position it expects a sync marker, reads the length field and checks the
-CRC.  A frame that passes is accepted and the walk jumps over it; otherwise
-the walk searches forward for the next sync marker, so garbage, a truncated
-frame or a corrupted frame costs only itself.  A false sync marker inside
-payload bytes is rejected by the CRC.
+A receiver sees bytes, not frames.  :class:`FrameScanner` walks the stream: at
+each position it expects a sync marker, asks the layout's envelope rule
+(:func:`codec._layout.frame_extent`) how long the frame claims to be and checks
+its CRC (:func:`codec._layout.frame_crc_ok`).  A frame that passes is accepted
+and the walk jumps over it; otherwise the walk searches forward from the byte
+after the failed candidate, so garbage, a truncated frame, a bit slip or a false
+sync marker inside payload bytes costs only that candidate.  The scanner takes
+bytes in chunks of any size and gives exactly the same frames, failures and
+skipped-byte count as one call on the whole stream (:func:`locate_frames` is
+that one call), holding at most one frame (at most ``max_frame`` bytes, which
+the streaming decoder derives from the profile) plus the current chunk.
+
+:class:`SequenceTracker` turns 16-bit sequence numbers into time windows and
+applies the duplicate / out-of-order policy, written down here once:
+
+* The *head* is the highest window accepted so far.  A frame's window is the
+  one nearest the head whose number is congruent to its sequence number modulo
+  the field's range M (65 536 in layout v1, 256 in layout v2; serial-number
+  arithmetic in the manner of RFC 1982), so the counter may wrap any number
+  of times as long as frames are less than M/2 windows from the head.
+* A frame up to ``reorder`` windows behind the head is placed where it belongs
+  (out-of-order delivery is repaired).  A frame further behind arrives after
+  its window was released and is dropped as ``late``.
+* The first frame for a (window, channel) wins; another copy is dropped as a
+  ``duplicate`` (or ``conflict`` when its bytes differ: a replay or a
+  stream from another encoder run).
+* With a known stream length (the stream note), frames for windows past the
+  end are dropped as ``beyond_end``; a frame claiming a window before 0 is
+  dropped as ``before_start``.
+
+Per-sample accounting uses the small integer codes :data:`LOST`,
+:data:`DELIVERED`, :data:`GAP`; :data:`CONCEALED` is reserved for receivers
+that fill lost spans (the link simulator).  Codes are stable: a receiver may
+add codes above :data:`FIRST_FREE_STATUS`.
 """
 
 from __future__ import annotations
@@ -14,9 +42,37 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._layout import SYNC, frame_crc_ok, frame_extent
+# HEADER_BYTES: the envelope rule answers from at most this many bytes after the
+# sync marker, so a streaming scanner that waits for them decides as a whole-stream one.
+from ._layout import HEADER_BYTES, SYNC, frame_crc_ok, frame_extent
 
-__all__ = ["Located", "locate_frames"]
+__all__ = [
+    "Located",
+    "FrameScanner",
+    "locate_frames",
+    "SequenceTracker",
+    "LOST",
+    "DELIVERED",
+    "GAP",
+    "CONCEALED",
+    "FIRST_FREE_STATUS",
+    "STATUS_NAMES",
+    "MAX_FRAME_BYTES",
+]
+
+#: Sample status codes (uint8), one per sample position and channel.
+LOST = 0  # no CRC-valid frame delivered this sample
+DELIVERED = 1  # decoded from a frame that passed its CRC and every header check
+GAP = 2  # the sender marked the sample missing at the source (NaN reproduced)
+CONCEALED = 3  # filled by a receiver's concealment policy (set by link_sim, never by codec)
+FIRST_FREE_STATUS = 4
+STATUS_NAMES = {LOST: "lost", DELIVERED: "delivered", GAP: "gap", CONCEALED: "concealed"}
+
+#: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
+MAX_LISTED = 100_000
+#: No layout-v1 frame can claim more bytes than its 16-bit length field holds.
+MAX_FRAME_BYTES = 65535
+_SYNC_LEN = len(SYNC)
 
 
 @dataclass
@@ -41,36 +97,185 @@ class Located:
     skipped_bytes: int = 0
 
 
+class FrameScanner:
+    """Incremental frame search over bytes fed in chunks of any size.
+
+    :meth:`feed` returns the CRC-valid frames completed by the chunk as
+    ``(stream_offset, frame_bytes)`` pairs; :meth:`close` ends the stream (a
+    candidate still waiting for bytes is then a failure, exactly as a
+    truncated frame at the end of a whole stream).  ``crc_failures`` and
+    ``skipped_bytes`` accumulate as in :class:`Located`.
+    """
+
+    def __init__(self, max_frame: int | None = None) -> None:
+        #: Longest frame accepted; a candidate claiming more is treated as not a frame, so
+        #: the buffer never waits for more than this (layout v2's long form can claim 2^27).
+        self.max_frame = max_frame
+        self._buf = bytearray()
+        self._base = 0  # stream offset of _buf[0]
+        self._pos = 0  # index in _buf where the walk stands
+        self._expected = True  # _pos is a frame boundary (not found by searching)
+        self._need = 0  # bytes _buf must hold before the walk can move on
+        self.crc_failures: list[int] = []  # offsets, the first MAX_LISTED of them
+        self.crc_failure_count = 0
+        self.skipped_bytes = 0
+        self.bytes_in = 0
+
+    def feed(self, chunk: bytes | bytearray | memoryview) -> list[tuple[int, bytes]]:
+        """Add bytes; return the frames they complete."""
+        self._buf += chunk
+        self.bytes_in += len(chunk)
+        if len(self._buf) < self._need:
+            return []
+        out = self._walk(final=False)
+        self._trim()
+        return out
+
+    def close(self) -> list[tuple[int, bytes]]:
+        """End of stream: settle every waiting candidate; return the last frames."""
+        out = self._walk(final=True)
+        self._trim()
+        return out
+
+    def _walk(self, final: bool) -> list[tuple[int, bytes]]:
+        out: list[tuple[int, bytes]] = []
+        buf = self._buf
+        size = len(buf)
+        mv = memoryview(buf)
+        try:
+            while True:
+                pos = self._pos
+                if pos >= size:
+                    self._need = size + 1
+                    return out
+                if buf[pos : pos + _SYNC_LEN] != SYNC:
+                    if not final and size - pos < _SYNC_LEN and SYNC.startswith(bytes(buf[pos:])):
+                        self._need = pos + _SYNC_LEN  # maybe the start of a marker
+                        return out
+                    self._search(pos + 1, size, final)
+                    if self._pos >= size and not final:
+                        return out
+                    continue
+                length = frame_extent(mv, pos)
+                if length is not None and self.max_frame is not None and length > self.max_frame:
+                    length = None
+                if length is None and not final and size - pos < HEADER_BYTES:
+                    self._need = pos + HEADER_BYTES
+                    return out
+                if length is not None and pos + length > size and not final:
+                    self._need = pos + length
+                    return out
+                if length is not None and frame_crc_ok(mv, pos, length):
+                    out.append((self._base + pos, mv[pos : pos + length].tobytes()))
+                    self._pos = pos + length
+                    self._expected = True
+                    continue
+                if self._expected:
+                    self.crc_failure_count += 1
+                    if len(self.crc_failures) < MAX_LISTED:
+                        self.crc_failures.append(self._base + pos)
+                self._expected = False
+                self._search(pos + 1, size, final)
+        finally:
+            mv.release()
+
+    def _search(self, start: int, size: int, final: bool) -> None:
+        """Move to the next sync marker at or after ``start``, counting skipped bytes."""
+        nxt = self._buf.find(SYNC, start)
+        was = self._pos
+        if nxt < 0:
+            # Keep a trailing byte that may be the first half of a marker.
+            keep = 0 if final else _partial_sync_tail(self._buf, max(start, size - _SYNC_LEN + 1))
+            nxt = size - keep
+            self._need = size + 1
+        self.skipped_bytes += nxt - was
+        self._pos = nxt
+        self._expected = False
+
+    def _trim(self) -> None:
+        drop = self._pos
+        if drop:
+            del self._buf[:drop]
+            self._base += drop
+            self._need = max(0, self._need - drop)
+            self._pos = 0
+
+
+def _partial_sync_tail(buf: bytearray, start: int) -> int:
+    """Bytes at the end of ``buf`` (from ``start``) that could begin a sync marker."""
+    for k in range(min(_SYNC_LEN - 1, len(buf) - start), 0, -1):
+        if SYNC.startswith(bytes(buf[-k:])):
+            return k
+    return 0
+
+
 def locate_frames(data: bytes) -> Located:
-    """Locate every CRC-valid frame in ``data``."""
-    mv = memoryview(data)
-    size = len(data)
-    offsets: list[int] = []
-    lengths: list[int] = []
-    failures: list[int] = []
-    pos = data.find(SYNC)
-    skipped = size if pos < 0 else pos
-    expected = True  # pos is where a frame should start (not found by searching)
-    if pos > 0:
-        expected = False
-    while 0 <= pos < size:
-        length = frame_extent(mv, pos)
-        if length is not None and frame_crc_ok(mv, pos, length):
-            end = pos + length
-            offsets.append(pos)
-            lengths.append(length)
-            pos = end
-            expected = True
-            if pos < size and mv[pos : pos + len(SYNC)] != SYNC:
-                nxt = data.find(SYNC, pos)
-                skipped += (size if nxt < 0 else nxt) - pos
-                pos, expected = nxt, False
-            continue
-        if expected:
-            failures.append(pos)
-        nxt = data.find(SYNC, pos + 1)
-        skipped += (size if nxt < 0 else nxt) - pos
-        pos, expected = nxt, False
-    return Located(
-        np.asarray(offsets, dtype=np.int64), np.asarray(lengths, dtype=np.int64), failures, skipped
-    )
+    """Locate every CRC-valid frame in ``data`` (one :class:`FrameScanner` pass)."""
+    scan = FrameScanner()
+    found = scan.feed(data) + scan.close()
+    offsets = np.fromiter((o for o, _ in found), dtype=np.int64, count=len(found))
+    lengths = np.fromiter((len(f) for _, f in found), dtype=np.int64, count=len(found))
+    return Located(offsets, lengths, scan.crc_failures, scan.skipped_bytes)
+
+
+@dataclass
+class SequenceTracker:
+    """Sequence numbers -> windows, with the duplicate / out-of-order policy above.
+
+    Parameters
+    ----------
+    reorder : int
+        Windows a frame may arrive behind the head and still be placed.
+    end_window : int or None
+        First window past the end of the stream, when the length is known.
+    """
+
+    reorder: int = 16
+    end_window: int | None = None
+    head: int | None = None
+    released: int = 0  # windows below this were handed out and are closed
+    _seen: dict = field(default_factory=dict)  # (window, channel, kind) -> CRC of first copy
+
+    def place(self, sequence: int, channel: int, kind: int, crc: int,
+              modulus: int = 65536) -> tuple[int, str]:
+        """Window of one frame (row) and the verdict: ``ok`` or why it is dropped.
+
+        ``modulus`` is the range of the frame's sequence field (65 536 in layout
+        v1 and gap-mask frames, 256 in layout v2: there a frame more than 128
+        windows away from the head is ambiguous).
+        """
+        if self.head is None:
+            window = int(sequence)  # the first frame fixes the unwrapping
+        else:
+            half = modulus // 2
+            step = (int(sequence) - self.head + half) % modulus - half
+            window = self.head + step
+        if window < 0:
+            return window, "before_start"
+        if self.end_window is not None and window >= self.end_window:
+            return window, "beyond_end"
+        if window < self.released:
+            return window, "late"
+        key = (window, int(channel), int(kind))
+        first = self._seen.get(key)
+        if first is not None:
+            return window, "duplicate" if first == crc else "conflict"
+        self._seen[key] = crc
+        self.head = window if self.head is None else max(self.head, window)
+        return window, "ok"
+
+    def releasable(self, final: bool) -> int:
+        """Windows below the returned one may be released (no frame can still land there)."""
+        if self.head is None:
+            return self.released
+        return self.head + 1 if final else max(self.released, self.head - self.reorder + 1)
+
+    def release(self, upto: int) -> None:
+        """Close windows below ``upto`` and forget their duplicate keys (bounded memory).
+
+        Keys of closed windows are never consulted again (a frame there is
+        ``late`` before duplicates are looked up), so pruning changes no verdict.
+        """
+        self.released = max(self.released, upto)
+        if len(self._seen) > 4 * 256 * (self.reorder + 2):
+            self._seen = {k: v for k, v in self._seen.items() if k[0] >= self.released}

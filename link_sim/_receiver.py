@@ -62,8 +62,11 @@ def _decode_tolerant(rx: bytes, profile, total: int):
     """codec.decode, falling back to one frame at a time when a frame's header is refused."""
     try:
         d = codec.decode(rx, profile, samples=total)
+        # The decoder refuses damaged, foreign or misplaced frames as events, not errors.
+        refused = sum(v for k, v in d.counts.items() if k.startswith("frames_")
+                      and k not in ("frames_ok", "frames_crc_failed"))
         return d.samples, d.delivered, d.frames["offset"], d.frames["length"], \
-            d.frames["window"], d.frames["channel"], len(d.crc_failures), 0
+            d.frames["window"], d.frames["channel"], len(d.crc_failures), refused
     except codec.FrameError:
         pass
     except IndexError:

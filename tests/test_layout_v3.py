@@ -6,7 +6,6 @@ import numpy as np
 import pytest
 
 import codec
-from codec import FrameError
 from codec._layout import frame_crc_ok, frame_extent
 from codec._layout_v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
 from codec._stream import locate_frames
@@ -103,12 +102,49 @@ def test_a_frame_whose_coefficient_bytes_do_not_match_is_refused():
     assert not p["consumed_ok"].any()
 
 
-def test_v2_and_v3_frames_are_not_mixed():
+def test_v2_then_v3_frames_decode_frame_by_frame():
+    # every frame names its layout version: windows 0-23 in v2, then 24-46 in v3
     x = _signal()
-    a = codec.encode(x, codec.Profile(layout_version=2))
-    b = codec.encode(x, codec.Profile())
-    with pytest.raises(FrameError, match="mixes frame layout versions 2 and 3"):
-        codec.decode(a.data + b.data, a.profile)
+    prof = codec.Profile()
+    a = codec.encode(x[: 24 * 64], prof.model_copy(update={"layout_version": 2}))
+    b = codec.encode(x[24 * 64 :], prof, first_window=24)
+    dec = codec.decode(a.data + b.data, a.profile, samples=x.shape[0])
+    assert dec.delivered.all()
+    assert np.array_equal(dec.samples, np.concatenate([a.reconstruction, b.reconstruction]))
+
+
+@pytest.mark.parametrize("multi", [False, True])
+def test_streaming_decoder_reads_multi_window_frames_in_any_chunks(multi):
+    # 700 windows of N = 2 in frames of 8 windows: sequence numbers (8 bits) wrap twice;
+    # two frames swapped across the wrap, and the bytes fed in odd-sized chunks.
+    x = np.stack([np.sin(np.arange(1400) * 0.01), np.cos(np.arange(1400) * 0.02)], axis=1)
+    enc = codec.encode(x, codec.Profile(frame_length=2, fidelity=0.9,
+                                        multi_channel_frames=multi))
+    loc = locate_frames(enc.data)
+    f = [enc.data[a : a + n] for a, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
+    k = 256 // 8 * (1 if multi else 2)  # first frame of window 256
+    f[k - 1], f[k] = f[k], f[k - 1]
+    data = b"".join(f)
+    sd = codec.StreamDecoder(enc.profile, samples=1400)
+    blocks = []
+    for a in range(0, len(data), 37):
+        blocks += sd.feed(data[a : a + 37])
+    blocks += sd.close()
+    out = np.concatenate([b.samples for b in blocks])
+    assert np.array_equal(out, enc.reconstruction)
+    whole = codec.decode(data, enc.profile, samples=1400)
+    assert whole.delivered.all() and np.array_equal(whole.samples, enc.reconstruction)
+
+
+def test_stream_encoder_emits_v3_frames_that_decode():
+    x = _signal(1000)
+    prof = codec.Profile()
+    se = codec.StreamEncoder(prof, 3)
+    data = b"".join(se.feed(x[a : a + 300]) for a in range(0, 1000, 300)) + se.close()
+    assert data[2] >> 4 == 3
+    dec = codec.decode(data, se.profile, samples=1000)
+    assert dec.delivered.all()
+    assert np.abs(dec.samples - x).max() < np.abs(x).max()
 
 
 def test_short_last_window_and_long_frames():

@@ -4,31 +4,43 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import os
 import sys
 from pathlib import Path
 
 import numpy as np
 
-from .._bases import basis_from_code, basis_names
-from .._codec import decode, encode
-from .._errors import FrameError, InputError, TrimlinkError
-from .._io import SampleTable, atomic_output, read_samples, write_samples
-from .._layout import frame_version, parse_headers
+from .._bases import basis_names
+from .._codec import check_some_frame, decode, decode_frames, encode
+from .._errors import FrameError, InputError
+from .._gaps import GAP_POLICIES
+from .._io import (
+    CsvBlockReader,
+    SampleTable,
+    atomic_output,
+    is_stdio,
+    read_samples,
+    write_csv_block,
+    write_samples,
+)
+from .._klt import profile_basis
+from .._layout import GAP_KIND
 from .._profile import (
     Profile,
     StreamNote,
     load_profile,
     load_stream_note,
     note_path,
-    profile_id,
     save_stream_note,
 )
 from .._quantize import step_from_code
 from .._report import error_figures
-from .._stream import locate_frames
+from .._stream import STATUS_NAMES, locate_frames
+from .._streaming import StreamDecoder, StreamEncoder
+from .._stuffing import STUFFINGS, Unstuffer, stuff
 from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
 
-__all__ = ["register", "roundtrip_report", "write_stream"]
+__all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
 
 _CAUTION = ("caution: lossy coding; do not use it for signals on which safety depends "
             "unless the fidelity has been justified for that use.")
@@ -37,21 +49,33 @@ _CAUTION = ("caution: lossy coding; do not use it for signals on which safety de
 def register(sub: argparse._SubParsersAction) -> None:
     names = ", ".join(basis_names())
     p = sub.add_parser("encode", help="code a sample file into a stream of frames",
-                       description=f"Code INPUT (.csv or .npy) into STREAM. Bases: {names}.")
+                       description=f"Code INPUT (.csv or .npy; - reads CSV from standard input "
+                       f"and codes it as it arrives) into STREAM (- writes to standard output). "
+                       f"Bases: {names}.")
     p.add_argument("input", metavar="INPUT")
     p.add_argument("-o", "--output", required=True, metavar="STREAM")
     add_profile_options(p)
     p.add_argument("--json", metavar="REPORT", help="write the JSON report here")
-    p.set_defaults(handler=_encode)
+    _add_stream_options(p)
+    p.add_argument("--gaps", choices=GAP_POLICIES, default="refuse",
+                   help="NaN samples: refuse (default), fill by linear interpolation, or mark "
+                   "them so the receiver reproduces them as NaN")
+    p.set_defaults(handler=_quiet_broken_pipe(_encode))
 
     p = sub.add_parser("decode", help="decode a stream back into samples",
                        description="Decode STREAM into OUTPUT (.csv or .npy). Without -p the "
-                       "profile recorded beside the stream (STREAM.profile.toml) is used.")
+                       "profile recorded beside the stream (STREAM.profile.toml) is used. "
+                       "STREAM - reads standard input as it arrives (give -p); OUTPUT - writes "
+                       "CSV to standard output as samples are released. Damaged, foreign and "
+                       "missing frames are counted in the report, never fatal.")
     p.add_argument("stream", metavar="STREAM")
     p.add_argument("-o", "--output", required=True, metavar="OUTPUT")
     p.add_argument("-p", "--profile", metavar="PROFILE")
     p.add_argument("--json", metavar="REPORT")
-    p.set_defaults(handler=_decode)
+    _add_stream_options(p)
+    p.add_argument("--reorder", type=int, default=16, metavar="W",
+                   help="time windows a frame may arrive late and still be placed (default 16)")
+    p.set_defaults(handler=_quiet_broken_pipe(_decode))
 
     p = sub.add_parser("roundtrip", help="encode, decode and check every frame meets the target",
                        description="Exit 0 when every frame meets the target, 1 when any "
@@ -65,6 +89,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("stream", metavar="STREAM")
     p.add_argument("-p", "--profile", metavar="PROFILE")
     p.set_defaults(handler=_inspect)
+
+
+def _add_stream_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--stuffing", choices=("none",) + STUFFINGS, default="none",
+                   help="byte-stream framing for serial modems: SLIP (RFC 1055) or COBS "
+                   "(Cheshire & Baker 1999), one frame per packet")
 
 
 def _read_stream(path: str) -> bytes:
@@ -88,14 +118,35 @@ def _stream_profile(args) -> tuple[Profile, StreamNote | None]:
     return load_stream_note(note)
 
 
-def write_stream(path: str | Path, table: SampleTable, profile: Profile):
-    """Encode ``table`` and write the stream plus its recorded profile, atomically together."""
-    result = encode(table.values, profile)
+def _quiet_broken_pipe(handler):
+    """A reader that closes the pipe early (``| head``) ends the command quietly."""
+    def run(args) -> int:
+        try:
+            return handler(args)
+        except BrokenPipeError:
+            with contextlib.suppress(OSError):
+                os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            return 0
+    return run
+
+
+def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: str = "refuse",
+                 stuffing: str = "none"):
+    """Encode ``table`` and write the stream plus its recorded profile, atomically together.
+
+    ``path`` ``-`` writes the stream to standard output (no profile file then).
+    """
+    result = encode(table.values, profile, gaps=gaps)
+    data = _stuff(result.data, stuffing)
+    if is_stdio(path):
+        sys.stdout.buffer.write(data)
+        sys.stdout.buffer.flush()
+        return result
     note = _note_for(table)
     with contextlib.ExitStack() as stack:
         tmp_stream = stack.enter_context(atomic_output(path))
         tmp_note = stack.enter_context(atomic_output(note_path(path)))
-        tmp_stream.write_bytes(result.data)
+        tmp_stream.write_bytes(data)
         save_stream_note(result.profile, note, tmp_note)
     return result
 
@@ -111,18 +162,70 @@ def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
 
 
 def _encode(args) -> int:
-    check_distinct(args.input, args.output)
-    table = read_samples(args.input)
+    if is_stdio(args.input):
+        return _encode_live(args)
+    if not is_stdio(args.output):
+        check_distinct(args.input, args.output)
+    table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
-    result = write_stream(args.output, table, profile)
+    result = write_stream(args.output, table, profile, args.gaps, args.stuffing)
     write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
+    out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
           f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
           f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']}), "
-          f"SNR {fmt(r['snr_db'], '.2f')} dB")
-    print(_CAUTION)
+          f"SNR {fmt(r['snr_db'], '.2f')} dB", file=out)
+    if r.get("samples_gap"):
+        print(f"{r['samples_gap']} missing samples "
+              f"{'filled by linear interpolation' if args.gaps == 'fill' else 'marked as gaps'}",
+              file=out)
+    print(_CAUTION, file=out)
+    return 0
+
+
+def _stuff(data: bytes, stuffing: str) -> bytes:
+    """Wrap each frame of a clean stream in a SLIP or COBS packet."""
+    if stuffing == "none":
+        return data
+    loc = locate_frames(data)
+    frames = [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
+    return stuff(frames, stuffing)
+
+
+def _encode_live(args) -> int:
+    """Code CSV from standard input block by block, writing frames as windows complete."""
+    reader = CsvBlockReader(sys.stdin.buffer)
+    to_stdout = is_stdio(args.output)
+    info = sys.stderr if to_stdout else sys.stdout
+    enc = None
+    with contextlib.ExitStack() as stack:
+        if to_stdout:
+            sink = sys.stdout.buffer
+        else:
+            tmp = stack.enter_context(atomic_output(args.output))
+            sink = stack.enter_context(open(tmp, "wb"))
+        for values, _time in reader.blocks():
+            if enc is None:
+                profile = resolve_profile(args, reader.names)
+                enc = StreamEncoder(profile, len(reader.names), gaps=args.gaps)
+            sink.write(_stuff(enc.feed(values), args.stuffing))
+            sink.flush()
+        if enc is None:
+            raise InputError("no data rows arrived under the header", "standard input")
+        sink.write(_stuff(enc.close(), args.stuffing))
+        sink.flush()
+        if not to_stdout:
+            tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
+            save_stream_note(enc.profile, StreamNote(samples=enc.samples), tmp_note)
+    print(f"{enc.window} windows, {enc.samples} samples x {len(reader.names)} channels -> "
+          f"{8 * enc.bytes_out} bits ({8 * enc.bytes_out / (enc.samples * len(reader.names)):.3f}"
+          " bits/sample)", file=info)
+    if to_stdout:
+        print("note: no STREAM.profile.toml is written for standard output; decode with -p "
+              "PROFILE (the stream's end is then known only from a short last frame)", file=info)
+    print(_CAUTION, file=info)
     return 0
 
 
@@ -145,31 +248,137 @@ def _note_for(table: SampleTable) -> StreamNote:
 
 
 def _decode(args) -> int:
-    check_distinct(args.stream, args.output)
-    profile, note = _stream_profile(args)
-    data = _read_stream(args.stream)
-    result = decode(data, profile, samples=note.samples if note else None)
-    time = None
-    if note and note.time_start is not None:
-        time = note.time_start + note.time_step * np.arange(result.samples.shape[0])
+    if not is_stdio(args.stream) and not is_stdio(args.output):
+        check_distinct(args.stream, args.output)
+    if is_stdio(args.stream) and not args.profile:
+        raise InputError("a stream on standard input has no recorded profile; pass -p PROFILE",
+                         "standard input")
+    if args.reorder < 0:
+        raise InputError("--reorder must be 0 or more windows", "command line")
+    # A profile recorded beside a stream (STREAM.profile.toml) also gives its length.
+    profile, note = (_stream_profile(args) if not is_stdio(args.stream)
+                     else load_stream_note(args.profile))
+    if not profile.channels:
+        raise InputError("the profile lists no channels, so the stream's columns are unknown; "
+                         "use the profile recorded beside the stream", args.profile)
+    report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, args.stuffing,
+                                        args.reorder, args.output)
+    check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
-    write_samples(args.output, SampleTable(result.samples, names, time, note.time_name or "time"
-                                           if note else "time"))
-    report = {
-        "frames": int(result.frames["offset"].size),
-        "samples": int(result.samples.shape[0]),
-        "channels": len(names),
-        "bits_total": 8 * len(data),
-        "frames_crc_failed": len(result.crc_failures),
-        "bytes_skipped": result.skipped_bytes,
-        "samples_delivered": int(result.delivered.sum()),
-        "samples_missing": int((~result.delivered).sum()),
-    }
+    if not is_stdio(args.output):
+        values = (np.concatenate([b.samples for b in blocks]) if blocks
+                  else np.zeros((0, len(names))))
+        time = None
+        if note and note.time_start is not None:
+            time = note.time_start + note.time_step * np.arange(values.shape[0])
+        write_samples(args.output, SampleTable(values, names, time, note.time_name or "time"
+                                               if note else "time"))
     write_json(args.json, report)
-    print(f"{report['frames']} frames decoded -> {report['samples']} samples x "
-          f"{report['channels']} channels; {report['frames_crc_failed']} CRC failures, "
-          f"{report['samples_missing']} samples missing")
+    out = sys.stderr if is_stdio(args.output) else sys.stdout
+    c = report
+    gapf = f" ({c['gap_frames_ok']} with gap masks)" if c["gap_frames_ok"] else ""
+    print(f"{c['frames_ok'] + c['gap_frames_ok']} frames decoded{gapf} -> {c['samples']} "
+          f"samples x {c['channels']} "
+          f"channels: {c['samples_delivered']} delivered, {c['samples_lost']} lost, "
+          f"{c['samples_gap']} gap; {c['frames_crc_failed']} CRC failures, "
+          f"{c['bytes_skipped']} bytes skipped" + _event_summary(c)
+          + ("" if c["end_known"] else "; the stream's end is not known (no stream note), so "
+             "frames lost after the last one received are not counted"), file=out)
     return 0
+
+
+_EVENT_KEYS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
+               "before_start")
+
+
+def _event_summary(c: dict) -> str:
+    parts = [f"{c[f'frames_{k}']} {k.replace('_', ' ')}" for k in _EVENT_KEYS
+             if c.get(f"frames_{k}")]
+    return ("; frames refused: " + ", ".join(parts)) if parts else ""
+
+
+def check_some_frame_foreign(dec: StreamDecoder) -> None:
+    """No frame at all is a user error (exit 2) when there is nothing to account for.
+
+    With the stream's length known (its note) a damaged stream is reported, all
+    samples lost, exit 0; with frames only of another profile, or with no frame
+    and no known length, the command says why and exits 2.
+    """
+    c = dec.counts()
+    if c["frames_ok"] or c["gap_frames_ok"]:
+        return
+    if c.get("frames_foreign_profile") or not dec.end_known:
+        check_some_frame(c, dec.events)
+
+
+def _byte_chunks(path: str, size: int = 65536):
+    """The stream's bytes in chunks (standard input as it arrives)."""
+    if is_stdio(path):
+        src = sys.stdin.buffer
+        read = getattr(src, "read1", src.read)
+        while chunk := read(size):
+            yield chunk
+        return
+    try:
+        fh = open(path, "rb")
+    except FileNotFoundError:
+        raise InputError("no such stream file; check the path", path) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the stream ({exc.strerror})", path) from None
+    with fh:
+        while chunk := fh.read(size):
+            yield chunk
+
+
+def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: str = "none",
+                  reorder: int = 16, output: str | None = None
+                  ) -> tuple[dict, list, StreamDecoder]:
+    """Run the streaming decoder over byte ``chunks``; return the report, blocks and decoder.
+
+    With ``output`` ``-`` the released samples are written to standard output
+    as CSV at once and not kept (a live pipeline); otherwise they are returned.
+    """
+    dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder)
+    unstuff = Unstuffer(stuffing) if stuffing != "none" else None
+    live = output is not None and is_stdio(output)
+    blocks: list = []
+    names = [c.name for c in profile.channels]
+    timed = note is not None and note.time_start is not None
+    if live:
+        sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
+
+    def take(new) -> None:
+        if live:
+            for b in new:
+                time = (note.time_start + note.time_step * (b.start + np.arange(len(b.samples)))
+                        if timed else None)
+                write_csv_block(sys.stdout, b.samples, time)
+            sys.stdout.flush()
+        else:
+            blocks.extend(new)
+
+    for chunk in chunks:
+        if unstuff is None:
+            take(dec.feed(chunk))
+        else:
+            for packet in unstuff.feed(chunk):
+                take(dec.feed(packet))
+    if unstuff is not None:
+        for packet in unstuff.close():
+            take(dec.feed(packet))
+    take(dec.close())
+    report = dec.counts()
+    report["channels"] = len(names)
+    report["bits_total"] = 8 * report["bytes_in"]
+    if unstuff is not None:
+        report["stuffing"] = stuffing
+        report["packets_bad"] = unstuff.bad_packets
+        report["packets_overlong"] = unstuff.overlong
+    report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
+    report["events"] = dec.events
+    report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
+                               "samples_concealed = samples x channels")
+    return report, blocks, dec
 
 
 def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
@@ -227,6 +436,11 @@ def _roundtrip(args) -> int:
 
 
 def _inspect(args) -> int:
+    """List every frame: where, which version/kind, which window and channels, and verdict.
+
+    Goes through the same per-frame interpreter as the decoder, so it reads
+    every layout version and gap-mask frames, and a damaged frame is a line.
+    """
     data = _read_stream(args.stream)
     profile = None
     if args.profile:
@@ -237,55 +451,33 @@ def _inspect(args) -> int:
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a trimlink stream?", args.stream)
-    if (frame_version(np.frombuffer(data, np.uint8), loc.offsets) != 1).any():
-        return _inspect_v2(data, loc, profile, args.stream)
-    head = parse_headers(np.frombuffer(data, np.uint8), loc.offsets)
-    pid = profile_id(profile) if profile else None
-    names = [c.name for c in profile.channels] if profile else None
-    n = profile.frame_length if profile else None
-    rows = [(int(o), "ok", i) for i, o in enumerate(loc.offsets)]
-    rows += [(int(o), "CRC FAILED", None) for o in loc.crc_failures]
+    frames = [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
+    fr = None
+    if profile is not None and profile.channels:
+        fr = decode_frames(frames, profile, profile_basis(profile))
+    names = [c.name for c in profile.channels] if profile and profile.channels else None
+    rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
+    rows += [(int(o), None) for o in loc.crc_failures]
     rows.sort()
-    out = [f"{'byte':>9} {'seq':>6} {'channel':<14} {'basis':<9} {'terms':>5} {'step':>11} "
-           f"{'bits':>6}  crc"]
-    for off, status, i in rows:
+    out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'terms':>5} {'bits':>7}  status"]
+    for off, i in rows:
         if i is None:
-            out.append(f"{off:>9} {'-':>6} {'-':<14} {'-':<9} {'-':>5} {'-':>11} {'-':>6}  "
-                       f"{status}")
+            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':>5} {'-':>7}  CRC FAILED")
             continue
-        ch = int(head["channel"][i])
-        chan = names[ch] if names and ch < len(names) else str(ch)
-        try:
-            basis = basis_from_code(int(head["basis"][i]), n or 64).name
-        except TrimlinkError:
-            basis = f"#{int(head['basis'][i])}"
-        flag = status
-        if pid is not None and head["profile"][i] != pid:
-            flag += " (other profile)"
-        out.append(f"{off:>9} {int(head['sequence'][i]):>6} {chan:<14} {basis:<9} "
-                   f"{int(head['terms'][i]):>5} {step_from_code(head['step_code'][i]):>11.4g} "
-                   f"{int(loc.lengths[i]) * 8:>6}  {flag}")
-    out.append(f"{loc.offsets.size} frames ok, {len(loc.crc_failures)} CRC failures, "
-               f"{loc.skipped_bytes} bytes outside frames")
-    sys.stdout.write("\n".join(out) + "\n")
-    return 0
-
-
-def _inspect_v2(data: bytes, loc, profile: Profile | None, where: str) -> int:
-    """Frame table of a layout-2 stream (its payload needs the profile to be read)."""
-    if profile is None:
-        raise InputError("layout-2 frames need the stream's profile to be listed; pass -p "
-                         "PROFILE", where)
-    dec = decode(data, profile)
-    f = dec.frames
-    names = [c.name for c in profile.channels]
-    out = [f"{'byte':>9} {'seq':>6} {'channel':<14} {'terms':>5} {'step':>11} {'bits':>6}  crc"]
-    for i in range(f["offset"].size):
-        out.append(f"{int(f['offset'][i]):>9} {int(f['sequence'][i]):>6} "
-                   f"{names[int(f['channel'][i])]:<14} {int(f['terms'][i]):>5} "
-                   f"{step_from_code(f['step_code'][i]):>11.4g} {int(f['bits'][i]):>6}  ok")
-    out += [f"{off:>9} CRC FAILED" for off in loc.crc_failures]
-    out.append(f"{loc.offsets.size} frames ok (layout 2), {len(loc.crc_failures)} CRC failures, "
+        version = frames[i][2] >> 4
+        kind = "gap" if version == GAP_KIND else f"v{version}"
+        bits = 8 * len(frames[i])
+        if fr is None:
+            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  crc ok "
+                       "(no profile: contents not read)")
+            continue
+        chans = fr.row_channel[fr.row_frame == i].tolist()
+        chans += [c for c, _ in fr.masks.get(i, ())]
+        label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
+        status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
+        out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
+                   f"{int(fr.head['terms'][i]):>5} {bits:>7}  {status}")
+    out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
                f"{loc.skipped_bytes} bytes outside frames")
     sys.stdout.write("\n".join(out) + "\n")
     return 0
