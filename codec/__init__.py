@@ -11,7 +11,15 @@ from ._compare import Comparison, compare_bases, energy_compaction
 from ._crc import crc16_ibm3740, crc32_iso_hdlc
 from ._errors import FrameError, InputError, ProfileError, TrimlinkError
 from ._klt import TrainedBasis, load_trained_basis, save_trained_basis, train_klt
-from ._profile import ChannelSpec, Profile, default_profile, load_profile, profile_id, save_profile
+from ._profile import (
+    ChannelSpec,
+    Profile,
+    default_profile,
+    load_profile,
+    profile_id,
+    read_toml,
+    save_profile,
+)
 from ._report import error_figures
 from ._stream import CONCEALED, DELIVERED, GAP, LOST, STATUS_NAMES
 from ._streaming import StreamDecoder, StreamEncoder
@@ -23,7 +31,8 @@ __all__ = [
     "TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt",
     "crc16_ibm3740", "crc32_iso_hdlc",
     "FrameError", "InputError", "ProfileError", "TrimlinkError",
-    "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "save_profile",
+    "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "read_toml",
+    "save_profile",
     "error_figures",
     "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
 ]

@@ -39,6 +39,7 @@ __all__ = [
     "load_stream_note",
     "save_stream_note",
     "note_path",
+    "read_toml",
 ]
 
 #: Channels one stream can carry (the frame header's channel field is 8 bits).
@@ -170,20 +171,29 @@ def profile_id(profile: Profile) -> int:
     return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
 
 
-def load_profile(path: str | Path) -> Profile:
-    """Read and validate a TOML profile, naming the file and key on any error."""
+def read_toml(path: str | Path, what: str = "profile") -> dict:
+    """Parse a human-written TOML file (a ``what``), naming the file on any error.
+
+    TOML only: nothing in the file is executed and it cannot include other files.
+    """
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise ProfileError("no such profile file; check the path", str(path)) from None
+        raise ProfileError(f"no such {what} file; check the path", str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise ProfileError(f"cannot read the profile ({exc.__class__.__name__})",
+        raise ProfileError(f"cannot read the {what} ({exc.__class__.__name__})",
                            str(path)) from None
     try:
-        data = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ProfileError(f"not valid TOML ({exc})", str(path)) from None
+
+
+def load_profile(path: str | Path) -> Profile:
+    """Read and validate a TOML profile, naming the file and key on any error."""
+    path = Path(path)
+    data = read_toml(path)
     data.pop("stream", None)  # the note encode writes beside a stream; not part of a profile
     if isinstance(data.get("basis_file"), str) and not Path(data["basis_file"]).is_absolute():
         data["basis_file"] = str(path.parent / data["basis_file"])  # relative to the profile

@@ -33,14 +33,13 @@ For a satellite in a circular orbit, replace ``distance_m`` by::
 from __future__ import annotations
 
 import difflib
-import tomllib
 from pathlib import Path
 from typing import Annotated, Literal
 
 import annotated_types as at
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from codec import ProfileError
+from codec import ProfileError, read_toml
 
 from ._channels import MODULATIONS
 from ._fec import FEC_NAMES
@@ -140,18 +139,7 @@ def link_from_dict(data: dict, where: str = "link file") -> LinkFile:
 def load_link(path: str | Path) -> LinkFile:
     """Read and validate a TOML link file; every error names the file and the key."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ProfileError("no such link file; check the path", str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ProfileError(f"cannot read the link file ({exc.__class__.__name__})",
-                           str(path)) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ProfileError(f"not valid TOML ({exc})", str(path)) from None
-    return link_from_dict(data, str(path))
+    return link_from_dict(read_toml(path, "link"), str(path))
 
 
 def _leaves(data: dict, prefix: str = ""):

@@ -14,6 +14,7 @@ its traceback.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from importlib.metadata import entry_points
 
@@ -55,6 +56,11 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"trimlink {args.command}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # The reader went away (e.g. '| head'): stop quietly, as Unix tools do.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 141
 
 
 if __name__ == "__main__":
