@@ -600,57 +600,34 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         parts.append((v1, np.minimum(h["channel"], 255), h["flags"], rows,
                       np.zeros(v1.size, np.int64), h["valid"]))
 
-    v2 = np.flatnonzero(version == LAYOUT_VERSION_2)
-    if v2.size:
-        p = parse_frames_v2(joined, offsets[v2], lengths[v2], n, channels,
-                            profile.reference == "ac")
-        sequence[v2], valid[v2] = p["sequence"], p["valid"]
-        head["basis"][v2] = basis.code
-        np.add.at(head["terms"], v2[p["frame"]], (p["q"] != 0).sum(axis=1))
+    # Layouts 2 and 3 share their header checks; 3 may carry several windows per frame.
+    for number, parse in ((LAYOUT_VERSION_2, parse_frames_v2), (LAYOUT_VERSION_3, parse_frames_v3)):
+        vi = np.flatnonzero(version == number)
+        if not vi.size:
+            continue
+        p = parse(joined, offsets[vi], lengths[vi], n, channels, profile.reference == "ac")
+        sequence[vi], valid[vi] = p["sequence"], p["valid"]
+        head["basis"][vi] = basis.code
+        np.add.at(head["terms"], vi[p["frame"]], (p["q"] != 0).sum(axis=1))
         pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
-        refuse(v2, p["profile"] != pid8, "foreign_profile",
-               lambda f: f"made under another profile (id byte "
-                         f"{int(p['profile'][v2 == f][0]):#04x}, not {pid8:#04x})")
-        refuse(v2, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
-        bad_ch = np.zeros(v2.size, dtype=bool)
+        refuse(vi, p["profile"] != pid8, "foreign_profile",
+               lambda f, p=p, vi=vi, pid8=pid8: f"made under another profile (id byte "
+               f"{int(p['profile'][vi == f][0]):#04x}, not {pid8:#04x})")
+        refuse(vi, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
+        bad_ch = np.zeros(vi.size, dtype=bool)
         np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
-        refuse(v2, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
-        refuse(v2, ~p["consumed_ok"], "bad_header",
+        refuse(vi, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
+        refuse(vi, ~p["consumed_ok"], "bad_header",
                "contents do not fill the length field exactly")
-        good = ok[v2][p["frame"]]
+        good = ok[vi][p["frame"]]
         rows = np.full((p["q"].shape[0], n), np.nan)
         if good.any():
             rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
                                      p["step_code"][good], basis)
-        parts.append((v2[p["frame"]], np.minimum(p["channel"], 255),
-                      np.zeros(p["frame"].size, np.int64), rows,
-                      np.zeros(p["frame"].size, np.int64), p["valid"][p["frame"]]))
-
-    v3 = np.flatnonzero(version == LAYOUT_VERSION_3)
-    if v3.size:
-        p = parse_frames_v3(joined, offsets[v3], lengths[v3], n, channels,
-                            profile.reference == "ac")
-        sequence[v3], valid[v3] = p["sequence"], p["valid"]
-        head["basis"][v3] = basis.code
-        np.add.at(head["terms"], v3[p["frame"]], (p["q"] != 0).sum(axis=1))
-        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
-        refuse(v3, p["profile"] != pid8, "foreign_profile",
-               lambda f: f"made under another profile (id byte "
-                         f"{int(p['profile'][v3 == f][0]):#04x}, not {pid8:#04x})")
-        refuse(v3, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
-        bad_ch = np.zeros(v3.size, dtype=bool)
-        np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
-        refuse(v3, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
-        refuse(v3, ~p["consumed_ok"], "bad_header",
-               "contents do not fill the length field exactly")
-        good = ok[v3][p["frame"]]
-        rows = np.full((p["q"].shape[0], n), np.nan)
-        if good.any():
-            rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
-                                     p["step_code"][good], basis)
-        parts.append((v3[p["frame"]], np.minimum(p["channel"], 255),
-                      np.zeros(p["frame"].size, np.int64), rows, p["window_offset"],
-                      p["sub_valid"]))
+        window_offset = p.get("window_offset", np.zeros(p["frame"].size, np.int64))
+        sub_valid = p.get("sub_valid", p["valid"][p["frame"]])
+        parts.append((vi[p["frame"]], np.minimum(p["channel"], 255),
+                      np.zeros(p["frame"].size, np.int64), rows, window_offset, sub_valid))
 
     masks: dict[int, list] = {}
     for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames are rare: one parse each

@@ -126,6 +126,32 @@ def frame_crc_ok(mv: memoryview, pos: int, length: int) -> bool:
         mv[end - CRC_BYTES : end], "big")
 
 
+def wrap_frames(body: np.ndarray, body_bytes: np.ndarray) -> np.ndarray:
+    """Frames from their bodies: sync marker + body + CRC-16 of the body, back to back.
+
+    ``body`` holds every frame's bytes between the sync marker and the CRC, frame
+    after frame; ``body_bytes`` gives each frame's share.  Every layout version
+    ends its frames this way, so the envelope rule can check any of them.
+    """
+    body_bytes = np.asarray(body_bytes, dtype=np.int64)
+    length = body_bytes + len(SYNC) + CRC_BYTES
+    out = np.empty(int(length.sum()), dtype=np.uint8)
+    ostart = np.cumsum(length) - length
+    bstart = np.cumsum(body_bytes) - body_bytes
+    dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
+    out[dest] = body
+    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
+    mv = memoryview(np.ascontiguousarray(body))
+    crc = np.fromiter(
+        (crc16_ibm3740(mv[s : s + b]) for s, b in zip(bstart.tolist(), body_bytes.tolist())),
+        dtype=np.int64, count=body_bytes.size,
+    )
+    cpos = ostart + length - CRC_BYTES
+    out[cpos] = crc >> 8
+    out[cpos + 1] = crc & 0xFF
+    return out
+
+
 def index_bits(n: int) -> int:
     """Bits that index one of ``n`` terms."""
     return max(1, int(n - 1).bit_length())
@@ -199,20 +225,7 @@ def pack_frames(batch: FrameBatch, profile_id: int, n: int) -> tuple[bytes, np.n
     widths[fstart + per_frame - 1] = pad
     body = pack_fields(values, widths)
 
-    out = np.empty(int(length.sum()), dtype=np.uint8)
-    ostart = np.cumsum(length) - length
-    bstart = np.cumsum(body_bytes) - body_bytes
-    dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
-    out[dest] = body
-    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
-    mv = memoryview(body)
-    crc = np.fromiter(
-        (crc16_ibm3740(mv[s : s + b]) for s, b in zip(bstart.tolist(), body_bytes.tolist())),
-        dtype=np.int64, count=nf,
-    )
-    cpos = ostart + length - CRC_BYTES
-    out[cpos] = crc >> 8
-    out[cpos + 1] = crc & 0xFF
+    out = wrap_frames(body, body_bytes)
     return out.tobytes(), length
 
 
@@ -579,20 +592,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     wid[lastrow, slots - 1] = body_bytes * 8 - bits
     body = pack_bits(val.ravel(), wid.ravel())
 
-    out = np.empty(int(length.sum()), dtype=np.uint8)
-    ostart = np.cumsum(length) - length
-    bstart = np.cumsum(body_bytes) - body_bytes
-    dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
-    out[dest] = body
-    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
-    mv = memoryview(body)
-    crc = np.fromiter(
-        (crc16_ibm3740(mv[s : s + b]) for s, b in zip(bstart.tolist(), body_bytes.tolist())),
-        dtype=np.int64, count=nf,
-    )
-    cpos = ostart + length - CRC_BYTES
-    out[cpos] = crc >> 8
-    out[cpos + 1] = crc & 0xFF
+    out = wrap_frames(body, body_bytes)
     return out.tobytes(), length, sub_bits, side_bits
 
 

@@ -22,7 +22,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._crc import crc16_ibm3740
 from ._entropy import BitReader, bit_length, pack_bits, unzigzag, zigzag
 from ._layout import (
     CRC_BYTES,
@@ -32,6 +31,7 @@ from ._layout import (
     SYNC,
     count_bits,
     index_bits,
+    wrap_frames,
 )
 from ._range import coefficient_ops, decode_coefficients, encode_lanes
 
@@ -149,24 +149,17 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
     heads = pack_bits(val.ravel(), wid.ravel())
 
     # frame = sync | header bytes | lane bytes | crc
-    ostart = np.cumsum(length) - length
-    out = np.zeros(int(length.sum()), dtype=np.uint8)
+    body_bytes = head_bytes + lane_len
+    bstart = np.cumsum(body_bytes) - body_bytes
+    body = np.empty(int(body_bytes.sum()), dtype=np.uint8)
     hstart = np.cumsum(head_bytes) - head_bytes
-    dest = np.repeat(ostart + len(SYNC) - hstart, head_bytes) + np.arange(heads.size)
-    out[dest] = heads
+    body[np.repeat(bstart - hstart, head_bytes) + np.arange(heads.size)] = heads
     lstart = np.cumsum(lane_len) - lane_len
-    dest = np.repeat(ostart + len(SYNC) + head_bytes - lstart, lane_len) \
-        + np.arange(lane_bytes.size)
-    out[dest] = lane_bytes
-    out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
-    mv = memoryview(out)
-    cpos = ostart + length - CRC_BYTES
-    crc = np.fromiter(
-        (crc16_ibm3740(mv[s + len(SYNC) : e]) for s, e in zip(ostart.tolist(), cpos.tolist())),
-        dtype=np.int64, count=nf,
-    )
-    out[cpos] = crc >> 8
-    out[cpos + 1] = crc & 0xFF
+    body[np.repeat(bstart + head_bytes - lstart, lane_len) + np.arange(lane_bytes.size)] = \
+        lane_bytes
+    out = wrap_frames(body, body_bytes)
+    if out.size != int(length.sum()):
+        raise RuntimeError("v3 frames differ from their length fields")  # our bug
     return out.tobytes(), length, sub_bits, lane_len
 
 
