@@ -290,6 +290,9 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     }
     report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met, floor,
                            extra_bits=extra_bits, header_bits=header_bits)
+    # `frames` counts coded frames (one window of one channel); layouts 2 and 3 can carry
+    # several of them under one header, so the frames actually sent are counted apart.
+    report["frames_on_wire"] = int(np.unique(row_frame).size)
     report["gap_policy"] = gaps
     report["samples_gap"] = 0 if missing is None else int(missing.sum())
     if missing is not None and gaps == "mark":

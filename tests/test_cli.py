@@ -54,6 +54,7 @@ def test_encode_decode_inspect(sample_csv, tmp_path, capsys):
     # one line per frame on the wire (a v3 frame carries several windows of a channel)
     wire = locate_frames(stream.read_bytes()).offsets.size
     assert len([ln for ln in lines if ln.rstrip().endswith(" ok")]) == wire
+    assert report["frames_on_wire"] == wire
 
 
 def test_roundtrip_exit_codes_and_overrides(sample_csv, tmp_path):
