@@ -82,14 +82,19 @@ def _decode_tolerant(rx: bytes, profile, total: int):
             continue
         out = np.where(d.delivered, d.samples, out)
         got |= d.delivered
-        keep.append(off)
-        lens.append(length)
-        windows.append(int(d.frames["window"][0]))
-        chans.append(int(d.frames["channel"][0]))
-    offs = np.asarray(keep, np.int64)
-    rejected = loc.offsets.size - offs.size
-    return (out, got, offs, np.asarray(lens, np.int64), np.asarray(windows, np.int64),
-            np.asarray(chans, np.int64), len(loc.crc_failures), rejected)
+        rows = d.frames["window"].size  # a frame may carry several windows or channels
+        keep.append(np.full(rows, off))
+        lens.append(np.full(rows, length))
+        windows.append(d.frames["window"])
+        chans.append(d.frames["channel"])
+    if not keep:
+        empty = np.zeros(0, np.int64)
+        return out, got, empty, empty, empty, empty, len(loc.crc_failures), loc.offsets.size
+    offs = np.concatenate(keep).astype(np.int64)
+    rejected = loc.offsets.size - np.unique(offs).size
+    return (out, got, offs, np.concatenate(lens).astype(np.int64),
+            np.concatenate(windows).astype(np.int64), np.concatenate(chans).astype(np.int64),
+            len(loc.crc_failures), rejected)
 
 
 def conceal(samples: np.ndarray, delivered: np.ndarray, policy: str):
@@ -155,6 +160,13 @@ def receive(rx: bytes, tx: bytes, arrived: np.ndarray, frame_lengths: np.ndarray
             samples, got = np.full((total, channels), np.nan), np.zeros((total, channels), bool)
             offs = lens = windows = chans = np.zeros(0, np.int64)
             crc_fail = rejected = 0
+    # The decoder lists one row per window and channel; a frame on the wire may carry
+    # several, so frames are counted by their offsets.
+    row_offs = offs
+    offs, row_frame = np.unique(row_offs, return_inverse=True)
+    frame_lens = np.zeros(offs.size, np.int64)
+    frame_lens[row_frame] = lens
+    lens = frame_lens
     # Truth: a delivered frame is right when it sits where a sent frame started, has
     # that frame's length and every byte matches.
     diff = np.concatenate([[0], np.cumsum(rxa != txa)])
@@ -174,8 +186,10 @@ def receive(rx: bytes, tx: bytes, arrived: np.ndarray, frame_lengths: np.ndarray
     bad_w[:total] = bad
     bad_wc = bad_w.reshape(w_total, n, channels).any(axis=1)
     inside = windows < w_total
-    flagged = np.zeros(windows.size, bool)
-    flagged[inside] = bad_wc[windows[inside], chans[inside]]
+    flagged_rows = np.zeros(windows.size, bool)
+    flagged_rows[inside] = bad_wc[windows[inside], chans[inside]]
+    flagged = np.zeros(offs.size, bool)
+    np.logical_or.at(flagged, row_frame, flagged_rows)
     out, status = conceal(samples, got, policy)
     return Reception(out, status, bad, int(offs.size), int((~clean).sum()), int(rejected),
                      int(flagged.sum()), int(crc_fail))

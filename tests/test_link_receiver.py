@@ -50,6 +50,21 @@ def test_every_sample_is_delivered_concealed_or_lost(data, coded, cfg, policy):
         assert r["ber_channel"] == 0 and r["frames_erased"] > 0
 
 
+@pytest.mark.parametrize("cfg", CHANNELS[:2] + CHANNELS[-1:], ids=lambda c: c.kind)
+def test_frames_are_counted_on_the_wire_with_multi_window_frames(data, cfg):
+    # The default layout carries several windows of a channel in one frame: frames sent,
+    # delivered, dropped and erased are counted in the same unit (frames on the wire).
+    enc = codec.encode(data, codec.default_profile().bind(BASIC_MOTIONS_CHANNELS))
+    wire = enc.report["frames_on_wire"]
+    assert wire < enc.report["frames"]  # several windows per frame
+    r = simulate(data, enc.profile, cfg, fec="none", trials=2, seed=5, enc=enc)
+    assert r["frames_sent"] == wire
+    assert r["frames_delivered"] + r["frames_dropped_crc"] + r["frames_erased"] == wire
+    clean = simulate(data, enc.profile, ChannelConfig("bsc", ber=0.0), fec="none", trials=1,
+                     seed=5, enc=enc)
+    assert clean["frames_delivered"] == wire and clean["samples_delivered"] == data.size
+
+
 def test_concealment_policies_on_a_hand_example():
     x = np.array([[1.0], [np.nan], [np.nan], [4.0], [np.nan]])
     got = np.isfinite(x)
