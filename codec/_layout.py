@@ -601,6 +601,39 @@ def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
     return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
 
 
+def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarray,
+                    mean: np.ndarray | None, count: np.ndarray, lb: int, n: int
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Read subframe ``s`` of each frame (layouts 2 and 3): step, mean, term count.
+
+    The first subframe sends its step code whole, later ones as an exp-Golomb
+    difference from the previous subframe's; the mean (when sent) is a
+    zig-zag exp-Golomb code; the count has ``lb`` bits.  Fills ``step``,
+    ``mean`` and ``count`` at ``rows``; returns the bit positions after them
+    and which frames hold an impossible value (refused by the decoder).
+    """
+    from ._entropy import unzigzag
+
+    bad = np.zeros(pp.size, dtype=bool)
+    if s == 0:
+        step[rows] = r.read(pp, STEP_BITS)
+        pp = pp + STEP_BITS
+    else:
+        v, used = r.exp_golomb(pp)
+        code = step[rows - 1] + unzigzag(v)
+        bad |= (code < 0) | (code >= (1 << STEP_BITS))
+        step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
+        pp = pp + used
+    if mean is not None:
+        v, used = r.exp_golomb(pp)
+        mean[rows] = unzigzag(v)
+        pp = pp + used
+    c = r.read(pp, lb)
+    bad |= c > n
+    count[rows] = np.minimum(c, n)
+    return pp + lb, bad
+
+
 def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
                     channels: int, has_mean: bool) -> dict[str, np.ndarray]:
     """Parse CRC-checked v2 frames at ``offsets`` into per-subframe arrays.
@@ -611,7 +644,7 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     ``consumed_ok`` is False for a frame whose contents do not fill its length
     exactly (to the byte), which the decoder refuses.
     """
-    from ._entropy import BitReader, unzigzag
+    from ._entropy import BitReader
 
     r = BitReader(data)
     nf = offsets.size
@@ -646,25 +679,10 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
-        pp = p[fr]
-        if s == 0:
-            step[rows] = r.read(pp, STEP_BITS)
-            pp = pp + STEP_BITS
-        else:
-            v, used = r.exp_golomb(pp)
-            code = step[rows - 1] + unzigzag(v)
-            ok[fr] &= (code >= 0) & (code < (1 << STEP_BITS))
-            step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
-            pp = pp + used
-        if has_mean:
-            v, used = r.exp_golomb(pp)
-            mean[rows] = unzigzag(v)
-            pp = pp + used
-        c = r.read(pp, lb)
-        pp = pp + lb
-        bad = c > n
-        c = np.minimum(c, n)
-        count[rows] = c
+        pp, bad = read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n)
+        ok[fr] &= ~bad
+        c = count[rows]
+        bad = np.zeros(fr.size, dtype=bool)
         kk = r.read(pp, np.where(c > 0, K_INIT_BITS, 0))
         pp = pp + np.where(c > 0, K_INIT_BITS, 0)
         # Coefficients: one vectorized step per coefficient index over all frames.

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._entropy import BitReader, bit_length, pack_bits, unzigzag, zigzag
+from ._entropy import BitReader, bit_length, pack_bits, zigzag
 from ._layout import (
     CRC_BYTES,
     LONG_LENGTH_BITS,
@@ -31,6 +31,7 @@ from ._layout import (
     SYNC,
     count_bits,
     index_bits,
+    read_subheaders,
     wrap_frames,
 )
 from ._range import coefficient_ops, decode_coefficients, encode_lanes
@@ -212,24 +213,8 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
-        pp = p[fr]
-        if s == 0:
-            step[rows] = r.read(pp, STEP_BITS)
-            pp = pp + STEP_BITS
-        else:
-            v, used = r.exp_golomb(pp)
-            code = step[rows - 1] + unzigzag(v)
-            ok[fr] &= (code >= 0) & (code < (1 << STEP_BITS))
-            step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
-            pp = pp + used
-        if has_mean:
-            v, used = r.exp_golomb(pp)
-            mean[rows] = unzigzag(v)
-            pp = pp + used
-        c = r.read(pp, lb)
-        ok[fr] &= c <= n
-        count[rows] = np.minimum(c, n)
-        p[fr] = pp + lb
+        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n)
+        ok[fr] &= ~bad
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
     ok &= (start <= end) & (length == lengths)
