@@ -50,6 +50,7 @@ __all__ = [
     "rice_escape_fields",
     "rice_escape_bits",
     "rice_k_from_context",
+    "preceding_sums",
     "zigzag",
     "unzigzag",
     "RICE_ESCAPE",
@@ -62,6 +63,19 @@ RICE_ESCAPE = 32
 ESCAPE_BITS = 53
 #: Longest unary run any reader here accepts (53 zeros then a 1 fits 54 bits).
 _MAX_UNARY = 53
+
+
+def preceding_sums(mag: np.ndarray, window: int) -> np.ndarray:
+    """Sum of the previous ``min(j, window)`` magnitudes before index j, for j = 1..n-1.
+
+    The context both adaptive coders (Rice parameters, range-coder classes)
+    are built on; shape ``(rows, n - 1)``, computed with one cumulative sum.
+    """
+    rows, n = mag.shape
+    c = np.zeros((rows, n + 1), dtype=np.int64)
+    np.cumsum(mag, axis=1, out=c[:, 1:])
+    j = np.arange(1, n)
+    return c[:, j] - c[:, np.maximum(j - window, 0)]
 
 
 def _bit_length(x: np.ndarray) -> np.ndarray:

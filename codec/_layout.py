@@ -51,6 +51,9 @@ __all__ = [
     "payload_bits_v2",
     "rice_parameters",
     "frame_version",
+    "wrap_frames",
+    "read_subheaders",
+    "write_subheaders",
 ]
 
 LAYOUT_VERSION = 1
@@ -356,14 +359,10 @@ def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> tuple[np.ndarray, np
     LOCO-I rule on ``total``, the sum of the previous ``min(j, CONTEXT_WINDOW)``
     magnitudes.  Returns ``(k, total)`` (``total[:, 0]`` is -1: no context).
     """
-    from ._entropy import rice_k_from_context
+    from ._entropy import preceding_sums, rice_k_from_context
 
     nf, n = mag.shape
-    c = np.zeros((nf, n + 1), dtype=np.int64)
-    np.cumsum(mag, axis=1, out=c[:, 1:])
-    j = np.arange(1, n)
-    lo = np.maximum(j - CONTEXT_WINDOW, 0)
-    total = c[:, j] - c[:, lo]
+    total = preceding_sums(mag, CONTEXT_WINDOW)
     k = np.empty((nf, n), dtype=np.int64)
     k[:, 0] = k_init
     w = min(CONTEXT_WINDOW, n)
@@ -392,16 +391,20 @@ def _runs(run: np.ndarray, nz: np.ndarray):
     return srow, scol, 2 * bit_length(eg) - 1, eg
 
 
+def _coding_state(q: np.ndarray, k_init: np.ndarray, last: np.ndarray):
+    """Magnitudes, non-zero mask, Rice parameters, in-range mask and run-mode mask."""
+    mag = np.abs(q)
+    k, ctx = rice_parameters(mag, k_init)
+    inside = np.arange(q.shape[1]) < last[:, None]
+    return mag, mag > 0, k, inside, (ctx == 0) & inside
+
+
 def coefficient_bits(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> np.ndarray:
     """Bits of the coded coefficients of each subframe (what :func:`coefficient_items` packs)."""
     from ._entropy import rice_escape_bits
 
-    ns, n = q.shape
-    mag = np.abs(q)
-    nz = mag > 0
-    k, ctx = rice_parameters(mag, k_init)
-    inside = np.arange(n) < last[:, None]
-    run = (ctx == 0) & inside
+    ns = q.shape[0]
+    mag, nz, k, inside, run = _coding_state(q, k_init, last)
     srow, _, eg_w, _ = _runs(run, nz)
     m = np.where(run, mag - 1, mag)
     w = rice_escape_bits(np.maximum(m, 0), np.where(run, 0, k)) + nz
@@ -429,11 +432,7 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
     from ._entropy import rice_escape_fields
 
     ns, n = q.shape
-    mag = np.abs(q)
-    nz = mag > 0
-    k, ctx = rice_parameters(mag, k_init)
-    inside = np.arange(n) < last[:, None]
-    run = (ctx == 0) & inside
+    mag, nz, k, inside, run = _coding_state(q, k_init, last)
     srow, scol, eg_w, eg = _runs(run, nz)
     run_w = np.zeros((ns, n), dtype=np.int64)
     run_v = np.zeros((ns, n), dtype=np.uint64)
@@ -509,8 +508,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     Returns the bytes, each frame's byte length, each subframe's payload bits
     and, of those, its side-information bits (step, count, k_init).
     """
-    from ._entropy import bit_length as _bit_length
-    from ._entropy import pack_bits, zigzag
+    from ._entropy import pack_bits
 
     nf = len(batch)
     q = batch.q
@@ -539,17 +537,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     # send the change from the previous subframe's code, exp-Golomb order 0 of
     # its zigzag (channels of one window usually have similar steps).
     lead = np.r_[True, batch.frame[1:] != batch.frame[:-1]]
-    dz = zigzag(np.diff(batch.step_code, prepend=0)) + 1
-    val[:, s0] = np.where(lead, batch.step_code, dz)
-    wid[:, s0] = np.where(lead, STEP_BITS, 2 * _bit_length(dz) - 1)
-    if batch.mean is not None:
-        zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
-        nb = _bit_length(zz)
-        wid[:, s0 + 1] = nb - 1
-        val[:, s0 + 2] = zz.astype(np.uint64)
-        wid[:, s0 + 2] = nb
-    val[:, s0 + 3] = last
-    wid[:, s0 + 3] = lb
+    write_subheaders(val, wid, s0, lead, batch.step_code, batch.mean, last, lb)
     val[:, s0 + 4] = k_init
     wid[:, s0 + 4] = np.where(last > 0, K_INIT_BITS, 0)
     c0 = nh + nsub
@@ -599,6 +587,32 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
 def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
     """Layout version nibble of the frames at ``offsets``."""
     return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
+
+
+def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarray,
+                     step_code: np.ndarray, mean: np.ndarray | None, count: np.ndarray,
+                     lb: int) -> None:
+    """Fill the four subframe-header slots from column ``col`` (layouts 2 and 3).
+
+    The inverse of :func:`read_subheaders`: a frame's first subframe (``lead``)
+    sends its step code in full, later ones the exp-Golomb code of the zigzag
+    difference from the previous subframe's; then the zigzag exp-Golomb mean
+    (prefix zeros and codeword in two slots, when a mean is sent) and the term
+    count in ``lb`` bits.
+    """
+    from ._entropy import bit_length, zigzag
+
+    dz = zigzag(np.diff(step_code, prepend=0)) + 1
+    val[:, col] = np.where(lead, step_code, dz)
+    wid[:, col] = np.where(lead, STEP_BITS, 2 * bit_length(dz) - 1)
+    if mean is not None:
+        zz = zigzag(mean) + 1  # exp-Golomb order 0 of zigzag(mean)
+        nb = bit_length(zz)
+        wid[:, col + 1] = nb - 1
+        val[:, col + 2] = zz.astype(np.uint64)
+        wid[:, col + 2] = nb
+    val[:, col + 3] = count
+    wid[:, col + 3] = lb
 
 
 def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarray,

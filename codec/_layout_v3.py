@@ -22,17 +22,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._entropy import BitReader, bit_length, pack_bits, zigzag
+from ._entropy import BitReader, pack_bits
 from ._layout import (
     CRC_BYTES,
     LONG_LENGTH_BITS,
     SHORT_LENGTH_BITS,
-    STEP_BITS,
     SYNC,
     count_bits,
     index_bits,
     read_subheaders,
     wrap_frames,
+    write_subheaders,
 )
 from ._range import coefficient_ops, decode_coefficients, encode_lanes
 
@@ -112,17 +112,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
     wid = np.zeros((ns, slots), dtype=np.int64)
     lead = np.zeros(ns, dtype=bool)
     lead[first] = True
-    dz = zigzag(np.diff(batch.step_code, prepend=0)) + 1
-    val[:, nh] = np.where(lead, batch.step_code, dz)
-    wid[:, nh] = np.where(lead, STEP_BITS, 2 * bit_length(dz) - 1)
-    if batch.mean is not None:
-        zz = zigzag(batch.mean) + 1  # exp-Golomb order 0 of zigzag(mean)
-        nb = bit_length(zz)
-        wid[:, nh + 1] = nb - 1
-        val[:, nh + 2] = zz.astype(np.uint64)
-        wid[:, nh + 2] = nb
-    val[:, nh + 3] = count
-    wid[:, nh + 3] = count_bits(n)
+    write_subheaders(val, wid, nh, lead, batch.step_code, batch.mean, count, count_bits(n))
     sub_bits = wid[:, nh:].sum(axis=1)
 
     short = batch.valid < n

@@ -41,6 +41,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ._entropy import preceding_sums
+
 __all__ = [
     "TOTAL_BITS",
     "MODEL_SYMBOLS",
@@ -306,11 +308,8 @@ def _classes(total: np.ndarray, u: np.ndarray, band: np.ndarray) -> np.ndarray:
 def _contexts(mag: np.ndarray) -> np.ndarray:
     """Class of every coefficient of every row (column 0: -1, coded on its own)."""
     ns, n = mag.shape
-    c = np.zeros((ns, n + 1), dtype=np.int64)
-    np.cumsum(mag, axis=1, out=c[:, 1:])
     j = np.arange(1, n)
-    lo = np.maximum(j - CONTEXT_WINDOW, 0)
-    total = c[:, j] - c[:, lo]
+    total = preceding_sums(mag, CONTEXT_WINDOW)
     u = total << 2  # 16 S / 4 once four magnitudes are known
     w = min(CONTEXT_WINDOW, n) - 1
     u[:, :w] = (total[:, :w] << 4) // j[:w]
