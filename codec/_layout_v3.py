@@ -28,6 +28,7 @@ from ._layout import (
     LONG_LENGTH_BITS,
     SHORT_LENGTH_BITS,
     SYNC,
+    FrameBatchV2,
     count_bits,
     index_bits,
     read_subheaders,
@@ -60,8 +61,8 @@ def channel_bits(channels: int) -> int:
 
 
 @dataclass
-class FrameBatchV3:
-    """Frames of layout v3 as parallel arrays.
+class FrameBatchV3(FrameBatchV2):
+    """Frames of layout v3: the v2 arrays plus ``windows`` per frame.
 
     Per frame: ``multi``, ``channel`` (when not multi), ``sequence`` (first
     window), ``windows`` (1..16), ``valid`` (real samples of the last window).
@@ -69,18 +70,7 @@ class FrameBatchV3:
     ``step_code``, ``mean`` (or None).
     """
 
-    multi: np.ndarray
-    channel: np.ndarray
-    sequence: np.ndarray
     windows: np.ndarray
-    valid: np.ndarray
-    frame: np.ndarray
-    step_code: np.ndarray
-    mean: np.ndarray | None
-    q: np.ndarray
-
-    def __len__(self) -> int:
-        return int(self.multi.size)
 
 
 def _counts(q: np.ndarray) -> np.ndarray:
