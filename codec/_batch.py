@@ -36,8 +36,7 @@ BUNDLE_LEVEL = 19
 
 
 def _frames_of(data: bytes) -> list[bytes]:
-    loc = locate_frames(data)
-    return [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
+    return locate_frames(data).frames
 
 
 def train_dictionary(sample_streams: list[bytes], size_bytes: int = 4096) -> bytes:

@@ -89,12 +89,15 @@ class Located:
         Offsets of frame candidates at an expected frame boundary whose CRC failed.
     skipped_bytes : int
         Bytes that belong to no accepted frame.
+    frames : list of bytes
+        The accepted frames themselves, in stream order.
     """
 
     offsets: np.ndarray
     lengths: np.ndarray
     crc_failures: list[int] = field(default_factory=list)
     skipped_bytes: int = 0
+    frames: list[bytes] = field(default_factory=list)
 
 
 class FrameScanner:
@@ -215,7 +218,8 @@ def locate_frames(data: bytes) -> Located:
     found = scan.feed(data) + scan.close()
     offsets = np.fromiter((o for o, _ in found), dtype=np.int64, count=len(found))
     lengths = np.fromiter((len(f) for _, f in found), dtype=np.int64, count=len(found))
-    return Located(offsets, lengths, scan.crc_failures, scan.skipped_bytes)
+    return Located(offsets, lengths, scan.crc_failures, scan.skipped_bytes,
+                   [bytes(f) for _, f in found])
 
 
 @dataclass

@@ -13,6 +13,7 @@ import numpy as np
 from .._bases import basis_names
 from .._codec import check_some_frame, decode, decode_frames, encode
 from .._errors import FrameError, InputError
+from .._framing import split_frames
 from .._gaps import GAP_POLICIES
 from .._io import (
     CsvBlockReader,
@@ -189,9 +190,7 @@ def _stuff(data: bytes, stuffing: str) -> bytes:
     """Wrap each frame of a clean stream in a SLIP or COBS packet."""
     if stuffing == "none":
         return data
-    loc = locate_frames(data)
-    frames = [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
-    return stuff(frames, stuffing)
+    return stuff(locate_frames(data).frames, stuffing)
 
 
 def _encode_live(args) -> int:
@@ -394,14 +393,11 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
         raise RuntimeError("a clean round trip lost samples")  # our bug
     n = enc.profile.frame_length
     info = enc.frames
-    err = np.zeros(info["channel"].size)
-    start = info["window"] * n
-    for k in range(n):  # loop over the N positions of a frame, each over all frames at once
-        idx = start + k
-        inside = idx < values.shape[0]
-        e = values[idx[inside], info["channel"][inside]] - \
-            dec.samples[idx[inside], info["channel"][inside]]
-        err[inside] += e * e
+    # Error energy of every (window, channel) frame over its real samples only.
+    e, valid, _, _ = split_frames(values - dec.samples, n)
+    e = np.where(np.arange(n) < valid[:, None], e, 0.0)
+    err_rows = np.einsum("ij,ij->i", e, e)  # window-major rows: window * channels + channel
+    err = err_rows[info["window"] * values.shape[1] + info["channel"]]
     met = err <= info["budget"]
     e_ref = info["reference_energy"]
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
@@ -451,10 +447,9 @@ def _inspect(args) -> int:
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a trimlink stream?", args.stream)
-    frames = [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
     fr = None
     if profile is not None and profile.channels:
-        fr = decode_frames(frames, profile, profile_basis(profile))
+        fr = decode_frames(loc.frames, profile, profile_basis(profile))
     names = [c.name for c in profile.channels] if profile and profile.channels else None
     rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
     rows += [(int(o), None) for o in loc.crc_failures]
@@ -464,9 +459,9 @@ def _inspect(args) -> int:
         if i is None:
             out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':>5} {'-':>7}  CRC FAILED")
             continue
-        version = frames[i][2] >> 4
+        version = loc.frames[i][2] >> 4
         kind = "gap" if version == GAP_KIND else f"v{version}"
-        bits = 8 * len(frames[i])
+        bits = 8 * len(loc.frames[i])
         if fr is None:
             out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  crc ok "
                        "(no profile: contents not read)")
