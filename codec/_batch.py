@@ -23,13 +23,22 @@ Media Type", RFC 8878, 2021 (dictionaries: section 5).
 
 from __future__ import annotations
 
-import numpy as np
-import zstandard
+import datetime as _dt
+import hashlib
+import tomllib
+from pathlib import Path
 
-from ._errors import FrameError, InputError
+import numpy as np
+import tomli_w
+import zstandard
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from ._errors import FrameError, InputError, ProfileError
 from ._stream import locate_frames
 
-__all__ = ["train_dictionary", "pack_bundle", "unpack_bundle", "bundle_report", "BUNDLE_LEVEL"]
+__all__ = ["train_dictionary", "pack_bundle", "unpack_bundle", "bundle_report", "BUNDLE_LEVEL",
+           "dictionary_id", "bundle_dictionary_id", "DictionaryNote", "dictionary_note",
+           "dictionary_note_path", "save_dictionary_note", "load_dictionary_note"]
 
 #: zstd level used for bundles (store-and-forward: time is cheap, bits are not).
 BUNDLE_LEVEL = 19
@@ -56,10 +65,42 @@ def train_dictionary(sample_streams: list[bytes], size_bytes: int = 4096) -> byt
     return d.as_bytes()
 
 
+def dictionary_id(dictionary: bytes) -> int:
+    """The zstd dictionary id written in a dictionary's header (RFC 8878, section 5).
+
+    Raises :class:`InputError` when the bytes are not a zstd dictionary (raw
+    content would give id 0, and a bundle could then not name what it needs).
+    """
+    if len(dictionary) < 8 or dictionary[:4] != b"\x37\xa4\x30\xec":
+        raise InputError("not a zstd dictionary (no dictionary magic number); make one with "
+                         "the bundle dictionary trainer", "dictionary")
+    did = zstandard.ZstdCompressionDict(dictionary).dict_id()
+    if did == 0:
+        raise InputError("the zstd dictionary has id 0, so a bundle could not name it; "
+                         "retrain the dictionary", "dictionary")
+    return did
+
+
+def bundle_dictionary_id(bundle: bytes) -> int:
+    """The dictionary id in the bundle's zstd frame header (0: packed without a dictionary)."""
+    try:
+        return zstandard.get_frame_parameters(bundle).dict_id
+    except zstandard.ZstdError:
+        raise FrameError("not a zstd bundle; check the file", "bundle") from None
+
+
 def pack_bundle(data: bytes, dictionary: bytes | None = None) -> bytes:
-    """Compress a stream of frames into one bundle (zstd level 19, optional dictionary)."""
+    """Compress a stream of frames into one bundle (zstd level 19, optional dictionary).
+
+    The zstd frame header records the stream's size and the dictionary's id,
+    so the receiver knows which dictionary the bundle needs and how large it
+    will be before it expands anything.
+    """
+    if dictionary:
+        dictionary_id(dictionary)  # a real zstd dictionary, so the frame names it
     zd = zstandard.ZstdCompressionDict(dictionary) if dictionary else None
-    zc = zstandard.ZstdCompressor(level=BUNDLE_LEVEL, dict_data=zd, write_content_size=True)
+    zc = zstandard.ZstdCompressor(level=BUNDLE_LEVEL, dict_data=zd, write_content_size=True,
+                                  write_dict_id=True)
     return zc.compress(data)
 
 
@@ -68,22 +109,47 @@ def unpack_bundle(bundle: bytes, dictionary: bytes | None = None,
     """The stream inside ``bundle``; refuses to expand beyond ``max_output_size`` bytes.
 
     The cap protects the receiver from a corrupt or hostile bundle that would
-    expand without bound.
+    expand without bound: a declared size over the cap is refused before
+    anything is expanded, and a bundle without a declared size is read
+    through a stream that stops one byte past the cap.  The dictionary id the
+    bundle's frame names must be the given dictionary's; a dictionary given
+    for a bundle packed without one is not used.  Bytes after the bundle's
+    zstd frame are refused (the stream would otherwise come back cut short).
     """
-    zd = zstandard.ZstdCompressionDict(dictionary) if dictionary else None
+    need = bundle_dictionary_id(bundle)
+    if need and not dictionary:
+        raise FrameError(f"the bundle was packed with the zstd dictionary of id {need}; "
+                         "give that dictionary", "bundle")
+    if need and dictionary_id(dictionary) != need:
+        raise FrameError(f"the bundle needs the zstd dictionary of id {need}, but the one "
+                         f"given has id {dictionary_id(dictionary)}; give the dictionary it "
+                         "was packed with", "bundle")
+    zd = zstandard.ZstdCompressionDict(dictionary) if need else None
     dz = zstandard.ZstdDecompressor(dict_data=zd)
-    try:
-        params = zstandard.get_frame_parameters(bundle)
-    except zstandard.ZstdError:
-        raise FrameError("not a zstd bundle; check the file", "bundle") from None
-    if params.content_size > max_output_size:
-        raise FrameError(f"the bundle would expand to {params.content_size} bytes, over the "
+    size = zstandard.get_frame_parameters(bundle).content_size
+    if size != zstandard.CONTENTSIZE_UNKNOWN and size > max_output_size:
+        raise FrameError(f"the bundle would expand to {size} bytes, over the "
                          f"{max_output_size}-byte cap; raise the cap if it is genuine", "bundle")
     try:
-        return dz.decompress(bundle, max_output_size=max_output_size)
+        with dz.stream_reader(bundle, read_across_frames=False) as reader:
+            capped = reader.read(max_output_size + 1)
+        if len(capped) > max_output_size:
+            raise FrameError(f"the bundle expands beyond the {max_output_size}-byte cap; "
+                             "raise the cap if it is genuine", "bundle")
+        # Within the cap: expand once more to learn where the zstd frame ends.
+        obj = dz.decompressobj()
+        data = obj.decompress(bundle)
     except zstandard.ZstdError as exc:
         raise FrameError(f"the bundle does not decompress ({exc}); it is corrupt or needs "
                          "another dictionary", "bundle") from None
+    if not obj.eof:
+        raise FrameError("the bundle ends inside its zstd frame; it was cut short", "bundle")
+    if obj.unused_data:
+        raise FrameError(f"{len(obj.unused_data)} bytes follow the bundle's zstd frame; "
+                         "a bundle is exactly one zstd frame", "bundle")
+    if data != capped:
+        raise RuntimeError("the two expansions of one bundle differ")  # our bug
+    return data
 
 
 def bundle_report(data: bytes, bundle: bytes, samples: int, dictionary: bytes | None) -> dict:
@@ -103,3 +169,53 @@ def bundle_report(data: bytes, bundle: bytes, samples: int, dictionary: bytes | 
                     "the bundle saves nothing: send the frames as they are"),
         "frames": int(np.size(locate_frames(data).offsets)),
     }
+
+
+class DictionaryNote(BaseModel):
+    """Provenance of a bundle dictionary, kept as TOML beside it (``DICT.note.toml``).
+
+    Sizes are in bytes; ``sha256`` is the SHA-256 of the dictionary file, so
+    both ends can check they hold the same one; ``zstd_dictionary_id`` is the
+    id every bundle packed with it names in its frame header.
+    """
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    streams: tuple[str, ...] = Field(min_length=1)
+    frames_used: int = Field(ge=1)
+    profile_id: int = Field(ge=0, le=0xFFFF)
+    dictionary_bytes: int = Field(ge=1)
+    zstd_dictionary_id: int = Field(ge=1)
+    zstd_level: int = BUNDLE_LEVEL
+    sha256: str = Field(pattern=r"^[0-9a-f]{64}$")
+    trained_utc: str
+
+
+def dictionary_note(dictionary: bytes, streams: list[str], frames_used: int,
+                    profile_id: int) -> DictionaryNote:
+    """The provenance note of a freshly trained ``dictionary``."""
+    return DictionaryNote(
+        streams=tuple(streams), frames_used=frames_used, profile_id=profile_id,
+        dictionary_bytes=len(dictionary), zstd_dictionary_id=dictionary_id(dictionary),
+        sha256=hashlib.sha256(dictionary).hexdigest(),
+        trained_utc=_dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat())
+
+
+def dictionary_note_path(dictionary_path: str | Path) -> Path:
+    """Where the note of a dictionary file is kept: ``DICT.note.toml``."""
+    return Path(f"{dictionary_path}.note.toml")
+
+
+def save_dictionary_note(note: DictionaryNote, path: str | Path) -> None:
+    """Write ``note`` as TOML to ``path``."""
+    Path(path).write_text(tomli_w.dumps(note.model_dump()), encoding="utf-8")
+
+
+def load_dictionary_note(path: str | Path) -> DictionaryNote:
+    """Read a dictionary note, naming the file on any error."""
+    try:
+        data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+        return DictionaryNote.model_validate(data)
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, ValidationError) as exc:
+        raise ProfileError(f"not a readable dictionary note ({exc.__class__.__name__}); "
+                           "retrain the dictionary or remove the note", str(path)) from None

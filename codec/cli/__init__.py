@@ -19,7 +19,7 @@ import sys
 from importlib.metadata import entry_points
 
 from .._errors import TrimlinkError
-from . import _codec_cmds, _compare_cmd, _demo, _train_cmd
+from . import _bundle_cmds, _codec_cmds, _compare_cmd, _demo, _train_cmd
 
 __all__ = ["main", "build_parser", "UsageError"]
 
@@ -37,7 +37,7 @@ def build_parser() -> argparse.ArgumentParser:
         "and size the link budget.",
     )
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for module in (_codec_cmds, _demo, _compare_cmd, _train_cmd):
+    for module in (_codec_cmds, _demo, _compare_cmd, _train_cmd, _bundle_cmds):
         module.register(sub)
     for ep in sorted(entry_points(group="trimlink.commands"), key=lambda e: e.name):
         ep.load()(sub)
