@@ -8,6 +8,7 @@ once.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 
 import numpy as np
 
@@ -37,9 +38,16 @@ from ._layout import (
     parse_payloads,
     payload_bits_v2,
 )
-from ._layout_v3 import LAYOUT_VERSION_3, FrameBatchV3, pack_frames_v3, parse_frames_v3
+from ._layout_v3 import (
+    LAYOUT_VERSION_3,
+    LAYOUT_VERSION_4,
+    FrameBatchV3,
+    pack_frames_v3,
+    parse_frames_v3,
+)
 from ._profile import Profile, profile_id
 from ._quantize import code_for_step, step_from_code
+from ._range import coefficient_cost_bits
 from ._report import stream_report
 from ._select import (
     _MARGIN,
@@ -49,6 +57,7 @@ from ._select import (
     reference_energy,
 )
 from ._stream import DELIVERED, locate_frames
+from ._trellis import dequantize_levels
 
 __all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
            "check_some_frame",
@@ -132,9 +141,17 @@ def as_samples(samples, where: str = "input", allow_gaps: bool = False) -> np.nd
 
 
 def reconstruct(q: np.ndarray, mean_int: np.ndarray | None, code: np.ndarray,
-                basis: Basis) -> np.ndarray:
-    """Frames from integer codes: the one synthesis both ends run."""
+                basis: Basis, trellis: bool = False) -> np.ndarray:
+    """Frames from integer codes: the one synthesis both ends run.
+
+    ``trellis`` (a bool, or one per row): rows of levels of dependent
+    quantization (layout 4).
+    """
     step = step_from_code(code)
+    if np.any(trellis):
+        rows = np.broadcast_to(np.asarray(trellis, dtype=bool), (q.shape[0],))
+        q = q.astype(np.float64)
+        q[rows] = dequantize_levels(q[rows].astype(np.int64))
     # einsum (not BLAS matmul): each row's sum runs in one fixed order whatever the
     # batch size, so a frame decodes bit-identically alone, in any batch, or in the
     # encoder's closed-loop check -- the streaming decoder relies on it.
@@ -187,15 +204,18 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
     cx = basis.analyze(frames)
     dc = basis.analyze(np.ones(n))
+    trellis = None  # layout 4: per frame, whether dependent quantization codes it
     if profile.layout_version == 1:
         offset = np.full(cx.shape[0], 0.5)
         code = choose_steps(cx, mean, dc, budget)
     else:
         code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n, profile.layout_version)
 
-    slack_budget = budget if profile.layout_version == 3 else None
+    slack_budget = budget if profile.layout_version >= 3 else None
     q, mean_int, _ = code_frame(cx, mean, dc, code, offset, slack_budget)
-    recon = reconstruct(q, mean_int, code, basis)
+    if profile.layout_version == LAYOUT_VERSION_4:
+        q, mean_int, code, trellis = _quantizer_choice(cx, mean, dc, budget, q, mean_int, code)
+    recon = reconstruct(q, mean_int, code, basis, trellis)
     err = _valid_error(frames, recon, mask)
     limit = _peak_limits(profile, channel)
     peak_mode = bool(np.isfinite(limit).any())
@@ -228,19 +248,20 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
                                  "meet at this signal's magnitude; raise max_error", "profile")
             raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
         code[bad] = np.maximum(code[bad] - d, finest[bad])
-        qb, mb, _ = code_frame(cx[bad], None if mean is None else mean[bad], dc, code[bad],
-                               offset[bad])
+        tb = None if trellis is None else trellis[bad]
+        qb, mb = _requantize(cx[bad], None if mean is None else mean[bad], dc, code[bad],
+                             offset[bad], tb)
         q[bad] = qb
         if mean_int is not None:
             mean_int[bad] = mb
-        recon[bad] = reconstruct(qb, mb, code[bad], basis)
+        recon[bad] = reconstruct(qb, mb, code[bad], basis, tb)
         err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
         rows = bad
         drop = step_drop(rows)
         if not (drop > 0).any():
             # Synthesize all frames in one call, as the decoder does: BLAS may round a
             # subset differently from the whole batch, so the check is redone on this.
-            recon = reconstruct(q, mean_int, code, basis)
+            recon = reconstruct(q, mean_int, code, basis, trellis)
             err = _valid_error(frames, recon, mask)
             rows = np.arange(code.size)
             drop = step_drop(rows)
@@ -275,7 +296,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         packing = profile if gap_rows is None else profile.model_copy(
             update={"windows_per_frame": 1})
         data, frame_bits, header_bits, row_frame = _pack_v3(
-            packing, channel, window + first_window, valid, code, mean_int, q, n)
+            packing, channel, window + first_window, valid, code, mean_int, q, n, trellis)
     extra_bits = 0
     if gap_rows is not None:
         data, dropped, extra_bits = _add_gap_frames(
@@ -381,7 +402,7 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
 
 
-def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
+def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, trellis=None):
     """Layout v3 frames: (bytes, bits per row, header bits of the stream, frame of each row).
 
     Header bits are everything but the range-coded coefficient bytes.
@@ -412,8 +433,9 @@ def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
             multi=np.full(b - a, multi), channel=channel[fo[a:b]], sequence=window[fo[a:b]],
             windows=nwin[a:b], valid=valid[order[lastrow[a:b]]],
             frame=frame[r0:r1] - frame[r0], step_code=code[rows],
-            mean=None if mean_int is None else mean_int[rows], q=q[rows])
-        parts.append(pack_frames_v3(batch, pid, n, channels))
+            mean=None if mean_int is None else mean_int[rows], q=q[rows],
+            quantizer=None if trellis is None else trellis[rows])
+        parts.append(pack_frames_v3(batch, pid, n, channels, profile.layout_version))
     data = b"".join(p[0] for p in parts)
     lengths, sub_bits, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
     cnt = np.bincount(frame, minlength=first.size)
@@ -424,6 +446,45 @@ def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n):
     row_frame = np.empty_like(frame)
     row_frame[order] = frame
     return data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8), row_frame
+
+
+def _requantize(cx, mean, dc, code, offset, trellis):
+    """Codes of frames at a given step, each with its own quantizer (the closed loop)."""
+    q, mean_int, _ = code_frame(cx, mean, dc, code, offset)
+    if trellis is not None and trellis.any():
+        t = np.flatnonzero(trellis)
+        qt, mt, _ = code_frame(cx[t], None if mean is None else mean[t], dc, code[t],
+                               trellis=True)
+        q[t] = qt
+        if mean_int is not None:
+            mean_int[t] = mt
+    return q, mean_int
+
+
+def _quantizer_choice(cx, mean, dc, budget, q, mean_int, code):
+    """Layout 4: per frame, scalar codes or dependent quantization, whichever costs fewer bits.
+
+    Both meet the frame's budget (the trellis step is searched like the scalar
+    one, from the scalar step as a hint); the cost is the range coder's ideal
+    code length of the coefficients.  Returns the chosen codes, mean codes,
+    step codes and the per-frame trellis flag.
+    """
+    code_t = choose_steps(cx, mean, dc, budget, hint=code, trellis=True)
+    q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, trellis=True)
+    use = (coefficient_cost_bits(q_t, trellis=True) + _mean_bits(mean_t)
+           < coefficient_cost_bits(q) + _mean_bits(mean_int))
+    q = np.where(use[:, None], q_t, q)
+    if mean_int is not None:
+        mean_int = np.where(use, mean_t, mean_int)
+    return q, mean_int, np.where(use, code_t, code), use
+
+
+def _mean_bits(mean_int):
+    """Bits of the exp-Golomb coded mean codes (0 when no mean is sent)."""
+    if mean_int is None:
+        return 0
+    from ._entropy import bit_length, zigzag
+    return 2 * bit_length(zigzag(mean_int) + 1) - 1
 
 
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
@@ -447,7 +508,7 @@ def _rate_fidelity_choice(cx, mean, dc, budget, n, version=2):
                                        dc, budget[a : a + _RD_BLOCK], n, version)
                  for a in range(0, nf, _RD_BLOCK)]
         return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
-    if version == 3:
+    if version >= 3:
         # With the rest of each budget spent by zeroing +-1 codes (spend_slack), one
         # rounding offset does as well as trying two: measured in FRAME_LAYOUT.md.
         code = choose_steps(cx, mean, dc, budget, RD_OFFSET_V3)
@@ -540,7 +601,8 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
     detail = [""] * nf
     ok = np.ones(nf, dtype=bool)  # mirror of verdict == "ok", for whole-array selection
     sequence = np.zeros(nf, np.int64)
-    modulus = np.where((version == LAYOUT_VERSION_2) | (version == LAYOUT_VERSION_3),
+    modulus = np.where((version == LAYOUT_VERSION_2) | (version == LAYOUT_VERSION_3)
+                       | (version == LAYOUT_VERSION_4),
                        1 << SEQUENCE_BITS_V2, 65536)
     # A gap-mask frame's rows and masks are keyed by its own 16-bit sequence number.
     valid = np.zeros(nf, np.int64)
@@ -603,8 +665,9 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         parts.append((v1, np.minimum(h["channel"], 255), h["flags"], rows,
                       np.zeros(v1.size, np.int64), h["valid"]))
 
-    # Layouts 2 and 3 share their header checks; 3 may carry several windows per frame.
-    for number, parse in ((LAYOUT_VERSION_2, parse_frames_v2), (LAYOUT_VERSION_3, parse_frames_v3)):
+    # Layouts 2 to 4 share their header checks; 3 and 4 may carry several windows per frame.
+    for number, parse in ((LAYOUT_VERSION_2, parse_frames_v2), (LAYOUT_VERSION_3, parse_frames_v3),
+                          (LAYOUT_VERSION_4, partial(parse_frames_v3, version=LAYOUT_VERSION_4))):
         vi = np.flatnonzero(version == number)
         if not vi.size:
             continue
@@ -626,7 +689,8 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         rows = np.full((p["q"].shape[0], n), np.nan)
         if good.any():
             rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
-                                     p["step_code"][good], basis)
+                                     p["step_code"][good], basis,
+                                     None if p.get("trellis") is None else p["trellis"][good])
         window_offset = p.get("window_offset", np.zeros(p["frame"].size, np.int64))
         sub_valid = p.get("sub_valid", p["valid"][p["frame"]])
         parts.append((vi[p["frame"]], np.minimum(p["channel"], 255),

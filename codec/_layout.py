@@ -108,7 +108,7 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
             return None
         length = int.from_bytes(mv[pos + 3 : pos + 5], "big")
         return length if length >= HEADER_BYTES + CRC_BYTES else None
-    if version in (LAYOUT_VERSION_2, _LAYOUT_VERSION_3):
+    if version in (LAYOUT_VERSION_2, _LAYOUT_VERSION_3, _LAYOUT_VERSION_4):
         if b0 & 0x08:  # long length field: 27 bits
             if pos + len(SYNC) + 4 > len(mv):
                 return None
@@ -342,8 +342,9 @@ SHORT_LENGTH_BITS = 11
 LONG_LENGTH_BITS = 27
 #: Smallest possible v2 frame: sync, 2 length bytes, 3 header bytes, CRC.
 _MIN_V2_BYTES = len(SYNC) + 2 + 3 + CRC_BYTES
-# Version 3 (``_layout_v3.py``) has the same envelope as version 2.
+# Versions 3 and 4 (``_layout_v3.py``) have the same envelope as version 2.
 _LAYOUT_VERSION_3 = 3
+_LAYOUT_VERSION_4 = 4
 _MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
 
 
@@ -591,14 +592,15 @@ def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
 
 def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarray,
                      step_code: np.ndarray, mean: np.ndarray | None, count: np.ndarray,
-                     lb: int) -> None:
+                     lb: int, quantizer: np.ndarray | None = None) -> None:
     """Fill the four subframe-header slots from column ``col`` (layouts 2 and 3).
 
     The inverse of :func:`read_subheaders`: a frame's first subframe (``lead``)
     sends its step code in full, later ones the exp-Golomb code of the zigzag
     difference from the previous subframe's; then the zigzag exp-Golomb mean
     (prefix zeros and codeword in two slots, when a mean is sent) and the term
-    count in ``lb`` bits.
+    count in ``lb`` bits; layout 4 adds a fifth slot, the quantizer bit
+    (``quantizer``: 1 = dependent quantization).
     """
     from ._entropy import bit_length, zigzag
 
@@ -613,17 +615,21 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
         wid[:, col + 2] = nb
     val[:, col + 3] = count
     wid[:, col + 3] = lb
+    if quantizer is not None:
+        val[:, col + 4] = quantizer
+        wid[:, col + 4] = 1
 
 
 def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarray,
-                    mean: np.ndarray | None, count: np.ndarray, lb: int, n: int
-                    ) -> tuple[np.ndarray, np.ndarray]:
+                    mean: np.ndarray | None, count: np.ndarray, lb: int, n: int,
+                    quantizer: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Read subframe ``s`` of each frame (layouts 2 and 3): step, mean, term count.
 
     The first subframe sends its step code whole, later ones as an exp-Golomb
     difference from the previous subframe's; the mean (when sent) is a
     zig-zag exp-Golomb code; the count has ``lb`` bits.  Fills ``step``,
-    ``mean`` and ``count`` at ``rows``; returns the bit positions after them
+    ``mean`` and ``count`` (and layout 4's ``quantizer`` bit) at ``rows``;
+    returns the bit positions after them
     and which frames hold an impossible value (refused by the decoder).
     """
     from ._entropy import unzigzag
@@ -645,7 +651,11 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     c = r.read(pp, lb)
     bad |= c > n
     count[rows] = np.minimum(c, n)
-    return pp + lb, bad
+    pp = pp + lb
+    if quantizer is not None:  # layout 4
+        quantizer[rows] = r.read(pp, 1)
+        pp = pp + 1
+    return pp, bad
 
 
 def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,

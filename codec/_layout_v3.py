@@ -1,11 +1,17 @@
-"""Frame layout version 3: several windows per frame, range-coded coefficients.
+"""Frame layouts 3 and 4: several windows per frame, range-coded coefficients.
+
+Version 4 is version 3 bit for bit except the version field and one more
+subframe-header bit after the count: 1 when the subframe's integers are
+levels of dependent (trellis-coded) quantization (:mod:`codec._trellis`),
+whose range-coder contexts also name the quantizer each level belongs to;
+0 for the scalar quantizer of version 3.
 
 Written down bit by bit in ``FRAME_LAYOUT.md`` ("Version 3").  A frame::
 
     sync(16) | version(4)=3 long(1) length(11 or 27) profile(8) sequence(8)
     windows-1(4) multi(1) [channel(cb) if multi = 0] short(1) [valid-1(ib) if short]
     | per subframe: step(10, or exp-Golomb of the zigzag change) [mean: exp-Golomb
-      of zigzag, reference ac] count(bit_length(N))
+      of zigzag, reference ac] count(bit_length(N)) [quantizer(1), version 4]
     | zero padding to a byte | range-coded coefficients of every subframe | crc(16)
 
 Subframes come window by window (the ``windows`` consecutive windows from
@@ -39,6 +45,7 @@ from ._range import coefficient_ops, decode_coefficients, encode_lanes
 
 __all__ = [
     "LAYOUT_VERSION_3",
+    "LAYOUT_VERSION_4",
     "MAX_WINDOWS",
     "MIN_V3_BYTES",
     "FrameBatchV3",
@@ -48,6 +55,8 @@ __all__ = [
 ]
 
 LAYOUT_VERSION_3 = 3
+#: Version 4: version 3 with levels of dependent quantization (``codec._trellis``).
+LAYOUT_VERSION_4 = 4
 WINDOW_BITS = 4
 #: Most windows one frame carries.
 MAX_WINDOWS = 1 << WINDOW_BITS
@@ -71,6 +80,8 @@ class FrameBatchV3(FrameBatchV2):
     """
 
     windows: np.ndarray
+    #: Layout 4: per subframe, 1 where the levels are of dependent quantization.
+    quantizer: np.ndarray | None = None
 
 
 def _counts(q: np.ndarray) -> np.ndarray:
@@ -78,9 +89,11 @@ def _counts(q: np.ndarray) -> np.ndarray:
     return np.where(nz.any(axis=1), q.shape[1] - np.argmax(nz[:, ::-1], axis=1), 0)
 
 
-def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
+def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
+                   version: int = LAYOUT_VERSION_3
                    ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
-    """Pack every frame of ``batch`` in layout v3.
+    """Pack every frame of ``batch`` in layout v3, or v4 (``version`` 4: the
+    rows of ``batch.q`` are levels of dependent quantization).
 
     Returns the bytes, each frame's byte length, each subframe's header bits
     (step, mean, count) and each frame's range-coded bytes.
@@ -91,18 +104,22 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
     vb = index_bits(n)
     cb = channel_bits(channels)
     count = _counts(q)
-    cum, freq, shift, row = coefficient_ops(q, count)
+    v4 = version == LAYOUT_VERSION_4
+    quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
+             else batch.quantizer.astype(bool)) if v4 else None
+    cum, freq, shift, row = coefficient_ops(q, count, trellis=quant)
     lane_bytes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
 
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
     lastrow = np.r_[first[1:] - 1, ns - 1]
-    nh, nsub = 10, 4
+    nh, nsub = 10, 5 if v4 else 4
     slots = nh + nsub + 1
     val = np.zeros((ns, slots), dtype=np.uint64)
     wid = np.zeros((ns, slots), dtype=np.int64)
     lead = np.zeros(ns, dtype=bool)
     lead[first] = True
-    write_subheaders(val, wid, nh, lead, batch.step_code, batch.mean, count, count_bits(n))
+    write_subheaders(val, wid, nh, lead, batch.step_code, batch.mean, count, count_bits(n),
+                     quant)
     sub_bits = wid[:, nh:].sum(axis=1)
 
     short = batch.valid < n
@@ -118,7 +135,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
     length = len(SYNC) + head_bytes + lane_len + CRC_BYTES
     if (length >= (1 << LONG_LENGTH_BITS)).any():
         raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
-    head = [(LAYOUT_VERSION_3, 4), (long, 1),
+    head = [(version, 4), (long, 1),
             (length, np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)),
             (profile_id & 0xFF, 8), (batch.sequence % 256, 8), (batch.windows - 1, WINDOW_BITS),
             (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, cb)),
@@ -145,13 +162,15 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int
 
 
 def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
-                    channels: int, has_mean: bool) -> dict[str, np.ndarray]:
-    """Parse CRC-checked v3 frames at ``offsets`` into per-subframe arrays.
+                    channels: int, has_mean: bool, version: int = LAYOUT_VERSION_3
+                    ) -> dict[str, np.ndarray]:
+    """Parse CRC-checked v3 (or, with ``version`` 4, v4) frames at ``offsets``.
 
     Returns per-frame ``profile``, ``sequence``, ``multi``, ``valid``, ``length``,
     ``consumed_ok`` and per-subframe ``frame``, ``channel``, ``window_offset``
     (window index relative to the frame's ``sequence``), ``sub_valid``,
-    ``step_code``, ``mean`` (or None), ``count``, ``q``.  ``consumed_ok`` is
+    ``step_code``, ``mean`` (or None), ``count``, ``q``, ``trellis`` (layout
+    4: whether the subframe's levels are of dependent quantization; else None).  ``consumed_ok`` is
     False for a frame whose contents do not match its length.
     """
     r = BitReader(data)
@@ -189,18 +208,20 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     step = np.zeros(ns, np.int64)
     mean = np.zeros(ns, np.int64) if has_mean else None
     count = np.zeros(ns, np.int64)
+    quant = np.zeros(ns, np.int64) if version == LAYOUT_VERSION_4 else None
     ok = np.ones(nf, dtype=bool)
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
-        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n)
+        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n, quant)
         ok[fr] &= ~bad
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
     ok &= (start <= end) & (length == lengths)
     start = np.minimum(start, end)
     buf = np.frombuffer(data, dtype=np.uint8)
-    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n)
+    trellis = None if quant is None else quant.astype(bool)
+    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n, trellis=trellis)
     # the lane must be used: no byte past what the decoder read, and no trailing zero byte
     lane_len = end - start
     last = buf[np.maximum(end - 1, 0)]
@@ -208,4 +229,4 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     return {"profile": profile, "sequence": sequence, "multi": multi, "valid": valid,
             "length": length, "consumed_ok": ok, "frame": owner, "channel": sub_channel,
             "window_offset": woff, "sub_valid": sub_valid, "windows": windows,
-            "step_code": step, "mean": mean, "count": count, "q": q}
+            "step_code": step, "mean": mean, "count": count, "q": q, "trellis": trellis}

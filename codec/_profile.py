@@ -83,11 +83,12 @@ class Profile(BaseModel):
     #: 0 means no energy target (a peak-error limit alone then sets the quality).
     fidelity: float = Field(default=0.99, ge=0.0, le=1.0)
     reference: Literal["total", "ac"] = "ac"
-    #: Frame layout the encoder writes (the decoder reads both).
-    layout_version: Literal[1, 2, 3] = 3
-    #: Layouts 2 and 3: one frame (one header) carries all channels of a time window.
+    #: Frame layout the encoder writes (the decoder reads every version); 4 is 3 with
+    #: dependent (trellis-coded) quantization.
+    layout_version: Literal[1, 2, 3, 4] = 3
+    #: Layouts 2 to 4: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
-    #: Layout 3 only: consecutive time windows one frame carries (1 to 16); more
+    #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
     windows_per_frame: int = Field(default=8, ge=1, le=16)
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)

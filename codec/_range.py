@@ -42,6 +42,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._entropy import preceding_sums
+from ._trellis import TRANSITIONS, quantizer_ids
 
 __all__ = [
     "TOTAL_BITS",
@@ -51,6 +52,7 @@ __all__ = [
     "context_class",
     "band_class",
     "CUM",
+    "TRELLIS_BASE",
     "SHIFT",
     "LEN_ROW",
     "encode_lanes",
@@ -101,6 +103,9 @@ def _uniform_cum(m: int = MODEL_SYMBOLS, total: int = TOTAL) -> list[int]:
 # a spectrum falls with frequency at a given local scale.
 _SCALES = 121
 _BANDS = 8
+_CLASSES = _SCALES * _BANDS
+#: Layout 4 (dependent quantization) classes: ``TRELLIS_BASE * (1 + quantizer) + class``.
+TRELLIS_BASE = _CLASSES
 
 #: (shift s, z, a) measured per (scale, band) cell on the quantized DCT
 #: coefficients of Gaussian AR(1) sources (rho 0.9, 0.95, 0.99; F 0.9 to 0.999;
@@ -243,6 +248,248 @@ _SCALE_PARAMS: tuple[tuple[int, int, int], ...] = (
 )
 
 
+#: Layout 4: (s, z, a) per (quantizer, scale, band) cell and per (quantizer, scale),
+#: measured like the ones above on the levels of dependent quantization.
+_TRELLIS_CELL_PARAMS: dict[tuple[int, int, int], tuple[int, int, int]] = {
+    (0, 0, 0): (0, 4025, 52508),
+    (0, 0, 2): (0, 5137, 51061),
+    (0, 0, 3): (0, 37244, 38924),
+    (0, 0, 4): (0, 55981, 5520),
+    (0, 0, 5): (0, 58317, 2157),
+    (0, 0, 6): (0, 62199, 2649),
+    (0, 0, 7): (0, 62957, 2758),
+    (0, 1, 3): (0, 45074, 14579),
+    (0, 1, 4): (0, 46164, 5044),
+    (0, 1, 5): (0, 51060, 4990),
+    (0, 1, 6): (0, 55966, 5470),
+    (0, 1, 7): (0, 55742, 5343),
+    (0, 3, 3): (0, 33972, 26349),
+    (0, 3, 4): (0, 41955, 8607),
+    (0, 3, 5): (0, 47304, 7439),
+    (0, 3, 6): (0, 50400, 7759),
+    (0, 3, 7): (0, 48470, 7342),
+    (0, 4, 2): (0, 31658, 23712),
+    (0, 4, 3): (0, 32523, 16979),
+    (0, 4, 4): (0, 35269, 11598),
+    (0, 4, 5): (0, 39399, 10185),
+    (0, 4, 6): (0, 39000, 11140),
+    (0, 4, 7): (0, 37454, 11296),
+    (0, 5, 1): (0, 9477, 39142),
+    (0, 5, 2): (0, 20867, 29100),
+    (0, 5, 3): (0, 18464, 26132),
+    (0, 5, 4): (0, 25941, 18110),
+    (0, 5, 5): (0, 25746, 19166),
+    (0, 5, 6): (0, 23360, 20006),
+    (0, 5, 7): (0, 22135, 21160),
+    (0, 6, 1): (0, 13797, 39800),
+    (0, 6, 2): (0, 14482, 30482),
+    (0, 6, 3): (0, 17989, 30121),
+    (0, 6, 4): (0, 19489, 24818),
+    (0, 6, 5): (0, 15872, 28613),
+    (0, 6, 6): (0, 14510, 30667),
+    (0, 6, 7): (0, 13565, 29278),
+    (0, 7, 0): (0, 6621, 51558),
+    (0, 7, 1): (0, 11748, 39242),
+    (0, 7, 2): (0, 9434, 43314),
+    (0, 7, 3): (0, 13376, 34418),
+    (0, 7, 4): (0, 13427, 34397),
+    (0, 7, 5): (0, 10453, 38301),
+    (0, 7, 6): (0, 9302, 39096),
+    (0, 7, 7): (0, 10377, 34446),
+    (0, 8, 1): (0, 8381, 44597),
+    (0, 8, 2): (0, 8308, 42445),
+    (0, 8, 3): (0, 10224, 42489),
+    (0, 8, 4): (0, 8316, 44784),
+    (0, 8, 5): (0, 6822, 46166),
+    (0, 8, 6): (0, 6846, 44098),
+    (0, 8, 7): (0, 8406, 38972),
+    (0, 9, 0): (0, 7738, 54116),
+    (0, 9, 1): (0, 6341, 51742),
+    (0, 9, 2): (0, 7551, 51896),
+    (0, 9, 3): (0, 5935, 52862),
+    (0, 9, 4): (0, 5942, 49905),
+    (0, 9, 5): (0, 4783, 50816),
+    (0, 9, 6): (0, 5514, 47390),
+    (0, 9, 7): (0, 6667, 42724),
+    (0, 10, 0): (0, 5975, 57768),
+    (0, 10, 1): (1, 7775, 53376),
+    (0, 10, 2): (0, 3717, 57770),
+    (0, 10, 3): (0, 4117, 53623),
+    (0, 10, 4): (0, 4481, 52746),
+    (0, 10, 5): (0, 3569, 53630),
+    (0, 10, 6): (0, 4241, 50369),
+    (0, 10, 7): (0, 5980, 48210),
+    (0, 11, 0): (1, 8572, 57761),
+    (0, 11, 1): (1, 8282, 52421),
+    (0, 11, 2): (1, 9372, 50836),
+    (0, 11, 3): (0, 3866, 55953),
+    (0, 11, 4): (0, 2630, 57617),
+    (0, 11, 5): (0, 3004, 55412),
+    (0, 11, 6): (0, 3174, 52768),
+    (0, 12, 0): (2, 8639, 51011),
+    (0, 12, 1): (1, 7745, 53169),
+    (0, 12, 2): (1, 10256, 53064),
+    (0, 12, 3): (1, 5223, 57548),
+    (0, 12, 4): (1, 6937, 53073),
+    (0, 12, 5): (0, 2172, 56889),
+    (0, 13, 0): (1, 5785, 57430),
+    (0, 13, 1): (2, 9220, 55947),
+    (0, 13, 2): (2, 11050, 54846),
+    (0, 13, 3): (2, 10168, 51229),
+    (0, 13, 4): (1, 6287, 53649),
+    (0, 13, 5): (0, 2020, 57387),
+    (0, 14, 1): (3, 9572, 50203),
+    (0, 14, 2): (2, 5938, 55123),
+    (0, 14, 3): (1, 4744, 56550),
+    (0, 14, 4): (1, 6511, 51932),
+    (0, 15, 1): (2, 5021, 56318),
+    (0, 15, 2): (2, 6361, 53809),
+    (0, 15, 3): (1, 5439, 55084),
+    (0, 16, 1): (2, 5437, 55079),
+    (0, 16, 2): (1, 4331, 56361),
+    (0, 17, 0): (3, 9035, 51095),
+    (1, 0, 3): (0, 33457, 2699),
+    (1, 0, 4): (0, 38894, 1092),
+    (1, 0, 5): (0, 41880, 936),
+    (1, 0, 6): (0, 47878, 518),
+    (1, 0, 7): (0, 50993, 386),
+    (1, 1, 3): (0, 30231, 9269),
+    (1, 1, 4): (0, 30623, 3895),
+    (1, 1, 5): (0, 33045, 2648),
+    (1, 1, 6): (0, 38018, 2127),
+    (1, 1, 7): (0, 38854, 2371),
+    (1, 3, 2): (0, 23202, 11443),
+    (1, 3, 3): (0, 22254, 24204),
+    (1, 3, 4): (0, 23926, 8013),
+    (1, 3, 5): (0, 26050, 5948),
+    (1, 3, 6): (0, 28497, 5962),
+    (1, 3, 7): (0, 26819, 6416),
+    (1, 4, 2): (0, 19588, 20359),
+    (1, 4, 3): (0, 19203, 17363),
+    (1, 4, 4): (0, 19506, 13445),
+    (1, 4, 5): (0, 21047, 11379),
+    (1, 4, 6): (0, 21207, 12732),
+    (1, 4, 7): (0, 19914, 13315),
+    (1, 5, 0): (0, 3574, 52730),
+    (1, 5, 1): (0, 8820, 41236),
+    (1, 5, 2): (0, 6309, 48438),
+    (1, 5, 3): (0, 12868, 28423),
+    (1, 5, 4): (0, 15240, 20638),
+    (1, 5, 5): (0, 14981, 21749),
+    (1, 5, 6): (0, 13612, 23283),
+    (1, 5, 7): (0, 12961, 24409),
+    (1, 6, 1): (0, 6989, 39822),
+    (1, 6, 2): (0, 10170, 33423),
+    (1, 6, 3): (0, 9418, 31813),
+    (1, 6, 4): (0, 12130, 28087),
+    (1, 6, 5): (0, 9844, 32336),
+    (1, 6, 6): (0, 9181, 33933),
+    (1, 6, 7): (0, 8446, 33027),
+    (1, 7, 1): (0, 7657, 41171),
+    (1, 7, 2): (0, 7569, 38600),
+    (1, 7, 3): (0, 9467, 36457),
+    (1, 7, 4): (0, 8727, 36905),
+    (1, 7, 5): (0, 6797, 40514),
+    (1, 7, 6): (0, 6194, 41222),
+    (1, 7, 7): (0, 6841, 37331),
+    (1, 8, 0): (0, 5077, 52445),
+    (1, 8, 1): (0, 6135, 45879),
+    (1, 8, 2): (0, 6007, 46130),
+    (1, 8, 3): (0, 6909, 43887),
+    (1, 8, 4): (0, 5757, 45733),
+    (1, 8, 5): (0, 4505, 47130),
+    (1, 8, 6): (0, 4569, 45669),
+    (1, 8, 7): (0, 5624, 41284),
+    (1, 9, 0): (0, 4986, 57205),
+    (1, 9, 1): (0, 4673, 53051),
+    (1, 9, 2): (0, 4254, 53753),
+    (1, 9, 3): (0, 4390, 53062),
+    (1, 9, 4): (0, 3942, 50524),
+    (1, 9, 5): (0, 3170, 51598),
+    (1, 9, 6): (0, 3613, 48529),
+    (1, 9, 7): (0, 4559, 44540),
+    (1, 10, 0): (1, 11069, 55126),
+    (1, 10, 1): (1, 5973, 53089),
+    (1, 10, 2): (1, 7439, 51508),
+    (1, 10, 3): (0, 3171, 54323),
+    (1, 10, 4): (0, 2993, 53242),
+    (1, 10, 5): (0, 2507, 54164),
+    (1, 10, 6): (0, 3368, 51461),
+    (1, 10, 7): (0, 4745, 47936),
+    (1, 11, 0): (2, 11129, 51840),
+    (1, 11, 1): (1, 5492, 52220),
+    (1, 11, 2): (1, 7837, 50589),
+    (1, 11, 3): (0, 2653, 56349),
+    (1, 11, 4): (1, 6820, 50480),
+    (1, 11, 5): (0, 1985, 55882),
+    (1, 11, 6): (0, 2479, 53164),
+    (1, 12, 0): (2, 12118, 51486),
+    (1, 12, 1): (1, 6673, 53512),
+    (1, 12, 2): (1, 8404, 53203),
+    (1, 12, 3): (1, 4216, 57581),
+    (1, 12, 4): (1, 5350, 53258),
+    (1, 12, 5): (0, 1837, 57305),
+    (1, 13, 0): (2, 12456, 52171),
+    (1, 13, 1): (2, 9961, 56710),
+    (1, 13, 2): (2, 7240, 55036),
+    (1, 13, 3): (2, 9202, 51326),
+    (1, 13, 4): (1, 4960, 53945),
+    (1, 13, 5): (1, 6270, 50569),
+    (1, 14, 1): (3, 8732, 49705),
+    (1, 14, 2): (2, 5260, 55203),
+    (1, 14, 3): (1, 3839, 56778),
+    (1, 14, 4): (1, 5142, 51752),
+    (1, 15, 1): (2, 4547, 56965),
+    (1, 15, 2): (2, 5332, 53930),
+    (1, 15, 3): (1, 3740, 55222),
+    (1, 16, 1): (2, 5219, 55435),
+    (1, 16, 2): (1, 3152, 55975),
+    (1, 17, 0): (3, 6433, 51214),
+}
+_TRELLIS_SCALE_PARAMS: tuple[tuple[tuple[int, int, int], ...], ...] = (
+    (
+        (0, 61413, 31358),
+        (0, 55040, 5449),
+        (0, 55040, 5449),
+        (0, 48524, 8133),
+        (0, 38028, 11222),
+        (0, 23216, 20677),
+        (0, 14984, 29287),
+        (0, 10573, 37222),
+        (0, 7691, 43606),
+        (0, 5640, 49729),
+        (0, 4041, 53612),
+        (0, 3062, 56713),
+        (1, 7502, 53702),
+        (1, 5602, 56621),
+        (1, 4647, 57472),
+        (2, 8824, 52392),
+        (2, 8784, 51927),
+        (2, 6374, 56384),
+    ),
+    (
+        (0, 49654, 479),
+        (0, 37825, 2417),
+        (0, 37825, 2417),
+        (0, 27065, 6585),
+        (0, 20435, 12926),
+        (0, 13460, 25426),
+        (0, 9298, 32702),
+        (0, 7084, 38958),
+        (0, 5225, 45296),
+        (0, 3731, 50614),
+        (0, 2843, 54187),
+        (0, 2050, 57007),
+        (1, 5963, 53890),
+        (1, 4330, 56804),
+        (2, 10085, 50278),
+        (2, 7491, 52638),
+        (2, 8089, 51836),
+        (2, 4931, 57113),
+    ),
+)
+
+
 def _class_params(scale: int, band: int) -> tuple[int, int, int]:
     """(s, z, a) of a (scale, band) cell."""
     if (scale, band) in _CELL_PARAMS:
@@ -254,10 +501,24 @@ def _class_params(scale: int, band: int) -> tuple[int, int, int]:
     return s + (scale - base) // 2, z, a
 
 
+def _trellis_params(qid: int, scale: int, band: int) -> tuple[int, int, int]:
+    """(s, z, a) of a (quantizer, scale, band) cell of layout 4."""
+    if (qid, scale, band) in _TRELLIS_CELL_PARAMS:
+        return _TRELLIS_CELL_PARAMS[(qid, scale, band)]
+    own = _TRELLIS_SCALE_PARAMS[qid]
+    if scale < len(own):
+        return own[scale]
+    base = len(own) - 2
+    s, z, a = own[base + (scale - base) % 2]
+    return s + (scale - base) // 2, z, a
+
+
 def _build_tables():
     rows, shifts, cache = [], [], {}
-    for c in range(_SCALES * _BANDS):
-        s, z, a = _class_params(c // _BANDS, c % _BANDS)
+    cells = [_class_params(c // _BANDS, c % _BANDS) for c in range(_CLASSES)]
+    cells += [_trellis_params(t, c // _BANDS, c % _BANDS) for t in (0, 1)
+              for c in range(_CLASSES)]
+    for s, z, a in cells:
         if (z, a) not in cache:
             cache[(z, a)] = geometric_cum(a, z)
         rows.append(cache[(z, a)])
@@ -305,8 +566,12 @@ def _classes(total: np.ndarray, u: np.ndarray, band: np.ndarray) -> np.ndarray:
     return np.where(total == 0, 0, scale) * _BANDS + band
 
 
-def _contexts(mag: np.ndarray) -> np.ndarray:
-    """Class of every coefficient of every row (column 0: -1, coded on its own)."""
+def _contexts(mag: np.ndarray, qid: np.ndarray | None = None) -> np.ndarray:
+    """Class of every coefficient of every row (column 0: -1, coded on its own).
+
+    ``qid``: layout 4, the quantizer (0 or 1) of every level, which selects
+    the table set.
+    """
     ns, n = mag.shape
     j = np.arange(1, n)
     total = preceding_sums(mag, CONTEXT_WINDOW)
@@ -315,10 +580,24 @@ def _contexts(mag: np.ndarray) -> np.ndarray:
     u[:, :w] = (total[:, :w] << 4) // j[:w]
     cls = np.full((ns, n), -1, dtype=np.int64)
     cls[:, 1:] = _classes(total, u, band_class(j, n))
+    if qid is not None:
+        cls[:, 1:] += TRELLIS_BASE * (1 + qid[:, 1:])
     return cls
 
 
-def coefficient_ops(q: np.ndarray, count: np.ndarray):
+def _trellis_classes(mag: np.ndarray, q: np.ndarray, trellis) -> np.ndarray:
+    """Classes of every row; rows flagged in ``trellis`` (bool or per-row) use layout 4's sets."""
+    if trellis is None or not np.any(trellis):
+        return _contexts(mag)
+    rows = np.broadcast_to(np.asarray(trellis, dtype=bool), (q.shape[0],))
+    if rows.all():
+        return _contexts(mag, quantizer_ids(q))
+    cls = _contexts(mag)
+    cls[rows] = _contexts(mag[rows], quantizer_ids(q[rows]))
+    return cls
+
+
+def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None):
     """Coding operations of the coded coefficients (j < count) of each row of ``q``.
 
     Returns ``(cum, freq, shift, row)`` flat in row-major order (rows in order,
@@ -326,10 +605,12 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray):
     coefficient: the model symbol; on escape (or for coefficient 0) the bit
     length symbol and the bits below the leading one; the ``s`` low bits; the
     sign of a non-zero.  Rare operations are built only where present.
+    ``trellis`` (a bool, or one per row): rows of levels of dependent
+    quantization (layout 4), whose classes also name each level's quantizer.
     """
     ns, n = q.shape
     mag2 = np.abs(q).astype(np.int64)
-    cls2 = _contexts(mag2)
+    cls2 = _trellis_classes(mag2, q, trellis)
     flat = np.flatnonzero((np.arange(n) < count[:, None]).ravel())
     row = flat // n
     first = (flat % n) == 0
@@ -390,7 +671,8 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray):
     return cum, freq, shift, np.repeat(row, nops)
 
 
-def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None) -> np.ndarray:
+def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
+                          trellis=None) -> np.ndarray:
     """Ideal code length in bits, -sum log2 p, of each row's coded coefficients.
 
     Used by the encoder's rate choice; the range coder spends this plus at most
@@ -401,7 +683,7 @@ def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None) -> np.
     if count is None:
         nzr = mag > 0
         count = np.where(nzr.any(axis=1), n - np.argmax(nzr[:, ::-1], axis=1), 0)
-    cls = _contexts(mag)
+    cls = _trellis_classes(mag, q, trellis)
     coded = np.arange(n) < count[:, None]
     s = SHIFT[np.maximum(cls, 0)]
     s[:, 0] = 0
@@ -621,7 +903,8 @@ class RangeDecoder:
 
 
 def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
-                        lane_of_row: np.ndarray, count: np.ndarray, n: int
+                        lane_of_row: np.ndarray, count: np.ndarray, n: int,
+                        trellis: np.ndarray | None = None
                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Decode the coded coefficients of subframes (rows) in lanes ``data[start:end]``.
 
@@ -629,7 +912,8 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
     ``lane_of_row[i]``, has ``count[i]`` coefficients.  The inverse of
     :func:`coefficient_ops` + :func:`encode_lanes`.  Returns ``(q, bad, reads)``:
     per lane, whether its state became impossible and the bytes it read
-    after its first four.
+    after its first four.  ``trellis``: layout 4, per row (see
+    :func:`coefficient_ops`).
     """
     ns = count.size
     lanes_n = start.size
@@ -650,6 +934,7 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
     nsorted = per_lane[order]
     lstart = np.cumsum(nsorted) - nsorted
     hist = np.zeros((CONTEXT_WINDOW, lanes_n), dtype=np.int64)
+    state = np.zeros(lanes_n, dtype=np.int64)  # layout 4: trellis state of each lane
     active = lanes_n
     for k in range(int(nsorted[0])):
         while active and nsorted[active - 1] <= k:
@@ -663,6 +948,10 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
         h[:, first] = 0
         tot_ctx = h.sum(axis=0)
         cls = context_class(tot_ctx, np.minimum(j, CONTEXT_WINDOW), j, n)
+        if trellis is not None:
+            st = state[:active]
+            st[first] = 0
+            cls += np.where(trellis[row], TRELLIS_BASE * (1 + (st >> 1)), 0)
         cls[first] = LEN_ROW
         s = SHIFT[cls]
         s[first] = 0
@@ -689,6 +978,8 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
             val = mag.copy()
             val[zi[neg]] = -mag[zi[neg]]
         q[row, j] = val
+        if trellis is not None:
+            st[:] = TRANSITIONS[st, mag & 1]
         h[1:] = h[:-1].copy()
         h[0] = mag
     return q, dec.bad[rank], dec.reads[rank]

@@ -17,6 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
+from ._trellis import trellis_quantize
 
 __all__ = [
     "frame_budgets", "reference_energy", "choose_steps", "code_frame", "spend_slack",
@@ -79,7 +80,7 @@ def frame_budgets(
 
 def code_frame(
     cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, code: np.ndarray,
-    offset: np.ndarray | float = 0.5, budget: np.ndarray | None = None,
+    offset: np.ndarray | float = 0.5, budget: np.ndarray | None = None, trellis: bool = False,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
     """Quantize frames at step ``code`` with rounding ``offset`` (0.5: nearest).
 
@@ -91,10 +92,13 @@ def code_frame(
     at a slightly larger error, which a finer step may then buy back; the
     encoder picks per frame whichever costs fewer bits (rate-distortion choice;
     the decoder is unaffected, it always reconstructs ``q * step``).
+    ``trellis``: dependent quantization (layout 4; ``offset`` and ``budget``
+    unused): ``q`` are trellis levels, reconstructed by
+    :func:`codec._trellis.dequantize_levels`.
     """
-    qf, mean_int, err = _quantized(cx, mean, dc, code, offset)
+    qf, mean_int, err = _quantized(cx, mean, dc, code, offset, trellis)
     q = qf.astype(np.int64)
-    if budget is not None:
+    if budget is not None and not trellis:
         c = cx
         if mean_int is not None:
             c = cx - (mean_int * (step_from_code(code) / np.sqrt(cx.shape[1])))[:, None] * dc
@@ -131,7 +135,7 @@ def spend_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.ndarray,
     return np.where(zero, 0, q), err + extra
 
 
-def _quantized(cx, mean, dc, code, offset):
+def _quantized(cx, mean, dc, code, offset, trellis=False):
     """(q as floats, mean_int, error energy); few full-size temporaries (memory bound)."""
     step = step_from_code(code)
     c = cx
@@ -140,6 +144,9 @@ def _quantized(cx, mean, dc, code, offset):
         mstep = step / np.sqrt(cx.shape[1])
         mean_int = np.rint(mean / mstep).astype(np.int64)
         c = cx - (mean_int * mstep)[:, None] * dc
+    if trellis:
+        q, err = trellis_quantize(c, step)
+        return q, mean_int, err
     st = step[:, None]
     if np.isscalar(offset) and offset == 0.5:
         q = np.divide(c, st)
@@ -161,9 +168,11 @@ def _quantized(cx, mean, dc, code, offset):
 _BLOCK_ROWS = 2048
 
 
-def _error_only(cx, mean, dc, code, offset):
+def _error_only(cx, mean, dc, code, offset, trellis=False):
     """Error energy per frame at step ``code`` (the search's inner loop), block by block."""
     nf = cx.shape[0]
+    if trellis:  # blocks of its own inside the trellis search
+        return _quantized(cx, mean, dc, code, offset, True)[2]
     out = np.empty(nf)
     off = np.broadcast_to(np.asarray(offset, dtype=np.float64), (nf,))
     for a in range(0, nf, _BLOCK_ROWS):
@@ -175,14 +184,20 @@ def _error_only(cx, mean, dc, code, offset):
 
 def choose_steps(
     cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, budget: np.ndarray,
-    offset: float = 0.5, hint: np.ndarray | None = None,
+    offset: float = 0.5, hint: np.ndarray | None = None, trellis: bool = False,
 ) -> np.ndarray:
     """Largest step code per frame whose error fits ``budget`` (bisection).
 
     The smallest code considered keeps every integer below 2**52, so codes fit
     the frame layout and the float arithmetic stays exact enough; the float
-    floor in the budget makes that code always feasible.
+    floor in the budget makes that code always feasible.  ``trellis``: the
+    error is that of dependent quantization (every term errs by at most one
+    step, as with ``offset`` 0); a ``hint`` there is the scalar quantizer's
+    code, and the search looks from 12 codes (1.5 octaves) below it to one
+    above.
     """
+    if trellis:
+        offset = 0.0
     nf, n = cx.shape
     scale = np.abs(cx).max(axis=1)
     if mean is not None:
@@ -200,9 +215,16 @@ def choose_steps(
     limit = budget * _MARGIN
 
     def err(code):
-        return _error_only(cx, mean, dc, code, offset)
+        return _error_only(cx, mean, dc, code, offset, trellis)
 
-    if hint is None:
+    if trellis and hint is not None:
+        # dependent quantization at step d errs about as a scalar one at 1.8 d (its
+        # reconstruction points are d apart but each level choice is constrained)
+        hi = np.clip(hint + 1, lo + 1, hi)
+        lo = np.clip(hint - 12, lo, hi - 1)
+        ok_lo = err(lo) <= limit
+        lo = np.where(ok_lo, lo, np.maximum(floor, code_for_step(np.sqrt(budget / n)) - 1))
+    elif hint is None:
         # lo holds by the bound (the caller's closed loop catches float rounding)
         lo = np.minimum(lo, hi - 1)
         ok_hi = err(hi) <= limit

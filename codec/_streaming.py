@@ -56,7 +56,7 @@ def max_frame_bytes(profile: Profile) -> int:
     headers.  A candidate claiming more is not a frame of this profile, so a
     receiver never buffers more than this.
     """
-    windows = profile.windows_per_frame if profile.layout_version == 3 else 1
+    windows = profile.windows_per_frame if profile.layout_version >= 3 else 1
     return 64 + windows * max(1, len(profile.channels)) * (16 * profile.frame_length + 16)
 
 

@@ -15,7 +15,8 @@ N = 256, DCT) this prints, per row:
   zstd level 19;
 * the gap to R(D) and the saving against the better baseline.
 
-Run: ``python tools/bench_rate.py [--samples N] [--seed S]``.
+Run: ``python tools/bench_rate.py [--samples N] [--seed S] [--layout 3|4]``
+(layout 4, the default here, lets each frame use dependent quantization).
 
 References
 ----------
@@ -112,9 +113,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--frame-length", type=int, default=256)
     ap.add_argument("--rho", type=float, nargs="*", default=[0.9, 0.95, 0.99])
     ap.add_argument("--fidelity", type=float, nargs="*", default=[0.9, 0.95, 0.99, 0.999])
+    ap.add_argument("--layout", type=int, choices=(3, 4), default=4,
+                    help="frame layout (3: the default profile's; 4: adds dependent quantization)")
     args = ap.parse_args(argv)
-    print(f"AR(1), {args.samples} samples, N={args.frame_length}, DCT, reference total; "
-          "bits/sample with every stream bit counted")
+    print(f"AR(1), {args.samples} samples, N={args.frame_length}, DCT, reference total, "
+          f"layout {args.layout}; bits/sample with every stream bit counted")
     print(f"{'rho':>5} {'F':>6} {'trimlink':>9} {'header':>7} {'R(D)':>6} {'gap':>6} "
           f"{'zstd':>6} {'dzstd':>6} {'saving':>7} {'frames met':>12} {'enc s':>6}")
     ok = True
@@ -122,7 +125,7 @@ def main(argv: list[str] | None = None) -> int:
         x = ar1_source(rho, args.samples, args.seed + i)
         for f in args.fidelity:
             prof = codec.Profile(frame_length=args.frame_length, basis="dct", fidelity=f,
-                                 reference="total")
+                                 reference="total", layout_version=args.layout)
             t0 = time.perf_counter()
             enc = codec.encode(x[:, None], prof)
             dt = time.perf_counter() - t0
