@@ -70,6 +70,7 @@ EXAMPLE = bytes.fromhex("e35a") + int(HEADER_BITS, 2).to_bytes(7, "big") + bytes
 def test_worked_example_packs_to_the_documented_bytes():
     # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
     want = EXAMPLE + binascii.crc_hqx(EXAMPLE[2:], 0xFFFF).to_bytes(2, "big")
+    assert want.hex() == "e35a400ccd0505000c0a1ec3"
     batch = FrameBatchV3(
         multi=np.array([False]), channel=np.array([1]), sequence=np.array([5]),
         windows=np.array([1]), valid=np.array([8]), frame=np.array([0]),
