@@ -42,8 +42,9 @@ TRANSITIONS = np.array([[0, 2], [2, 0], [1, 3], [3, 1]], dtype=np.int64)
 STATES = 4
 _FIRST = np.array([0, 2, 0, 2])
 _SECOND = np.array([1, 3, 1, 3])
-#: Frames per Viterbi block: the per-coefficient decisions of a block stay small.
-_BLOCK_ROWS = 2048
+_SWAP = np.array([2, 3, 0, 1])
+#: Coefficients per Viterbi block: a block's candidates and decisions stay small.
+_BLOCK_ELEMENTS = 1 << 19
 
 
 def quantizer_ids(q: np.ndarray) -> np.ndarray:
@@ -64,36 +65,55 @@ def dequantize_levels(q: np.ndarray) -> np.ndarray:
     return (2 * q - np.sign(q) * qid).astype(np.float64)
 
 
-def _parity_split(k, ek, k_next, e_next):
-    """(even level, its error), (odd level, its error) from two adjacent levels."""
-    odd = (k - 2.0 * np.floor(k * 0.5)) > 0
-    return ((np.where(odd, k_next, k), np.where(odd, e_next, ek)),
-            (np.where(odd, k, k_next), np.where(odd, ek, e_next)))
+def _candidates(m: np.ndarray, err: np.ndarray | None = None):
+    """Best level magnitude per quantizer and parity, and its squared error.
 
-
-def _candidates(m: np.ndarray):
-    """Best level magnitude and its squared error, per quantizer and parity.
-
-    ``m`` is |c| / step.  Q0 values are 2k: the neighbours floor(m/2) and
-    floor(m/2) + 1 have both parities and each is the nearest of its parity.
-    Q1 values are 0, 1, 3, 5 ... (k -> max(2k - 1, 0)): the neighbours k1 =
-    floor((m + 1)/2) and k1 + 1 likewise, except that for m in [1, 3) the
-    even level 0 (error m**2) may beat the even level 2.  Returns
-    ``(q0, q1)``, each ``(even, odd)`` of (level magnitude, error in step**2).
+    ``m`` is |c| / step (N x frames).  Q0 values are 2k: the neighbours
+    floor(m/2) and floor(m/2) + 1 have both parities and each is the nearest
+    of its parity.  Q1 values are 0, 1, 3, 5 ... (k -> max(2k - 1, 0)): the
+    neighbours k1 = floor((m + 1)/2) and k1 + 1 likewise, except that for m in
+    [1, 3) the even level 0 (error m**2) may beat the even level 2.  Errors
+    (in step**2) go to ``err[:, i]`` (N x 4 x frames) for i = (Q0 even, Q1
+    even, Q0 odd, Q1 odd); the levels come back in the same order (4 x N x
+    frames) unless ``err`` is given (the step search needs errors only).
     """
-    k0 = np.floor(m * 0.5)
-    r = m - 2.0 * k0
-    q0 = _parity_split(k0, r * r, k0 + 1.0, (2.0 - r) ** 2)
-    k1 = np.floor((m + 1.0) * 0.5)
-    r = m - (2.0 * k1 - 1.0)
+    if err is None:
+        err = np.empty((m.shape[0], 4, m.shape[1]))
+        want_levels = True
+    else:
+        want_levels = False
+    k = np.floor(m * 0.5)
+    odd = k - 2.0 * np.floor(k * 0.5)  # 1.0 where k is odd
+    r = m - 2.0 * k
+    ea = r * r
+    eb = (2.0 - r) ** 2
+    d = eb - ea
+    # even level: k when k is even, else k + 1; the odd one the other way round
+    np.add(ea, odd * d, out=err[:, 0])
+    np.subtract(eb, odd * d, out=err[:, 2])
+    levels = None
+    if want_levels:
+        levels = np.empty((4,) + m.shape)
+        np.add(k, odd, out=levels[0])
+        np.add(k, 1.0 - odd, out=levels[2])
+    k = np.floor((m + 1.0) * 0.5)
+    odd = k - 2.0 * np.floor(k * 0.5)
+    r = m - (2.0 * k - 1.0)
     m2 = m * m
-    ea = np.where(k1 == 0.0, m2, r * r)  # level 0 reconstructs 0, not -1
-    (ke, ee), odd = _parity_split(k1, ea, k1 + 1.0, (2.0 - r) ** 2)
-    zero = (k1 == 1.0) & (m2 < ee)
-    return q0, ((np.where(zero, 0.0, ke), np.where(zero, m2, ee)), odd)
+    ea = np.where(k == 0.0, m2, r * r)  # level 0 reconstructs 0, not -1
+    eb = (2.0 - r) ** 2
+    d = eb - ea
+    even = ea + odd * d
+    zero = (k == 1.0) & (m2 < even)  # level 0 beats level 2
+    np.copyto(err[:, 1], np.where(zero, m2, even))
+    np.subtract(eb, odd * d, out=err[:, 3])
+    if want_levels:
+        np.copyto(levels[1], np.where(zero, 0.0, k + odd))
+        np.add(k, 1.0 - odd, out=levels[3])
+    return err, levels
 
 
-def trellis_quantize(c: np.ndarray, step: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def trellis_quantize(c: np.ndarray, step: np.ndarray, error_only: bool = False):
     """Levels of least squared error through the trellis, per row; and that error energy.
 
     Parameters
@@ -102,6 +122,9 @@ def trellis_quantize(c: np.ndarray, step: np.ndarray) -> tuple[np.ndarray, np.nd
         Coefficients, frames x N.
     step : ndarray
         Quantizer step of each frame.
+    error_only : bool
+        Return only the error energy (the step search): the Viterbi path cost,
+        without tracing the path back.
 
     Returns
     -------
@@ -111,38 +134,50 @@ def trellis_quantize(c: np.ndarray, step: np.ndarray) -> tuple[np.ndarray, np.nd
         Error energy of each frame, sum of (c - reconstruction)**2.
     """
     nf, n = c.shape
-    if nf > _BLOCK_ROWS:
-        parts = [trellis_quantize(c[a : a + _BLOCK_ROWS], step[a : a + _BLOCK_ROWS])
-                 for a in range(0, nf, _BLOCK_ROWS)]
+    rows = max(256, _BLOCK_ELEMENTS // max(n, 1))
+    if nf > rows:
+        parts = [trellis_quantize(c[a : a + rows], step[a : a + rows], error_only)
+                 for a in range(0, nf, rows)]
+        if error_only:
+            return np.concatenate(parts)
         return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
-    st = np.asarray(step, dtype=np.float64)[:, None]
-    q0, q1 = _candidates(np.abs(c) / st)  # every coefficient at once; the loop only selects
-    lev = np.stack([q0[0][0], q0[1][0], q1[0][0], q1[1][0]]).astype(np.int64)
-    e00, e01, e10, e11 = q0[0][1], q0[1][1], q1[0][1], q1[1][1]
-    # Branches into next state s: the first from state FIRST[s], the second from SECOND[s].
+    st = np.asarray(step, dtype=np.float64)
+    # coefficient-major (N x 4 x frames): the loop below reads one contiguous block per step
+    m = np.abs(c.T) / st
+    if error_only:
+        e, lev = _candidates(m, np.empty((n, 4, nf)))
+    else:
+        e, lev = _candidates(m)
     # Next state 0: (0, even) or (1, odd); 2: (0, odd) or (1, even) -- both quantizer Q0;
     # next state 1: (2, even) or (3, odd); 3: (2, odd) or (3, even) -- both quantizer Q1.
-    eu = np.ascontiguousarray(np.stack([e00, e10, e01, e11]).transpose(2, 0, 1))
-    ev = np.ascontiguousarray(np.stack([e01, e11, e00, e10]).transpose(2, 0, 1))
+    # With e[j] = (Q0 even, Q1 even, Q0 odd, Q1 odd), next state s's first branch comes
+    # from state FIRST[s] with error e[j, s], its second from SECOND[s] with e[j, SWAP[s]].
     cost = np.full((STATES, nf), np.inf)
     cost[0] = 0.0
-    back = np.zeros((n, STATES, nf), dtype=bool)  # whether each state's second branch won
+    back = None if error_only else np.zeros((n, STATES, nf), dtype=bool)
     for j in range(n):
-        u = cost[_FIRST] + eu[j]
-        v = cost[_SECOND] + ev[j]
-        np.less(v, u, out=back[j])
-        cost = np.minimum(u, v)
-    rows = np.arange(nf)
+        ej = e[j]
+        u = cost[_FIRST]
+        u += ej
+        v = cost[_SECOND]
+        v += ej[_SWAP]
+        if back is not None:
+            np.less(v, u, out=back[j])  # whether each state's second branch won
+        cost = np.minimum(u, v, out=u)
+    if error_only:
+        return cost.min(axis=0) * (st * st)
+    lev = lev.astype(np.int64)
+    cols = np.arange(nf)
     s = np.argmin(cost, axis=0)
-    mag = np.zeros((nf, n), dtype=np.int64)
-    # predecessor of state s by whether the second branch won, and the (quantizer, parity) used
+    mag = np.zeros((n, nf), dtype=np.int64)
+    # predecessor of state s by whether the second branch won, and the level used
     pred = np.array([[0, 1], [2, 3], [0, 1], [2, 3]])
-    par = np.array([[0, 1], [0, 1], [1, 0], [1, 0]])
+    which = np.stack([np.arange(STATES), _SWAP], axis=1)
     for j in range(n - 1, -1, -1):
-        take = back[j, s, rows].astype(np.int64)
-        qid = s & 1  # next states 0, 2 come from Q0 states; 1, 3 from Q1 states
-        mag[:, j] = lev[2 * qid + par[s, take], rows, j]
+        take = back[j, s, cols].astype(np.int64)
+        mag[j] = lev[which[s, take], j, cols]
         s = pred[s, take]
+    mag = mag.T
     q = np.where(c < 0, -mag, mag)
-    r = c - dequantize_levels(q) * st
+    r = c - dequantize_levels(q) * st[:, None]
     return q, np.einsum("ij,ij->i", r, r)

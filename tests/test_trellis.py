@@ -147,3 +147,34 @@ def test_v3_and_v4_frames_decode_in_one_stream():
     dec = codec.decode(a.data + b.data, a.profile, samples=1024)
     np.testing.assert_array_equal(dec.samples[:512], a.reconstruction)
     np.testing.assert_array_equal(dec.samples[512:], b.reconstruction)
+
+
+def test_step_search_from_the_scalar_hint_is_feasible_and_matches_a_full_search():
+    # Every code returned must meet its frame's budget (Parseval: the error energy of the
+    # coefficients is that of the samples).  The trellis error is not monotone in the
+    # step (a lone coefficient's error oscillates with it), so neither search is exact;
+    # the hinted one must rarely end finer than a bisection over the whole code range.
+    from codec._bases import as_basis
+    from codec._select import choose_steps, frame_budgets, reference_energy
+    from codec._quantize import step_from_code
+
+    rng = np.random.default_rng(8)
+    n = 64
+    kinds = [rng.standard_normal((200, n)).cumsum(axis=1),          # random walks
+             rng.standard_normal((200, n)) * 1e-3,                    # white, tiny
+             np.repeat(rng.standard_normal((200, 1)), n, axis=1),     # constants
+             np.sign(rng.standard_normal((200, n))) * 50.0]           # square-ish
+    fr = np.concatenate(kinds)
+    basis = as_basis("dct", n)
+    dc = basis.analyze(np.ones(n))
+    cx = basis.analyze(fr)
+    valid = np.full(len(fr), n)
+    for f in (0.9, 0.99, 0.999):
+        bud = frame_budgets(reference_energy(fr, valid, "total"), f, np.zeros(len(fr)), valid,
+                            np.abs(fr).max(axis=1), n)
+        hint = choose_steps(cx, None, dc, bud, 0.42)
+        code = choose_steps(cx, None, dc, bud, hint=hint, trellis=True)
+        _, err = trellis_quantize(cx, step_from_code(code))
+        assert (err <= bud).all()
+        full = choose_steps(cx, None, dc, bud, trellis=True)
+        assert np.mean(code < full) < 0.05
