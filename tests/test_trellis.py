@@ -155,8 +155,8 @@ def test_step_search_from_the_scalar_hint_is_feasible_and_matches_a_full_search(
     # step (a lone coefficient's error oscillates with it), so neither search is exact;
     # the hinted one must rarely end finer than a bisection over the whole code range.
     from codec._bases import as_basis
-    from codec._select import choose_steps, frame_budgets, reference_energy
     from codec._quantize import step_from_code
+    from codec._select import choose_steps, frame_budgets, reference_energy
 
     rng = np.random.default_rng(8)
     n = 64
