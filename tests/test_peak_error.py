@@ -38,7 +38,7 @@ def test_no_decoded_sample_exceeds_the_limit(name, limit, fidelity):
 
 
 @pytest.mark.parametrize("kw", [dict(multi_channel_frames=True), dict(layout_version=1),
-                                dict(basis="walsh", frame_length=16)])
+                                dict(basis="walsh", frame_length=16), dict(layout_version=4)])
 def test_per_channel_limits_in_all_layouts(kw):
     s = _signals()
     x = np.stack([s["spiky"], s["step"]], axis=1)

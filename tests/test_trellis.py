@@ -178,3 +178,32 @@ def test_step_search_from_the_scalar_hint_is_feasible_and_matches_a_full_search(
         assert (err <= bud).all()
         full = choose_steps(cx, None, dc, bud, trellis=True)
         assert np.mean(code < full) < 0.05
+
+
+@pytest.mark.parametrize("name", ["random", "spiky", "step", "square"])
+def test_peak_error_mode_holds_with_dependent_quantization(name):
+    # max |x - x_hat| <= E on the decoded samples (the definition of the mode)
+    from test_peak_error import _profile, _signals
+    x = _signals()[name][:, None]
+    enc = codec.encode(x, _profile(0.01, 0.999, layout_version=4))
+    dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
+    assert np.abs(dec.samples - x).max() <= 0.01
+
+
+def test_stream_encoder_and_gap_frames_carry_layout_4():
+    x = np.stack([_ar1(0.95, 1000, 9), _ar1(0.9, 1000, 10)], axis=1)
+    prof = codec.Profile(layout_version=4, fidelity=0.999)
+    se = codec.StreamEncoder(prof, 2)
+    data = b"".join(se.feed(x[a : a + 300]) for a in range(0, 1000, 300)) + se.close()
+    assert data[2] >> 4 == 4
+    dec = codec.decode(data, se.profile, samples=1000)
+    whole = codec.encode(x, se.profile)
+    np.testing.assert_array_equal(dec.samples, whole.reconstruction)
+    # NaN runs marked as gaps: gap-mask frames wrap layout-4 data frames
+    xg = x.copy()
+    xg[100:140, 0] = np.nan
+    enc = codec.encode(xg, prof, gaps="mark")
+    dec = codec.decode(enc.data, enc.profile, samples=1000)
+    np.testing.assert_array_equal(np.isnan(dec.samples), np.isnan(xg))
+    ok = ~np.isnan(xg)
+    np.testing.assert_array_equal(dec.samples[ok], enc.reconstruction[ok])
