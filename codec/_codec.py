@@ -14,6 +14,7 @@ import numpy as np
 
 from ._bases import Basis
 from ._bits import MAX_FIELD_BITS
+from ._entropy import exp_golomb_bits, zigzag
 from ._errors import FrameError, InputError, ProfileError
 from ._framing import merge_frames, split_frames
 from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
@@ -481,10 +482,7 @@ def _quantizer_choice(cx, mean, dc, budget, q, mean_int, code):
 
 def _mean_bits(mean_int):
     """Bits of the exp-Golomb coded mean codes (0 when no mean is sent)."""
-    if mean_int is None:
-        return 0
-    from ._entropy import bit_length, zigzag
-    return 2 * bit_length(zigzag(mean_int) + 1) - 1
+    return 0 if mean_int is None else exp_golomb_bits(zigzag(mean_int))
 
 
 #: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).

@@ -41,6 +41,7 @@ import numpy as np
 from ._bits import _bit_length as _bit_length_any
 
 __all__ = [
+    "exp_golomb_bits",
     "BitReader",
     "bit_length",
     "pack_bits",
@@ -137,6 +138,11 @@ def golomb_fields(v: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
     if width.size and width.max() > 64:
         raise ValueError("a Golomb codeword is longer than 64 bits")
     return ((np.int64(1) << rw) | rv).astype(np.uint64), width
+
+
+def exp_golomb_bits(v: np.ndarray) -> np.ndarray:
+    """Length in bits of the order-0 exponential-Golomb codeword of each ``v`` >= 0."""
+    return 2 * _bit_length(np.asarray(v, dtype=np.int64) + 1) - 1
 
 
 def exp_golomb_fields(v: np.ndarray, k: int = 0) -> tuple[np.ndarray, np.ndarray]:

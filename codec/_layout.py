@@ -27,6 +27,7 @@ import numpy as np
 
 from ._bits import MAX_FIELD_BITS, from_twos, pack_fields, read_fields, signed_width, to_twos
 from ._crc import crc16_ibm3740
+from ._entropy import exp_golomb_bits
 
 __all__ = [
     "LAYOUT_VERSION",
@@ -382,14 +383,12 @@ def _runs(run: np.ndarray, nz: np.ndarray):
     A run is a maximal block of run-mode indices; it always ends on a non-zero
     coefficient, so starts and ends pair up in row-major order.
     """
-    from ._entropy import bit_length
-
     prev = np.zeros_like(run)
     prev[:, 1:] = run[:, :-1]
     srow, scol = np.nonzero(run & ~prev)
     _, ecol = np.nonzero(run & nz)
     eg = (ecol - scol + 1).astype(np.int64)
-    return srow, scol, 2 * bit_length(eg) - 1, eg
+    return srow, scol, exp_golomb_bits(eg - 1), eg
 
 
 def _coding_state(q: np.ndarray, k_init: np.ndarray, last: np.ndarray):
@@ -467,7 +466,6 @@ def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.nd
     Exact for a subframe that leads its frame; a later subframe of a
     multi-channel frame sends its step as a difference, usually in fewer bits.
     """
-    from ._entropy import bit_length as _bit_length
     from ._entropy import zigzag
 
     nz = q != 0
@@ -475,7 +473,7 @@ def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.nd
     coef = coefficient_bits(q, initial_parameter(np.abs(q[:, 0])), last)
     bits = STEP_BITS + count_bits(n) + np.where(last > 0, K_INIT_BITS, 0) + coef
     if mean_int is not None:
-        bits += 2 * _bit_length(zigzag(mean_int) + 1) - 1
+        bits += exp_golomb_bits(zigzag(mean_int))
     return bits
 
 
@@ -606,7 +604,7 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
 
     dz = zigzag(np.diff(step_code, prepend=0)) + 1
     val[:, col] = np.where(lead, step_code, dz)
-    wid[:, col] = np.where(lead, STEP_BITS, 2 * bit_length(dz) - 1)
+    wid[:, col] = np.where(lead, STEP_BITS, exp_golomb_bits(dz - 1))
     if mean is not None:
         zz = zigzag(mean) + 1  # exp-Golomb order 0 of zigzag(mean)
         nb = bit_length(zz)

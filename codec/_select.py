@@ -135,8 +135,11 @@ def spend_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.ndarray,
     return np.where(zero, 0, q), err + extra
 
 
-def _quantized(cx, mean, dc, code, offset, trellis=False):
-    """(q as floats, mean_int, error energy); few full-size temporaries (memory bound)."""
+def _quantized(cx, mean, dc, code, offset, trellis=False, error_only=False):
+    """(q as floats, mean_int, error energy); few full-size temporaries (memory bound).
+
+    ``trellis``: dependent quantization's levels; with ``error_only`` q is None.
+    """
     step = step_from_code(code)
     c = cx
     mean_int = None
@@ -144,6 +147,8 @@ def _quantized(cx, mean, dc, code, offset, trellis=False):
         mstep = step / np.sqrt(cx.shape[1])
         mean_int = np.rint(mean / mstep).astype(np.int64)
         c = cx - (mean_int * mstep)[:, None] * dc
+    if trellis and error_only:
+        return None, mean_int, trellis_quantize(c, step, error_only=True)
     if trellis:
         q, err = trellis_quantize(c, step)
         return q, mean_int, err
@@ -172,12 +177,7 @@ def _error_only(cx, mean, dc, code, offset, trellis=False):
     """Error energy per frame at step ``code`` (the search's inner loop), block by block."""
     nf = cx.shape[0]
     if trellis:  # the Viterbi path cost; blocks of its own
-        step = step_from_code(code)
-        c = cx
-        if mean is not None:
-            mstep = step / np.sqrt(cx.shape[1])
-            c = cx - (np.rint(mean / mstep) * mstep)[:, None] * dc
-        return trellis_quantize(c, step, error_only=True)
+        return _quantized(cx, mean, dc, code, offset, trellis, error_only=True)[2]
     out = np.empty(nf)
     off = np.broadcast_to(np.asarray(offset, dtype=np.float64), (nf,))
     for a in range(0, nf, _BLOCK_ROWS):
