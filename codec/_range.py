@@ -792,22 +792,24 @@ def _renorm_encode(buf, low, rng, pos, active) -> None:
         rng[need] <<= 8
 
 
-# Symbol of every (class, value t >> _LUT_DROP): most t decode with one lookup.
+# Symbol of every (table, value t >> _LUT_DROP): most t decode with one lookup.  Many
+# classes share a table, so the lookup is built once per distinct table.
 _LUT_DROP = 3
 
 
 def _build_lut():
+    tables, row_of = np.unique(CUM, axis=0, return_inverse=True)
     width = TOTAL >> _LUT_DROP
     t = np.arange(width, dtype=np.int64) << _LUT_DROP
-    lo = np.empty((CUM.shape[0], width), dtype=np.int64)
+    lo = np.empty((tables.shape[0], width), dtype=np.int64)
     hi = np.empty_like(lo)
-    for c in range(CUM.shape[0]):
-        lo[c] = np.searchsorted(CUM[c], t, side="right") - 1
-        hi[c] = np.searchsorted(CUM[c], t + (1 << _LUT_DROP) - 1, side="right") - 1
-    return lo.astype(np.int8).ravel(), (lo == hi).ravel()
+    for c in range(tables.shape[0]):
+        lo[c] = np.searchsorted(tables[c], t, side="right") - 1
+        hi[c] = np.searchsorted(tables[c], t + (1 << _LUT_DROP) - 1, side="right") - 1
+    return lo.astype(np.int8).ravel(), (lo == hi).ravel(), row_of.ravel() * width
 
 
-_LUT, _LUT_EXACT = _build_lut()
+_LUT, _LUT_EXACT, _LUT_BASE = _build_lut()
 
 
 class RangeDecoder:
@@ -857,7 +859,7 @@ class RangeDecoder:
         r = self.rng[lanes] >> TOTAL_BITS
         val = self.value[lanes]
         t = np.minimum(val // r, TOTAL - 1)
-        li = row * (TOTAL >> _LUT_DROP) + (t >> _LUT_DROP)
+        li = _LUT_BASE[row] + (t >> _LUT_DROP)
         s = _LUT[li].astype(np.int64)
         base = row * _W
         slow = ~_LUT_EXACT[li]
