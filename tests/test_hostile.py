@@ -82,11 +82,16 @@ def _mutate(rng, data: bytes) -> bytes:
 
 def test_mutated_valid_streams():
     rng = np.random.default_rng(7)
-    for _ in range(100):  # layout v2 (the default); 10^4 in tools/fuzz_mutations.py
+    for _ in range(100):  # the default layout; 10^4 in tools/fuzz_mutations.py
         _check(_mutate(rng, ENC.data))
-    enc1 = codec.encode(X, codec.Profile(frame_length=32, layout_version=1))
+    for version, count in ((1, 1000), (4, 300)):
+        _check_mutations(rng, version, count)
+
+
+def _check_mutations(rng, version, count):
+    enc1 = codec.encode(X, codec.Profile(frame_length=32, layout_version=version))
     clean1 = codec.decode(enc1.data, enc1.profile, samples=400)
-    for _ in range(1000):  # layout v1
+    for _ in range(count):
         data = _mutate(rng, enc1.data)
         dec = codec.decode(data, enc1.profile, samples=400, strict=False)
         assert_accounting(dec, 2)

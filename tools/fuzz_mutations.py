@@ -1,6 +1,6 @@
 """10^4 mutated valid streams through the decoder (the full-size run of tests/test_hostile.py).
 
-    python tools/fuzz_mutations.py [--streams 10000] [--seed 7]
+    python tools/fuzz_mutations.py [--streams 10000] [--seed 7] [--layout 3]
 
 Mutations: bit flips, truncations, garbage insertions (half with a false sync
 marker), duplicated spans, deleted spans; one to three per stream.  Prints how
@@ -31,10 +31,12 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--streams", type=int, default=10_000)
     ap.add_argument("--seed", type=int, default=7)
+    ap.add_argument("--layout", type=int, choices=(1, 2, 3, 4), default=3,
+                    help="frame layout of the stream that is mutated (default 3)")
     args = ap.parse_args()
     rng = np.random.default_rng(args.seed)
     x = np.cumsum(np.random.default_rng(1).normal(size=(400, 2)), axis=0)
-    enc = codec.encode(x, codec.Profile(frame_length=32))
+    enc = codec.encode(x, codec.Profile(frame_length=32, layout_version=args.layout))
     clean = codec.decode(enc.data, enc.profile, samples=400)
     raised = broken = forged = 0
     inputs_bytes = 0
