@@ -207,3 +207,15 @@ def test_stream_encoder_and_gap_frames_carry_layout_4():
     np.testing.assert_array_equal(np.isnan(dec.samples), np.isnan(xg))
     ok = ~np.isnan(xg)
     np.testing.assert_array_equal(dec.samples[ok], enc.reconstruction[ok])
+
+
+def test_cli_layout_option_writes_layout_4(tmp_path):
+    from codec.cli import main
+    x = np.stack([_ar1(0.95, 600, 11), _ar1(0.9, 600, 12)], axis=1)
+    src = tmp_path / "in.csv"
+    np.savetxt(src, x, delimiter=",", header="a,b", comments="")
+    out = tmp_path / "s.bin"
+    assert main(["encode", str(src), "-o", str(out), "--layout", "4", "--fidelity", "0.999"]) == 0
+    data = out.read_bytes()
+    assert {b >> 4 for b in (data[o + 2] for o in _frames(data)[0].tolist())} == {4}
+    assert main(["decode", str(out), "-o", str(tmp_path / "back.csv")]) == 0

@@ -27,6 +27,9 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
     p.add_argument("--reference", choices=("total", "ac"),
                    help="reference energy: total = sum x^2, ac = sum (x - mean)^2")
     p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
+    p.add_argument("--layout", type=int, choices=(1, 2, 3, 4), metavar="V",
+                   help="frame layout the encoder writes: 3 (default) or 4 (adds dependent "
+                   "quantization where it saves bits: slower to encode); 1 and 2 are older")
     p.add_argument("--max-error", type=float, metavar="E",
                    help="peak-error limit in engineering units for every channel: no decoded "
                    "sample differs from the input by more than E (with --fidelity 0 it is the "
@@ -37,7 +40,8 @@ def resolve_profile(args: argparse.Namespace, names: list[str] | None = None) ->
     """The effective profile: file or built-in default, overrides applied, bound to ``names``."""
     profile = load_profile(args.profile) if args.profile else default_profile()
     profile = profile.override(basis=args.basis, fidelity=args.fidelity,
-                               reference=args.reference, frame_length=args.frame_length)
+                               reference=args.reference, frame_length=args.frame_length,
+                               layout_version=getattr(args, "layout", None))
     profile = profile.bind(names) if names is not None else profile
     max_error = getattr(args, "max_error", None)
     if max_error is not None:
