@@ -315,6 +315,8 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     # `frames` counts coded frames (one window of one channel); layouts 2 and 3 can carry
     # several of them under one header, so the frames actually sent are counted apart.
     report["frames_on_wire"] = int(np.unique(row_frame).size)
+    report["layout_version"] = profile.layout_version
+    report["frames_trellis"] = 0 if trellis is None else int(trellis.sum())
     report["gap_policy"] = gaps
     report["samples_gap"] = 0 if missing is None else int(missing.sum())
     if missing is not None and gaps == "mark":

@@ -131,6 +131,8 @@ def test_v4_saves_bits_at_high_fidelity_and_uses_both_quantizers():
                        codec.Profile(frame_length=256, fidelity=0.99, layout_version=4))
     p = parse_frames_v3(enc.data, *_frames(enc.data), 256, 1, True, version=4)
     assert 0 < p["trellis"].sum() < p["trellis"].size  # the per-frame choice is real
+    assert enc.report["frames_trellis"] == p["trellis"].sum()
+    assert enc.report["layout_version"] == 4
 
 
 def _frames(data):
