@@ -473,7 +473,7 @@ def _quantizer_choice(cx, mean, dc, budget, q, mean_int, code):
     step codes and the per-frame trellis flag.
     """
     code_t = choose_steps(cx, mean, dc, budget, hint=code, trellis=True)
-    q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, trellis=True)
+    q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, budget=budget, trellis=True)
     use = (coefficient_cost_bits(q_t, trellis=True) + _mean_bits(mean_t)
            < coefficient_cost_bits(q) + _mean_bits(mean_int))
     q = np.where(use[:, None], q_t, q)

@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
-from ._trellis import trellis_quantize
+from ._trellis import trellis_quantize, trim_tail
 
 __all__ = [
     "frame_budgets", "reference_energy", "choose_steps", "code_frame", "spend_slack",
@@ -92,17 +92,23 @@ def code_frame(
     at a slightly larger error, which a finer step may then buy back; the
     encoder picks per frame whichever costs fewer bits (rate-distortion choice;
     the decoder is unaffected, it always reconstructs ``q * step``).
-    ``trellis``: dependent quantization (layout 4; ``offset`` and ``budget``
-    unused): ``q`` are trellis levels, reconstructed by
-    :func:`codec._trellis.dequantize_levels`.
+    ``trellis``: dependent quantization (layout 4; ``offset`` unused): ``q``
+    are trellis levels, reconstructed by
+    :func:`codec._trellis.dequantize_levels`, and a ``budget`` is spent by
+    :func:`codec._trellis.trim_tail`.
     """
     qf, mean_int, err = _quantized(cx, mean, dc, code, offset, trellis)
     q = qf.astype(np.int64)
-    if budget is not None and not trellis:
-        c = cx
-        if mean_int is not None:
-            c = cx - (mean_int * (step_from_code(code) / np.sqrt(cx.shape[1])))[:, None] * dc
-        q, err = spend_slack(c, q, step_from_code(code), err, budget)
+    if budget is None:
+        return q, mean_int, err
+    step = step_from_code(code)
+    c = cx  # the coefficients about the sent mean
+    if mean_int is not None:
+        c = cx - (mean_int * (step / np.sqrt(cx.shape[1])))[:, None] * dc
+    if trellis:
+        q, err = trim_tail(c, q, step, err, budget * _MARGIN)
+    else:
+        q, err = spend_slack(c, q, step, err, budget)
     return q, mean_int, err
 
 

@@ -35,7 +35,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["TRANSITIONS", "STATES", "quantizer_ids", "dequantize_levels", "trellis_quantize"]
+__all__ = ["TRANSITIONS", "STATES", "quantizer_ids", "dequantize_levels", "trellis_quantize",
+           "trim_tail"]
 
 #: Next state by (state, level parity).
 TRANSITIONS = np.array([[0, 2], [2, 0], [1, 3], [3, 1]], dtype=np.int64)
@@ -180,4 +181,28 @@ def trellis_quantize(c: np.ndarray, step: np.ndarray, error_only: bool = False):
     mag = mag.T
     q = np.where(c < 0, -mag, mag)
     r = c - dequantize_levels(q) * st[:, None]
+    return q, np.einsum("ij,ij->i", r, r)
+
+
+def trim_tail(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.ndarray,
+              limit: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Zero each row's last levels while its error stays within ``limit``.
+
+    The step search moves in eighth-octave steps, so a frame usually ends
+    below its budget.  A scalar frame spends the rest on its cheapest +-1
+    codes; a trellis frame cannot change a level freely (its parity steers
+    every later level) but can drop its tail: levels after the last non-zero
+    one are zero under either quantizer, so zeroing the last levels leaves
+    the rest of the path as it was.  The longest tail whose summed error
+    increase fits is dropped (fewer coded coefficients, a shorter count).
+    Returns the new levels and error energies.
+    """
+    x = dequantize_levels(q) * np.asarray(step, dtype=np.float64)[:, None]
+    added = np.where(q != 0, c * c - (c - x) ** 2, 0.0)
+    tail = np.cumsum(added[:, ::-1], axis=1)[:, ::-1]  # error added by zeroing j .. N-1
+    fits = tail <= (limit - err)[:, None]
+    n = q.shape[1]
+    first = np.where(fits.any(axis=1), np.argmax(fits, axis=1), n)
+    q = np.where(np.arange(n) < first[:, None], q, 0)
+    r = c - dequantize_levels(q) * np.asarray(step, dtype=np.float64)[:, None]
     return q, np.einsum("ij,ij->i", r, r)

@@ -221,3 +221,28 @@ def test_cli_layout_option_writes_layout_4(tmp_path):
     data = out.read_bytes()
     assert {b >> 4 for b in (data[o + 2] for o in _frames(data)[0].tolist())} == {4}
     assert main(["decode", str(out), "-o", str(tmp_path / "back.csv")]) == 0
+
+
+def test_trim_tail_keeps_the_path_and_the_budget():
+    # Dropping a row's last levels must leave the reconstruction of every earlier
+    # coefficient as it was (the trellis state before them is unchanged) and keep the
+    # error energy within the limit; the error it reports is the true one (Parseval).
+    from codec._trellis import trim_tail
+    rng = np.random.default_rng(13)
+    c = rng.standard_normal((300, 32)) * np.linspace(20, 0.5, 32)
+    step = np.full(300, 0.7)
+    q, err = trellis_quantize(c, step)
+    limit = err * rng.uniform(1.0, 3.0, 300)
+    q2, err2 = trim_tail(c, q, step, err, limit)
+    assert (err2 <= limit).all() and (err2 >= err).all()
+    x1, x2 = dequantize_levels(q), dequantize_levels(q2)
+    changed = q2 != q
+    assert (q2[changed] == 0).all()
+    for i in range(300):  # every change is a contiguous tail; the prefix reconstructs alike
+        cut = np.flatnonzero(changed[i])
+        if cut.size:
+            assert (q2[i, cut[0]:] == 0).all()
+            np.testing.assert_array_equal(x2[i, :cut[0]], x1[i, :cut[0]])
+    assert changed.any()
+    r = c - x2 * step[:, None]
+    np.testing.assert_allclose(err2, (r * r).sum(axis=1))
