@@ -509,7 +509,6 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     """
     from ._entropy import pack_bits
 
-    nf = len(batch)
     q = batch.q
     ns = q.shape[0]
     vb = index_bits(n)
@@ -561,22 +560,12 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     multi = batch.multi.astype(bool)
     head_bits = 4 + 1 + 8 + 8 + 1 + np.where(multi, 0, 8) + 1 + np.where(short, vb, 0)
     payload = np.add.reduceat(sub_bits, first)
-    bits = head_bits + SHORT_LENGTH_BITS + payload
-    length = len(SYNC) + (bits + 7) // 8 + CRC_BYTES
-    long = length >= (1 << SHORT_LENGTH_BITS)
-    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
-    body_bytes = (bits + 7) // 8
-    length = len(SYNC) + body_bytes + CRC_BYTES
-    if (length >= (1 << LONG_LENGTH_BITS)).any():
-        raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
+    long, bits, body_bytes, length = size_length_fields(head_bits + payload, 0)
     head = [(LAYOUT_VERSION_2, 4), (long, 1), (length, np.where(long, LONG_LENGTH_BITS,
             SHORT_LENGTH_BITS)), (profile_id & 0xFF, 8), (batch.sequence % 256, 8),
             (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, 8)),
             (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
-    for i, (v, w) in enumerate(head):
-        val[first, i] = np.broadcast_to(v, (nf,))
-        wid[first, i] = np.broadcast_to(w, (nf,))
-    wid[lastrow, slots - 1] = body_bytes * 8 - bits
+    write_frame_heads(val, wid, first, lastrow, head, body_bytes * 8 - bits)
     body = pack_bits(val.ravel(), wid.ravel())
 
     out = wrap_frames(body, body_bytes)
@@ -588,10 +577,44 @@ def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
     return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
 
 
+def size_length_fields(bits: np.ndarray, extra_bytes: np.ndarray | int
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Length field of layouts 2 to 4 for frames of ``bits`` bit-packed header bits.
+
+    ``bits`` counts every bit-packed field but the length field; ``extra_bytes``
+    follow them (layouts 3 and 4: the range-coded bytes).  A frame takes the
+    11-bit length unless its length reaches 2**11 bytes, then the 27-bit one.
+    Returns (long flag, packed bits with the length field, packed bytes after
+    the sync marker before ``extra_bytes``, whole frame length in bytes).
+    """
+    bits = bits + SHORT_LENGTH_BITS
+    length = len(SYNC) + (bits + 7) // 8 + extra_bytes + CRC_BYTES
+    long = length >= (1 << SHORT_LENGTH_BITS)
+    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
+    head_bytes = (bits + 7) // 8
+    length = len(SYNC) + head_bytes + extra_bytes + CRC_BYTES
+    if (length >= (1 << LONG_LENGTH_BITS)).any():
+        raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
+    return long, bits, head_bytes, length
+
+
+def write_frame_heads(val: np.ndarray, wid: np.ndarray, first: np.ndarray, lastrow: np.ndarray,
+                      head: list, padding: np.ndarray) -> None:
+    """Each frame's header fields in its first row's leading slots, its padding last.
+
+    ``head`` holds (value, width) pairs per frame; ``padding`` (zero bits to
+    the next byte) goes in the last slot of the frame's last row (layouts 2 to 4).
+    """
+    for i, (v, w) in enumerate(head):
+        val[first, i] = np.broadcast_to(v, (first.size,))
+        wid[first, i] = np.broadcast_to(w, (first.size,))
+    wid[lastrow, wid.shape[1] - 1] = padding
+
+
 def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarray,
                      step_code: np.ndarray, mean: np.ndarray | None, count: np.ndarray,
                      lb: int, quantizer: np.ndarray | None = None) -> None:
-    """Fill the four subframe-header slots from column ``col`` (layouts 2 and 3).
+    """Fill the subframe-header slots from column ``col`` (layouts 2 to 4).
 
     The inverse of :func:`read_subheaders`: a frame's first subframe (``lead``)
     sends its step code in full, later ones the exp-Golomb code of the zigzag
@@ -621,7 +644,7 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
 def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarray,
                     mean: np.ndarray | None, count: np.ndarray, lb: int, n: int,
                     quantizer: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Read subframe ``s`` of each frame (layouts 2 and 3): step, mean, term count.
+    """Read subframe ``s`` of each frame (layouts 2 to 4): step, mean, term count.
 
     The first subframe sends its step code whole, later ones as an exp-Golomb
     difference from the previous subframe's; the mean (when sent) is a

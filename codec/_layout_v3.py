@@ -38,7 +38,9 @@ from ._layout import (
     count_bits,
     index_bits,
     read_subheaders,
+    size_length_fields,
     wrap_frames,
+    write_frame_heads,
     write_subheaders,
 )
 from ._range import coefficient_ops, decode_coefficients, encode_lanes
@@ -127,23 +129,13 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     head_bits = (4 + 1 + 8 + 8 + WINDOW_BITS + 1 + np.where(multi, 0, cb) + 1
                  + np.where(short, vb, 0))
     payload = np.add.reduceat(sub_bits, first)
-    bits = head_bits + SHORT_LENGTH_BITS + payload
-    length = len(SYNC) + (bits + 7) // 8 + lane_len + CRC_BYTES
-    long = length >= (1 << SHORT_LENGTH_BITS)
-    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
-    head_bytes = (bits + 7) // 8
-    length = len(SYNC) + head_bytes + lane_len + CRC_BYTES
-    if (length >= (1 << LONG_LENGTH_BITS)).any():
-        raise ValueError("a frame is too long for its length field")  # our bug: n is bounded
+    long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len)
     head = [(version, 4), (long, 1),
             (length, np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)),
             (profile_id & 0xFF, 8), (batch.sequence % 256, 8), (batch.windows - 1, WINDOW_BITS),
             (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, cb)),
             (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
-    for i, (v, w) in enumerate(head):
-        val[first, i] = np.broadcast_to(v, (nf,))
-        wid[first, i] = np.broadcast_to(w, (nf,))
-    wid[lastrow, slots - 1] = head_bytes * 8 - bits
+    write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
     heads = pack_bits(val.ravel(), wid.ravel())
 
     # frame = sync | header bytes | lane bytes | crc
