@@ -577,6 +577,20 @@ def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
     return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
 
 
+def read_frame_start(r, offsets: np.ndarray
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Length, profile byte and sequence of frames of layouts 2 to 4 at byte ``offsets``.
+
+    Returns them and the bit position after the sequence field.
+    """
+    p = offsets.astype(np.int64) * 8 + 8 * len(SYNC) + 4
+    long = r.read(p, 1)
+    lw = np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
+    length = r.read(p + 1, lw)
+    p = p + 1 + lw
+    return length, r.read(p, 8), r.read(p + 8, 8), p + 16
+
+
 def size_length_fields(bits: np.ndarray, extra_bytes: np.ndarray | int
                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Length field of layouts 2 to 4 for frames of ``bits`` bit-packed header bits.
@@ -695,15 +709,9 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     nf = offsets.size
     vb = index_bits(n)
     lb = count_bits(n)
-    p = offsets.astype(np.int64) * 8 + 8 * len(SYNC) + 4
-    long = r.read(p, 1)
-    lw = np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
-    length = r.read(p + 1, lw)
-    p = p + 1 + lw
-    profile = r.read(p, 8)
-    sequence = r.read(p + 8, 8)
-    multi = r.read(p + 16, 1).astype(bool)
-    p = p + 17
+    length, profile, sequence, p = read_frame_start(r, offsets)
+    multi = r.read(p, 1).astype(bool)
+    p = p + 1
     channel = r.read(p, np.where(multi, 0, 8))
     p = p + np.where(multi, 0, 8)
     short = r.read(p, 1).astype(bool)

@@ -37,6 +37,7 @@ from ._layout import (
     FrameBatchV2,
     count_bits,
     index_bits,
+    read_frame_start,
     read_subheaders,
     size_length_fields,
     wrap_frames,
@@ -162,8 +163,9 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     ``consumed_ok`` and per-subframe ``frame``, ``channel``, ``window_offset``
     (window index relative to the frame's ``sequence``), ``sub_valid``,
     ``step_code``, ``mean`` (or None), ``count``, ``q``, ``trellis`` (layout
-    4: whether the subframe's levels are of dependent quantization; else None).  ``consumed_ok`` is
-    False for a frame whose contents do not match its length.
+    4: whether the subframe's levels are of dependent quantization; else
+    None).  ``consumed_ok`` is False for a frame whose contents do not match
+    its length.
     """
     r = BitReader(data)
     nf = offsets.size
@@ -171,15 +173,9 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     lb = count_bits(n)
     cb = channel_bits(channels)
     offsets = offsets.astype(np.int64)
-    p = offsets * 8 + 8 * len(SYNC) + 4
-    long = r.read(p, 1)
-    lw = np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
-    length = r.read(p + 1, lw)
-    p = p + 1 + lw
-    profile = r.read(p, 8)
-    sequence = r.read(p + 8, 8)
-    windows = r.read(p + 16, WINDOW_BITS) + 1
-    p = p + 16 + WINDOW_BITS
+    length, profile, sequence, p = read_frame_start(r, offsets)
+    windows = r.read(p, WINDOW_BITS) + 1
+    p = p + WINDOW_BITS
     multi = r.read(p, 1).astype(bool)
     p = p + 1
     channel = r.read(p, np.where(multi, 0, cb))
