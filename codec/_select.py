@@ -218,37 +218,52 @@ def choose_steps(
     # rounding); a step above 2 * scale rounds every term to zero, so nothing
     # coarser changes the error.  A ``hint`` (the code found for another offset)
     # narrows the bracket to an octave around it; it is checked, not trusted.
-    lo = np.maximum(floor, code_for_step(np.sqrt(budget / n) / (1.0 - offset)) - 1)
+    safe = np.maximum(floor, code_for_step(np.sqrt(budget / n) / (1.0 - offset)) - 1)
     # the mean is sent on its own, so only the terms about it bound the useful step
     ac = scale if mean is None else np.abs(cx - mean[:, None] * dc).max(axis=1)
-    hi = np.clip(code_for_step(2.0 * np.maximum(ac, 1e-300)) + 1, lo + 1, STEP_CODE_MAX)
+    hi = np.clip(code_for_step(2.0 * np.maximum(ac, 1e-300)) + 1, safe + 1, STEP_CODE_MAX)
     limit = budget * _MARGIN
-
-    def err(code):
-        return _error_only(cx, mean, dc, code, offset, trellis)
-
     if trellis and hint is not None:
-        return _trellis_steps(cx, mean, dc, limit, hint, lo, hi)
+        return _trellis_steps(cx, mean, dc, limit, hint, safe, hi)
+
+    def err(code, rows):
+        if trellis:  # only the frames asked for: a Viterbi pass is dear
+            return _error_only(cx[rows], None if mean is None else mean[rows], dc, code,
+                               offset, True)
+        # every frame (the others at a code that fits, their results dropped): block
+        # passes over whole arrays, as before, rather than gathering a subset
+        full = safe.copy()
+        full[rows] = code
+        return _error_only(cx, mean, dc, full, offset)[rows]
+
+    every = np.arange(nf)
     if hint is None:
         # lo holds by the bound (the caller's closed loop catches float rounding)
-        lo = np.minimum(lo, hi - 1)
-        ok_hi = err(hi) <= limit
-        lo = np.where(ok_hi, hi, lo)
+        lo = np.minimum(safe, hi - 1)
+        lo = np.where(err(hi, every) <= limit, hi, lo)
     else:
         # a wider dead zone errs more at the same step: search below the hint
-        hi = np.clip(hint + 1, lo + 1, hi)
-        lo = np.clip(hint - 6, lo, hi - 1)
-        ok_lo = err(lo) <= limit
-        lo = np.where(ok_lo, lo, np.maximum(floor, code_for_step(
-            np.sqrt(budget / n) / (1.0 - offset)) - 1))
+        hi = np.clip(hint + 1, safe + 1, hi)
+        lo = np.clip(hint - 6, safe, hi - 1)
+        lo = np.where(err(lo, every) <= limit, lo, safe)
+    return _bisect(err, lo, hi, limit)
+
+
+def _bisect(err, lo: np.ndarray, hi: np.ndarray, limit: np.ndarray) -> np.ndarray:
+    """Per frame, the largest code in [lo, hi) whose error fits ``limit``.
+
+    ``lo`` fits, ``hi`` is taken not to; ``err(codes, rows)`` is the error of
+    frames ``rows`` at ``codes``.  Each round halves every open bracket.
+    """
+    lo, hi = lo.copy(), hi.copy()
     while True:
-        active = hi - lo > 1
-        if not active.any():
+        rows = np.flatnonzero(hi - lo > 1)
+        if not rows.size:
             return lo
-        mid = np.where(active, (lo + hi) // 2, lo)
-        ok = err(mid) <= limit
-        lo = np.where(active & ok, mid, lo)
-        hi = np.where(active & ~ok, mid, hi)
+        mid = (lo[rows] + hi[rows]) // 2
+        ok = err(mid, rows) <= limit[rows]
+        lo[rows[ok]] = mid[ok]
+        hi[rows[~ok]] = mid[~ok]
 
 
 def _trellis_steps(cx, mean, dc, limit, hint, safe, top):
@@ -262,19 +277,20 @@ def _trellis_steps(cx, mean, dc, limit, hint, safe, top):
     frames still open only, settles the rest.  ``safe`` always fits (every
     term errs by at most one step); ``top`` is the coarsest code worth trying.
     """
-    def err(code, rows):
+    def err(code, rows=None):
+        if rows is None:  # every frame: no copy
+            return _error_only(cx, mean, dc, code, 0.0, True)
         return _error_only(cx[rows], None if mean is None else mean[rows], dc, code, 0.0,
                            True)
 
-    every = np.arange(cx.shape[0])
     hi = np.clip(hint + 1, safe + 1, top)  # treated as too coarse
     low = np.clip(hint - 12, safe, hi - 1)
     probe = np.clip(hint - 5, low, hi - 1)
-    e = err(probe, every)
-    with np.errstate(divide="ignore"):
+    e = err(probe)
+    with np.errstate(over="ignore", divide="ignore"):  # e may be 0: the guess clips to hi - 1
         guess = probe + np.floor(4.0 * np.log2(limit / np.maximum(e, 1e-300)))
     guess = np.clip(guess, low, hi - 1).astype(np.int64)
-    fits = err(guess, every) <= limit
+    fits = err(guess) <= limit
     lo = np.where(fits, guess, low)
     hi = np.where(fits, hi, guess)
     # frames whose guess failed: is the bottom of the bracket feasible, or fall back
@@ -284,11 +300,4 @@ def _trellis_steps(cx, mean, dc, limit, hint, safe, top):
     if below.size:
         ok[below] = err(lo[below], below) <= limit[below]
     lo[failed] = np.where(ok[failed], lo[failed], safe[failed])
-    while True:
-        rows = np.flatnonzero(hi - lo > 1)
-        if not rows.size:
-            return lo
-        mid = (lo[rows] + hi[rows]) // 2
-        ok = err(mid, rows) <= limit[rows]
-        lo[rows[ok]] = mid[ok]
-        hi[rows[~ok]] = mid[~ok]
+    return _bisect(err, lo, hi, limit)

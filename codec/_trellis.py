@@ -203,6 +203,6 @@ def trim_tail(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.ndarray,
     fits = tail <= (limit - err)[:, None]
     n = q.shape[1]
     first = np.where(fits.any(axis=1), np.argmax(fits, axis=1), n)
-    q = np.where(np.arange(n) < first[:, None], q, 0)
-    r = c - dequantize_levels(q) * np.asarray(step, dtype=np.float64)[:, None]
-    return q, np.einsum("ij,ij->i", r, r)
+    keep = np.arange(n) < first[:, None]
+    r = c - np.where(keep, x, 0.0)  # the kept levels reconstruct as before
+    return np.where(keep, q, 0), np.einsum("ij,ij->i", r, r)
