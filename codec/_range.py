@@ -566,12 +566,8 @@ def _classes(total: np.ndarray, u: np.ndarray, band: np.ndarray) -> np.ndarray:
     return np.where(total == 0, 0, scale) * _BANDS + band
 
 
-def _contexts(mag: np.ndarray, qid: np.ndarray | None = None) -> np.ndarray:
-    """Class of every coefficient of every row (column 0: -1, coded on its own).
-
-    ``qid``: layout 4, the quantizer (0 or 1) of every level, which selects
-    the table set.
-    """
+def _contexts(mag: np.ndarray) -> np.ndarray:
+    """Class of every coefficient of every row (column 0: -1, coded on its own)."""
     ns, n = mag.shape
     j = np.arange(1, n)
     total = preceding_sums(mag, CONTEXT_WINDOW)
@@ -580,20 +576,17 @@ def _contexts(mag: np.ndarray, qid: np.ndarray | None = None) -> np.ndarray:
     u[:, :w] = (total[:, :w] << 4) // j[:w]
     cls = np.full((ns, n), -1, dtype=np.int64)
     cls[:, 1:] = _classes(total, u, band_class(j, n))
-    if qid is not None:
-        cls[:, 1:] += TRELLIS_BASE * (1 + qid[:, 1:])
     return cls
 
 
 def _trellis_classes(mag: np.ndarray, q: np.ndarray, trellis) -> np.ndarray:
     """Classes of every row; rows flagged in ``trellis`` (bool or per-row) use layout 4's sets."""
-    if trellis is None or not np.any(trellis):
-        return _contexts(mag)
-    rows = np.broadcast_to(np.asarray(trellis, dtype=bool), (q.shape[0],))
-    if rows.all():
-        return _contexts(mag, quantizer_ids(q))
     cls = _contexts(mag)
-    cls[rows] = _contexts(mag[rows], quantizer_ids(q[rows]))
+    if trellis is None or not np.any(trellis):
+        return cls
+    rows = np.flatnonzero(np.broadcast_to(np.asarray(trellis, dtype=bool), (q.shape[0],)))
+    # the table set of each level's quantizer: 0 -> TRELLIS_BASE, 1 -> 2 TRELLIS_BASE
+    cls[rows, 1:] += TRELLIS_BASE * (1 + quantizer_ids(q[rows])[:, 1:])
     return cls
 
 
