@@ -1,4 +1,4 @@
-"""trimlink codec: orthonormal-basis coding of telemetry frames at a guaranteed fidelity.
+"""coefwire codec: orthonormal-basis coding of telemetry frames at a guaranteed fidelity.
 
 Data flows samples -> frames -> coefficients -> term selection -> quantizer ->
 frame layout -> bytes, and back in :func:`decode`.
@@ -9,7 +9,7 @@ from ._bases import Basis, as_basis, basis_from_code, basis_names, register_basi
 from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reconstruct
 from ._compare import Comparison, compare_bases, energy_compaction
 from ._crc import crc16_ibm3740, crc32_iso_hdlc
-from ._errors import FrameError, InputError, ProfileError, TrimlinkError
+from ._errors import CoefwireError, FrameError, InputError, ProfileError
 from ._klt import TrainedBasis, load_trained_basis, save_trained_basis, train_klt
 from ._profile import (
     ChannelSpec,
@@ -30,7 +30,7 @@ __all__ = [
     "Comparison", "compare_bases", "energy_compaction",
     "TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt",
     "crc16_ibm3740", "crc32_iso_hdlc",
-    "FrameError", "InputError", "ProfileError", "TrimlinkError",
+    "FrameError", "InputError", "ProfileError", "CoefwireError",
     "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "read_toml",
     "save_profile",
     "error_figures",

@@ -145,7 +145,7 @@ def basis_from_code(code: int, n: int) -> Basis:
     for name, kind in _KINDS.items():
         if kind.code == code:
             return as_basis(name, n)
-    raise InputError(f"basis code {code} is not known to this version of trimlink")
+    raise InputError(f"basis code {code} is not known to this version of coefwire")
 
 
 @functools.lru_cache(maxsize=64)

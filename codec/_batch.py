@@ -1,19 +1,19 @@
-"""Batch mode for store-and-forward links: many frames in one zstd bundle.
+"""Batch mode for store-and-forward links: many frames in one zstd pack.
 
 A live link sends frames one by one, so each frame must stand alone.  A
 store-and-forward link (a logger emptied over a pass, a relay) may instead
 send a whole batch at once; then a general-purpose compressor can remove what
 frames repeat among themselves: sync markers, profile byte, sequence numbers,
-similar header fields.  The bundle is a zstandard frame of the concatenated
+similar header fields.  The pack is a zstandard frame of the concatenated
 stream compressed with a dictionary that zstd's own trainer
 (``zstandard.train_dictionary``, the ZDICT/COVER algorithm) builds from sample
 frames of the profile's scenario; both ends hold the dictionary beforehand, so
-it is not counted in the bundle's bits (its size is reported).
+it is not counted in the pack's bits (its size is reported).
 
 The frames inside stay exactly the bytes the per-frame coder made, so a
-decoded bundle goes straight to :func:`codec.decode`.  Whether the bundle
-saves anything is measured, not assumed: :func:`bundle_report` states the bits
-against per-frame coding, and says so when the bundle costs more.
+decoded pack goes straight to :func:`codec.decode`.  Whether the pack
+saves anything is measured, not assumed: :func:`pack_report` states the bits
+against per-frame coding, and says so when the pack costs more.
 
 References
 ----------
@@ -36,12 +36,12 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from ._errors import FrameError, InputError, ProfileError
 from ._stream import locate_frames
 
-__all__ = ["train_dictionary", "pack_bundle", "unpack_bundle", "bundle_report", "BUNDLE_LEVEL",
-           "dictionary_id", "bundle_dictionary_id", "DictionaryNote", "dictionary_note",
+__all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LEVEL",
+           "dictionary_id", "pack_dictionary_id", "DictionaryNote", "dictionary_note",
            "dictionary_note_path", "save_dictionary_note", "load_dictionary_note"]
 
-#: zstd level used for bundles (store-and-forward: time is cheap, bits are not).
-BUNDLE_LEVEL = 19
+#: zstd level used for packs (store-and-forward: time is cheap, bits are not).
+PACK_LEVEL = 19
 
 
 def _frames_of(data: bytes) -> list[bytes]:
@@ -55,10 +55,10 @@ def train_dictionary(sample_streams: list[bytes], size_bytes: int = 4096) -> byt
     """
     samples = [f for s in sample_streams for f in _frames_of(s)]
     if len(samples) < 8:
-        raise InputError(f"only {len(samples)} sample frames; train the bundle dictionary on "
+        raise InputError(f"only {len(samples)} sample frames; train the pack dictionary on "
                          "at least 8 frames", "dictionary")
     try:
-        d = zstandard.train_dictionary(size_bytes, samples, level=BUNDLE_LEVEL)
+        d = zstandard.train_dictionary(size_bytes, samples, level=PACK_LEVEL)
     except zstandard.ZstdError as exc:
         raise InputError(f"zstd could not train a dictionary ({exc}); give more or larger "
                          "sample frames", "dictionary") from None
@@ -69,114 +69,114 @@ def dictionary_id(dictionary: bytes) -> int:
     """The zstd dictionary id written in a dictionary's header (RFC 8878, section 5).
 
     Raises :class:`InputError` when the bytes are not a zstd dictionary (raw
-    content would give id 0, and a bundle could then not name what it needs).
+    content would give id 0, and a pack could then not name what it needs).
     """
     if len(dictionary) < 8 or dictionary[:4] != b"\x37\xa4\x30\xec":
         raise InputError("not a zstd dictionary (no dictionary magic number); make one with "
-                         "the bundle dictionary trainer", "dictionary")
+                         "the pack dictionary trainer", "dictionary")
     did = zstandard.ZstdCompressionDict(dictionary).dict_id()
     if did == 0:
-        raise InputError("the zstd dictionary has id 0, so a bundle could not name it; "
+        raise InputError("the zstd dictionary has id 0, so a pack could not name it; "
                          "retrain the dictionary", "dictionary")
     return did
 
 
-def bundle_dictionary_id(bundle: bytes) -> int:
-    """The dictionary id in the bundle's zstd frame header (0: packed without a dictionary)."""
+def pack_dictionary_id(pack: bytes) -> int:
+    """The dictionary id in the pack's zstd frame header (0: packed without a dictionary)."""
     try:
-        return zstandard.get_frame_parameters(bundle).dict_id
+        return zstandard.get_frame_parameters(pack).dict_id
     except zstandard.ZstdError:
-        raise FrameError("not a zstd bundle; check the file", "bundle") from None
+        raise FrameError("not a zstd pack; check the file", "pack") from None
 
 
-def pack_bundle(data: bytes, dictionary: bytes | None = None) -> bytes:
-    """Compress a stream of frames into one bundle (zstd level 19, optional dictionary).
+def make_pack(data: bytes, dictionary: bytes | None = None) -> bytes:
+    """Compress a stream of frames into one pack (zstd level 19, optional dictionary).
 
     The zstd frame header records the stream's size and the dictionary's id,
-    so the receiver knows which dictionary the bundle needs and how large it
+    so the receiver knows which dictionary the pack needs and how large it
     will be before it expands anything.
     """
     if dictionary:
         dictionary_id(dictionary)  # a real zstd dictionary, so the frame names it
     zd = zstandard.ZstdCompressionDict(dictionary) if dictionary else None
-    zc = zstandard.ZstdCompressor(level=BUNDLE_LEVEL, dict_data=zd, write_content_size=True,
+    zc = zstandard.ZstdCompressor(level=PACK_LEVEL, dict_data=zd, write_content_size=True,
                                   write_dict_id=True)
     return zc.compress(data)
 
 
-def unpack_bundle(bundle: bytes, dictionary: bytes | None = None,
+def open_pack(pack: bytes, dictionary: bytes | None = None,
                   max_output_size: int = 1 << 28) -> bytes:
-    """The stream inside ``bundle``; refuses to expand beyond ``max_output_size`` bytes.
+    """The stream inside ``pack``; refuses to expand beyond ``max_output_size`` bytes.
 
-    The cap protects the receiver from a corrupt or hostile bundle that would
+    The cap protects the receiver from a corrupt or hostile pack that would
     expand without bound: a declared size over the cap is refused before
-    anything is expanded, and a bundle without a declared size is read
+    anything is expanded, and a pack without a declared size is read
     through a stream that stops one byte past the cap.  The dictionary id the
-    bundle's frame names must be the given dictionary's; a dictionary given
-    for a bundle packed without one is not used.  Bytes after the bundle's
+    pack's frame names must be the given dictionary's; a dictionary given
+    for a pack packed without one is not used.  Bytes after the pack's
     zstd frame are refused (the stream would otherwise come back cut short).
     """
-    need = bundle_dictionary_id(bundle)
+    need = pack_dictionary_id(pack)
     if need and not dictionary:
-        raise FrameError(f"the bundle was packed with the zstd dictionary of id {need}; "
-                         "give that dictionary", "bundle")
+        raise FrameError(f"the pack was packed with the zstd dictionary of id {need}; "
+                         "give that dictionary", "pack")
     if need and dictionary_id(dictionary) != need:
-        raise FrameError(f"the bundle needs the zstd dictionary of id {need}, but the one "
+        raise FrameError(f"the pack needs the zstd dictionary of id {need}, but the one "
                          f"given has id {dictionary_id(dictionary)}; give the dictionary it "
-                         "was packed with", "bundle")
+                         "was packed with", "pack")
     zd = zstandard.ZstdCompressionDict(dictionary) if need else None
     dz = zstandard.ZstdDecompressor(dict_data=zd)
-    size = zstandard.get_frame_parameters(bundle).content_size
+    size = zstandard.get_frame_parameters(pack).content_size
     if size != zstandard.CONTENTSIZE_UNKNOWN and size > max_output_size:
-        raise FrameError(f"the bundle would expand to {size} bytes, over the "
-                         f"{max_output_size}-byte cap; raise the cap if it is genuine", "bundle")
+        raise FrameError(f"the pack would expand to {size} bytes, over the "
+                         f"{max_output_size}-byte cap; raise the cap if it is genuine", "pack")
     try:
-        with dz.stream_reader(bundle, read_across_frames=False) as reader:
+        with dz.stream_reader(pack, read_across_frames=False) as reader:
             capped = reader.read(max_output_size + 1)
         if len(capped) > max_output_size:
-            raise FrameError(f"the bundle expands beyond the {max_output_size}-byte cap; "
-                             "raise the cap if it is genuine", "bundle")
+            raise FrameError(f"the pack expands beyond the {max_output_size}-byte cap; "
+                             "raise the cap if it is genuine", "pack")
         # Within the cap: expand once more to learn where the zstd frame ends.
         obj = dz.decompressobj()
-        data = obj.decompress(bundle)
+        data = obj.decompress(pack)
     except zstandard.ZstdError as exc:
-        raise FrameError(f"the bundle does not decompress ({exc}); it is corrupt or needs "
-                         "another dictionary", "bundle") from None
+        raise FrameError(f"the pack does not decompress ({exc}); it is corrupt or needs "
+                         "another dictionary", "pack") from None
     if not obj.eof:
-        raise FrameError("the bundle ends inside its zstd frame; it was cut short", "bundle")
+        raise FrameError("the pack ends inside its zstd frame; it was cut short", "pack")
     if obj.unused_data:
-        raise FrameError(f"{len(obj.unused_data)} bytes follow the bundle's zstd frame; "
-                         "a bundle is exactly one zstd frame", "bundle")
+        raise FrameError(f"{len(obj.unused_data)} bytes follow the pack's zstd frame; "
+                         "a pack is exactly one zstd frame", "pack")
     if data != capped:
-        raise RuntimeError("the two expansions of one bundle differ")  # our bug
+        raise RuntimeError("the two expansions of one pack differ")  # our bug
     return data
 
 
-def bundle_report(data: bytes, bundle: bytes, samples: int, dictionary: bytes | None) -> dict:
-    """Bits of the bundle against per-frame coding of the same stream, per input sample."""
+def pack_report(data: bytes, pack: bytes, samples: int, dictionary: bytes | None) -> dict:
+    """Bits of the pack against per-frame coding of the same stream, per input sample."""
     per_frame = 8 * len(data)
-    bundled = 8 * len(bundle)
-    saved = per_frame - bundled
+    packed = 8 * len(pack)
+    saved = per_frame - packed
     return {
         "per_frame_bits": per_frame,
-        "bundle_bits": bundled,
+        "pack_bits": packed,
         "bits_saved": saved,
         "saved_percent": 100.0 * saved / per_frame if per_frame else 0.0,
         "per_frame_bits_per_sample": per_frame / samples,
-        "bundle_bits_per_sample": bundled / samples,
+        "pack_bits_per_sample": packed / samples,
         "dictionary_bytes": len(dictionary) if dictionary else 0,
-        "verdict": ("the bundle saves bits" if saved > 0 else
-                    "the bundle saves nothing: send the frames as they are"),
+        "verdict": ("the pack saves bits" if saved > 0 else
+                    "the pack saves nothing: send the frames as they are"),
         "frames": int(np.size(locate_frames(data).offsets)),
     }
 
 
 class DictionaryNote(BaseModel):
-    """Provenance of a bundle dictionary, kept as TOML beside it (``DICT.note.toml``).
+    """Provenance of a pack dictionary, kept as TOML beside it (``DICT.note.toml``).
 
     Sizes are in bytes; ``sha256`` is the SHA-256 of the dictionary file, so
     both ends can check they hold the same one; ``zstd_dictionary_id`` is the
-    id every bundle packed with it names in its frame header.
+    id every pack packed with it names in its frame header.
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -186,7 +186,7 @@ class DictionaryNote(BaseModel):
     profile_id: int = Field(ge=0, le=0xFFFF)
     dictionary_bytes: int = Field(ge=1)
     zstd_dictionary_id: int = Field(ge=1)
-    zstd_level: int = BUNDLE_LEVEL
+    zstd_level: int = PACK_LEVEL
     sha256: str = Field(pattern=r"^[0-9a-f]{64}$")
     trained_utc: str
 

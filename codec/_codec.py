@@ -796,5 +796,5 @@ def check_some_frame(counts: dict, events: list) -> None:
         raise FrameError(f"every CRC-valid frame was refused ({refused[0].get('detail')}); the "
                          "stream does not match this profile", f"frame at byte "
                          f"{refused[0]['offset']}")
-    raise FrameError("no frame with a valid sync marker and CRC was found; is this a trimlink "
+    raise FrameError("no frame with a valid sync marker and CRC was found; is this a coefwire "
                      "stream?")

@@ -186,12 +186,12 @@ def compare_bases(
     jobs: list[tuple[str, float]] = [(b, f) for b in names_b for f in fids]
     recon: dict = {}
     measured: dict = {}
-    with tempfile.TemporaryDirectory(prefix="trimlink-compare-") as tmp:
+    with tempfile.TemporaryDirectory(prefix="coefwire-compare-") as tmp:
         if "klt" in names_b:
             if split == 0:
                 raise InputError("basis klt needs a training slice; give --train-fraction > 0")
             trained = train_klt(train, n, names, input_name=input_name)
-            path = Path(tmp) / "klt.npz"
+            path = Path(tmp) / "klt.cwbasis.npz"
             save_trained_basis(trained, path)
         bar = _progress(len(jobs), progress)
         for b, f in jobs:

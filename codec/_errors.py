@@ -1,14 +1,14 @@
 """The project's error hierarchy.
 
-Every error a user can cause derives from :class:`TrimlinkError` and from the
+Every error a user can cause derives from :class:`CoefwireError` and from the
 matching built-in type, so callers may catch either.  The CLI turns these into a
 one-sentence message and exit status 2; anything else is our bug and stays loud.
 """
 
-__all__ = ["TrimlinkError", "InputError", "FrameError", "ProfileError"]
+__all__ = ["CoefwireError", "InputError", "FrameError", "ProfileError"]
 
 
-class TrimlinkError(Exception):
+class CoefwireError(Exception):
     """Root of the errors a user can cause (bad input, bad stream, bad profile).
 
     Parameters
@@ -25,13 +25,13 @@ class TrimlinkError(Exception):
         super().__init__(f"{where}: {message}" if where else message)
 
 
-class InputError(TrimlinkError, ValueError):
+class InputError(CoefwireError, ValueError):
     """Sample data that cannot be coded (ragged CSV, NaN, wrong shape...)."""
 
 
-class FrameError(TrimlinkError, ValueError):
+class FrameError(CoefwireError, ValueError):
     """A byte stream or frame that is not ours or fails its checks."""
 
 
-class ProfileError(TrimlinkError, ValueError):
+class ProfileError(CoefwireError, ValueError):
     """A profile or link file with unknown keys or impossible values."""

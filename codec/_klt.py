@@ -11,7 +11,7 @@ first the ``total`` reference codes the mean as one term.  Each channel is
 scaled by its RMS about the frame means before pooling, so a channel with a
 large range does not decide the shapes of every other channel.
 
-Basis file (``.npz``, our own format, read without pickle):
+Basis file (``.cwbasis.npz``: a NumPy ``.npz`` container in our own layout, read without pickle):
 
 ==============  ==========================================================
 key             contents
@@ -21,7 +21,7 @@ key             contents
 ``note``        0-d unicode: a TOML note, the :class:`BasisNote` fields
 ==============  ==========================================================
 
-The note records ``format`` ("trimlink-klt"), ``format_version`` (1),
+The note records ``format`` ("coefwire-klt"), ``format_version`` (1),
 ``frame_length``, ``input_name``, ``channels``, ``frames_used``,
 ``trained_utc`` (ISO 8601) and ``sha256``: the SHA-256 of the matrix as
 little-endian float64 bytes in row-major order.  A profile names the basis
@@ -64,11 +64,15 @@ __all__ = [
     "matrix_sha256",
     "profile_basis",
     "note_toml",
+    "BASIS_SUFFIX",
 ]
+
+#: File name ending of a trained basis file (an ``.npz`` container in our own layout).
+BASIS_SUFFIX = ".cwbasis.npz"
 
 #: Header code of a trained basis (the header's basis field is 8 bits).
 KLT_CODE = 31
-_FORMAT = "trimlink-klt"
+_FORMAT = "coefwire-klt"
 _FORMAT_VERSION = 1
 
 
@@ -177,8 +181,8 @@ def train_klt(values: np.ndarray, n: int, names: list[str] | None = None,
 def save_trained_basis(trained: TrainedBasis, path: str | Path) -> None:
     """Write the basis file (format in the module docstring), atomically."""
     path = Path(path)
-    if path.suffix.lower() != ".npz":
-        raise InputError("a basis file must end in .npz", str(path))
+    if not path.name.lower().endswith(BASIS_SUFFIX):
+        raise InputError(f"a basis file must end in {BASIS_SUFFIX}; rename the output", str(path))
     note = tomli_w.dumps(trained.note.model_dump())
     with atomic_output(path) as tmp, open(tmp, "wb") as fh:
         np.savez(fh, matrix=np.ascontiguousarray(trained.matrix, dtype="<f8"),
@@ -199,8 +203,8 @@ def load_trained_basis(path: str | Path, sha256: str | None = None) -> TrainedBa
     except FileNotFoundError:
         raise ProfileError("no such basis file; check basis_file in the profile", where) from None
     except (OSError, ValueError, KeyError, zipfile.BadZipFile) as exc:
-        raise ProfileError(f"not a trimlink basis file ({exc.__class__.__name__}); make one "
-                           "with 'trimlink train'", where) from None
+        raise ProfileError(f"not a coefwire basis file ({exc.__class__.__name__}); make one "
+                           "with 'coefwire train'", where) from None
     try:
         note = BasisNote.model_validate(tomllib.loads(note_text))
     except (tomllib.TOMLDecodeError, ValidationError):
@@ -208,7 +212,7 @@ def load_trained_basis(path: str | Path, sha256: str | None = None) -> TrainedBa
                            where) from None
     if note.format != _FORMAT or note.format_version != _FORMAT_VERSION:
         raise ProfileError(f"basis format {note.format} v{note.format_version} is not one this "
-                           "trimlink reads", where)
+                           "coefwire reads", where)
     n = note.frame_length
     if matrix.shape != (n, n) or matrix.dtype != np.float64:
         raise ProfileError(f"the matrix is {matrix.shape} {matrix.dtype}, not ({n}, {n}) "
@@ -254,4 +258,4 @@ def _klt_placeholder(n: int) -> np.ndarray:  # pragma: no cover - check() always
 
 register_basis("klt", KLT_CODE, _klt_placeholder,
                lambda n: "is trained on data: name its file with basis_file and basis_sha256 "
-               "in the profile (make one with 'trimlink train')")
+               "in the profile (make one with 'coefwire train')")

@@ -92,7 +92,7 @@ class Profile(BaseModel):
     #: windows share one header but a lost frame loses them all.
     windows_per_frame: int = Field(default=8, ge=1, le=16)
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
-    #: A trained basis (basis = "klt"): its .npz file and the SHA-256 of its matrix.
+    #: A trained basis (basis = "klt"): its .cwbasis.npz file and the SHA-256 of its matrix.
     basis_file: str | None = None
     basis_sha256: str | None = Field(default=None, pattern=r"^[0-9a-fA-F]{64}$")
 
@@ -101,7 +101,7 @@ class Profile(BaseModel):
         trained = self.basis_file is not None or self.basis_sha256 is not None
         if self.basis == "klt" and (self.basis_file is None or self.basis_sha256 is None):
             raise ValueError("basis 'klt' needs basis_file and basis_sha256 (the file and hash "
-                             "'trimlink train' prints)")
+                             "'coefwire train' prints)")
         if self.basis != "klt" and trained:
             raise ValueError("basis_file and basis_sha256 belong to basis 'klt' only")
         return self

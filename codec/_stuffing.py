@@ -3,7 +3,7 @@
 A serial modem moves bytes with no packet boundaries.  Byte stuffing reserves
 one byte value as a packet delimiter and rewrites it wherever it occurs inside
 a packet, so a receiver finds packet boundaries after any loss at the next
-delimiter.  Each trimlink frame is sent as one packet; the frame keeps its own
+delimiter.  Each coefwire frame is sent as one packet; the frame keeps its own
 sync marker and CRC, so unstuffed bytes feed the ordinary decoder.
 
 * SLIP, RFC 1055 (Romkey 1988): END = 0xC0 delimits; inside a packet END

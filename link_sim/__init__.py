@@ -1,4 +1,4 @@
-"""trimlink link simulator: channel models, FEC, receiver and link budget (built on codec).
+"""coefwire link simulator: channel models, FEC, receiver and link budget (built on codec).
 
 ``link_sim`` imports ``codec``; ``codec`` never imports ``link_sim``.
 """

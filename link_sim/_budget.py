@@ -165,7 +165,7 @@ def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN
     rate_source = ("rate on air recorded with the measured curve (every bit on air counted)"
                    if curve.get("rate_on_air") else "nominal code rate")
     made = ", ".join(f"{k} {str(prov[k]).strip()}" for k in ("command", "seed", "date_utc",
-                                                  "trimlink_version") if k in prov)
+                                                  "coefwire_version") if k in prov)
     floor = curve.get("below_floor_at_db")
     if target_ber < ber[lowest] and floor is not None and bits and 3.0 / bits <= target_ber:
         # No error at all in `bits` trials: the one-sided 95 % upper bound on the BER is

@@ -1,6 +1,6 @@
-"""``trimlink budget``: does the stream fit this radio with margin, and at what fidelity?
+"""``coefwire budget``: does the stream fit this radio with margin, and at what fidelity?
 
-Registered through the ``trimlink.commands`` entry-point group.  Prints the
+Registered through the ``coefwire.commands`` entry-point group.  Prints the
 auditable budget table, the margin and the maximum data rate, the pass table
 for an orbit, and with ``--input`` the codec's measured bits per second at each
 fidelity of a list, the margin at each and the highest fidelity that fits.

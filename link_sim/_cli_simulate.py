@@ -1,4 +1,4 @@
-"""``trimlink simulate``: send a coded sample file across a simulated noisy link."""
+"""``coefwire simulate``: send a coded sample file across a simulated noisy link."""
 
 from __future__ import annotations
 

@@ -1,6 +1,6 @@
-"""``trimlink send`` and ``trimlink receive``: a coded stream over UDP datagrams.
+"""``coefwire send`` and ``coefwire receive``: a coded stream over UDP datagrams.
 
-Registered through the ``trimlink.commands`` entry-point group (pyproject.toml).
+Registered through the ``coefwire.commands`` entry-point group (pyproject.toml).
 """
 
 from __future__ import annotations
@@ -24,7 +24,7 @@ _CAUTION = ("caution: transmit only on frequencies and at powers your licence or
 
 def register_send(sub) -> None:
     p = sub.add_parser("send", help="send a coded stream as UDP datagrams, one frame each",
-                       description="Send the frames of STREAM (made by 'trimlink encode') to "
+                       description="Send the frames of STREAM (made by 'coefwire encode') to "
                        "HOST:PORT, one per datagram, paced at the link rate.")
     p.add_argument("stream", metavar="INPUT")
     p.add_argument("--udp", required=True, metavar="HOST:PORT")
@@ -58,7 +58,7 @@ def _send(args) -> int:
         raise InputError(f"cannot read the stream ({exc.strerror})", args.stream) from None
     frames = split_frames_of(data)
     if not frames:
-        raise InputError("no frame with a valid sync marker and CRC; is this a trimlink stream?",
+        raise InputError("no frame with a valid sync marker and CRC; is this a coefwire stream?",
                          args.stream)
     stats = send_frames(frames, host, port, args.rate_bps)
     print(f"{stats.frames} frames ({8 * stats.bytes} bits) sent to {host}:{port} in "

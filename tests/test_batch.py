@@ -1,4 +1,4 @@
-"""Batch mode: a zstd bundle of frames with a dictionary from zstd's own trainer."""
+"""Batch mode: a zstd pack of frames with a dictionary from zstd's own trainer."""
 
 import numpy as np
 import pytest
@@ -7,7 +7,7 @@ import zstandard
 
 import codec
 from codec import FrameError, InputError, Profile
-from codec._batch import bundle_report, pack_bundle, train_dictionary, unpack_bundle
+from codec._batch import make_pack, open_pack, pack_report, train_dictionary
 
 
 def _stream(seed, samples=4000, profile=None):
@@ -16,15 +16,15 @@ def _stream(seed, samples=4000, profile=None):
     return codec.encode(x, profile or Profile()), x
 
 
-def test_bundle_round_trip_with_trained_dictionary():
+def test_pack_round_trip_with_trained_dictionary():
     train = [_stream(s)[0].data for s in range(3)]
     d = train_dictionary(train)
     # the dictionary is a real zstd dictionary (zstandard reads its id back)
     assert zstandard.ZstdCompressionDict(d).dict_id() != 0
     enc, x = _stream(99)
-    bundle = pack_bundle(enc.data, d)
-    assert unpack_bundle(bundle, d) == enc.data
-    dec = codec.decode(unpack_bundle(bundle, d), enc.profile, samples=x.shape[0])
+    pack = make_pack(enc.data, d)
+    assert open_pack(pack, d) == enc.data
+    dec = codec.decode(open_pack(pack, d), enc.profile, samples=x.shape[0])
     assert np.array_equal(dec.samples, enc.reconstruction)
 
 
@@ -32,34 +32,34 @@ def test_report_is_measured_not_assumed():
     train = [_stream(s)[0].data for s in range(3)]
     d = train_dictionary(train)
     enc, x = _stream(42)
-    bundle = pack_bundle(enc.data, d)
-    r = bundle_report(enc.data, bundle, x.size, d)
-    assert r["bits_saved"] == 8 * (len(enc.data) - len(bundle))
-    assert (r["bits_saved"] > 0) == r["verdict"].startswith("the bundle saves bits")
+    pack = make_pack(enc.data, d)
+    r = pack_report(enc.data, pack, x.size, d)
+    assert r["bits_saved"] == 8 * (len(enc.data) - len(pack))
+    assert (r["bits_saved"] > 0) == r["verdict"].startswith("the pack saves bits")
 
 
-def test_bundle_of_incompressible_bytes_says_it_saves_nothing():
+def test_pack_of_incompressible_bytes_says_it_saves_nothing():
     # random bytes cannot be compressed (counting argument; common knowledge)
     junk = np.random.default_rng(0).bytes(5000)
-    bundle = pack_bundle(junk)
-    r = bundle_report(junk, bundle, 1000, None)
+    pack = make_pack(junk)
+    r = pack_report(junk, pack, 1000, None)
     assert r["bits_saved"] <= 0 and "saves nothing" in r["verdict"]
 
 
 def test_expansion_cap_refuses_a_bomb():
-    bomb = pack_bundle(bytes(10_000_000))
+    bomb = make_pack(bytes(10_000_000))
     with pytest.raises(FrameError, match="cap"):
-        unpack_bundle(bomb, None, max_output_size=1_000_000)
+        open_pack(bomb, None, max_output_size=1_000_000)
 
 
-def test_wrong_or_corrupt_bundle_is_refused():
+def test_wrong_or_corrupt_pack_is_refused():
     with pytest.raises(FrameError):
-        unpack_bundle(b"not a bundle at all")
+        open_pack(b"not a pack at all")
     train = [_stream(s)[0].data for s in range(3)]
     d = train_dictionary(train)
-    bundle = pack_bundle(_stream(5)[0].data, d)
+    pack = make_pack(_stream(5)[0].data, d)
     with pytest.raises(FrameError):
-        unpack_bundle(bundle, None)
+        open_pack(pack, None)
 
 
 def test_too_few_training_frames():

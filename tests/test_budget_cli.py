@@ -1,4 +1,4 @@
-"""``trimlink budget`` end to end: the acceptance checks of the link budget."""
+"""``coefwire budget`` end to end: the acceptance checks of the link budget."""
 
 from __future__ import annotations
 

@@ -28,9 +28,9 @@ def sample_csv(tmp_path):
 
 
 def test_encode_decode_inspect(sample_csv, tmp_path, capsys):
-    stream, out, rep = tmp_path / "s.tlk", tmp_path / "out.csv", tmp_path / "r.json"
+    stream, out, rep = tmp_path / "s.cwire", tmp_path / "out.csv", tmp_path / "r.json"
     assert main(["encode", str(sample_csv), "-o", str(stream), "--json", str(rep)]) == 0
-    assert (tmp_path / "s.tlk.profile.toml").is_file()
+    assert (tmp_path / "s.cwire.profile.toml").is_file()
     report = json.loads(rep.read_text())
     for key in ("frames", "samples", "channels", "bits_total", "bits_per_sample",
                 "bits_per_frame_mean", "raw_bits_per_sample", "compression_ratio",
@@ -90,11 +90,11 @@ BAD_CSV = [
 def test_bad_csv_exit_2_no_output(tmp_path, capsys, text, message):
     src = tmp_path / "bad.csv"
     src.write_text(text)
-    out = tmp_path / "s.tlk"
+    out = tmp_path / "s.cwire"
     assert main(["encode", str(src), "-o", str(out)]) == 2
     err = capsys.readouterr().err
     assert message in err and "Traceback" not in err
-    assert not out.exists() and not (tmp_path / "s.tlk.profile.toml").exists()
+    assert not out.exists() and not (tmp_path / "s.cwire.profile.toml").exists()
     assert list(tmp_path.iterdir()) == [src]  # no temporary file left behind either
 
 
@@ -169,7 +169,7 @@ def test_demo_runs(tmp_path, capsys):
     assert (tmp_path / "orbiter_hk.compare.png").stat().st_size > 10_000
 
 
-def test_bundled_profiles_match_profiles_folder():
+def test_packed_profiles_match_profiles_folder():
     # The installed demo reads codec/data; the repository's profiles/ must say the same.
     from pathlib import Path
 

@@ -1,7 +1,7 @@
 """The decoder as a parser of untrusted input: random bytes, mutated streams, forged headers.
 
 Properties checked on every input: only the project's documented errors
-(TrimlinkError subclasses) may escape; no sample comes from a frame whose CRC
+(CoefwireError subclasses) may escape; no sample comes from a frame whose CRC
 fails (each accepted frame's CRC is re-checked with binascii, independent of the
 codec); every sample is accounted for; memory stays below a stated limit.
 The 10^4-stream run lives in tools/fuzz_mutations.py; here a smaller seeded set.
@@ -20,7 +20,7 @@ from hypothesis import strategies as st
 from streams import assert_accounting, crc_ok_reference, frames_of, real_stream
 
 import codec
-from codec import TrimlinkError
+from codec import CoefwireError
 from codec._crc import crc16_ibm3740
 from codec._layout import HEADER_FIELDS, SYNC
 from codec.cli import main
@@ -32,7 +32,7 @@ CLEAN = codec.decode(ENC.data, ENC.profile, samples=400)
 def _check(data: bytes, samples: int | None = 400) -> codec.DecodeResult:
     try:
         dec = codec.decode(data, ENC.profile, samples=samples, strict=False)
-    except TrimlinkError:
+    except CoefwireError:
         pytest.fail("strict=False reports damage, it does not raise")
     assert_accounting(dec, 2)
     fr = dec.frames

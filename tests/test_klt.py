@@ -58,7 +58,7 @@ def test_too_little_history_is_refused():
 
 def _trained_profile(tmp_path, x, n=32):
     t = codec.train_klt(x, n, ["a", "b"], input_name="hist.csv")
-    path = tmp_path / "basis.npz"
+    path = tmp_path / "basis.cwbasis.npz"
     codec.save_trained_basis(t, path)
     return t, path, codec.Profile(frame_length=n, basis="klt", basis_file=str(path),
                                   basis_sha256=t.note.sha256, fidelity=0.99)
@@ -116,11 +116,11 @@ def test_profile_relative_basis_file_and_id_ignore_path(tmp_path):
     x = np.cumsum(np.random.default_rng(2).normal(size=(4000, 2)), axis=0)
     t, path, prof = _trained_profile(tmp_path, x)
     p = tmp_path / "p.toml"
-    p.write_text(f'basis = "klt"\nframe_length = 32\nbasis_file = "basis.npz"\n'
+    p.write_text(f'basis = "klt"\nframe_length = 32\nbasis_file = "basis.cwbasis.npz"\n'
                  f'basis_sha256 = "{t.note.sha256}"\nfidelity = 0.99\n', encoding="utf-8")
     loaded = codec.load_profile(p)
     assert loaded.basis_file == str(path)
-    moved = loaded.model_copy(update={"basis_file": "/elsewhere/basis.npz"})
+    moved = loaded.model_copy(update={"basis_file": "/elsewhere/basis.cwbasis.npz"})
     assert codec.profile_id(moved) == codec.profile_id(loaded)
     assert codec.profile_id(loaded) != codec.profile_id(
         loaded.model_copy(update={"basis_sha256": "1" * 64}))
@@ -140,14 +140,14 @@ def test_train_command_writes_a_usable_basis(tmp_path, capsys):
     with open(csv, "w", encoding="utf-8") as fh:
         fh.write("a,b,c\n")
         np.savetxt(fh, x, delimiter=",")
-    out = tmp_path / "b.npz"
+    out = tmp_path / "b.cwbasis.npz"
     assert main(["train", str(csv), "-o", str(out), "--frame-length", "16",
                  "--channels", "a,c"]) == 0
     text = capsys.readouterr().out
     t = codec.load_trained_basis(out)
     assert t.note.sha256 in text and t.note.channels == ("a", "c")
     assert t.note.frames_used == 2 * (3000 // 16)
-    assert main(["train", str(csv), "-o", str(tmp_path / "c.npz"), "--channels", "zz"]) == 2
-    assert main(["train", str(csv), "-o", str(tmp_path / "d.npz"),
+    assert main(["train", str(csv), "-o", str(tmp_path / "c.cwbasis.npz"), "--channels", "zz"]) == 2
+    assert main(["train", str(csv), "-o", str(tmp_path / "d.cwbasis.npz"),
                  "--frame-length", "256"]) == 2  # 33 frames < 256
-    assert not (tmp_path / "d.npz").exists()
+    assert not (tmp_path / "d.cwbasis.npz").exists()

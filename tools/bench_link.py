@@ -2,7 +2,7 @@
 
 Prints figures only (no pass/fail): uncoded BSC and AWGN BPSK on 20 M bits
 (target >= 20 M bits/s, channel plus error count), RS(255,223) codewords and
-trimlink frames per second (encode + decode) on a clean and a noisy channel,
+coefwire frames per second (encode + decode) on a clean and a noisy channel,
 and the K=7 Viterbi decoder's information bits per second.
 
 Usage: python tools/bench_link.py [--bits N]
@@ -48,7 +48,7 @@ def main() -> None:
     rs = ReedSolomon255(1)
     data = rng.integers(0, 256, 223 * 400, dtype=np.uint8)  # 400 codewords
     air = rs.encode(data)
-    frame_bytes = 88  # mean trimlink frame of the BasicMotions default profile
+    frame_bytes = 88  # mean coefwire frame of the BasicMotions default profile
     rate = data.size * 8 / air.size
     s_enc = _best(lambda: rs.encode(data), 2)
     for label, rx in (("clean", air), ("Eb/N0 6 dB", awgn(air, 6.0, rng, rate=rate)),

@@ -1,15 +1,15 @@
-"""Bits per sample of trimlink against the Shannon bound and two zstd baselines.
+"""Bits per sample of coefwire against the Shannon bound and two zstd baselines.
 
 For zero-mean Gaussian AR(1) sources (rho in 0.9, 0.95, 0.99; 10**6 samples,
 seeded) and energy fidelity F in 0.9, 0.95, 0.99, 0.999 (reference ``total``,
 N = 256, DCT) this prints, per row:
 
-* trimlink's bits/sample, every bit of the stream counted (sync markers,
+* coefwire's bits/sample, every bit of the stream counted (sync markers,
   headers, side information, padding, CRCs), and how many frames meet the
   target, checked on the *decoded* samples;
 * R(D), the rate-distortion function of the Gaussian AR(1) process at
   D = (1 - F) sigma**2, by reverse water-filling over its power spectrum;
-* two baselines at the same error energy as trimlink's decoded output:
+* two baselines at the same error energy as coefwire's decoded output:
   samples uniformly quantized (step sqrt(12 D)) stored as the smallest
   integer type then zstd level 19, and the same codes first-differenced then
   zstd level 19;
@@ -118,7 +118,7 @@ def main(argv: list[str] | None = None) -> int:
     args = ap.parse_args(argv)
     print(f"AR(1), {args.samples} samples, N={args.frame_length}, DCT, reference total, "
           f"layout {args.layout}; bits/sample with every stream bit counted")
-    print(f"{'rho':>5} {'F':>6} {'trimlink':>9} {'header':>7} {'R(D)':>6} {'gap':>6} "
+    print(f"{'rho':>5} {'F':>6} {'coefwire':>9} {'header':>7} {'R(D)':>6} {'gap':>6} "
           f"{'zstd':>6} {'dzstd':>6} {'saving':>7} {'frames met':>12} {'enc s':>6}")
     ok = True
     for i, rho in enumerate(args.rho):

@@ -5,7 +5,7 @@
 
 Every input is decoded three ways: as a plain byte stream, through SLIP and
 COBS unstuffing, and in uneven chunks through the streaming decoder.  A finding
-is any exception other than the project's documented errors (TrimlinkError),
+is any exception other than the project's documented errors (CoefwireError),
 any delivered sample from a frame whose CRC fails (checked with binascii,
 independently of the codec), an accounting identity that does not hold, or a
 streaming result that differs from the whole-stream one.  The seed corpus
@@ -52,7 +52,7 @@ def _seed_corpus(folder: Path) -> None:
 def _check(data: bytes) -> None:
     try:
         dec = codec.decode(data, PROFILE, samples=100, strict=False)
-    except codec.TrimlinkError:
+    except codec.CoefwireError:
         return
     c = dec.counts
     if c["samples_delivered"] + c["samples_lost"] + c["samples_gap"] != dec.status.size:

@@ -1,4 +1,4 @@
-"""Generate the bundled demo scenarios (seeded) and their profiles.
+"""Generate the shipped demo scenarios (seeded) and their profiles.
 
 Both scenarios are invented:
 

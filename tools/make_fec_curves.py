@@ -3,7 +3,7 @@
 The link budget reads this file for the Eb/N0 a coded link needs.  Each curve
 is a Monte-Carlo run of :func:`link_sim.measured_ber_curve` over AWGN with
 coherent BPSK (Gray QPSK has the same BER per bit); the file records how it
-was made (command, seed, bits simulated, date, trimlink version).
+was made (command, seed, bits simulated, date, coefwire version).
 
 Each curve stops at the first grid point where no decoded bit was wrong in the
 bits simulated.  For RS(255,223) the file also carries the bounded-distance
@@ -98,7 +98,7 @@ def main(argv=None) -> int:
                                                                       else argv),
             "seed": args.seed, "bits_info_per_point": args.bits,
             "date_utc": dt.datetime.now(dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
-            "trimlink_version": version("trimlink"),
+            "coefwire_version": version("coefwire"),
             "min_errors_for_interpolation": MIN_ERRORS,
         },
         "theory_bpsk_uncoded": {

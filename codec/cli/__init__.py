@@ -1,12 +1,12 @@
-"""The ``trimlink`` command line.
+"""The ``coefwire`` command line.
 
 Each command lives in its own module and adds itself with a ``register(sub)``
 function that creates its sub-parser and sets ``handler``.  Commands from
 packages that build on the codec (the link simulator, the link budget) are
-found through the ``trimlink.commands`` entry-point group, so the codec never
+found through the ``coefwire.commands`` entry-point group, so the codec never
 imports them.
 
-Errors a user can cause (:class:`~codec.TrimlinkError`, unreadable files) are
+Errors a user can cause (:class:`~codec.CoefwireError`, unreadable files) are
 printed as one sentence with exit status 2; anything else is our bug and keeps
 its traceback.
 """
@@ -16,30 +16,39 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-from importlib.metadata import entry_points
+from importlib.metadata import PackageNotFoundError, entry_points, version
 
-from .._errors import TrimlinkError
-from . import _bundle_cmds, _codec_cmds, _compare_cmd, _demo, _train_cmd
+from .._errors import CoefwireError
+from . import _codec_cmds, _compare_cmd, _demo, _pack_cmds, _train_cmd
 
 __all__ = ["main", "build_parser", "UsageError"]
 
 EXIT_OK, EXIT_MISSED, EXIT_ERROR = 0, 1, 2
 
 
-class UsageError(TrimlinkError):
+class UsageError(CoefwireError):
     """A command-line combination that cannot work (exit 2)."""
+
+
+def _version() -> str:
+    """The installed distribution's version (the source tree's when not installed)."""
+    try:
+        return version("coefwire")
+    except PackageNotFoundError:
+        return "unknown (not installed)"
 
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="trimlink",
+        prog="coefwire",
         description="Code telemetry frames at a guaranteed fidelity, simulate the link, "
         "and size the link budget.",
     )
+    parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for module in (_codec_cmds, _demo, _compare_cmd, _train_cmd, _bundle_cmds):
+    for module in (_codec_cmds, _demo, _compare_cmd, _train_cmd, _pack_cmds):
         module.register(sub)
-    for ep in sorted(entry_points(group="trimlink.commands"), key=lambda e: e.name):
+    for ep in sorted(entry_points(group="coefwire.commands"), key=lambda e: e.name):
         ep.load()(sub)
     return parser
 
@@ -50,11 +59,11 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     try:
         return int(args.handler(args) or EXIT_OK)
-    except TrimlinkError as exc:
-        print(f"trimlink {args.command}: {exc}", file=sys.stderr)
+    except CoefwireError as exc:
+        print(f"coefwire {args.command}: {exc}", file=sys.stderr)
         return EXIT_ERROR
     except KeyboardInterrupt:
-        print(f"trimlink {args.command}: interrupted", file=sys.stderr)
+        print(f"coefwire {args.command}: interrupted", file=sys.stderr)
         return 130
     except BrokenPipeError:
         # The reader went away (e.g. '| head'): stop quietly, as Unix tools do.

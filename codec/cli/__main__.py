@@ -1,4 +1,4 @@
-"""``python -m codec.cli`` runs the ``trimlink`` command line."""
+"""``python -m codec.cli`` runs the ``coefwire`` command line."""
 
 import sys
 

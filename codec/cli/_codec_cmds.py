@@ -446,7 +446,7 @@ def _inspect(args) -> int:
     loc = locate_frames(data)
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
-                         "is this a trimlink stream?", args.stream)
+                         "is this a coefwire stream?", args.stream)
     fr = None
     if profile is not None and profile.channels:
         fr = decode_frames(loc.frames, profile, profile_basis(profile))

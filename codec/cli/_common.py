@@ -21,7 +21,7 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
     p.add_argument("-p", "--profile", metavar="PROFILE",
                    help=profile_help or "profile TOML (default: DCT, N=64, F=0.99, ac, "
                    "resolution 0, every column)")
-    p.add_argument("--basis", metavar="NAME", help="basis name (see 'trimlink encode --help')")
+    p.add_argument("--basis", metavar="NAME", help="basis name (see 'coefwire encode --help')")
     p.add_argument("--fidelity", type=float, metavar="F",
                    help="energy fraction to retain in every frame, 0 < F <= 1")
     p.add_argument("--reference", choices=("total", "ac"),

@@ -1,4 +1,4 @@
-"""``demo``: the whole job on the bundled demo scenarios.
+"""``demo``: the whole job on the shipped demo scenarios.
 
 For each invented scenario shipped in ``codec/data`` it encodes the samples
 with the scenario's profile, writes the stream and its recorded profile,
@@ -23,11 +23,11 @@ SCENARIOS = ("ridge_station", "orbiter_hk")
 
 
 def register(sub) -> None:
-    p = sub.add_parser("demo", help="run the whole job on the bundled demo scenarios",
-                       description="Encode, decode and check the bundled (invented) demo "
+    p = sub.add_parser("demo", help="run the whole job on the shipped demo scenarios",
+                       description="Encode, decode and check the shipped (invented) demo "
                        "scenarios, writing every output to DIR.")
-    p.add_argument("--out", metavar="DIR", default="trimlink-demo",
-                   help="folder for the demo's outputs (default: ./trimlink-demo)")
+    p.add_argument("--out", metavar="DIR", default="coefwire-demo",
+                   help="folder for the demo's outputs (default: ./coefwire-demo)")
     p.add_argument("--scenario", choices=SCENARIOS, action="append",
                    help="run only this scenario (repeatable)")
     p.add_argument("--no-compare", dest="compare", action="store_false",
@@ -36,7 +36,7 @@ def register(sub) -> None:
 
 
 def scenario_files(name: str) -> tuple[Path, Path]:
-    """The bundled sample CSV and profile of a demo scenario."""
+    """The shipped sample CSV and profile of a demo scenario."""
     base = resources.files("codec") / "data"
     return Path(str(base / f"{name}.csv")), Path(str(base / f"{name}.toml"))
 
@@ -49,7 +49,7 @@ def _demo(args) -> int:
         csv_path, profile_path = scenario_files(name)
         table = read_samples(csv_path)
         profile = load_profile(profile_path).bind(table.names)
-        enc = write_stream(out / f"{name}.tlk", table, profile)
+        enc = write_stream(out / f"{name}.cwire", table, profile)
         report, ok, dec = roundtrip_report(table.values, profile, enc)
         write_samples(out / f"{name}.decoded.csv",
                       SampleTable(dec.samples, table.names, table.time, table.time_name))
@@ -84,7 +84,7 @@ def _print_summary(name, profile, table, report, out) -> None:
     for ch, r in report["per_channel"].items():
         print(f"   {ch:<18}{r['bits_per_sample']:>12.2f}{fmt(r['compression_ratio'], '.2f'):>8}"
               f"{fmt(r['fidelity_min'], '.4f'):>10}{r['max_abs_error']:>12.4g}")
-    print(f"   outputs: {out / (name + '.tlk')} (+ .profile.toml), {name}.decoded.csv, "
+    print(f"   outputs: {out / (name + '.cwire')} (+ .profile.toml), {name}.decoded.csv, "
           f"{name}.report.json")
 
 

@@ -17,11 +17,11 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "train", help="fit a KLT basis on history and write it as a basis file",
         description="Fit the Karhunen-Loeve transform (principal components of frames of "
-        "INPUT) and write BASIS_FILE (.npz with the matrix and a TOML provenance note). "
+        "INPUT) and write BASIS_FILE (.cwbasis.npz with the matrix and a TOML provenance note). "
         "A profile uses it with basis = \"klt\", basis_file and basis_sha256.")
     p.add_argument("input", metavar="INPUT", help="history as .csv or .npy")
     p.add_argument("-o", "--output", required=True, metavar="BASIS_FILE",
-                   help="basis file to write (.npz)")
+                   help="basis file to write (.cwbasis.npz)")
     p.add_argument("--frame-length", type=int, default=64, metavar="N",
                    help="samples per frame (default 64)")
     p.add_argument("--channels", metavar="A,B,...",

@@ -1,14 +1,14 @@
-"""``bundle-dict``, ``bundle`` and ``unbundle``: batch mode for store-and-forward links.
+"""``pack-dict``, ``pack`` and ``unpack``: batch mode for store-and-forward links.
 
-``bundle-dict`` trains a zstd dictionary on sample streams of one profile and
-writes it with a TOML provenance note (``DICT.note.toml``); ``bundle`` packs a
+``pack-dict`` trains a zstd dictionary on sample streams of one profile and
+writes it with a TOML provenance note (``DICT.note.toml``); ``pack`` packs a
 stream into one zstd frame with that dictionary (or none) and reports the bits
-against sending the frames as they are; ``unbundle`` gives the exact stream
+against sending the frames as they are; ``unpack`` gives the exact stream
 bytes back, with the stream's profile note, under a decompression cap.
 
-The bundle file is a single zstd frame (RFC 8878) whose header names the
+The pack file is a single zstd frame (RFC 8878) whose header names the
 dictionary id it needs; the stream's profile note travels beside it as
-``BUNDLE.profile.toml``, a byte-for-byte copy of ``STREAM.profile.toml``.
+``PACK.profile.toml``, a byte-for-byte copy of ``STREAM.profile.toml``.
 """
 
 from __future__ import annotations
@@ -20,19 +20,19 @@ import sys
 from pathlib import Path
 
 from .._batch import (
-    BUNDLE_LEVEL,
-    bundle_dictionary_id,
-    bundle_report,
+    PACK_LEVEL,
     dictionary_id,
     dictionary_note,
     dictionary_note_path,
     load_dictionary_note,
-    pack_bundle,
+    make_pack,
+    open_pack,
+    pack_dictionary_id,
+    pack_report,
     save_dictionary_note,
     train_dictionary,
-    unpack_bundle,
 )
-from .._errors import FrameError, InputError, TrimlinkError
+from .._errors import CoefwireError, FrameError, InputError
 from .._io import atomic_output
 from .._profile import Profile, StreamNote, load_stream_note, note_path, profile_id
 from .._stream import locate_frames
@@ -40,15 +40,15 @@ from ._common import check_distinct, write_json
 
 __all__ = ["register", "DEFAULT_CAP_BYTES"]
 
-#: Default decompression cap of ``unbundle`` (256 MiB).
+#: Default decompression cap of ``unpack`` (256 MiB).
 DEFAULT_CAP_BYTES = 1 << 28
 
 
 def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
-        "bundle-dict", help="train a zstd dictionary for bundles on sample streams",
+        "pack-dict", help="train a zstd dictionary for packs on sample streams",
         description="Train a zstd dictionary (zstd's own trainer, one sample per frame) on "
-        "the frames of one or more STREAMs written by 'trimlink encode' (each with its "
+        "the frames of one or more STREAMs written by 'coefwire encode' (each with its "
         "STREAM.profile.toml beside it; all of one profile) and write DICT plus its "
         "provenance note DICT.note.toml. Both ends of the link must hold the dictionary.")
     p.add_argument("streams", nargs="+", metavar="STREAM")
@@ -56,40 +56,40 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="dictionary file to write")
     p.add_argument("--size", type=int, default=4096, metavar="BYTES",
                    help="largest dictionary size in bytes (default 4096)")
-    p.set_defaults(handler=_bundle_dict)
+    p.set_defaults(handler=_pack_dict)
 
     p = sub.add_parser(
-        "bundle", help="pack a stream into one zstd bundle and report the bits saved",
-        description="Pack STREAM (written by 'trimlink encode', with its STREAM.profile.toml) "
-        f"into one zstd frame (level {BUNDLE_LEVEL}) with DICT, or with no dictionary, and "
+        "pack", help="pack a stream into one zstd pack and report the bits saved",
+        description="Pack STREAM (written by 'coefwire encode', with its STREAM.profile.toml) "
+        f"into one zstd frame (level {PACK_LEVEL}) with DICT, or with no dictionary, and "
         "report its bits against sending the frames as they are. Without -o it only "
-        "measures. With -o it writes BUNDLE and a copy of the profile note as "
-        "BUNDLE.profile.toml; with --only-if-smaller as well, it writes them only when the "
-        "bundle saves bits. Exit 0 either way: the verdict is printed and in the JSON "
-        "(bundle_written). Per-sample figures divide by samples x channels.")
+        "measures. With -o it writes PACK and a copy of the profile note as "
+        "PACK.profile.toml; with --only-if-smaller as well, it writes them only when the "
+        "pack saves bits. Exit 0 either way: the verdict is printed and in the JSON "
+        "(pack_written). Per-sample figures divide by samples x channels.")
     p.add_argument("stream", metavar="STREAM")
-    p.add_argument("-o", "--output", metavar="BUNDLE", help="bundle file to write")
+    p.add_argument("-o", "--output", metavar="PACK", help="pack file to write")
     p.add_argument("-d", "--dictionary", metavar="DICT",
-                   help="dictionary from 'trimlink bundle-dict' (default: none)")
+                   help="dictionary from 'coefwire pack-dict' (default: none)")
     p.add_argument("--only-if-smaller", action="store_true",
-                   help="write the bundle only when it is smaller than the stream")
+                   help="write the pack only when it is smaller than the stream")
     p.add_argument("--json", metavar="REPORT", help="write the JSON report here")
-    p.set_defaults(handler=_bundle)
+    p.set_defaults(handler=_pack_cmd)
 
     p = sub.add_parser(
-        "unbundle", help="unpack a bundle back into its stream",
-        description="Unpack BUNDLE into STREAM, byte for byte, and copy BUNDLE.profile.toml "
-        "to STREAM.profile.toml so 'trimlink decode STREAM' works. The dictionary must be "
-        "the one the bundle names (its zstd dictionary id); a bundle that would expand "
+        "unpack", help="unpack a pack back into its stream",
+        description="Unpack PACK into STREAM, byte for byte, and copy PACK.profile.toml "
+        "to STREAM.profile.toml so 'coefwire decode STREAM' works. The dictionary must be "
+        "the one the pack names (its zstd dictionary id); a pack that would expand "
         "beyond the cap is refused before it is expanded.")
-    p.add_argument("bundle", metavar="BUNDLE")
+    p.add_argument("pack", metavar="PACK")
     p.add_argument("-o", "--output", required=True, metavar="STREAM")
     p.add_argument("-d", "--dictionary", metavar="DICT",
-                   help="the dictionary the bundle was packed with")
+                   help="the dictionary the pack was packed with")
     p.add_argument("--max-bytes", type=int, default=DEFAULT_CAP_BYTES, metavar="N",
-                   help="refuse a bundle that expands beyond N bytes "
+                   help="refuse a pack that expands beyond N bytes "
                    f"(default {DEFAULT_CAP_BYTES})")
-    p.set_defaults(handler=_unbundle)
+    p.set_defaults(handler=_unpack_cmd)
 
 
 def _read(path: str | Path, what: str) -> bytes:
@@ -106,7 +106,7 @@ def _at(path: str | Path):
     """Name ``path`` as the place of any user error raised inside."""
     try:
         yield
-    except TrimlinkError as exc:
+    except CoefwireError as exc:
         raise type(exc)(exc.message, str(path)) from None
 
 
@@ -116,7 +116,7 @@ def _stream_and_note(path: str) -> tuple[bytes, Profile, StreamNote | None]:
     data = _read(path, "stream")
     if not note.is_file():
         raise InputError(f"no profile recorded at {note}; use a stream written by "
-                         "'trimlink encode' to a file, with its note beside it", path)
+                         "'coefwire encode' to a file, with its note beside it", path)
     profile, extra = load_stream_note(note)
     return data, profile, extra
 
@@ -124,12 +124,12 @@ def _stream_and_note(path: str) -> tuple[bytes, Profile, StreamNote | None]:
 def _frame_count(data: bytes, path: str) -> int:
     n = int(locate_frames(data).offsets.size)
     if n == 0:
-        raise FrameError("no frame with a valid sync marker and CRC was found; give a trimlink "
+        raise FrameError("no frame with a valid sync marker and CRC was found; give a coefwire "
                          "stream written without --stuffing", path)
     return n
 
 
-def _bundle_dict(args) -> int:
+def _pack_dict(args) -> int:
     if args.size < 256:
         raise InputError("--size must be at least 256 bytes", "command line")
     ids: dict[int, str] = {}
@@ -178,7 +178,7 @@ def _load_dictionary(path: str, stream_profile_id: int) -> bytes:
     return dictionary
 
 
-def _bundle(args) -> int:
+def _pack_cmd(args) -> int:
     if args.output:
         check_distinct(args.stream, args.output)
         if args.dictionary:
@@ -190,32 +190,32 @@ def _bundle(args) -> int:
     _frame_count(data, args.stream)
     dictionary = _load_dictionary(args.dictionary, profile_id(profile)) if args.dictionary \
         else None
-    bundle = pack_bundle(data, dictionary)
+    pack = make_pack(data, dictionary)
     channels = len(profile.channels)
-    report = bundle_report(data, bundle, extra.samples * channels, dictionary)
+    report = pack_report(data, pack, extra.samples * channels, dictionary)
     saves = report["bits_saved"] > 0
     write = bool(args.output) and (saves or not args.only_if_smaller)
     report.update({
         "samples": extra.samples,
         "channels": channels,
         "dictionary_sha256": hashlib.sha256(dictionary).hexdigest() if dictionary else None,
-        "zstd_dictionary_id": bundle_dictionary_id(bundle),
-        "bundle_written": write,
+        "zstd_dictionary_id": pack_dictionary_id(pack),
+        "pack_written": write,
     })
     if write:
         note_bytes = note_path(args.stream).read_bytes()
         with contextlib.ExitStack() as stack:
-            tmp_bundle = stack.enter_context(atomic_output(args.output))
+            tmp_pack = stack.enter_context(atomic_output(args.output))
             tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
-            tmp_bundle.write_bytes(bundle)
+            tmp_pack.write_bytes(pack)
             tmp_note.write_bytes(note_bytes)
     write_json(args.json, report)
     r = report
     dict_text = (f"dictionary id {r['zstd_dictionary_id']} ({r['dictionary_bytes']} bytes, held "
                  "by both ends, not counted)" if dictionary else "no dictionary")
     print(f"{r['frames']} frames: {r['per_frame_bits']} bits as frames "
-          f"({r['per_frame_bits_per_sample']:.3f} bits/sample) -> {r['bundle_bits']} bits as a "
-          f"bundle ({r['bundle_bits_per_sample']:.3f} bits/sample) with {dict_text}; "
+          f"({r['per_frame_bits_per_sample']:.3f} bits/sample) -> {r['pack_bits']} bits as a "
+          f"pack ({r['pack_bits_per_sample']:.3f} bits/sample) with {dict_text}; "
           f"{r['bits_saved']} bits saved ({r['saved_percent']:.1f} %)")
     print(r["verdict"])
     if write:
@@ -225,28 +225,28 @@ def _bundle(args) -> int:
     return 0
 
 
-def _unbundle(args) -> int:
+def _unpack_cmd(args) -> int:
     if args.max_bytes < 1:
         raise InputError("--max-bytes must be at least 1", "command line")
-    check_distinct(args.bundle, args.output)
-    bundle = _read(args.bundle, "bundle")
+    check_distinct(args.pack, args.output)
+    pack = _read(args.pack, "pack")
     dictionary = None
     if args.dictionary:
         check_distinct(args.dictionary, args.output)
         dictionary = _read(args.dictionary, "dictionary")
         with _at(args.dictionary):
             dictionary_id(dictionary)
-    with _at(args.bundle):
-        need = bundle_dictionary_id(bundle)
+    with _at(args.pack):
+        need = pack_dictionary_id(pack)
         if need and dictionary is None:
-            raise FrameError(f"the bundle was packed with the zstd dictionary of id {need}; "
+            raise FrameError(f"the pack was packed with the zstd dictionary of id {need}; "
                              "give it with --dictionary DICT (its DICT.note.toml lists "
                              "zstd_dictionary_id)")
-        data = unpack_bundle(bundle, dictionary, max_output_size=args.max_bytes)
+        data = open_pack(pack, dictionary, max_output_size=args.max_bytes)
     if dictionary is not None and not need:
-        print("note: the bundle was packed without a dictionary; the one given is not used",
+        print("note: the pack was packed without a dictionary; the one given is not used",
               file=sys.stderr)
-    note_src = note_path(args.bundle)
+    note_src = note_path(args.pack)
     note_bytes = None
     if note_src.is_file():
         load_stream_note(note_src)  # a readable profile note, or one sentence now
@@ -258,7 +258,7 @@ def _unbundle(args) -> int:
             tmp_note.write_bytes(note_bytes)
         tmp_stream.write_bytes(data)
     frames = int(locate_frames(data).offsets.size)
-    print(f"{len(bundle)} bytes -> {len(data)} bytes, {frames} frames -> {args.output}"
+    print(f"{len(pack)} bytes -> {len(data)} bytes, {frames} frames -> {args.output}"
           + (f" (profile: {note_path(args.output)})" if note_bytes is not None else ""))
     if note_bytes is None:
         print(f"note: no profile recorded at {note_src}; decode the stream with -p PROFILE",
