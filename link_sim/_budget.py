@@ -12,6 +12,14 @@ or source it came from.  The chain is the textbook one:
     margin = Eb/N0 - required Eb/N0(modulation, FEC, target BER)
     R_max  = 10^((C/N0 - required Eb/N0 - required margin) / 10)
 
+A stream fits the radio (:func:`judge_stream`) only when (a) its bits on air
+per second (codec bits / code rate + the radio's packet overhead per frame)
+are at most the radio's configured rate on air, (b) the margin at the radio's
+configured rate keeps the required margin, and for an orbit (c) the bits on
+air produced in one orbital period fit in what the passes of one period carry.
+``R_max`` is what the link would allow if the radio were set to it; it does
+not make a stream fit a radio configured slower.
+
 ``R`` is the information bit rate (the codec's bits, before FEC) and every
 Eb/N0 is per information bit, so a code's rate penalty is inside its measured
 curve; the on-air channel bit rate ``R / code rate`` is listed beside it.  The
@@ -51,6 +59,10 @@ __all__ = [
     "noise_temperature_k",
     "compute_budget",
     "pass_summary",
+    "FIT_LIMITS",
+    "StreamFit",
+    "judge_stream",
+    "SECONDS_PER_DAY",
     "PASS_ELEVATIONS_DEG",
     "RequiredEbN0",
     "required_ebn0",
@@ -62,6 +74,10 @@ __all__ = [
 BOLTZMANN_J_K = 1.380649e-23
 #: Reference temperature of the noise figure (IEEE definition).
 T0_K = 290.0
+#: Seconds in a (mean solar) day, for passes_per_day.
+SECONDS_PER_DAY = 86_400.0
+#: The conditions a stream must meet to fit, in the order they are checked.
+FIT_LIMITS = ("rate", "margin", "pass_volume")
 #: Elevations listed in the pass table (those at or above the minimum elevation).
 PASS_ELEVATIONS_DEG = (0.0, 5.0, 10.0, 15.0, 20.0, 30.0, 45.0, 60.0, 75.0, 90.0)
 
@@ -373,7 +389,11 @@ def pass_summary(budget: Budget, rate_bps: float | None = None,
                  bits_per_frame: float | None = None) -> dict | None:
     """Margin across an overhead pass and the data one pass carries at ``rate_bps``.
 
-    Returns None for a fixed-distance link.  The pass table lists elevation,
+    Returns None for a fixed-distance link.  Besides the pass table it gives
+    ``passes_per_day`` (the link file's, else one overhead pass per orbit: a
+    best case), the bits one pass carries on air and the pass-averaged rate
+    (information and on air): what the passes of one orbital period carry,
+    divided by the period.  The pass table lists elevation,
     slant range, path loss, Eb/N0 and margin; the usable time is the part of
     the pass above the minimum elevation where the margin is at least the
     required margin (an overhead pass has its worst margin at the lowest
@@ -416,6 +436,7 @@ def pass_summary(budget: Budget, rate_bps: float | None = None,
         for e, r, f, b, m, t in zip(elev, d, loss, ebn0, margin, from_zenith)
     ]
     out = {
+        **_pass_capacity(link, period, usable, rate, budget.figures["code_rate"]),
         "orbital_period_s": period,
         "pass_duration_s": duration,
         "min_elevation_deg": o.min_elevation_deg,
@@ -430,3 +451,129 @@ def pass_summary(budget: Budget, rate_bps: float | None = None,
         out["bits_per_frame"] = float(bits_per_frame)
         out["frames_per_pass"] = int(volume // bits_per_frame)
     return out
+
+
+def _pass_capacity(link: LinkFile, period: float, usable: float, rate: float,
+                   code: float) -> dict:
+    """What the passes of one orbital period carry (every pass counted as overhead)."""
+    o = link.orbit
+    if o.passes_per_day is not None:
+        per_day = float(o.passes_per_day)
+        source = "link file"
+    else:
+        per_day = SECONDS_PER_DAY / period
+        source = ("best case of one pass per orbit; a real station sees fewer: set "
+                  "passes_per_day in the link file where you know it")
+    per_orbit = per_day * period / SECONDS_PER_DAY
+    return {
+        "passes_per_day": per_day,
+        "passes_per_day_source": source,
+        "passes_per_orbit": per_orbit,
+        "data_volume_on_air_bits": rate / code * usable,
+        "pass_averaged_rate_bps": rate * usable * per_orbit / period,
+        "pass_averaged_on_air_bps": rate / code * usable * per_orbit / period,
+        "best_case_note": (
+            "every pass is counted as an overhead pass through the zenith, the longest pass "
+            "(Earth rotation ignored): a best case; lower passes are shorter"),
+    }
+
+
+@dataclass(frozen=True)
+class StreamFit:
+    """Whether a stream of a given bit rate fits the radio, and which condition fails.
+
+    All rates are bits per second.  ``on_air_bps`` is what the stream puts on
+    air (codec bits / code rate + packet overhead per frame); ``radio_on_air_bps``
+    is the radio's configured rate on air.  For an orbit ``orbit_bits_on_air``
+    is what the stream produces in one orbital period and ``pass_bits_on_air``
+    what the passes of one period carry at the radio's rate.
+    """
+
+    bits_per_second: float
+    frames_per_second: float
+    on_air_bps: float
+    radio_on_air_bps: float
+    margin_db: float
+    required_margin_db: float
+    orbit_bits_on_air: float | None
+    pass_bits_on_air: float | None
+    failed: tuple[str, ...]
+
+    @property
+    def fits(self) -> bool:
+        return not self.failed
+
+    @property
+    def limited_by(self) -> str | None:
+        """The first failing condition of :data:`FIT_LIMITS`, or None when it fits."""
+        return self.failed[0] if self.failed else None
+
+    @property
+    def spare_on_air_bps(self) -> float:
+        """Radio rate left over on air (negative: the stream needs more than the radio)."""
+        return self.radio_on_air_bps - self.on_air_bps
+
+    @property
+    def spare_percent(self) -> float:
+        return 100.0 * self.spare_on_air_bps / self.radio_on_air_bps
+
+    def as_dict(self) -> dict:
+        out = {
+            "fits": self.fits,
+            "limited_by": self.limited_by,
+            "failed_conditions": list(self.failed),
+            "channel_bits_per_second": self.on_air_bps,
+            "frames_per_second": self.frames_per_second,
+            "radio_on_air_bps": self.radio_on_air_bps,
+            "spare_on_air_bps": self.spare_on_air_bps,
+            "spare_percent": self.spare_percent,
+            "margin_db": self.margin_db,
+        }
+        if self.orbit_bits_on_air is not None:
+            out["orbit_bits_on_air"] = self.orbit_bits_on_air
+            out["pass_bits_on_air"] = self.pass_bits_on_air
+            out["pass_volume_used_percent"] = (
+                100.0 * self.orbit_bits_on_air / self.pass_bits_on_air
+                if self.pass_bits_on_air else None)
+        return out
+
+
+def judge_stream(budget: Budget, bits_per_second: float, frames_per_second: float = 0.0,
+                 passing: dict | None = None) -> StreamFit:
+    """Check a stream of ``bits_per_second`` codec bits against the radio of ``budget``.
+
+    Conditions, in the order of :data:`FIT_LIMITS`:
+
+    * ``rate``: bits on air per second (``bits_per_second`` / code rate +
+      ``frames_per_second`` x the link's ``packet_overhead_bits``) at most the
+      radio's configured rate on air (``data_rate_bps`` / code rate);
+    * ``margin``: the margin at the radio's configured rate (at the budget's
+      distance: the worst range of a pass) keeps ``required_margin_db``;
+    * ``pass_volume`` (orbits only): the bits on air produced in one orbital
+      period fit in what the passes of one period carry at the radio's rate,
+      during the part of each pass that keeps the required margin.  Without
+      ``passes_per_day`` one overhead pass per orbit is assumed: a best case.
+
+    ``passing`` is :func:`pass_summary` of the budget (computed when omitted).
+    """
+    link = budget.link
+    code = budget.figures["code_rate"]
+    bps = float(bits_per_second)
+    fps = float(frames_per_second)
+    on_air = bps / code + fps * link.packet_overhead_bits
+    radio = link.data_rate_bps / code
+    margin = float(budget.figures["margin_db"])
+    failed = []
+    if on_air > radio:
+        failed.append("rate")
+    if margin < link.required_margin_db:
+        failed.append("margin")
+    orbit_bits = pass_bits = None
+    if link.orbit is not None:
+        passing = passing if passing is not None else pass_summary(budget)
+        orbit_bits = on_air * passing["orbital_period_s"]
+        pass_bits = passing["pass_averaged_on_air_bps"] * passing["orbital_period_s"]
+        if orbit_bits > pass_bits:
+            failed.append("pass_volume")
+    return StreamFit(bps, fps, on_air, radio, margin, link.required_margin_db, orbit_bits,
+                     pass_bits, tuple(failed))

@@ -19,10 +19,10 @@ from codec import InputError, ProfileError, encode
 from codec._io import atomic_output, read_samples
 from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
 
-from ._budget import Budget, compute_budget, pass_summary
+from ._budget import Budget, compute_budget, judge_stream, pass_summary
 from ._linkfile import load_link
 
-__all__ = ["register", "CAUTIONS", "fidelity_rows"]
+__all__ = ["register", "CAUTIONS", "FIT_CONDITIONS", "fidelity_rows", "human"]
 
 DEFAULT_FIDELITIES = "0.9,0.95,0.99,0.999"
 
@@ -98,30 +98,62 @@ def _stream_rate_hz(args, profile, table) -> tuple[float, str]:
 
 
 def fidelity_rows(budget: Budget, values: np.ndarray, profile, fidelities: list[float],
-                  rate_hz: float) -> list[dict]:
-    """Code ``values`` at each fidelity; bits per second and margin at that rate.
+                  rate_hz: float, passing: dict | None = None) -> list[dict]:
+    """Code ``values`` at each fidelity and judge each stream against the radio.
 
     Bits per second = bits in the coded stream / duration of the sample, where
     the duration is samples / ``rate_hz``: the information rate the radio must
-    carry before FEC.
+    carry before FEC.  Each row then gets :func:`judge_stream`'s verdict:
+    ``fits``, ``limited_by`` (``rate``, ``margin``, ``pass_volume`` or None),
+    the bits on air per second, the radio's spare capacity and the margin at
+    the radio's configured rate.
     """
     duration = values.shape[0] / rate_hz
     rows = []
     for f in fidelities:
         report = encode(values, profile.override(fidelity=f)).report
         bps = report["bits_total"] / duration
-        margin = float(budget.margin_db(bps))
+        verdict = judge_stream(budget, bps, report["frames"] / duration, passing)
         rows.append({
             "fidelity": f,
             "bits_total": report["bits_total"],
             "bits_per_second": bps,
-            "channel_bits_per_second": bps / budget.figures["code_rate"],
             "bits_per_frame_mean": report["bits_per_frame_mean"],
             "snr_db": report.get("snr_db"),
-            "margin_db": margin,
-            "fits": bool(margin >= budget.link.required_margin_db),
+            **verdict.as_dict(),
         })
     return rows
+
+
+def _best(rows: list[dict], budget: Budget) -> tuple[dict | None, str | None]:
+    """The highest fidelity whose row fits, or None and the reason in one sentence."""
+    fitting = [r for r in rows if r["fits"]]
+    if fitting:
+        return max(fitting, key=lambda r: r["fidelity"]), None
+    link = budget.link
+    fig = budget.figures
+    if "margin" in rows[0]["failed_conditions"]:
+        return None, (
+            f"the link lacks margin at the radio's rate ({fig['margin_db']:.2f} dB at "
+            f"{link.data_rate_bps:g} bit/s, {link.required_margin_db:g} dB required), whatever "
+            "the fidelity: lower data_rate_bps, or raise the power, the antenna gains or the "
+            "minimum elevation")
+    low = rows[0]
+    if "rate" in low["failed_conditions"]:
+        allow = fig["max_data_rate_bps"]
+        need = low["channel_bits_per_second"] * fig["code_rate"]  # as information bit/s
+        hint = (f"raise data_rate_bps to at least {_bps(need)} (the margin allows up to "
+                f"{_bps(allow)})" if allow >= need else
+                f"improve the link (the margin allows the radio only {_bps(allow)})")
+        return None, (
+            f"even the lowest fidelity tried ({low['fidelity']:g}) needs "
+            f"{_bps(low['channel_bits_per_second'])} on air, more than the radio's "
+            f"{_bps(low['radio_on_air_bps'])}: lower the fidelity or the sample rate, or {hint}")
+    return None, (
+        f"even the lowest fidelity tried ({low['fidelity']:g}) produces more bits per orbit "
+        f"({low['orbit_bits_on_air']:.4g} on air) than the passes of one orbit carry "
+        f"({low['pass_bits_on_air']:.4g}): lower the fidelity or the sample rate, or add "
+        "passes (stations)")
 
 
 def _budget(args) -> int:
@@ -140,7 +172,11 @@ def _budget(args) -> int:
     budget = compute_budget(link)
     report = {"link_file": str(args.link), "description": link.description, **budget.figures,
               "budget_lines": [line.as_dict() for line in budget.lines]}
-    rows = best = rate_info = None
+    report["radio_on_air_bps"] = budget.figures["channel_bit_rate_bps"]
+    report["packet_overhead_bits"] = link.packet_overhead_bits
+    report["fit_conditions"] = dict(FIT_CONDITIONS)
+    rows = best = rate_info = reason = None
+    passing = pass_summary(budget)
     if args.input is not None:
         fidelities = _parse_fidelities(args.fidelity)
         table = read_samples(args.input)
@@ -148,44 +184,115 @@ def _budget(args) -> int:
         profile = resolve_profile(codec_args, table.names)
         rate_hz, rate_src = _stream_rate_hz(args, profile, table)
         rate_info = (rate_hz, rate_src)
-        rows = fidelity_rows(budget, table.values, profile, fidelities, rate_hz)
-        fitting = [r for r in rows if r["fits"]]
-        best = fitting[-1] if fitting else None
+        rows = fidelity_rows(budget, table.values, profile, fidelities, rate_hz, passing)
+        best, reason = _best(rows, budget)
         report.update({"input": str(args.input), "sample_rate_hz": rate_hz,
                        "sample_rate_source": rate_src, "fidelity_rows": rows,
-                       "best_fidelity": best["fidelity"] if best else None})
-    per_frame = best["bits_per_frame_mean"] if best else None
-    passing = pass_summary(budget, bits_per_frame=per_frame)
+                       "best_fidelity": best["fidelity"] if best else None,
+                       "best_fidelity_reason": reason})
+    if passing and best:
+        per = best["bits_per_frame_mean"]
+        passing["bits_per_frame"] = float(per)
+        passing["frames_per_pass"] = int(passing["data_volume_bits"] // per)
     if passing and rows:
-        # Store and dump: how many seconds of the stream one pass carries at the link's rate.
+        # Store and dump: how many seconds of the stream one pass carries at the radio's rate.
         for r in rows:
-            r["stream_seconds_per_pass"] = passing["data_volume_bits"] / r["bits_per_second"]
+            r["stream_seconds_per_pass"] = (passing["data_volume_on_air_bits"]
+                                            / r["channel_bits_per_second"])
     report["pass"] = passing
     report["cautions"] = list(CAUTIONS)
-    _print(args, budget, rows, best, passing, rate_info)
+    _print(args, budget, rows, best, reason, passing, rate_info)
     if args.plot:
         _plot(args.plot, budget, rows, passing)
     write_json(args.json, report)
     return 0
 
 
-def _print(args, budget: Budget, rows, best, passing, rate_info) -> None:
+#: What each value of ``limited_by`` means (also written to the JSON report).
+FIT_CONDITIONS = {
+    "rate": "the stream's bits on air per second (codec bits / code rate + packet overhead "
+            "per frame) exceed the radio's configured rate on air (data_rate_bps / code rate)",
+    "margin": "the margin at the radio's configured rate, at the worst distance, is below "
+              "required_margin_db",
+    "pass_volume": "the bits on air the stream produces in one orbital period exceed what the "
+                   "passes of one period carry at the radio's rate (overhead passes: a best "
+                   "case; passes_per_day from the link file, else one pass per orbit)",
+}
+
+_PREFIXES = ((1e9, "G"), (1e6, "M"), (1e3, "k"))
+
+
+def _grouped(value: float) -> str:
+    """An integer-valued figure with thin groups of three digits: 32 000."""
+    return f"{value:,.0f}".replace(",", " ")
+
+
+def _bps(value: float) -> str:
+    return f"{_grouped(value) if abs(value) >= 100 else f'{value:.4g}'} bit/s"
+
+
+def human(value: float, unit: str) -> str:
+    """``value`` in ``unit`` (SI) written for a reader: 437 MHz, 1815.1 km, 7.9 min, 23.9 days.
+
+    The JSON report keeps the SI values; this is for the printed table only.
+    """
+    if value is None or not math.isfinite(value):
+        return f"{value} {unit}"
+    a = abs(value)
+    if unit == "Hz":
+        for scale, p in _PREFIXES:
+            if a >= scale:
+                return f"{value / scale:.6g} {p}Hz"
+        return f"{value:.6g} Hz"
+    if unit == "m":
+        return f"{value / 1e3:.1f} km" if a >= 1e4 else (
+            f"{value / 1e3:.3f} km" if a >= 1e3 else f"{value:.4g} m")
+    if unit == "s":
+        if a >= 2 * 86400.0:
+            return f"{value / 86400.0:.1f} days"
+        if a >= 2 * 3600.0:
+            return f"{value / 3600.0:.1f} h"
+        if a >= 120.0:
+            return f"{value / 60.0:.1f} min"
+        return f"{value:.1f} s"
+    if unit == "bit/s":
+        return _bps(value)
+    if unit == "bits":
+        for scale, p in _PREFIXES:
+            if a >= scale:
+                return f"{value / scale:.4g} {p}bit"
+        return f"{value:.0f} bit"
+    if unit.startswith("dB"):
+        return f"{value:.2f} {unit}"
+    if unit == "K":
+        return f"{value:.1f} K"
+    if unit == "-":
+        return f"{value:.4g}"
+    return f"{value:.6g} {unit}"
+
+
+def _print(args, budget: Budget, rows, best, reason, passing, rate_info) -> None:
     link = budget.link
     fig = budget.figures
     out = [f"link budget of {args.link}" + (f" ({link.description})" if link.description else "")]
-    out.append(f"  {'item':<34} {'value':>14}  {'unit':<11} formula or source")
+    out.append(f"  {'item':<34} {'value':>20}  formula or source")
     for line in budget.lines:
-        out.append(f"  {line.item:<34} {line.value:>14.6g}  {line.unit:<11} {line.source}")
+        out.append(f"  {line.item:<34} {human(line.value, line.unit):>20}  {line.source}")
     verdict = "keeps" if fig["fits"] else "does NOT keep"
-    out.append(f"margin {fig['margin_db']:.2f} dB at {link.data_rate_bps:g} bit/s: {verdict} the "
-               f"required {link.required_margin_db:g} dB")
-    out.append(f"maximum data rate with the required margin: {fig['max_data_rate_bps']:.6g} bit/s "
-               f"(information bits; {fig['max_data_rate_bps'] / fig['code_rate']:.6g} bit/s on "
-               "air)")
+    radio_air = fig["channel_bit_rate_bps"]
+    out.append(f"radio: {_bps(link.data_rate_bps)} of information"
+               + (f", {_bps(radio_air)} on air" if radio_air != link.data_rate_bps else "")
+               + (f", plus {link.packet_overhead_bits:g} bits of packet overhead per frame"
+                  if link.packet_overhead_bits else "")
+               + f"; margin at that rate {fig['margin_db']:.2f} dB: {verdict} the required "
+               f"{link.required_margin_db:g} dB")
+    out.append(f"the margin would allow the radio up to {_bps(fig['max_data_rate_bps'])} of "
+               f"information ({_bps(fig['max_data_rate_bps'] / fig['code_rate'])} on air); a "
+               "stream is judged at the rate the radio is set to")
     if passing:
         out.append(f"overhead pass above {passing['min_elevation_deg']:g} deg: "
-                   f"{passing['pass_duration_s']:.1f} s of a {passing['orbital_period_s']:.1f} s "
-                   "orbit (Earth rotation ignored)")
+                   f"{human(passing['pass_duration_s'], 's')} of a "
+                   f"{human(passing['orbital_period_s'], 's')} orbit (Earth rotation ignored)")
         out.append(f"  {'elevation deg':>13} {'range km':>10} {'path loss dB':>12} "
                    f"{'Eb/N0 dB':>9} {'margin dB':>10} {'t from zenith s':>15}")
         for r in passing["table"]:
@@ -193,35 +300,47 @@ def _print(args, budget: Budget, rows, best, passing, rate_info) -> None:
                        f"{r['fspl_db']:>12.2f} {r['ebn0_db']:>9.2f} {r['margin_db']:>10.2f} "
                        f"{r['time_from_culmination_s']:>15.1f}")
         usable = passing["usable_duration_s"]
-        text = (f"per pass at {passing['rate_bps']:g} bit/s: {usable:.1f} s with the required "
-                f"margin, {passing['data_volume_bits']:.6g} bits "
+        text = (f"per pass at {_bps(passing['rate_bps'])}: {human(usable, 's')} with the "
+                f"required margin, {human(passing['data_volume_bits'], 'bits')} of information "
                 f"({passing['data_volume_bytes'] / 1e3:.1f} kB)")
         if "frames_per_pass" in passing:
             text += (f", {passing['frames_per_pass']} frames of "
                      f"{passing['bits_per_frame']:.0f} bits (mean at the best fidelity)")
         out.append(text)
+        out.append(f"passes: {passing['passes_per_day']:.2f} a day "
+                   f"({passing['passes_per_day_source']}); pass-averaged rate "
+                   f"{_bps(passing['pass_averaged_rate_bps'])} of information "
+                   f"({_bps(passing['pass_averaged_on_air_bps'])} on air); "
+                   f"{passing['best_case_note']}")
     if rows is not None:
         rate_hz, rate_src = rate_info
         out.append(f"stream at each fidelity ({rate_hz:g} samples/s from {rate_src}; bit/s = "
-                   "coded bits / sample duration):")
-        dump = passing is not None
-        out.append(f"  {'fidelity':>9} {'bit/s':>12} {'on air bit/s':>13} {'margin dB':>10} "
-                   f"{'SNR dB':>8}  fits" + ("  stream s per pass" if dump else ""))
+                   f"coded bits / sample duration; radio {_bps(radio_air)} on air):")
+        orbit = passing is not None
+        out.append(f"  {'fidelity':>9} {'bit/s':>12} {'on air bit/s':>13} {'spare bit/s':>12} "
+                   f"{'spare %':>8} {'margin dB':>9} {'SNR dB':>7}"
+                   + (f" {'orbit/pass %':>12} {'stream per pass':>15}" if orbit else "")
+                   + "  fits  limited by")
         for r in rows:
-            out.append(f"  {r['fidelity']:>9g} {r['bits_per_second']:>12.6g} "
-                       f"{r['channel_bits_per_second']:>13.6g} {r['margin_db']:>10.2f} "
-                       f"{fmt(r['snr_db'], '.2f'):>8}  {'yes' if r['fits'] else 'no ':<4}"
-                       + (f"  {r['stream_seconds_per_pass']:>18.6g}" if dump else ""))
-        if dump:
-            out.append("  (margin and fits: the stream sent live at its own rate; stream s per "
-                       "pass: seconds of stream one pass carries when stored and dumped at the "
-                       "link's data rate)")
+            out.append(
+                f"  {r['fidelity']:>9g} {r['bits_per_second']:>12.6g} "
+                f"{r['channel_bits_per_second']:>13.6g} {r['spare_on_air_bps']:>12.6g} "
+                f"{r['spare_percent']:>8.2f} {r['margin_db']:>9.2f} {fmt(r['snr_db'], '.2f'):>7}"
+                + (f" {fmt(r['pass_volume_used_percent'], '.1f'):>12} "
+                   f"{human(r['stream_seconds_per_pass'], 's'):>15}" if orbit else "")
+                + f"  {'yes' if r['fits'] else 'no ':<4}  {r['limited_by'] or '-'}")
+        out.append("  (margin: at the radio's configured rate; spare: the radio's rate on air "
+                   "left over; limited by: rate, margin or pass_volume, the first that fails"
+                   + ("; orbit/pass %: bits on air of one orbital period over what the passes "
+                      "of one period carry; stream per pass: stream time one pass carries "
+                      "when stored and dumped" if orbit else "") + ")")
         if best:
-            out.append(f"best fidelity that fits with {link.required_margin_db:g} dB margin: "
-                       f"{best['fidelity']:g} ({best['bits_per_second']:.6g} bit/s)")
+            out.append(f"best fidelity that fits: {best['fidelity']:g} "
+                       f"({_bps(best['channel_bits_per_second'])} on air of the radio's "
+                       f"{_bps(radio_air)}, {best['spare_percent']:.1f} % spare; margin "
+                       f"{best['margin_db']:.2f} dB of {link.required_margin_db:g} dB)")
         else:
-            out.append("no fidelity in the list fits with the required margin; lower the "
-                       "fidelity, shorten the path or raise the link's C/N0")
+            out.append(f"no fidelity in the list fits: {reason}")
     out += [f"caution: {c}" for c in CAUTIONS]
     sys.stdout.write("\n".join(out) + "\n")
 

@@ -12,7 +12,8 @@ are refused with the file, the key and the allowed range named, as a
     rx_antenna_gain_dbi = 6.0
     noise_figure_db = 3.0         # with antenna_temperature_k ...
     antenna_temperature_k = 290.0 # ... or system_noise_temperature_k alone
-    data_rate_bps = 1200.0
+    data_rate_bps = 1200.0        # the radio's configured rate, information bits
+    packet_overhead_bits = 0.0    # bits the radio adds per codec frame (preamble, sync word)
     modulation = "bpsk"           # bpsk | qpsk (Gray-coded)
     fec = "none"                  # none | hamming74 | rs255 | conv
     target_ber = 1e-5
@@ -28,6 +29,11 @@ For a satellite in a circular orbit, replace ``distance_m`` by::
     altitude_m = 550e3
     min_elevation_deg = 10.0
     station_altitude_m = 0.0
+    passes_per_day = 4.0          # optional: usable passes a day at this station, if known
+
+Without ``passes_per_day`` the budget assumes one overhead pass per orbit, the
+best case; a real station sees fewer and shorter passes, so give the number
+where you know it (from a pass predictor for your orbit and site).
 """
 
 from __future__ import annotations
@@ -43,6 +49,7 @@ from codec import ProfileError, read_toml
 
 from ._channels import MODULATIONS
 from ._fec import FEC_NAMES
+from ._orbit import orbital_period_s
 
 __all__ = ["LinkFile", "OrbitSpec", "load_link", "link_from_dict", "SPEED_OF_LIGHT_M_S",
            "MODULATIONS", "FEC_NAMES"]
@@ -65,11 +72,22 @@ class OrbitSpec(BaseModel):
     min_elevation_deg: float = Field(ge=0.0, le=89.0, allow_inf_nan=False)
     #: Station height above the mean Earth radius.
     station_altitude_m: float = Field(default=0.0, ge=-500.0, le=9000.0, allow_inf_nan=False)
+    #: Usable passes a day at this station, where the user knows it (else one
+    #: overhead pass per orbit, the best case).  Each pass is still counted as
+    #: an overhead pass (the longest), so this is a best case per pass too.
+    passes_per_day: float | None = Field(default=None, gt=0.0, le=20.0, allow_inf_nan=False)
 
     @model_validator(mode="after")
     def _station_below_orbit(self) -> OrbitSpec:
         if self.station_altitude_m >= self.altitude_m:
             raise ValueError("the station must be below the orbit")
+        if self.passes_per_day is not None:
+            orbits = 86400.0 / float(orbital_period_s(self.altitude_m))
+            if self.passes_per_day > orbits + 1.0:
+                # A station sees at most one pass per revolution (plus one at the day's
+                # edges); more means the number was meant for another orbit or period.
+                raise ValueError(f"passes_per_day {self.passes_per_day:g} is more than the "
+                                 f"{orbits:.2f} revolutions a day of this orbit allow")
         return self
 
 
@@ -96,7 +114,12 @@ class LinkFile(BaseModel):
     noise_figure_db: float | None = Field(default=None, ge=0.0, le=40.0, allow_inf_nan=False)
     antenna_temperature_k: float | None = Field(default=None, ge=0.0, le=1e5,
                                                 allow_inf_nan=False)
+    #: The radio's configured data rate, in information bits per second (before FEC;
+    #: on air it is data_rate_bps / code rate).
     data_rate_bps: float = Field(gt=0.0, le=1e12, allow_inf_nan=False)
+    #: Bits the radio adds on air to every codec frame it sends as one packet
+    #: (preamble, sync word, length, radio CRC); not FEC-coded.
+    packet_overhead_bits: float = Field(default=0.0, ge=0.0, le=1e6, allow_inf_nan=False)
     # The link simulator's own lists, so the budget offers exactly what it simulates.
     modulation: Literal[MODULATIONS] = "bpsk"
     fec: Literal[FEC_NAMES] = "none"

@@ -130,7 +130,17 @@ def test_orbit_budget_prints_pass_table(orbit_link, tmp_path, capsys):
     assert p["table"][0]["elevation_deg"] == 10.0 and p["table"][-1]["elevation_deg"] == 90.0
     assert p["data_volume_bits"] == pytest.approx(9600.0 * p["usable_duration_s"])
     text = capsys.readouterr().out
-    assert "overhead pass" in text and "per pass at 9600 bit/s" in text
+    assert "overhead pass" in text and "per pass at 9 600 bit/s" in text
+    # Human units beside the SI values of the JSON (issue: no "4.37e+08 Hz" or "1.81508e+06 m"):
+    # 437e6 Hz = 437 MHz; the 10 deg slant range from 550 km is 1815.1 km; Kepler's period at
+    # 550 km is 95.5 min, the overhead pass above 10 deg 7.9 min (figures of the JSON itself).
+    assert "437 MHz" in text and "4.37e+08" not in text
+    assert f"{r['distance_m'] / 1e3:.1f} km" in text and "1.81" not in text.split("km")[0]
+    assert f"{p['orbital_period_s'] / 60:.1f} min orbit" in text
+    assert f"{p['pass_duration_s'] / 60:.1f} min of a" in text
+    lines = {x["item"]: x for x in r["budget_lines"]}  # the JSON stays in SI units
+    assert lines["frequency"]["value"] == 437e6 and lines["frequency"]["unit"] == "Hz"
+    assert lines["distance"]["unit"] == "m" and r["distance_m"] > 1e6
     _assert_cautions(text)
 
 
@@ -138,29 +148,42 @@ def test_acceptance_fidelity_rows_and_best_fidelity(orbit_link, motions, tmp_pat
     sample = _csv(tmp_path / "s.csv", motions)
     out = tmp_path / "f.json"
     fids = [0.9, 0.99, 0.9999, 1.0]
-    # 1000 samples/s makes the rates span the link's capacity (some fit, some do not).
-    assert main(["budget", str(orbit_link), "--input", str(sample), "--sample-rate-hz", "1000",
+    # 60 samples/s puts the rates around what the passes of one orbit carry (rows that
+    # fit, rows limited by the pass volume, one limited by the radio rate).
+    assert main(["budget", str(orbit_link), "--input", str(sample), "--sample-rate-hz", "60",
                  "--fidelity", ",".join(map(str, fids)), "--json", str(out)]) == 0
     r = json.loads(out.read_text())
     rows = r["fidelity_rows"]
+    p = r["pass"]
     assert [x["fidelity"] for x in rows] == fids
-    duration = motions.shape[0] / 1000.0
-    capacity = r["max_data_rate_bps"]
+    duration = motions.shape[0] / 60.0
     for row in rows:
         # Bits per second recomputed from the codec itself: bits_total / duration.
         bits = encode(motions, Profile(fidelity=row["fidelity"]).bind(BASIC_MOTIONS_CHANNELS))
         assert row["bits_per_second"] == pytest.approx(bits.report["bits_total"] / duration)
-        # Margin arithmetic: margin = C/N0 - 10 log10(bit/s) - required Eb/N0.
+        # The margin column is the margin at the radio's configured rate (9600 bit/s):
+        # C/N0 - 10 log10(9600) - required Eb/N0, the same for every row.
         assert row["margin_db"] == pytest.approx(
-            r["cn0_dbhz"] - 10 * math.log10(row["bits_per_second"]) - r["required_ebn0_db"])
-        assert row["fits"] == (row["bits_per_second"] <= capacity)
+            r["cn0_dbhz"] - 10 * math.log10(9600.0) - r["required_ebn0_db"])
+        # Spare capacity: radio rate on air minus the stream's (uncoded: on air = bit/s).
+        assert row["spare_on_air_bps"] == pytest.approx(9600.0 - row["bits_per_second"])
+        assert row["spare_percent"] == pytest.approx(100 * row["spare_on_air_bps"] / 9600.0)
+        # One orbit's bits against one overhead pass's (the best case without passes_per_day).
+        per_orbit = row["bits_per_second"] * p["orbital_period_s"]
+        per_pass = 9600.0 * p["usable_duration_s"]
+        assert row["fits"] == (row["bits_per_second"] <= 9600.0 and per_orbit <= per_pass)
+        if not row["fits"]:
+            assert row["limited_by"] == ("rate" if row["bits_per_second"] > 9600 else
+                                         "pass_volume")
         assert row["stream_seconds_per_pass"] == pytest.approx(
-            r["pass"]["data_volume_bits"] / row["bits_per_second"])
+            p["data_volume_bits"] / row["bits_per_second"])
     assert any(x["fits"] for x in rows) and not all(x["fits"] for x in rows)
     assert r["best_fidelity"] == max(x["fidelity"] for x in rows if x["fits"])
+    assert r["best_fidelity_reason"] is None
     text = capsys.readouterr().out
-    assert f"best fidelity that fits with 3 dB margin: {r['best_fidelity']:g}" in text
+    assert f"best fidelity that fits: {r['best_fidelity']:g}" in text
     assert "frames of" in text  # frames one pass carries at the best fidelity
+    assert "pass_volume" in text
     _assert_cautions(text)
 
 

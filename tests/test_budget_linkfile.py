@@ -44,7 +44,7 @@ def test_shipped_examples_load():
 
 def test_every_key_names_its_unit():
     # House rule: units in every key of a human-written file.
-    units = ("_hz", "_m", "_w", "_dbi", "_db", "_k", "_bps", "_deg")
+    units = ("_hz", "_m", "_w", "_dbi", "_db", "_k", "_bps", "_deg", "_bits")
     unitless = {"description", "orbit", "modulation", "fec", "target_ber"}  # names or ratios
     for name in LinkFile.model_fields:
         assert name in unitless or name.endswith(units), name
