@@ -375,16 +375,17 @@ def _plot(path: str, budget: Budget, rows, passing) -> None:
         elev = track.elevation_deg[rising]
         shift = budget.figures["fspl_db"] - fspl_db(track.slant_range_m[rising], link.frequency_hz)
         ax.plot(elev, budget.margin_db(link.data_rate_bps) + shift,
-                label=f"margin at {link.data_rate_bps:g} bit/s")
+                label=f"margin at the radio's {_bps(link.data_rate_bps)}")
         ax.set_xlabel("elevation (deg)")
         ax.set_title("margin over an overhead pass")
     else:
         rates = np.logspace(np.log10(link.data_rate_bps) - 2, np.log10(link.data_rate_bps) + 2,
                             200)
         ax.semilogx(rates, budget.margin_db(rates), label="margin")
-        ax.axvline(link.data_rate_bps, color="grey", ls=":", label="link file data rate")
+        ax.axvline(link.data_rate_bps, color="grey", ls=":",
+                   label=f"radio's rate ({_bps(link.data_rate_bps)})")
         ax.set_xlabel("information data rate (bit/s)")
-        ax.set_title(f"margin at {budget.distance_m / 1e3:g} km")
+        ax.set_title(f"margin at {human(budget.distance_m, 'm')}")
     ax.axhline(link.required_margin_db, color="red", ls="--", label="required margin")
     ax.set_ylabel("margin (dB)")
     ax.grid(True, alpha=0.3)
@@ -392,16 +393,27 @@ def _plot(path: str, budget: Budget, rows, passing) -> None:
     if rows:
         ax = axes[0, 1]
         f = [r["fidelity"] for r in rows]
-        ax.semilogy(range(len(f)), [r["bits_per_second"] for r in rows], "o-",
-                    label="codec bit rate")
-        ax.axhline(budget.figures["max_data_rate_bps"], color="red", ls="--",
-                   label="link capacity with required margin")
+        ax.semilogy(range(len(f)), [r["channel_bits_per_second"] for r in rows], "o-",
+                    label="stream on air")
+        radio = budget.figures["channel_bit_rate_bps"]
+        ax.axhline(radio, color="red", ls="--", label=f"radio's rate on air ({_bps(radio)})")
+        if passing:
+            avg = passing["pass_averaged_on_air_bps"]
+            ax.axhline(avg, color="purple", ls="-.",
+                       label=f"pass-averaged rate on air ({_bps(avg)}; best case)")
+        bad = [i for i, r in enumerate(rows) if not r["fits"]]
+        if bad:
+            ax.plot(bad, [rows[i]["channel_bits_per_second"] for i in bad], "x", color="black",
+                    ms=10, label="does not fit (limited by)")
+        for i in bad:
+            ax.annotate(rows[i]["limited_by"], (i, rows[i]["channel_bits_per_second"]),
+                        textcoords="offset points", xytext=(6, -12), fontsize=8)
         ax.set_xticks(range(len(f)), [f"{v:g}" for v in f])
         ax.set_xlabel("fidelity (energy fraction kept)")
-        ax.set_ylabel("bits per second (bit/s)")
-        ax.set_title("stream rate against the link's capacity")
+        ax.set_ylabel("bits on air per second (bit/s)")
+        ax.set_title("stream against the radio's configured rate")
         ax.grid(True, alpha=0.3, which="both")
-        ax.legend()
+        ax.legend(fontsize=8, loc="lower right")
     fig.tight_layout()
     with atomic_output(path) as tmp:
         fig.savefig(tmp, format=Path(path).suffix.lower().lstrip("."), dpi=110)

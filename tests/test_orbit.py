@@ -120,3 +120,49 @@ def test_frames_per_pass():
 def test_fixed_link_has_no_pass():
     link = _orbit_link(orbit=None, distance_m=10e3)
     assert pass_summary(compute_budget(link)) is None
+
+
+def test_worked_example_with_the_mission_analysis_handbook_formulas():
+    # Space Mission Analysis and Design (Wertz & Larson, 3rd ed., 1999), sec. 5.2 "Earth
+    # geometry as viewed from space" (formulas from memory; the numbers below are worked
+    # here with those formulas, not copied from the book).  Its route goes through angles
+    # and the law of sines, unlike ours (a square root from the law of cosines):
+    #   sin rho = R_E / (R_E + H)            angular radius of the Earth seen from orbit
+    #   sin eta = sin rho cos eps            nadir angle at elevation eps
+    #   lambda  = 90 deg - eps - eta         Earth central angle
+    #   D       = R_E sin lambda / sin eta   slant range
+    # and the time in view of an overhead pass, T = P lambda_max / 180 deg.
+    # Worked for H = 1000 km, eps = 10 deg, R_E = 6371.0088 km:
+    #   sin rho = 6371.0088 / 7371.0088 = 0.86433  -> rho = 59.807 deg
+    #   sin eta = 0.86433 cos 10 deg = 0.85120     -> eta = 58.343 deg
+    #   lambda  = 90 - 10 - 58.343 = 21.657 deg
+    #   D = 6371.0088 x sin 21.657 deg / 0.85120 = 6371.0088 x 0.36905 / 0.85120 = 2762.3 km
+    #   P = 2 pi sqrt(7371.0088e3^3 / 3.986004418e14) s = 104.97 min
+    #   T = 104.97 min x 21.657 / 180 = 12.63 min
+    h, eps = 1000e3, 10.0
+    assert float(slant_range_m(eps, h)) / 1e3 == pytest.approx(2762.3, abs=0.1)
+    assert math.degrees(float(central_angle_rad(eps, h))) == pytest.approx(21.657, abs=1e-3)
+    assert float(orbital_period_s(h)) / 60 == pytest.approx(104.97, abs=0.01)
+    assert float(pass_duration_s(h, eps)) / 60 == pytest.approx(12.63, abs=0.01)
+    # The same formulas over a grid of altitudes and elevations, against our functions.
+    for hh in (400e3, 550e3, 800e3, 1500e3):
+        e = np.linspace(0.0, 89.0, 90)
+        rho = np.arcsin(RE / (RE + hh))
+        eta = np.arcsin(np.sin(rho) * np.cos(np.radians(e)))
+        lam = np.radians(90.0 - e) - eta
+        np.testing.assert_allclose(slant_range_m(e, hh), RE * np.sin(lam) / np.sin(eta),
+                                   rtol=1e-9)
+        np.testing.assert_allclose(central_angle_rad(e, hh), lam, rtol=1e-9, atol=1e-12)
+
+
+def test_pass_budget_worked_example():
+    # The data a 550 km orbit's overhead pass carries above 10 deg at 9600 bit/s, by the
+    # handbook formulas above: rho = asin(6371.0088 / 6921.0088) = 67.004 deg,
+    # eta = asin(sin 67.004 x cos 10) = 65.032 deg, lambda = 14.968 deg, P = 95.502 min,
+    # T = 95.502 x 14.968 / 180 = 7.941 min = 476.5 s; 9600 x 476.5 = 4.574 Mbit a pass, and
+    # one pass per orbit averages 4.574e6 / 5730.1 s = 798.3 bit/s.
+    p = pass_summary(compute_budget(_orbit_link()))
+    assert p["pass_duration_s"] == pytest.approx(476.5, abs=0.1)
+    assert p["orbital_period_s"] / 60 == pytest.approx(95.50, abs=0.01)
+    assert p["data_volume_bits"] == pytest.approx(4.574e6, rel=2e-4)
+    assert p["pass_averaged_rate_bps"] == pytest.approx(798.3, rel=2e-4)
