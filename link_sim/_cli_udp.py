@@ -14,7 +14,13 @@ from codec._io import atomic_output, is_stdio, write_csv_block
 from codec._profile import load_stream_note
 from codec.cli._common import write_json
 
-from ._udp import parse_endpoint, receive_frames, send_frames, split_frames_of
+from ._udp import (
+    SEND_COUNTED,
+    parse_endpoint,
+    receive_frames,
+    send_frames,
+    split_frames_of,
+)
 
 __all__ = ["register_send", "register_receive"]
 
@@ -29,7 +35,8 @@ def register_send(sub) -> None:
     p.add_argument("stream", metavar="INPUT")
     p.add_argument("--udp", required=True, metavar="HOST:PORT")
     p.add_argument("--rate-bps", type=float, metavar="R",
-                   help="link rate in bits per second (default: as fast as possible)")
+                   help="link rate in bits per second of frames (default: as fast as possible)")
+    p.add_argument("--json", metavar="REPORT", help="write what was sent and counted here")
     p.set_defaults(handler=_send)
 
 
@@ -61,8 +68,16 @@ def _send(args) -> int:
         raise InputError("no frame with a valid sync marker and CRC; is this a coefwire stream?",
                          args.stream)
     stats = send_frames(frames, host, port, args.rate_bps)
-    print(f"{stats.frames} frames ({8 * stats.bytes} bits) sent to {host}:{port} in "
-          f"{stats.seconds:.3f} s ({8 * stats.bytes / max(stats.seconds, 1e-9):.0f} bit/s)")
+    report = {"frames": stats.frames, "bits": 8 * stats.bytes, "seconds": stats.seconds,
+              "rate_bps": stats.rate_bps, "average_bps": stats.average_bps,
+              "rate_error_percent": stats.rate_error_percent, "counted": SEND_COUNTED}
+    write_json(args.json, report)
+    line = (f"{stats.frames} frames ({8 * stats.bytes} bits) sent to {host}:{port} in "
+            f"{stats.seconds:.3f} s: average {stats.average_bps:.0f} bit/s")
+    if stats.rate_bps:
+        line += (f", {stats.rate_error_percent:+.2f} % from the asked {stats.rate_bps:g} bit/s")
+    print(line)
+    print(SEND_COUNTED)
     print(_CAUTION)
     return 0
 

@@ -18,7 +18,8 @@ import codec
 from codec import InputError
 from codec._stream import locate_frames
 
-__all__ = ["parse_endpoint", "split_frames_of", "send_frames", "receive_frames", "SendStats"]
+__all__ = ["parse_endpoint", "split_frames_of", "send_frames", "receive_frames", "SendStats",
+           "SEND_COUNTED"]
 
 _MAX_DATAGRAM = 65535
 
@@ -37,11 +38,36 @@ def split_frames_of(data: bytes) -> list[bytes]:
     return [data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
 
 
+#: What the sender counts, in one sentence (printed and written to the JSON report).
+SEND_COUNTED = ("bits counted: the coefwire frames as sent, sync marker to CRC (UDP, IP and "
+                "link headers not counted: they are not on the radio link being modelled); "
+                "time counted: from the start of the first frame to the end of the last frame "
+                "at the link rate (the last frame's own time on the link included)")
+
+
 @dataclass
 class SendStats:
+    """What :func:`send_frames` sent: frames, bytes and the seconds the stream took.
+
+    With a rate, ``seconds`` runs to the end of the last frame at that rate, so
+    ``8 * bytes / seconds`` is the average rate on the modelled link.
+    """
+
     frames: int
     bytes: int
     seconds: float
+    rate_bps: float | None = None
+
+    @property
+    def average_bps(self) -> float:
+        return 8 * self.bytes / self.seconds if self.seconds > 0 else float("inf")
+
+    @property
+    def rate_error_percent(self) -> float | None:
+        """Average rate against the asked rate, in percent (None without a rate)."""
+        if not self.rate_bps:
+            return None
+        return 100.0 * (self.average_bps - self.rate_bps) / self.rate_bps
 
 
 def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | None = None,
@@ -51,10 +77,16 @@ def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | Non
 
     Frame ``k`` leaves no earlier than ``t0 + bits_before_k / rate_bps``: the
     pace of a link of that rate (UDP/IP headers are not counted; they are not
-    on the radio link being modelled).
+    on the radio link being modelled).  Every departure time is reckoned from
+    ``t0``, never from the previous one, so a late wake-up is made up at the
+    next frame instead of adding up over the stream.  After the last frame the
+    sender waits until ``t0 + all_bits / rate_bps``, the end of that frame on
+    the link, so the stream's duration, and hence its average rate, is that of
+    the link (see :data:`SEND_COUNTED`).
     """
-    if rate_bps is not None and rate_bps <= 0:
-        raise InputError("the rate must be positive bits per second", "--rate-bps")
+    if rate_bps is not None and not (rate_bps > 0 and rate_bps != float("inf")):
+        raise InputError("the rate must be a positive, finite number of bits per second",
+                         "--rate-bps")
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
     sent_bits = 0
     t0 = clock()
@@ -66,7 +98,11 @@ def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | Non
                     sleep(wait)
             sock.sendto(frame, (host, port))
             sent_bits += 8 * len(frame)
-    return SendStats(len(frames), sent_bits // 8, clock() - t0)
+    if rate_bps:
+        wait = t0 + sent_bits / rate_bps - clock()
+        if wait > 0:
+            sleep(wait)
+    return SendStats(len(frames), sent_bits // 8, clock() - t0, rate_bps)
 
 
 def receive_frames(decoder: codec.StreamDecoder, host: str, port: int, on_block,
