@@ -5,17 +5,14 @@ from __future__ import annotations
 import argparse
 import math
 
-import numpy as np
-
 from codec._errors import InputError
-from codec._io import atomic_output, read_samples
+from codec._io import read_samples
 from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._channels import MODULATIONS
 from ._fec import FEC_NAMES
 from ._receiver import CONCEAL_POLICIES
-from ._simulate import CHANNEL_KINDS, ChannelConfig, simulate, sweep
-from ._theory import ber_bpsk
+from ._simulate import CHANNEL_KINDS, ChannelConfig, plot_sweep, simulate, sweep, zero_error_bound
 
 __all__ = ["register"]
 
@@ -107,6 +104,13 @@ def _interval(r: dict, key: str, spec: str) -> str:
     return base if not ci else f"{base} [{format(ci[0], spec)}, {format(ci[1], spec)}]"
 
 
+def _rate(value, counted, spec: str = ".3e") -> str:
+    """A measured rate, or '<bound' when it saw no event (as the plot draws it)."""
+    if value == 0:
+        return f"<{float(zero_error_bound(max(counted, 1))):.2e}"
+    return fmt(value, spec)
+
+
 def _print_row(r: dict) -> None:
     head = f"Eb/N0 {r['ebn0_db']:.2f} dB: " if r["ebn0_db"] is not None else ""
     theory = (f" (theory {r['ber_channel_theory']:.3e})" if r.get("ber_channel_theory")
@@ -126,44 +130,6 @@ def _print_row(r: dict) -> None:
           f"{fmt(r['max_abs_error_end_to_end'], '.4g')}; fidelity delivered "
           f"{fmt(r['fidelity_delivered'], '.5f')}, end to end "
           f"{fmt(r['fidelity_end_to_end'], '.5f')}")
-
-
-def _plot(rows: list[dict], path: str) -> None:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    e = np.array([r["ebn0_db"] for r in rows], dtype=float)
-    fig, ax = plt.subplots(1, 3, figsize=(13, 4))
-    fine = np.linspace(e.min() - 0.5, e.max() + 0.5, 200)
-    ax[0].semilogy(fine, ber_bpsk(fine), "k--", label="theory, uncoded BPSK")
-    ax[0].semilogy(e, [r["ber_channel"] or np.nan for r in rows], "o-", label="channel (measured)")
-    ax[0].semilogy(e, [r["ber_post_fec"] or np.nan for r in rows], "s-",
-                   label=f"after FEC ({rows[0]['fec']})")
-    ax[0].set_ylabel("bit error rate")
-    ax[1].semilogy(e, [r["frame_error_rate"] or np.nan for r in rows], "o-", label="measured")
-    if "frame_error_rate_theory" in rows[0]:
-        ax[1].semilogy(e, [r["frame_error_rate_theory"] for r in rows], "k--",
-                       label="theory, uncoded")
-        ax[1].legend(fontsize=8)
-    ax[1].set_ylabel("frame error rate")
-    ax[2].plot(e, [np.nan if r["snr_db_end_to_end"] is None else r["snr_db_end_to_end"]
-                   for r in rows], "o-", label="end to end")
-    ax[2].axhline(rows[0]["snr_db_codec_only"] or np.nan, color="k", ls=":",
-                  label="codec alone")
-    ax[2].set_ylabel("SNR (dB)")
-    for a in ax:
-        a.set_xlabel("Eb/N0 per codec bit (dB)")
-        a.grid(True, which="both", alpha=0.3)
-    ax[0].legend(fontsize=8)
-    ax[2].legend(fontsize=8)
-    fig.suptitle(f"{rows[0]['modulation']} over AWGN, FEC {rows[0]['fec']}, "
-                 f"{rows[0]['bits_on_air_per_sample']:.2f} bits on air per sample")
-    fig.tight_layout()
-    with atomic_output(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=110)
-    plt.close(fig)
 
 
 def _simulate(args) -> int:
@@ -187,13 +153,18 @@ def _simulate(args) -> int:
     for r in rows:
         _print_row(r)
     if len(rows) > 1:
-        print(f"{'Eb/N0 dB':>9} {'BER ch':>10} {'BER FEC':>10} {'FER':>8} {'SNR e2e dB':>11}")
+        print(f"{'Eb/N0 dB':>9} {'BER ch':>10} {'BER FEC':>10} {'FER':>10} {'SNR e2e dB':>11}")
         for r in rows:
-            print(f"{r['ebn0_db']:9.2f} {r['ber_channel']:10.3e} {r['ber_post_fec']:10.3e} "
-                  f"{r['frame_error_rate']:8.4f} {fmt(r['snr_db_end_to_end'], '11.2f')}")
+            k = r["trials"]
+            print(f"{r['ebn0_db']:9.2f} {_rate(r['ber_channel'], r['bits_on_air'] * k):>10} "
+                  f"{_rate(r['ber_post_fec'], r['bits_codec'] * k):>10} "
+                  f"{_rate(r['frame_error_rate'], r['frames_sent'] * k, '.4f'):>10} "
+                  f"{fmt(r['snr_db_end_to_end'], '11.2f')}")
+        print("  (<x: no error in any trial; x is the 95 % upper bound 1 - 0.05^(1/n) over the n "
+              "bits or frames sent, about 3/n, the rule of three; the plot draws the same)")
     if args.json:
         write_json(args.json, rows if len(rows) > 1 else rows[0])  # a sweep: list of rows
     if args.plot:
-        _plot(rows, args.plot)
+        plot_sweep(rows, args.plot)
     print(_CAUTION)
     return 0

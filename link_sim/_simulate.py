@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from pathlib import Path
 
 import numpy as np
 from scipy import stats
@@ -33,7 +34,8 @@ from ._receiver import CONCEALED, DELIVERED, LOST, receive
 from ._theory import ber_theory
 
 __all__ = ["ChannelConfig", "CHANNEL_KINDS", "transmit_bits", "run_trial", "simulate", "sweep",
-           "measured_ber_curve", "ci95"]
+           "measured_ber_curve", "ci95", "zero_error_bound", "SweepSeries", "sweep_series",
+           "sweep_figure", "plot_sweep"]
 
 CHANNEL_KINDS = ("bsc", "awgn", "burst", "erasure")
 
@@ -231,3 +233,134 @@ def measured_ber_curve(fec: str, modulation: str, ebn0_grid, bits: int, seed: in
     return {"ebn0_db": grid, "ber_channel": ch, "ber_post_fec": post / (8.0 * nbytes),
             "errors_post_fec": post, "bits_info": np.full(grid.size, 8 * nbytes),
             "rate_on_air": np.full(grid.size, rate)}
+
+
+def zero_error_bound(trials_counted) -> np.ndarray:
+    """One-sided 95 % upper bound on a rate when ``n`` trials saw no event: 1 - 0.05^(1/n).
+
+    This is the exact (Clopper-Pearson) bound for zero events; for large ``n``
+    it is the "rule of three", about 3 / n (Hanley & Lippman-Hand, JAMA 249, 1983).
+    """
+    n = np.asarray(trials_counted, dtype=np.float64)
+    return -np.expm1(np.log(0.05) / n)
+
+
+@dataclass(frozen=True)
+class SweepSeries:
+    """What the sweep plot draws, on one Eb/N0 axis (per codec bit, as in the tables).
+
+    Each measured array has NaN where nothing was measured; where the measured
+    value is zero the ``*_bound`` array holds the 95 % upper bound instead
+    (:func:`zero_error_bound` over all bits or frames of all trials) and the
+    measured array holds NaN, so a log axis never drops the point silently.
+    """
+
+    ebn0_db: np.ndarray
+    x_range: tuple[float, float]
+    theory_x_db: np.ndarray
+    theory_channel: np.ndarray
+    theory_uncoded: np.ndarray
+    code_rate: float
+    ber_channel: np.ndarray
+    ber_channel_bound: np.ndarray
+    ber_post_fec: np.ndarray
+    ber_post_fec_bound: np.ndarray
+    frame_error_rate: np.ndarray
+    frame_error_rate_bound: np.ndarray
+    frame_error_rate_theory: np.ndarray | None
+    snr_db_end_to_end: np.ndarray
+
+
+def _split(values, counted) -> tuple[np.ndarray, np.ndarray]:
+    v = np.array([np.nan if x is None else x for x in values], dtype=np.float64)
+    zero = v == 0
+    bound = np.where(zero, zero_error_bound(np.maximum(counted, 1)), np.nan)
+    return np.where(zero, np.nan, v), bound
+
+
+def sweep_series(rows: list[dict]) -> SweepSeries:
+    """The curves of an AWGN sweep (rows of :func:`sweep`), all against Eb/N0 per codec bit.
+
+    The channel's theory curve is drawn where the channel bits are: each
+    carries Ec = Eb R of energy (R = codec bits / bits on air), so its BER is
+    Q(sqrt(2 Ec/N0)) at Ec/N0 = Eb/N0 + 10 log10 R (Proakis, Digital
+    Communications, 4.3); the uncoded curve Q(sqrt(2 Eb/N0)) is what the codec
+    bits would see with no FEC at the same Eb/N0.
+    """
+    e = np.array([r["ebn0_db"] for r in rows], dtype=np.float64)
+    lo, hi = float(e.min()) - 0.5, float(e.max()) + 0.5
+    fine = np.linspace(lo, hi, 200)
+    mod = rows[0]["modulation"] or "bpsk"
+    rate = rows[0]["bits_codec"] / rows[0]["bits_on_air"]
+    trials = np.array([r["trials"] for r in rows], dtype=np.float64)
+    air = np.array([r["bits_on_air"] for r in rows], dtype=np.float64) * trials
+    info = np.array([r["bits_codec"] for r in rows], dtype=np.float64) * trials
+    frames = np.array([r["frames_sent"] for r in rows], dtype=np.float64) * trials
+    ch, ch_b = _split([r["ber_channel"] for r in rows], air)
+    post, post_b = _split([r["ber_post_fec"] for r in rows], info)
+    fer, fer_b = _split([r["frame_error_rate"] for r in rows], frames)
+    fer_t = (np.array([r["frame_error_rate_theory"] for r in rows], dtype=np.float64)
+             if "frame_error_rate_theory" in rows[0] else None)
+    snr = np.array([np.nan if r["snr_db_end_to_end"] is None else r["snr_db_end_to_end"]
+                    for r in rows], dtype=np.float64)
+    return SweepSeries(e, (lo, hi), fine, ber_theory(mod, fine + 10 * math.log10(rate)),
+                       ber_theory(mod, fine), rate, ch, ch_b, post, post_b, fer, fer_b, fer_t,
+                       snr)
+
+
+def plot_sweep(rows: list[dict], path: str | Path) -> None:
+    """Draw an AWGN sweep: BER, frame error rate and end-to-end SNR on one shared Eb/N0 axis."""
+    import matplotlib.pyplot as plt
+
+    from codec._io import atomic_output
+
+    fig = sweep_figure(rows)
+    with atomic_output(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=110)
+    plt.close(fig)
+
+
+def sweep_figure(rows: list[dict]):
+    """The matplotlib figure of :func:`plot_sweep` (three panels, one shared x range)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    s = sweep_series(rows)
+    mod = (rows[0]["modulation"] or "bpsk").upper()
+    fig, ax = plt.subplots(1, 3, figsize=(14, 5.6), sharex=True)
+    bound_style = dict(ls="none", marker="v", mfc="none")
+    ax[0].semilogy(s.theory_x_db, s.theory_channel, "k--",
+                   label=f"theory, channel bits ({mod}, code rate {s.code_rate:.3f})")
+    if abs(s.code_rate - 1.0) > 1e-9:
+        ax[0].semilogy(s.theory_x_db, s.theory_uncoded, "k:",
+                       label=f"theory, uncoded {mod} at this Eb/N0")
+    line = ax[0].semilogy(s.ebn0_db, s.ber_channel, "o-", label="channel (measured)")[0]
+    ax[0].semilogy(s.ebn0_db, s.ber_channel_bound, color=line.get_color(), **bound_style,
+                   label="channel: no error, 95 % upper bound")
+    line = ax[0].semilogy(s.ebn0_db, s.ber_post_fec, "s-",
+                          label=f"after FEC ({rows[0]['fec']}, measured)")[0]
+    ax[0].semilogy(s.ebn0_db, s.ber_post_fec_bound, color=line.get_color(), **bound_style,
+                   label="after FEC: no error, 95 % upper bound")
+    ax[0].set_ylabel("bit error rate")
+    line = ax[1].semilogy(s.ebn0_db, s.frame_error_rate, "o-", label="measured")[0]
+    ax[1].semilogy(s.ebn0_db, s.frame_error_rate_bound, color=line.get_color(), **bound_style,
+                   label="no frame lost, 95 % upper bound")
+    if s.frame_error_rate_theory is not None:
+        ax[1].semilogy(s.ebn0_db, s.frame_error_rate_theory, "k--", label="theory, uncoded")
+    ax[1].set_ylabel("frame error rate")
+    ax[2].plot(s.ebn0_db, s.snr_db_end_to_end, "o-", label="end to end")
+    ax[2].axhline(rows[0]["snr_db_codec_only"] or np.nan, color="k", ls=":",
+                  label="codec alone")
+    ax[2].set_ylabel("SNR (dB)")
+    for a in ax:
+        a.set_xlabel("Eb/N0 per codec bit (dB)")
+        a.grid(True, which="both", alpha=0.3)
+        a.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.15))
+    ax[0].set_xlim(*s.x_range)  # shared by all three panels
+    fig.suptitle(f"{mod} over AWGN, FEC {rows[0]['fec']}, "
+                 f"{rows[0]['bits_on_air_per_sample']:.2f} bits on air per sample; "
+                 "triangles: no error seen, drawn at the 95 % upper bound (rule of three)")
+    fig.tight_layout()
+    return fig
