@@ -1,9 +1,11 @@
 """``coefwire budget``: does the stream fit this radio with margin, and at what fidelity?
 
 Registered through the ``coefwire.commands`` entry-point group.  Prints the
-auditable budget table, the margin and the maximum data rate, the pass table
-for an orbit, and with ``--input`` the codec's measured bits per second at each
-fidelity of a list, the margin at each and the highest fidelity that fits.
+auditable budget table (human units; the JSON keeps SI), the margin at the
+radio's configured rate and the maximum data rate, the pass table for an orbit,
+and with ``--input`` the codec's measured bits per second at each fidelity of a
+list, whether each fits the radio (rate, margin, pass volume: see
+:func:`link_sim._budget.judge_stream`), and the highest fidelity that fits.
 """
 
 from __future__ import annotations
@@ -41,7 +43,9 @@ def register(sub: argparse._SubParsersAction) -> None:
         "budget", help="link budget: margin, maximum data rate, passes, best fidelity",
         description="Compute the link budget of LINK (a .link.toml file) line by line. With "
         "--input and a profile, code the sample at each fidelity and name the highest "
-        "fidelity whose bit rate keeps the required margin.",
+        "fidelity whose stream fits the radio: its bits on air within the radio's configured "
+        "rate, the margin at that rate kept, and for an orbit one orbit's data within what "
+        "its passes carry.",
         conflict_handler="resolve")  # our --fidelity (a list) replaces the codec's single value
     p.add_argument("link", metavar="LINK", help="link description file (TOML)")
     p.add_argument("--input", metavar="SAMPLE", help="a sample of the stream (.csv or .npy)")
