@@ -290,6 +290,11 @@ def _print(args, budget: Budget, rows, best, reason, passing, rate_info) -> None
                   if link.packet_overhead_bits else "")
                + f"; margin at that rate {fig['margin_db']:.2f} dB: {verdict} the required "
                f"{link.required_margin_db:g} dB")
+    if radio_air != link.data_rate_bps:
+        out.append(f"  (data_rate_bps is read as information bits before FEC; if your radio is "
+                   f"set to {_bps(link.data_rate_bps)} on air, write data_rate_bps = "
+                   f"{link.data_rate_bps * fig['code_rate']:.6g}, that rate times the code "
+                   f"rate {fig['code_rate']:.4g})")
     out.append(f"the margin would allow the radio up to {_bps(fig['max_data_rate_bps'])} of "
                f"information ({_bps(fig['max_data_rate_bps'] / fig['code_rate'])} on air); a "
                "stream is judged at the rate the radio is set to")
