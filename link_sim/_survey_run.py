@@ -223,8 +223,8 @@ def _run_dask(todo, out, settings, fp, total, skipped, scheduler, workers, quiet
         futures = {client.submit(survey_file, item, settings, pure=False,
                                  key=f"survey-file-{item.key(fp)}"): item for item in todo}
         bar_thread = None
-        reporter = _Reporter(len(todo), quiet or sys.stderr.isatty())
-        if not quiet and sys.stderr.isatty():
+        reporter = _Reporter(len(todo), quiet or sys.stdout.isatty())
+        if not quiet and sys.stdout.isatty():  # Dask draws its bar on standard output
             bar_thread = _dask_bar(list(futures))
         for fut in as_completed(futures):
             item = futures.pop(fut)

@@ -96,6 +96,28 @@ def serial(archive, tmp_path_factory):
     return out
 
 
+def test_frame_search_survives_a_view_held_on_its_buffer():
+    # Found by the survey on Dask: a worker's sampling profiler can hold a frame, and with it a
+    # slice of the frame scanner's buffer, for a moment; a bytearray with a live view cannot
+    # be resized (CPython raises BufferError), so the scanner must not rely on that.
+    from streams import real_stream
+
+    from codec._stream import FrameScanner, locate_frames
+
+    _, enc = real_stream(600, 3)
+    data = enc.data
+    whole = locate_frames(data)
+    scan = FrameScanner()
+    half = len(data) // 2
+    found = scan.feed(data[:half])
+    held = memoryview(scan._buf)  # what the profiler's frame keeps alive
+    found += scan.feed(data[half:]) + scan.close()
+    held.release()
+    assert [f for _, f in found] == whole.frames
+    # The frames themselves, cut out of the stream by their offsets (independent slicing).
+    assert [data[o:o + len(f)] for o, f in found] == whole.frames
+
+
 def test_group_pattern_names_groups_and_periods():
     p = GroupPattern("{station}_{date}.csv")
     assert p.match("data/ridge01_2026-03-10.csv") == ("ridge01", "2026-03-10")
