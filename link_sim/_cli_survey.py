@@ -130,8 +130,13 @@ def _survey(args) -> int:
     links = _links(groups, args)
     for path in sorted({p for p in links.values() if p}):
         load_link(path)  # a bad link file stops the survey before any work
-    stats = run_survey(items, out, settings, scheduler=args.scheduler, workers=args.workers,
-                       resume=args.resume, quiet=args.quiet)
+    try:
+        stats = run_survey(items, out, settings, scheduler=args.scheduler,
+                           workers=args.workers, resume=args.resume, quiet=args.quiet)
+    except KeyboardInterrupt:
+        print(f"coefwire survey: the finished files are kept in {out / 'rows'}; run the same "
+              "command with --resume to do the rest", file=sys.stderr)
+        raise
     summary = finish_survey(out, items, settings, links, list(args.archive))
     write_report(out, out / "report.html")
     _print(summary, stats, out)
