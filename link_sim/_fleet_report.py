@@ -186,13 +186,15 @@ def _classes_table(s: dict) -> str:
             f"<td class=n>{_f(c['bits_saved_percent'], '.1f')}</td>"
             f"<td class=n>{_f(c['snr_db_min'], '.1f')}</td>"
             f"<td class=n>{_f(c['max_abs_error'], '.3g')}</td>"
-            f"<td class=n>{c['frames_below_target']}</td></tr>")
+            f"<td class=n>{c['frames_below_target']}</td>"
+            f"<td><code>{escape(s.get('profiles', {}).get(c['channel'], '–'))}</code></td></tr>")
     return ("<table><caption>Chosen profile per sensor class (fewest bits over the fleet at "
             f"fidelity {_f(s['fleet_fidelity'], 'g')})</caption><thead><tr><th scope=col>sensor "
             "class</th><th scope=col>basis</th><th scope=col>fidelity</th><th scope=col>bits "
             "per day per station</th><th scope=col>saved vs identity %</th><th scope=col>"
             "lowest SNR dB</th><th scope=col>largest |error|</th><th scope=col>frames below "
-            f"target</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
+            "target</th><th scope=col>profile file (in the survey folder)</th></tr></thead>"
+            f"<tbody>{''.join(rows)}</tbody></table>")
 
 
 def _group_channel_table(s: dict) -> str:

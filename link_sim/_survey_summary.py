@@ -260,6 +260,31 @@ def _examples(items: list[ArchiveFile], ok_files: set[str], settings: SurveySett
     return out
 
 
+def _write_profiles(out: Path, settings: SurveySettings, classes: list[dict],
+                    rows: list[dict]) -> dict[str, str]:
+    """One profile file per sensor class, ``DIR/profiles/CHANNEL.toml``: the chosen basis and
+    fidelity with the channel's spec from the survey's profile."""
+    from codec import ChannelSpec, atomic_output, save_profile
+
+    base = Profile.model_validate(settings.profile)
+    specs = {c.name: c for c in base.channels}
+    rates = {r["channel"]: r["sample_rate_hz"] for r in rows if r["error"] is None}
+    folder = out / "profiles"
+    folder.mkdir(exist_ok=True)
+    written = {}
+    for cls in classes:
+        name = cls["channel"]
+        spec = specs.get(name) or ChannelSpec(name=name, sample_rate_hz=rates.get(name))
+        prof = base.model_copy(update={"channels": (spec,)}).override(
+            basis=cls["basis"], fidelity=cls["fidelity"],
+            description=f"sensor class {name}: chosen by coefwire survey")
+        path = folder / f"{name}.toml"
+        with atomic_output(path) as tmp:
+            save_profile(prof, tmp)
+        written[name] = str(path.relative_to(out))
+    return written
+
+
 def _write_csv(path: Path, keys, rows) -> None:
     from codec import atomic_output
 
@@ -301,6 +326,7 @@ def finish_survey(out: Path, items: list[ArchiveFile], settings: SurveySettings,
                            "group_by": settings.group_by,
                            "profile": settings.profile}
     summary["missing"] = len(items) - len({r["file"] for r in rows})
+    summary["profiles"] = _write_profiles(out, settings, summary["sensor_classes"], rows)
     _write_csv(out / "rows.csv", ROW_KEYS, rows)
     _write_csv(out / "groups.csv", GROUP_KEYS, summary["groups"])
     _write_csv(out / "group_channels.csv", GROUP_CHANNEL_KEYS, summary["group_channels"])

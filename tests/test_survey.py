@@ -17,7 +17,7 @@ import pyarrow.parquet as pq
 import pytest
 from realdata import BASIC_MOTIONS_CHANNELS, BASIC_MOTIONS_RATE_HZ, basic_motions
 
-from codec import InputError
+from codec import InputError, load_profile
 from codec.cli import main
 from link_sim import _survey_run
 from link_sim._budget import compute_budget
@@ -139,6 +139,18 @@ def test_rows_cover_every_file_channel_basis_and_fidelity(serial):
     for r in rows[:28]:
         assert float(r["duration_s"]) == pytest.approx(ROWS_PER_FILE / BASIC_MOTIONS_RATE_HZ)
         assert float(r["bits_per_day"]) == pytest.approx(float(r["bits"]) / 10.0 * 86400.0)
+    # One profile per sensor class, loadable, naming the basis with the fewest bits over the
+    # fleet at the fleet's fidelity (summed here from the CSV rows).
+    summary = json.loads((serial / "summary.json").read_text(encoding="utf-8"))
+    fleet_f = summary["fleet_fidelity"]
+    for c in BASIC_MOTIONS_CHANNELS:
+        prof = load_profile(serial / "profiles" / f"{c}.toml")
+        per = {}
+        for r in rows:
+            if r["channel"] == c and float(r["fidelity_target"]) == fleet_f:
+                per[r["basis"]] = per.get(r["basis"], 0.0) + float(r["bits"])
+        assert prof.basis == min(per, key=per.get) and prof.fidelity == fleet_f
+        assert [ch.name for ch in prof.channels] == [c]
     # The Parquet dataset holds the same rows as the CSV (read back by pyarrow).
     table = pq.read_table(serial / "rows")
     assert table.num_rows == len(rows)
