@@ -71,8 +71,11 @@ def part_path(out: Path, item: ArchiveFile, fingerprint: str) -> Path:
     return out / "rows" / f"part-{item.key(fingerprint)}.parquet"
 
 
-def prepare_out(out: Path, settings: SurveySettings, resume: bool) -> None:
-    """Create the survey folder, or check that a resumed one used the same settings."""
+def prepare_out(out: Path, settings: SurveySettings, resume: bool, write: bool = True) -> None:
+    """Create the survey folder, or check that a resumed one used the same settings.
+
+    ``write=False`` only checks (nothing is created).
+    """
     meta = out / "survey.json"
     if out.exists() and not out.is_dir():
         raise InputError("--out names a file, not a folder; name a folder", str(out))
@@ -96,6 +99,8 @@ def prepare_out(out: Path, settings: SurveySettings, resume: bool) -> None:
     if not out.parent.is_dir():
         raise InputError("the folder that should hold --out does not exist; create it first",
                          str(out))
+    if not write:
+        return
     (out / "rows").mkdir(parents=True, exist_ok=True)
     with atomic_output(meta) as tmp:
         tmp.write_text(json.dumps({"fingerprint": settings.fingerprint(),
@@ -170,7 +175,7 @@ def run_survey(items: list[ArchiveFile], out: Path, settings: SurveySettings, *,
     """
     say = say or (lambda text: print(text, file=sys.stderr, flush=True))
     fp = settings.fingerprint()
-    prepare_out(out, settings, resume)
+    prepare_out(out, settings, resume, write=False)
     todo = [i for i in items if not part_path(out, i, fp).is_file()]
     skipped = len(items) - len(todo)
     if skipped and not quiet:
@@ -178,10 +183,11 @@ def run_survey(items: list[ArchiveFile], out: Path, settings: SurveySettings, *,
     if not todo:
         return RunStats(len(items), 0, skipped, 0)
     if scheduler is None and workers == 1:
+        prepare_out(out, settings, resume)
         failed = _run_serial(todo, out, settings, fp, quiet)
         return RunStats(len(items), len(todo), skipped, failed)
     return _run_dask(todo, out, settings, fp, len(items), skipped, scheduler, workers, quiet,
-                     say)
+                     say, lambda: prepare_out(out, settings, resume))
 
 
 def _run_serial(todo, out, settings, fp, quiet) -> int:
@@ -194,7 +200,7 @@ def _run_serial(todo, out, settings, fp, quiet) -> int:
 
 
 def _run_dask(todo, out, settings, fp, total, skipped, scheduler, workers, quiet,
-              say) -> RunStats:
+              say, start) -> RunStats:
     import logging
 
     from distributed import Client, LocalCluster, as_completed
@@ -217,6 +223,7 @@ def _run_dask(todo, out, settings, fp, total, skipped, scheduler, workers, quiet
                              "check the address and that the scheduler runs",
                              scheduler) from None
     try:
+        start()  # the survey folder is made only once the cluster answers
         dashboard = _dashboard(client)
         if dashboard and not quiet:
             say(f"survey: Dask dashboard at {dashboard}")
