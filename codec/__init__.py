@@ -10,6 +10,7 @@ from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reco
 from ._compare import Comparison, compare_bases, energy_compaction
 from ._crc import crc16_ibm3740, crc32_iso_hdlc
 from ._errors import CoefwireError, FrameError, InputError, ProfileError
+from ._io import SampleTable, atomic_output, read_samples
 from ._klt import TrainedBasis, load_trained_basis, save_trained_basis, train_klt
 from ._profile import (
     ChannelSpec,
@@ -31,6 +32,7 @@ __all__ = [
     "TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt",
     "crc16_ibm3740", "crc32_iso_hdlc",
     "FrameError", "InputError", "ProfileError", "CoefwireError",
+    "SampleTable", "atomic_output", "read_samples",
     "ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id", "read_toml",
     "save_profile",
     "error_figures",

@@ -126,7 +126,10 @@ class FrameScanner:
 
     def feed(self, chunk: bytes | bytearray | memoryview) -> list[tuple[int, bytes]]:
         """Add bytes; return the frames they complete."""
-        self._buf += chunk
+        try:
+            self._buf += chunk
+        except BufferError:  # a view of the buffer is still held (see _trim): grow a copy
+            self._buf = self._buf + chunk
         self.bytes_in += len(chunk)
         if len(self._buf) < self._need:
             return []
@@ -198,7 +201,13 @@ class FrameScanner:
     def _trim(self) -> None:
         drop = self._pos
         if drop:
-            del self._buf[:drop]
+            try:
+                del self._buf[:drop]
+            except BufferError:
+                # Something still holds a view of the buffer: a sampling profiler (Dask's
+                # workers run one) or a debugger that keeps a frame, and with it a slice
+                # passed to the CRC, alive for a moment.  Then start a new buffer instead.
+                self._buf = self._buf[drop:]
             self._base += drop
             self._need = max(0, self._need - drop)
             self._pos = 0
