@@ -20,7 +20,6 @@ from __future__ import annotations
 import glob
 import hashlib
 import json
-import math
 import re
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -38,7 +37,7 @@ from codec import (
     read_samples,
 )
 
-from ._budget import Budget
+from ._budget import Budget, judge_stream
 
 __all__ = [
     "SUFFIXES",
@@ -340,7 +339,8 @@ class LinkVerdict:
     """Whether a stream of ``stream_bps`` fits a link, and what limits it when not.
 
     ``limited_by`` is ``"rate"`` (the stream's bits on air exceed the radio's),
-    ``"margin"`` (the radio's own rate misses the required margin) or None.
+    ``"margin"`` (the radio's own rate misses the required margin),
+    ``"pass_volume"`` (an orbit's passes cannot carry one orbit's data) or None.
     """
 
     fits: bool
@@ -356,23 +356,14 @@ class LinkVerdict:
 def link_verdict(budget: Budget, stream_bps: float) -> LinkVerdict:
     """The budget's verdict on a stream of ``stream_bps`` information bits per second.
 
-    The one adapter between the survey and the link budget.  It fits when the
-    stream's bit rate on air (``stream_bps / code rate``) is within the
-    radio's channel bit rate (``data_rate_bps / code rate``) AND the margin at
-    the radio's own rate holds.  Margin is checked first: a radio that misses
-    its margin carries nothing reliably, whatever the stream.
+    The one adapter between the survey and the link budget: it asks
+    :func:`link_sim._budget.judge_stream`, the verdict the ``budget`` command
+    gives (the radio's rate carries the stream on air, the margin at that rate
+    holds, and for an orbit one orbit's data fits in its passes), and keeps
+    the first condition that fails as ``limited_by``.
     """
     fig = budget.figures
-    code_rate = float(fig["code_rate"])
-    on_air = float(stream_bps) / code_rate
-    margin = float(fig["margin_db"])
-    required = float(fig["required_margin_db"])
-    if not (math.isfinite(margin) and margin >= required):
-        limited = "margin"
-    elif on_air > float(fig["channel_bit_rate_bps"]):
-        limited = "rate"
-    else:
-        limited = None
-    return LinkVerdict(limited is None, limited, float(stream_bps), on_air,
-                       float(fig["data_rate_bps"]), float(fig["channel_bit_rate_bps"]),
-                       margin, required)
+    fit = judge_stream(budget, float(stream_bps))
+    return LinkVerdict(fit.fits, fit.limited_by, float(stream_bps), fit.on_air_bps,
+                       float(fig["data_rate_bps"]), fit.radio_on_air_bps,
+                       fit.margin_db, fit.required_margin_db)
