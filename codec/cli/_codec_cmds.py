@@ -36,6 +36,7 @@ from .._profile import (
 )
 from .._quantize import step_from_code
 from .._report import error_figures
+from .._select import check_blocks
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import STUFFINGS, Unstuffer, stuff
@@ -398,16 +399,21 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
     e = np.where(np.arange(n) < valid[:, None], e, 0.0)
     err_rows = np.einsum("ij,ij->i", e, e)  # window-major rows: window * channels + channel
     err = err_rows[info["window"] * values.shape[1] + info["channel"]]
-    met = err <= info["budget"]
     e_ref = info["reference_energy"]
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
+    # judged per budget block (window scope: per window; frame scope: the windows of
+    # one channel in one frame together)
+    blk = check_blocks(err, info["block"], info["block_budget"], info["block_reference_energy"])
+    met = blk.met[info["block"]]
     report = dict(enc.report)
-    judged = fidelity[~info["floor"]]
+    judged = blk.fidelity[~info["block_floor"]]
     report.update({
         "fidelity_min": float(judged.min()) if judged.size else None,
         "fidelity_mean": float(judged.mean()) if judged.size else None,
         "frames_below_target": int((~met).sum()),
-        "decoded_check": "error energy per frame recomputed from the decoded samples",
+        "blocks_below_target": int((~blk.met).sum()),
+        "decoded_check": f"error energy per budget block ({enc.profile.fidelity_scope} scope) "
+                         "recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
     report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
