@@ -118,6 +118,8 @@ def fidelity_rows(budget: Budget, values: np.ndarray, profile, fidelities: list[
             "channel_bits_per_second": bps / budget.figures["code_rate"],
             "bits_per_frame_mean": report["bits_per_frame_mean"],
             "snr_db": report.get("snr_db"),
+            # which budget the fidelity holds for: each window, or the windows of a frame
+            "fidelity_scope": report.get("fidelity_scope"),
             "margin_db": margin,
             "fits": bool(margin >= budget.link.required_margin_db),
         })
@@ -203,7 +205,8 @@ def _print(args, budget: Budget, rows, best, passing, rate_info) -> None:
     if rows is not None:
         rate_hz, rate_src = rate_info
         out.append(f"stream at each fidelity ({rate_hz:g} samples/s from {rate_src}; bit/s = "
-                   "coded bits / sample duration):")
+                   "coded bits / sample duration; fidelity held per "
+                   f"{rows[0]['fidelity_scope'] if rows else 'frame'}):")
         dump = passing is not None
         out.append(f"  {'fidelity':>9} {'bit/s':>12} {'on air bit/s':>13} {'margin dB':>10} "
                    f"{'SNR dB':>8}  fits" + ("  stream s per pass" if dump else ""))

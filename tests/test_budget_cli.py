@@ -144,6 +144,7 @@ def test_acceptance_fidelity_rows_and_best_fidelity(orbit_link, motions, tmp_pat
     r = json.loads(out.read_text())
     rows = r["fidelity_rows"]
     assert [x["fidelity"] for x in rows] == fids
+    assert {x["fidelity_scope"] for x in rows} == {"frame"}  # the default scope, said per row
     duration = motions.shape[0] / 1000.0
     capacity = r["max_data_rate_bps"]
     for row in rows:

@@ -34,7 +34,7 @@ coefwire's decoded output (step sqrt(12 MSE)), first-differenced, stored as
 the smallest integer type, zstd level 19.  Printed: bits/sample with every
 stream bit counted, the ratio to the baseline, and the medians.
 
-    python tools/bench_real.py [--fidelity 0.99] [--only NAME,...]
+    python tools/bench_real.py [--fidelity 0.99] [--only NAME,...] [--split]
 """
 
 from __future__ import annotations
@@ -173,6 +173,34 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
     return int(met.sum()), int(met.size)
 
 
+def bit_split(enc) -> dict:
+    """Where a layout-3 stream's bits go, per input sample: the parsed subframe fields.
+
+    ``mean``, ``step`` and ``count`` are the subframe-header fields, ``coef`` the
+    range coder's ideal code length of the coefficients, ``frame`` the rest
+    (sync marker, frame header, padding, CRC, the range coder's last bytes).
+    """
+    from codec._entropy import exp_golomb_bits, zigzag
+    from codec._layout_v3 import parse_frames_v3
+    from codec._range import coefficient_cost_bits
+    from codec._stream import locate_frames
+
+    p = enc.profile
+    loc = locate_frames(enc.data)
+    f = parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
+                        len(p.channels), p.reference == "ac", version=p.layout_version)
+    lead = np.r_[True, f["frame"][1:] != f["frame"][:-1]]
+    step = np.where(lead, 10, exp_golomb_bits(zigzag(np.diff(f["step_code"], prepend=0))))
+    mean = 0 if f["mean"] is None else exp_golomb_bits(zigzag(f["mean"])).sum()
+    count = lead.size * int(p.frame_length).bit_length()
+    coef = coefficient_cost_bits(f["q"]).sum()
+    total = len(enc.data) * 8
+    samples = enc.reconstruction.size
+    out = {"mean": mean, "step": step.sum(), "count": count, "coef": coef}
+    out["frame"] = total - sum(out.values())
+    return {k: float(v) / samples for k, v in out.items()}
+
+
 def run(name, values, names, step_s, fidelity) -> dict:
     time_col = None if step_s is None else np.arange(values.shape[0]) * step_s
     t0 = time.perf_counter()
@@ -188,6 +216,7 @@ def run(name, values, names, step_s, fidelity) -> dict:
             bps = len(enc.data) * 8 / values.size
             met, total = blocks_met(values, dec.samples, enc.profile)
             out[(label, scope)] = (bps, diff_zstd_bits(values, dec.samples), met, total)
+            out[("split", label, scope)] = bit_split(enc)
     return out
 
 
@@ -195,6 +224,9 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--fidelity", type=float, default=0.99)
     ap.add_argument("--only", help="comma-separated recording names")
+    ap.add_argument("--split", action="store_true",
+                    help="also print where the bits go (frame scope): mean, step and count "
+                    "fields, coefficients, frame header and CRC")
     args = ap.parse_args(argv)
     recs = recordings()
     if args.only:
@@ -220,6 +252,11 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{name:<14} {kind:<11} {values.shape[0]:>6}x{values.shape[1]:<2} "
               + " ".join(cells)
               + f"  {p.basis} N={p.frame_length} res={res} ({r['init_seconds']:.1f} s)")
+        if args.split:
+            for lab in ("default", "init"):
+                sp = r[("split", lab, "frame")]
+                print(f"  {lab:<8} frame scope, bits/sample: " + ", ".join(
+                    f"{k} {v:.3f}" for k, v in sp.items()))
         for c in cols:
             if r[c][2] != r[c][3]:
                 print(f"  !! {c}: {r[c][3] - r[c][2]} of {r[c][3]} budget blocks missed")
