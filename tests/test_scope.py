@@ -143,6 +143,12 @@ def test_reports_say_which_scope_holds(tmp_path):
                               fidelities=(0.99,), train_fraction=0.0)
     assert {r["fidelity_scope"] for r in cmp.rows} == {"frame"}
     assert all(r["frames_below_target"] == 0 for r in cmp.rows)
+    out = tmp_path / "cmp.json"
+    assert main(["compare", str(src), "--bases", "dct", "--fidelity", "0.99", "--scope",
+                 "window", "--train-fraction", "0", "--json", str(out)]) == 0
+    r = json.loads(out.read_text())
+    assert r["fidelity_scope"] == "window"
+    assert {row["fidelity_scope"] for row in r["rows"]} == {"window"}
 
 
 def test_scope_is_not_part_of_the_profile_id():
