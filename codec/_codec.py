@@ -546,12 +546,17 @@ def _block_quantizer_choice(cx, mean, dc, block, budget, q, mean_int, code):
     """Layout 4 in frame scope: per budget block, scalar codes or dependent quantization.
 
     As :func:`_quantizer_choice` with one step per block for either quantizer
-    (the trellis step found by the block bisection, its leftover budget
-    unspent); the cheaper of the two, summed over the block, codes the block.
+    (the trellis step found by the block bisection; the block's leftover budget
+    shared evenly by its windows and spent by dropping trailing levels); the
+    cheaper of the two, summed over the block, codes the block.
     """
-    code_t = choose_block_steps(cx, mean, dc, block, budget, trellis=True)
-    q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, trellis=True)
     nb = budget.size
+    code_t = choose_block_steps(cx, mean, dc, block, budget, trellis=True)
+    err_t = code_frame(cx, mean, dc, code_t, trellis=True)[2]
+    share = np.maximum(budget - block_sums(err_t, block, nb), 0.0) / np.bincount(block,
+                                                                                 minlength=nb)
+    q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, budget=err_t + share[block],
+                                trellis=True)
     cost_t = block_sums(coefficient_cost_bits(q_t, trellis=True) + _mean_bits(mean_t),
                         block, nb)
     cost_s = block_sums(coefficient_cost_bits(q) + _mean_bits(mean_int), block, nb)
