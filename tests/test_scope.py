@@ -139,6 +139,9 @@ def test_reports_say_which_scope_holds(tmp_path):
         assert r["blocks_below_target"] == 0 and r["fidelity_min"] >= 0.99
         if scope == "frame":  # a silent window alone is far below F; its frame is not
             assert r["window_fidelity_min"] < 0.99
+        pf = r["per_frame"]
+        assert min(pf["block_fidelity"]) >= 0.99 and all(pf["met"])
+        assert len(set(pf["budget_block"])) == r["budget_blocks"]
     cmp = codec.compare_bases(x, codec.Profile(fidelity_scope="frame"), bases="dct",
                               fidelities=(0.99,), train_fraction=0.0)
     assert {r["fidelity_scope"] for r in cmp.rows} == {"frame"}

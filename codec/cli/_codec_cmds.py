@@ -153,13 +153,22 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: s
     return result
 
 
-def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
-    """The per-frame part of a JSON report, one list per column (compact for long streams)."""
+def per_frame_table(frames: dict, fidelity: np.ndarray | None = None,
+                    block_fidelity: np.ndarray | None = None) -> dict:
+    """The per-frame part of a JSON report, one list per column (compact for long streams).
+
+    ``budget_block`` numbers the budget each frame is held to (frame scope: shared
+    by the windows of one channel in one frame) and ``block_fidelity`` is that
+    budget block's fidelity, the figure the target applies to.
+    """
+    block = frames["block"]
+    bfid = frames["block_fidelity"] if block_fidelity is None else block_fidelity
     return {
         "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
         "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
         "fidelity": frames["fidelity"] if fidelity is None else fidelity,
         "at_floor": frames["floor"], "met": frames["met"],
+        "budget_block": block, "block_fidelity": bfid[block],
     }
 
 
@@ -416,7 +425,7 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
                          "recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
-    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
+    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)
     return report, bool(met.all()), dec
 
 
