@@ -186,7 +186,8 @@ def _encode(args) -> int:
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
           f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
-          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']}), "
+          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']} per "
+          f"{r['fidelity_scope']}), "
           f"SNR {fmt(r['snr_db'], '.2f')} dB", file=out)
     if r.get("samples_gap"):
         print(f"{r['samples_gap']} missing samples "
@@ -436,7 +437,8 @@ def _roundtrip(args) -> int:
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
           f"(ratio {fmt(report['compression_ratio'], '.2f')}), fidelity min "
-          f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']}), "
+          f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']} per "
+          f"{report['fidelity_scope']}), "
           f"{report['frames_below_target']} frames below target "
           f"({report['frames_at_floor']} held to "
           f"the resolution floor), SNR {fmt(report['snr_db'], '.2f')}"
