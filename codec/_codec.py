@@ -49,9 +49,13 @@ from ._layout_v3 import (
 from ._profile import Profile, profile_id
 from ._quantize import code_for_step, step_from_code
 from ._range import coefficient_cost_bits
-from ._report import stream_report
+from ._report import scope_figures, stream_report
 from ._select import (
     _MARGIN,
+    block_budgets,
+    block_sums,
+    budget_blocks,
+    choose_block_steps,
     choose_steps,
     code_frame,
     frame_budgets,
@@ -79,7 +83,12 @@ class EncodeResult:
         What a decoder will return (samples x channels).
     frames : dict of ndarray
         Per frame: ``channel``, ``window``, ``bits``, ``terms``, ``step_code``,
-        ``error_energy``, ``budget``, ``reference_energy``, ``fidelity``, ``met``.
+        ``error_energy``, ``budget`` (the window's own), ``reference_energy``,
+        ``fidelity`` (the window's own), ``met`` (its budget block's), ``block``
+        (the budget block the frame belongs to).  Per budget block (window
+        scope: one per frame; frame scope: the windows of one channel in one
+        frame on the wire): ``block_budget``, ``block_reference_energy``,
+        ``block_error_energy``, ``block_fidelity``, ``block_met``, ``block_floor``.
     report : dict
         The JSON report (see :func:`codec._report.stream_report`).
     """
@@ -200,6 +209,13 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     peak = np.abs(np.where(mask, frames, 0.0)).max(axis=1)
     e_ref = reference_energy(frames, valid, profile.reference)
     budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak, n)
+    # Budget blocks: the windows of one channel in one frame (frame scope), else None
+    # (every window its own budget, as before).  Gap-mask frames carry one window each.
+    block = block_budget = None
+    if (profile.fidelity_scope == "frame" and profile.layout_version >= 3
+            and profile.windows_per_frame > 1 and not (gaps == "mark" and missing is not None)):
+        block = budget_blocks(channel, window + first_window, profile.windows_per_frame)
+        block_budget = block_budgets(e_ref, profile.fidelity, resolution, valid, peak, n, block)
     mean = None
     if profile.reference == "ac":
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
@@ -209,13 +225,23 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     if profile.layout_version == 1:
         offset = np.full(cx.shape[0], 0.5)
         code = choose_steps(cx, mean, dc, budget)
+    elif block is not None:  # one step per budget block (layouts 3 and 4)
+        code = choose_block_steps(cx, mean, dc, block, block_budget, RD_OFFSET_V3)
+        offset = np.full(code.size, RD_OFFSET_V3)
     else:
         code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n, profile.layout_version)
 
     slack_budget = budget if profile.layout_version >= 3 else None
-    q, mean_int, _ = code_frame(cx, mean, dc, code, offset, slack_budget)
+    if block is not None:
+        slack_budget = block_budget
+    q, mean_int, _ = code_frame(cx, mean, dc, code, offset, slack_budget, block=block)
     if profile.layout_version == LAYOUT_VERSION_4:
-        q, mean_int, code, trellis = _quantizer_choice(cx, mean, dc, budget, q, mean_int, code)
+        if block is None:
+            q, mean_int, code, trellis = _quantizer_choice(cx, mean, dc, budget, q, mean_int,
+                                                           code)
+        else:
+            q, mean_int, code, trellis = _block_quantizer_choice(
+                cx, mean, dc, block, block_budget, q, mean_int, code)
     recon = reconstruct(q, mean_int, code, basis, trellis)
     err = _valid_error(frames, recon, mask)
     limit = _peak_limits(profile, channel)
@@ -223,6 +249,8 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
 
     def step_drop(rows: np.ndarray) -> np.ndarray:
         """Eighth-octave step codes by which each frame's step must shrink (0: it passes)."""
+        if block is not None:
+            return block_drop(rows)
         drop = (err[rows] > budget[rows] * _MARGIN).astype(np.int64)
         if peak_mode:
             pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
@@ -233,6 +261,22 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
             est = np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(np.int64)
             drop = np.maximum(drop, np.where(over, np.maximum(est, 1), 0))
         return drop
+
+    def block_drop(rows: np.ndarray) -> np.ndarray:
+        """``step_drop`` for budget blocks: every row of a block moves with its block.
+
+        ``rows`` holds whole blocks (all rows at first, then the rows of blocks
+        that failed); the blocks' errors are summed over all their rows.
+        """
+        over = block_sums(err, block, block_budget.size) > block_budget * _MARGIN
+        dropb = over.astype(np.int64)
+        if peak_mode:
+            pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
+            with np.errstate(over="ignore"):
+                ratio = np.minimum(pk / limit[rows], 2.0**1000)
+            est = np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(np.int64)
+            np.maximum.at(dropb, block[rows], np.where(pk > limit[rows], np.maximum(est, 1), 0))
+        return dropb[block[rows]]
 
     # finest step: keeps every integer code below 2**52 (exact in float64)
     scale = np.abs(cx).max(axis=1)
@@ -267,8 +311,16 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
             rows = np.arange(code.size)
             drop = step_drop(rows)
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
-    met = err <= budget
     floor = budget > (1.0 - profile.fidelity) * e_ref
+    if block is None:  # every window is its own budget block
+        block, block_budget = np.arange(err.size), budget
+    nb = block_budget.size
+    block_ref = block_sums(e_ref, block, nb)
+    block_err = block_sums(err, block, nb)
+    block_fid = np.where(block_ref > 0, 1.0 - block_err / np.where(block_ref > 0, block_ref, 1.0),
+                         1.0)
+    block_met = block_err <= block_budget
+    block_floor = block_budget > (1.0 - profile.fidelity) * block_ref
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
     fmiss = gap_rows = None
     if missing is not None and gaps == "mark":
@@ -307,11 +359,19 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
-        "reference_energy": e_ref, "fidelity": fidelity, "met": met, "floor": floor,
+        "reference_energy": e_ref, "fidelity": fidelity, "met": block_met[block],
+        "floor": floor,
         "max_abs_error": _valid_max_error(frames, recon, mask),
+        # the budget the promise holds for: one per block (window scope: per window)
+        "block": block, "block_budget": block_budget, "block_reference_energy": block_ref,
+        "block_error_energy": block_err, "block_fidelity": block_fid, "block_met": block_met,
+        "block_floor": block_floor,
     }
-    report = stream_report(x, x_hat, profile, frame_bits, channel, fidelity, met, floor,
+    # The report judges every row by its budget block (in window scope: by itself).
+    report = stream_report(x, x_hat, profile, frame_bits, channel, block_fid[block],
+                           block_met[block], block_floor[block],
                            extra_bits=extra_bits, header_bits=header_bits)
+    report.update(scope_figures(profile, block, block_met, block_floor, fidelity, floor))
     # `frames` counts coded frames (one window of one channel); layouts 2 and 3 can carry
     # several of them under one header, so the frames actually sent are counted apart.
     report["frames_on_wire"] = int(np.unique(row_frame).size)
@@ -476,6 +536,31 @@ def _quantizer_choice(cx, mean, dc, budget, q, mean_int, code):
     q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, budget=budget, trellis=True)
     use = (coefficient_cost_bits(q_t, trellis=True) + _mean_bits(mean_t)
            < coefficient_cost_bits(q) + _mean_bits(mean_int))
+    q = np.where(use[:, None], q_t, q)
+    if mean_int is not None:
+        mean_int = np.where(use, mean_t, mean_int)
+    return q, mean_int, np.where(use, code_t, code), use
+
+
+def _block_quantizer_choice(cx, mean, dc, block, budget, q, mean_int, code):
+    """Layout 4 in frame scope: per budget block, scalar codes or dependent quantization.
+
+    As :func:`_quantizer_choice` with one step per block for either quantizer
+    (the trellis step found by the block bisection; the block's leftover budget
+    shared evenly by its windows and spent by dropping trailing levels); the
+    cheaper of the two, summed over the block, codes the block.
+    """
+    nb = budget.size
+    code_t = choose_block_steps(cx, mean, dc, block, budget, trellis=True)
+    err_t = code_frame(cx, mean, dc, code_t, trellis=True)[2]
+    share = np.maximum(budget - block_sums(err_t, block, nb), 0.0) / np.bincount(block,
+                                                                                 minlength=nb)
+    q_t, mean_t, _ = code_frame(cx, mean, dc, code_t, budget=err_t + share[block],
+                                trellis=True)
+    cost_t = block_sums(coefficient_cost_bits(q_t, trellis=True) + _mean_bits(mean_t),
+                        block, nb)
+    cost_s = block_sums(coefficient_cost_bits(q) + _mean_bits(mean_int), block, nb)
+    use = (cost_t < cost_s)[block]
     q = np.where(use[:, None], q_t, q)
     if mean_int is not None:
         mean_int = np.where(use, mean_t, mean_int)

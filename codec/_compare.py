@@ -31,6 +31,7 @@ from ._framing import split_frames
 from ._klt import TrainedBasis, save_trained_basis, train_klt
 from ._profile import Profile
 from ._report import error_figures
+from ._select import check_blocks
 
 __all__ = ["Comparison", "compare_bases", "energy_compaction", "resolve_bases", "ROW_KEYS"]
 
@@ -39,7 +40,7 @@ ROW_KEYS = (
     "channel", "basis", "fidelity_target", "bits_per_sample", "bits_per_frame_mean",
     "bits_per_frame_p95", "compression_ratio", "bits_saved_percent", "fidelity_min",
     "fidelity_mean", "frames_below_target", "frames_at_floor", "snr_db", "prd_percent",
-    "max_abs_error", "encode_seconds", "winner",
+    "max_abs_error", "encode_seconds", "winner", "fidelity_scope",
 )
 
 
@@ -254,12 +255,15 @@ def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
             dframes = split_frames(xh, n)[0]
             e = np.where(mask, frames - dframes, 0.0)
             err = np.einsum("ij,ij->i", e, e)  # measured on the decoded samples
-            e_ref = info["reference_energy"]
-            fid = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
-            below = err > info["budget"]
+            # judged per budget block (the scope the profile asks for: a window, or the
+            # windows of one channel in one frame); each row carries its block's figures
+            blk = check_blocks(err, info["block"], info["block_budget"],
+                               info["block_reference_energy"])
+            below = ~blk.met[info["block"]]
+            fid = blk.fidelity[info["block"]]
             # Frames held to the sensor-resolution floor, not to F, are counted apart and
             # left out of the fidelity figures (as in the encoder's own report).
-            floor = np.asarray(info.get("floor", np.zeros(err.size, bool)), dtype=bool)
+            floor = np.asarray(info["block_floor"][info["block"]], dtype=bool)
             bits = info["bits"].astype(np.float64)
             for c, name in [*enumerate(names), (None, "all")]:
                 sel = np.ones(channel.size, bool) if c is None else channel == c
@@ -282,7 +286,7 @@ def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:
                     "frames_at_floor": int(floor[sel].sum()),
                     "snr_db": figs["snr_db"], "prd_percent": figs["prd_percent"],
                     "max_abs_error": figs["max_abs_error"], "encode_seconds": seconds,
-                    "winner": False,
+                    "winner": False, "fidelity_scope": profile.fidelity_scope,
                 })
     ref = {(r["channel"], r["fidelity_target"]): r["bits_per_sample"]
            for r in rows if r["basis"] == "identity"}

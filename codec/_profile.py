@@ -91,6 +91,11 @@ class Profile(BaseModel):
     #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
     windows_per_frame: int = Field(default=8, ge=1, le=16)
+    #: What one fidelity budget covers: "window" (each window of each channel on its
+    #: own) or "frame" (the windows of one channel that travel in one frame share one
+    #: budget; layouts 3 and 4 with several windows per frame).  Only the encoder
+    #: reads it: the decoder and the profile identifier do not depend on it.
+    fidelity_scope: Literal["window", "frame"] = "frame"
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
     #: A trained basis (basis = "klt"): its .cwbasis.npz file and the SHA-256 of its matrix.
     basis_file: str | None = None
@@ -161,7 +166,8 @@ def profile_id(profile: Profile) -> int:
     # so profiles written before they existed keep their identifier.  The basis
     # file's path may differ between the two ends; its hash may not.
     canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
-                                        "multi_channel_frames", "windows_per_frame"})
+                                        "multi_channel_frames", "windows_per_frame",
+                                        "fidelity_scope"})
     for ch in canon["channels"]:
         ch.pop("max_error", None)
     if canon["basis_sha256"] is None:

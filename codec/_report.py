@@ -15,7 +15,7 @@ import math
 
 import numpy as np
 
-__all__ = ["error_figures", "stream_report"]
+__all__ = ["error_figures", "stream_report", "scope_figures"]
 
 
 def _db(num: float, den: float) -> float | None:
@@ -121,3 +121,24 @@ def stream_report(
         )
     report["per_channel"] = per
     return report
+
+
+def scope_figures(profile, block: np.ndarray, block_met: np.ndarray, block_floor: np.ndarray,
+                  window_fidelity: np.ndarray, window_floor: np.ndarray) -> dict:
+    """Report keys that say which budget scope holds and how the blocks fared.
+
+    ``fidelity_scope`` is the profile's; ``budget_blocks`` counts the budgets
+    the stream was held to (one per window of each channel in window scope;
+    one per channel per frame in frame scope), ``blocks_below_target`` those
+    missed.  ``fidelity_min``/``fidelity_mean`` of the report are over budget
+    blocks; ``window_fidelity_min`` is the lowest single-window fidelity, which
+    in frame scope may lie below the target (a quiet window next to a loud one).
+    """
+    judged = window_fidelity[~window_floor]
+    return {
+        "fidelity_scope": profile.fidelity_scope,
+        "budget_blocks": int(block_met.size),
+        "blocks_below_target": int((~block_met).sum()),
+        "blocks_at_floor": int(block_floor.sum()),
+        "window_fidelity_min": float(judged.min()) if judged.size else None,
+    }

@@ -14,6 +14,8 @@ bisection on the step code, run on all frames at once.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
@@ -21,7 +23,8 @@ from ._trellis import trellis_quantize, trim_tail
 
 __all__ = [
     "frame_budgets", "reference_energy", "choose_steps", "code_frame", "spend_slack",
-    "FLOAT_FLOOR",
+    "FLOAT_FLOOR", "budget_blocks", "block_budgets", "choose_block_steps", "spend_block_slack",
+    "block_sums", "BlockCheck", "check_blocks",
 ]
 
 #: Relative precision below which a frame's error is float noise, not signal:
@@ -81,6 +84,7 @@ def frame_budgets(
 def code_frame(
     cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, code: np.ndarray,
     offset: np.ndarray | float = 0.5, budget: np.ndarray | None = None, trellis: bool = False,
+    block: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
     """Quantize frames at step ``code`` with rounding ``offset`` (0.5: nearest).
 
@@ -95,7 +99,9 @@ def code_frame(
     ``trellis``: dependent quantization (layout 4; ``offset`` unused): ``q``
     are trellis levels, reconstructed by
     :func:`codec._trellis.dequantize_levels`, and a ``budget`` is spent by
-    :func:`codec._trellis.trim_tail`.
+    :func:`codec._trellis.trim_tail`.  With ``block`` (scalar codes only) the
+    ``budget`` is one per budget block and is spent over each block's rows
+    together (:func:`spend_block_slack`).
     """
     qf, mean_int, err = _quantized(cx, mean, dc, code, offset, trellis)
     q = qf.astype(np.int64)
@@ -107,6 +113,8 @@ def code_frame(
         c = cx - (mean_int * (step / np.sqrt(cx.shape[1])))[:, None] * dc
     if trellis:
         q, err = trim_tail(c, q, step, err, budget * _MARGIN)
+    elif block is not None:
+        q, err = spend_block_slack(c, q, step, err, budget, block)
     else:
         q, err = spend_slack(c, q, step, err, budget)
     return q, mean_int, err
@@ -301,3 +309,158 @@ def _trellis_steps(cx, mean, dc, limit, hint, safe, top):
         ok[below] = err(lo[below], below) <= limit[below]
     lo[failed] = np.where(ok[failed], lo[failed], safe[failed])
     return _bisect(err, lo, hi, limit)
+
+
+# --- Budgets shared by several windows (fidelity_scope = "frame") -----------------------
+#
+# The windows of one channel that travel in one frame form a *budget block*: their
+# error energies add up to at most max((1 - F) * sum E_ref, sum N * res**2 / 12), and
+# one quantizer step serves them all.  At high rate a uniform quantizer with step d
+# errs d**2 / 12 per coded coefficient, whatever the coefficient's variance, so one
+# step across the block spreads the error evenly over the coefficients that are
+# coded and leaves the ones below d**2 / 12 at zero: the reverse water-filling
+# allocation of Cover & Thomas (2006), Theorem 10.3.3, with d**2 / 12 as the water
+# level.  Window scope is the special case of blocks of one window.
+
+
+def budget_blocks(channel: np.ndarray, window: np.ndarray, windows_per_frame: int) -> np.ndarray:
+    """Block number of each row (one window of one channel): its channel and its frame.
+
+    ``window`` is the stream's window number (the frame packer groups windows
+    ``window // windows_per_frame`` into one frame); blocks are numbered 0, 1, ...
+    in order of first appearance of (frame, channel).
+    """
+    key = (window // windows_per_frame) * (int(channel.max(initial=0)) + 1) + channel
+    _, first, inv = np.unique(key, return_index=True, return_inverse=True)
+    rank = np.empty(first.size, np.int64)
+    rank[np.argsort(first, kind="stable")] = np.arange(first.size)
+    return rank[inv.ravel()]
+
+
+def block_sums(values: np.ndarray, block: np.ndarray, blocks: int) -> np.ndarray:
+    """Sum of ``values`` (one per row) over each block."""
+    return np.bincount(block, weights=values, minlength=blocks)
+
+
+def block_budgets(
+    e_ref: np.ndarray, fidelity: float, resolution: np.ndarray, valid: np.ndarray,
+    peak: np.ndarray, n: int, block: np.ndarray,
+) -> np.ndarray:
+    """Allowed error energy per block: every term of :func:`frame_budgets` summed over the block.
+
+    ``max((1 - F) * sum E_ref, sum N * res**2 / 12, float floor, layout floor)``:
+    each floor is the sum of the floors of the block's windows, so a block of one
+    window has exactly the budget :func:`frame_budgets` gives that window.
+    """
+    nb = int(block.max(initial=-1)) + 1
+
+    def s(v):
+        return block_sums(v, block, nb)
+
+    floor_layout = np.full(e_ref.shape, n * (0.5 * float(step_from_code(0))) ** 2)
+    return np.maximum.reduce([
+        (1.0 - fidelity) * s(e_ref), s(valid * resolution**2 / 12.0),
+        s(valid * (peak * FLOAT_FLOOR) ** 2), s(floor_layout)])
+
+
+def _row_scale(cx, mean, dc, n):
+    scale = np.abs(cx).max(axis=1)
+    if mean is not None:
+        scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
+    ac = scale if mean is None else np.abs(cx - mean[:, None] * dc).max(axis=1)
+    return scale, ac
+
+
+def choose_block_steps(
+    cx: np.ndarray, mean: np.ndarray | None, dc: np.ndarray, block: np.ndarray,
+    budget: np.ndarray, offset: float = 0.5, trellis: bool = False,
+) -> np.ndarray:
+    """Largest step code per block whose summed error fits the block's ``budget``.
+
+    As :func:`choose_steps`, with the error of a block the sum of its rows'
+    errors at the block's one step.  Returns the code of every row (its block's).
+    ``trellis``: the error of dependent quantization (every term errs by at
+    most one step, as with ``offset`` 0).
+    """
+    if trellis:
+        offset = 0.0
+    nf, n = cx.shape
+    nb = budget.size
+    scale, ac = _row_scale(cx, mean, dc, n)
+    low = np.iinfo(np.int64).min
+    floor = np.full(nb, low)
+    np.maximum.at(floor, block, code_for_step(np.maximum(scale, 1e-300) * 2.0**-52))
+    rows = np.bincount(block, minlength=nb)
+    # every row errs by at most N ((1 - o) step)**2, so k rows by k times that
+    safe = np.maximum(floor, code_for_step(np.sqrt(budget / (rows * n)) / (1.0 - offset)) - 1)
+    hi = np.full(nb, low)
+    np.maximum.at(hi, block, code_for_step(2.0 * np.maximum(ac, 1e-300)) + 1)
+    hi = np.clip(hi, safe + 1, STEP_CODE_MAX)
+    limit = budget * _MARGIN
+
+    def err(code, blocks):
+        full = safe.copy()
+        full[blocks] = code
+        return block_sums(_error_only(cx, mean, dc, full[block], offset, trellis), block,
+                          nb)[blocks]
+
+    lo = np.minimum(safe, hi - 1)
+    lo = np.where(err(hi, np.arange(nb)) <= limit, hi, lo)
+    return _bisect(err, lo, hi, limit)[block]
+
+
+def spend_block_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.ndarray,
+                      budget: np.ndarray, block: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`spend_slack` over blocks: the cheapest +-1 codes of the whole block go first.
+
+    ``err`` is per row, ``budget`` per block; returns the new codes and the
+    error of every row.
+    """
+    cand = np.abs(q) == 1
+    if not cand.any():
+        return q, err
+    nf, n = q.shape
+    nb = budget.size
+    st = step[:, None]
+    add = np.where(cand, st * (2.0 * np.abs(c) - st), np.inf)
+    # the rows of each block side by side in one padded row of the block
+    order = np.argsort(block, kind="stable")
+    counts = np.bincount(block, minlength=nb)
+    starts = np.cumsum(counts) - counts
+    pos = np.arange(nf) - starts[block[order]]
+    wide = np.full((nb, int(counts.max()), n), np.inf)
+    wide[block[order], pos] = add[order]
+    srt = np.sort(wide.reshape(nb, -1), axis=1)
+    with np.errstate(invalid="ignore"):
+        cs = np.cumsum(srt, axis=1)
+    slack = budget * _MARGIN - block_sums(err, block, nb)
+    k = (cs <= slack[:, None]).sum(axis=1)
+    km = np.maximum(k - 1, 0)[:, None]
+    thr = np.where(k > 0, np.take_along_axis(srt, km, 1)[:, 0], -np.inf)
+    # ties at the threshold could overshoot; the encoder's closed loop re-checks every block
+    zero = add <= thr[block][:, None]
+    return np.where(zero, 0, q), err + np.where(zero, add, 0.0).sum(axis=1)
+
+
+@dataclass(frozen=True)
+class BlockCheck:
+    """Budget blocks measured on decoded samples.
+
+    Per block: ``error`` (energy over the block's real samples), ``budget``,
+    ``reference`` (summed reference energy), ``fidelity`` (1 - error / reference,
+    1 for a silent block) and ``met``.
+    """
+
+    error: np.ndarray
+    budget: np.ndarray
+    reference: np.ndarray
+    fidelity: np.ndarray
+    met: np.ndarray
+
+
+def check_blocks(row_error: np.ndarray, block: np.ndarray, budget: np.ndarray,
+                 reference: np.ndarray) -> BlockCheck:
+    """Sum measured row errors per block and compare them with the blocks' budgets."""
+    err = block_sums(row_error, block, budget.size)
+    fid = np.where(reference > 0, 1.0 - err / np.where(reference > 0, reference, 1.0), 1.0)
+    return BlockCheck(err, budget, reference, fid, err <= budget)

@@ -2,7 +2,8 @@
 
 :class:`StreamEncoder` takes sample blocks of any size and returns the bytes of
 every frame as soon as its time window is complete; it holds fewer than N
-samples per channel between calls.  Frame coding is per frame, so the bytes
+samples per channel between calls (frame scope: fewer than one frame's windows,
+which share a budget).  Frame coding is per frame, so the bytes
 equal those of :func:`codec.encode` on the whole input (with the ``fill`` gap
 policy interpolation only sees the samples of the current block; see below).
 
@@ -292,7 +293,8 @@ def _join(blocks: list[Block]) -> list[Block]:
 class StreamEncoder:
     """Incremental encoder: :meth:`feed` sample blocks, get frame bytes as windows complete.
 
-    Holds fewer than N samples per channel between calls.  ``gaps`` is the gap
+    Holds fewer than N samples per channel between calls (in frame scope, fewer
+    than N x windows_per_frame: a frame's windows share one budget).  ``gaps`` is the gap
     policy (``codec._gaps``); with ``fill`` the interpolation sees only the
     samples of the windows being coded, so a gap at a block edge is held flat.
     """
@@ -302,6 +304,11 @@ class StreamEncoder:
             raise ValueError(f"unknown gap policy {gaps!r}")
         self.profile = _bind(profile, channels)
         self.n = profile.frame_length
+        # Frame scope: the windows of one frame share a budget, so whole frames are
+        # coded at once (what encode does with the whole input); else whole windows.
+        self.unit = self.n * (profile.windows_per_frame
+                              if profile.fidelity_scope == "frame" and profile.layout_version >= 3
+                              else 1)
         self.gaps = gaps
         self._pending = np.zeros((0, channels))
         self.window = 0
@@ -319,7 +326,7 @@ class StreamEncoder:
             raise InputError(f"a block has {block.shape[1]} channels, the stream "
                              f"{self._pending.shape[1]}")
         self._pending = np.concatenate([self._pending, block])
-        whole = (self._pending.shape[0] // self.n) * self.n
+        whole = (self._pending.shape[0] // self.unit) * self.unit
         if whole == 0:
             return b""
         out = self._code(self._pending[:whole])

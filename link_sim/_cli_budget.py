@@ -124,6 +124,8 @@ def fidelity_rows(budget: Budget, values: np.ndarray, profile, fidelities: list[
             "bits_per_second": bps,
             "bits_per_frame_mean": report["bits_per_frame_mean"],
             "snr_db": report.get("snr_db"),
+            # which budget the fidelity holds for: each window, or the windows of a frame
+            "fidelity_scope": report.get("fidelity_scope"),
             **verdict.as_dict(),
         })
     return rows
@@ -324,7 +326,9 @@ def _print(args, budget: Budget, rows, best, reason, passing, rate_info) -> None
     if rows is not None:
         rate_hz, rate_src = rate_info
         out.append(f"stream at each fidelity ({rate_hz:g} samples/s from {rate_src}; bit/s = "
-                   f"coded bits / sample duration; radio {_bps(radio_air)} on air):")
+                   f"coded bits / sample duration; fidelity held per "
+                   f"{rows[0]['fidelity_scope'] if rows else 'frame'}; radio {_bps(radio_air)} "
+                   "on air):")
         orbit = passing is not None
         out.append(f"  {'fidelity':>9} {'bit/s':>12} {'on air bit/s':>13} {'spare bit/s':>12} "
                    f"{'spare %':>8} {'margin dB':>9} {'SNR dB':>7}"

@@ -156,6 +156,7 @@ def test_acceptance_fidelity_rows_and_best_fidelity(orbit_link, motions, tmp_pat
     rows = r["fidelity_rows"]
     p = r["pass"]
     assert [x["fidelity"] for x in rows] == fids
+    assert {x["fidelity_scope"] for x in rows} == {"frame"}  # the default scope, said per row
     duration = motions.shape[0] / 60.0
     for row in rows:
         # Bits per second recomputed from the codec itself: bits_total / duration.

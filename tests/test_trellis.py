@@ -100,7 +100,8 @@ def _ar1(rho, n, seed):
                                 dict(windows_per_frame=3)])
 def test_v4_round_trip_is_the_encoders_reconstruction(kw):
     x = np.stack([_ar1(0.95, 2500, s) for s in range(2)], axis=1) * 40.0
-    enc = codec.encode(x, codec.Profile(layout_version=4, **kw))
+    # window scope: every window's own budget is checked below (frame scope: test_scope.py)
+    enc = codec.encode(x, codec.Profile(layout_version=4, fidelity_scope="window", **kw))
     assert enc.data[2] >> 4 == 4
     dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
     np.testing.assert_array_equal(dec.samples, enc.reconstruction)
@@ -121,12 +122,13 @@ def test_v4_saves_bits_at_high_fidelity_and_uses_both_quantizers():
     bits = {}
     for v in (3, 4):
         prof = codec.Profile(frame_length=256, fidelity=0.999, reference="total",
-                             layout_version=v)
+                             layout_version=v, fidelity_scope="window")
         enc = codec.encode(x, prof)
         bits[v] = len(enc.data) * 8 / x.size
     assert bits[4] < bits[3] - 0.05
     enc = codec.encode(_ar1(0.95, 256 * 60, 5)[:, None] * 10,
-                       codec.Profile(frame_length=256, fidelity=0.99, layout_version=4))
+                       codec.Profile(frame_length=256, fidelity=0.99, layout_version=4,
+                                     fidelity_scope="window"))
     p = parse_frames_v3(enc.data, *_frames(enc.data), 256, 1, True, version=4)
     assert 0 < p["trellis"].sum() < p["trellis"].size  # the per-frame choice is real
     assert enc.report["frames_trellis"] == p["trellis"].sum()

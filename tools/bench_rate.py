@@ -15,7 +15,7 @@ N = 256, DCT) this prints, per row:
   zstd level 19;
 * the gap to R(D) and the saving against the better baseline.
 
-Run: ``python tools/bench_rate.py [--samples N] [--seed S] [--layout 3|4]``
+Run: ``python tools/bench_rate.py [--samples N] [--seed S] [--layout 3|4] [--scope S]``
 (layout 4, the default here, lets each frame use dependent quantization).
 
 References
@@ -96,13 +96,18 @@ def zstd_baselines(x: np.ndarray, mse: float) -> tuple[float, float, float]:
 
 
 def decoded_frames_met(x: np.ndarray, enc, dec) -> tuple[int, int]:
-    """Frames whose error energy on the *decoded* samples is within budget."""
+    """Budget blocks whose error energy on the *decoded* samples is within budget.
+
+    A block is a window (window scope) or the windows of one frame (frame scope).
+    """
     n = enc.profile.frame_length
     windows = -(-x.size // n)
     pad = windows * n - x.size
     e = np.pad(x - dec.samples[:, 0], (0, pad)).reshape(windows, n)
     err = np.einsum("ij,ij->i", e, e)
-    met = err <= enc.frames["budget"]
+    f = enc.frames
+    met = np.bincount(f["block"], weights=err, minlength=f["block_budget"].size) \
+        <= f["block_budget"]
     return int(met.sum()), int(met.size)
 
 
@@ -115,9 +120,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--fidelity", type=float, nargs="*", default=[0.9, 0.95, 0.99, 0.999])
     ap.add_argument("--layout", type=int, choices=(3, 4), default=4,
                     help="frame layout (3: the default profile's; 4: adds dependent quantization)")
+    ap.add_argument("--scope", choices=("window", "frame"), default="frame",
+                    help="fidelity scope (default frame, the profile default)")
     args = ap.parse_args(argv)
     print(f"AR(1), {args.samples} samples, N={args.frame_length}, DCT, reference total, "
-          f"layout {args.layout}; bits/sample with every stream bit counted")
+          f"layout {args.layout}, {args.scope} scope; bits/sample with every stream bit counted")
     print(f"{'rho':>5} {'F':>6} {'coefwire':>9} {'header':>7} {'R(D)':>6} {'gap':>6} "
           f"{'zstd':>6} {'dzstd':>6} {'saving':>7} {'frames met':>12} {'enc s':>6}")
     ok = True
@@ -125,7 +132,8 @@ def main(argv: list[str] | None = None) -> int:
         x = ar1_source(rho, args.samples, args.seed + i)
         for f in args.fidelity:
             prof = codec.Profile(frame_length=args.frame_length, basis="dct", fidelity=f,
-                                 reference="total", layout_version=args.layout)
+                                 reference="total", layout_version=args.layout,
+                                 fidelity_scope=args.scope)
             t0 = time.perf_counter()
             enc = codec.encode(x[:, None], prof)
             dt = time.perf_counter() - t0

@@ -19,7 +19,7 @@ import sys
 from importlib.metadata import PackageNotFoundError, entry_points, version
 
 from .._errors import CoefwireError
-from . import _codec_cmds, _compare_cmd, _demo, _pack_cmds, _train_cmd
+from . import _codec_cmds, _compare_cmd, _demo, _init_cmd, _pack_cmds, _train_cmd
 
 __all__ = ["main", "build_parser", "UsageError"]
 
@@ -46,7 +46,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for module in (_codec_cmds, _demo, _compare_cmd, _train_cmd, _pack_cmds):
+    for module in (_codec_cmds, _demo, _compare_cmd, _train_cmd, _pack_cmds, _init_cmd):
         module.register(sub)
     for ep in sorted(entry_points(group="coefwire.commands"), key=lambda e: e.name):
         ep.load()(sub)

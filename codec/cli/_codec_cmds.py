@@ -36,6 +36,7 @@ from .._profile import (
 )
 from .._quantize import step_from_code
 from .._report import error_figures
+from .._select import check_blocks
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import STUFFINGS, Unstuffer, stuff
@@ -152,13 +153,22 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: s
     return result
 
 
-def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
-    """The per-frame part of a JSON report, one list per column (compact for long streams)."""
+def per_frame_table(frames: dict, fidelity: np.ndarray | None = None,
+                    block_fidelity: np.ndarray | None = None) -> dict:
+    """The per-frame part of a JSON report, one list per column (compact for long streams).
+
+    ``budget_block`` numbers the budget each frame is held to (frame scope: shared
+    by the windows of one channel in one frame) and ``block_fidelity`` is that
+    budget block's fidelity, the figure the target applies to.
+    """
+    block = frames["block"]
+    bfid = frames["block_fidelity"] if block_fidelity is None else block_fidelity
     return {
         "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
         "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
         "fidelity": frames["fidelity"] if fidelity is None else fidelity,
         "at_floor": frames["floor"], "met": frames["met"],
+        "budget_block": block, "block_fidelity": bfid[block],
     }
 
 
@@ -176,7 +186,8 @@ def _encode(args) -> int:
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
           f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
-          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']}), "
+          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']} per "
+          f"{r['fidelity_scope']}), "
           f"SNR {fmt(r['snr_db'], '.2f')} dB", file=out)
     if r.get("samples_gap"):
         print(f"{r['samples_gap']} missing samples "
@@ -398,19 +409,24 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
     e = np.where(np.arange(n) < valid[:, None], e, 0.0)
     err_rows = np.einsum("ij,ij->i", e, e)  # window-major rows: window * channels + channel
     err = err_rows[info["window"] * values.shape[1] + info["channel"]]
-    met = err <= info["budget"]
     e_ref = info["reference_energy"]
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
+    # judged per budget block (window scope: per window; frame scope: the windows of
+    # one channel in one frame together)
+    blk = check_blocks(err, info["block"], info["block_budget"], info["block_reference_energy"])
+    met = blk.met[info["block"]]
     report = dict(enc.report)
-    judged = fidelity[~info["floor"]]
+    judged = blk.fidelity[~info["block_floor"]]
     report.update({
         "fidelity_min": float(judged.min()) if judged.size else None,
         "fidelity_mean": float(judged.mean()) if judged.size else None,
         "frames_below_target": int((~met).sum()),
-        "decoded_check": "error energy per frame recomputed from the decoded samples",
+        "blocks_below_target": int((~blk.met).sum()),
+        "decoded_check": f"error energy per budget block ({enc.profile.fidelity_scope} scope) "
+                         "recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
-    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
+    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)
     return report, bool(met.all()), dec
 
 
@@ -421,7 +437,8 @@ def _roundtrip(args) -> int:
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
           f"(ratio {fmt(report['compression_ratio'], '.2f')}), fidelity min "
-          f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']}), "
+          f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']} per "
+          f"{report['fidelity_scope']}), "
           f"{report['frames_below_target']} frames below target "
           f"({report['frames_at_floor']} held to "
           f"the resolution floor), SNR {fmt(report['snr_db'], '.2f')}"

@@ -30,6 +30,10 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
     p.add_argument("--layout", type=int, choices=(1, 2, 3, 4), metavar="V",
                    help="frame layout the encoder writes: 3 (default) or 4 (adds dependent "
                    "quantization where it saves bits: slower to encode); 1 and 2 are older")
+    p.add_argument("--scope", choices=("window", "frame"), dest="fidelity_scope",
+                   help="what one fidelity budget covers: every window of every channel "
+                   "(window), or the windows of one channel that travel in one frame together "
+                   "(frame; the profile's fidelity_scope, default frame)")
     p.add_argument("--max-error", type=float, metavar="E",
                    help="peak-error limit in engineering units for every channel: no decoded "
                    "sample differs from the input by more than E (with --fidelity 0 it is the "
@@ -41,7 +45,8 @@ def resolve_profile(args: argparse.Namespace, names: list[str] | None = None) ->
     profile = load_profile(args.profile) if args.profile else default_profile()
     profile = profile.override(basis=args.basis, fidelity=args.fidelity,
                                reference=args.reference, frame_length=args.frame_length,
-                               layout_version=getattr(args, "layout", None))
+                               layout_version=getattr(args, "layout", None),
+                               fidelity_scope=getattr(args, "fidelity_scope", None))
     profile = profile.bind(names) if names is not None else profile
     max_error = getattr(args, "max_error", None)
     if max_error is not None:

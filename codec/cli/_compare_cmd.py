@@ -32,6 +32,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--fidelity", default="0.9,0.95,0.99", metavar="F1,F2,...",
                    help="fidelity targets (default 0.9,0.95,0.99)")
     p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
+    p.add_argument("--scope", choices=("window", "frame"), dest="fidelity_scope",
+                   help="what one fidelity budget covers (the profile's fidelity_scope; "
+                   "default frame)")
     p.add_argument("--train-fraction", type=float, default=0.5, metavar="FRACTION",
                    help="leading fraction of the samples used to fit trained bases; every "
                    "basis is scored on the rest (default 0.5)")
@@ -57,7 +60,8 @@ def _compare(args) -> int:
         raise InputError("the plot is written as PNG; name a .png file", args.plot)
     table = read_samples(args.input)
     profile = load_profile(args.profile) if args.profile else default_profile()
-    profile = profile.override(frame_length=args.frame_length)
+    profile = profile.override(frame_length=args.frame_length,
+                               fidelity_scope=args.fidelity_scope)
     cmp = compare_bases(table.values, profile, args.bases, _fidelities(args.fidelity),
                         args.train_fraction, names=table.names,
                         input_name=Path(args.input).name, progress=True)
@@ -65,6 +69,7 @@ def _compare(args) -> int:
     print("\n".join(lines))
     report = {
         "input": str(args.input), "frame_length": cmp.frame_length,
+        "fidelity_scope": profile.fidelity_scope,
         "train_samples": cmp.train_samples, "test_samples": cmp.test_samples,
         "scoring": "trained bases are fitted on the first train_samples samples; every basis "
                    "is scored on the remaining test_samples",
@@ -95,7 +100,8 @@ def _table(cmp) -> list[str]:
             f"{'max|err|':>9} {'enc ms':>7}")
     out = [f"scored on the last {cmp.test_samples} samples (held out); trained bases fitted on "
            f"the first {cmp.train_samples}; N = {cmp.frame_length}; bits include every header "
-           "and CRC; saved% is against the identity basis; * = fewest bits",
+           "and CRC; saved% is against the identity basis; * = fewest bits; F is held per "
+           f"{cmp.rows[0]['fidelity_scope'] if cmp.rows else 'frame'} (budget scope)",
            "", "all channels:", head]
     for r in cmp.rows:
         if r["channel"] == "all":
