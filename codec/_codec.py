@@ -675,6 +675,8 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         sequence[vi], valid[vi] = p["sequence"], p["valid"]
         head["basis"][vi] = basis.code
         np.add.at(head["terms"], vi[p["frame"]], (p["q"] != 0).sum(axis=1))
+        # A frame of several windows has one step each: inspect shows the coarsest.
+        np.maximum.at(head["step_code"], vi[p["frame"]], p["step_code"])
         pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
         refuse(vi, p["profile"] != pid8, "foreign_profile",
                lambda f, p=p, vi=vi, pid8=pid8: f"made under another profile (id byte "

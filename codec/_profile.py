@@ -218,6 +218,9 @@ class StreamNote(BaseModel):
     time_name: str | None = None
     time_start: float | None = Field(default=None, allow_inf_nan=False)
     time_step: float | None = Field(default=None, allow_inf_nan=False)
+    #: Byte stuffing of the stream's frames for serial modems ("slip", "cobs"); absent: none.
+    #: ``decode`` and ``inspect`` undo it without being told.
+    stuffing: Literal["slip", "cobs"] | None = None
 
 
 def note_path(stream: str | Path) -> Path:

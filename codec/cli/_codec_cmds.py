@@ -38,7 +38,7 @@ from .._quantize import step_from_code
 from .._report import error_figures
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
-from .._stuffing import STUFFINGS, Unstuffer, stuff
+from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
 
 __all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
@@ -86,16 +86,24 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", metavar="REPORT")
     p.set_defaults(handler=_roundtrip)
 
-    p = sub.add_parser("inspect", help="list every frame of a stream")
+    p = sub.add_parser("inspect", help="list every frame of a stream",
+                       description="One line per frame: byte offset, kind (layout version or "
+                       "gap mask), sequence, channels, basis, kept terms, quantizer step (the "
+                       "coarsest, for a frame of several windows), bits and CRC status. A "
+                       "stuffed stream (SLIP or COBS, recorded in the stream's note or given "
+                       "with --stuffing) is unstuffed first; its offsets are then those of the "
+                       "unstuffed frames.")
     p.add_argument("stream", metavar="STREAM")
     p.add_argument("-p", "--profile", metavar="PROFILE")
+    _add_stream_options(p)
     p.set_defaults(handler=_inspect)
 
 
 def _add_stream_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--stuffing", choices=("none",) + STUFFINGS, default="none",
+    p.add_argument("--stuffing", choices=("none",) + STUFFINGS, default=None,
                    help="byte-stream framing for serial modems: SLIP (RFC 1055) or COBS "
-                   "(Cheshire & Baker 1999), one frame per packet")
+                   "(Cheshire & Baker 1999), one frame per packet (encode: default none, "
+                   "recorded in the stream's note; decode: default the note's)")
 
 
 def _read_stream(path: str) -> bytes:
@@ -144,6 +152,8 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: s
         sys.stdout.buffer.flush()
         return result
     note = _note_for(table)
+    if stuffing != "none":
+        note = note.model_copy(update={"stuffing": stuffing})
     with contextlib.ExitStack() as stack:
         tmp_stream = stack.enter_context(atomic_output(path))
         tmp_note = stack.enter_context(atomic_output(note_path(path)))
@@ -169,7 +179,7 @@ def _encode(args) -> int:
         check_distinct(args.input, args.output)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
-    result = write_stream(args.output, table, profile, args.gaps, args.stuffing)
+    result = write_stream(args.output, table, profile, args.gaps, args.stuffing or "none")
     write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
@@ -209,15 +219,17 @@ def _encode_live(args) -> int:
             if enc is None:
                 profile = resolve_profile(args, reader.names)
                 enc = StreamEncoder(profile, len(reader.names), gaps=args.gaps)
-            sink.write(_stuff(enc.feed(values), args.stuffing))
+            sink.write(_stuff(enc.feed(values), args.stuffing or "none"))
             sink.flush()
         if enc is None:
             raise InputError("no data rows arrived under the header", "standard input")
-        sink.write(_stuff(enc.close(), args.stuffing))
+        sink.write(_stuff(enc.close(), args.stuffing or "none"))
         sink.flush()
         if not to_stdout:
             tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
-            save_stream_note(enc.profile, StreamNote(samples=enc.samples), tmp_note)
+            save_stream_note(enc.profile, StreamNote(
+                samples=enc.samples,
+                stuffing=None if args.stuffing in (None, "none") else args.stuffing), tmp_note)
     print(f"{enc.window} windows, {enc.samples} samples x {len(reader.names)} channels -> "
           f"{8 * enc.bytes_out} bits ({8 * enc.bytes_out / (enc.samples * len(reader.names)):.3f}"
           " bits/sample)", file=info)
@@ -260,8 +272,10 @@ def _decode(args) -> int:
     if not profile.channels:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
-    report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, args.stuffing,
+    stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
+    report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, stuffing,
                                         args.reorder, args.output)
+    _check_stuffing(report, stuffing, args.stream)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
     if not is_stdio(args.output):
@@ -283,7 +297,40 @@ def _decode(args) -> int:
           f"{c['bytes_skipped']} bytes skipped" + _event_summary(c)
           + ("" if c["end_known"] else "; the stream's end is not known (no stream note), so "
              "frames lost after the last one received are not counted"), file=out)
+    status = decode_exit_status(c)
+    total = c["samples"] * c["channels"]
+    if status == 0:
+        print(f"every sample delivered ({c['samples_delivered']} of {total}"
+              + (f", {c['samples_gap']} marked as gaps at encode" if c["samples_gap"] else "")
+              + "): exit status 0", file=out)
+    elif c["frames_ok"] + c["gap_frames_ok"] == 0:
+        print(f"nothing could be decoded: {c['samples_lost']} of {total} samples lost, exit "
+              "status 1", file=out)
+    else:
+        print(f"{c['samples_lost']} of {total} samples lost: exit status 1", file=out)
+    return status
+
+
+def decode_exit_status(counts: dict) -> int:
+    """0 when every sample is delivered (gaps marked at encode count as delivered), else 1.
+
+    1 also when no frame at all could be decoded.  Usage and data errors exit
+    2 before this is asked.
+    """
+    if counts["frames_ok"] + counts["gap_frames_ok"] == 0 or counts["samples_lost"] > 0:
+        return 1
     return 0
+
+
+def _check_stuffing(report: dict, stuffing: str, where: str) -> None:
+    """A stuffed stream decoded as plain bytes is a usage error that names the stuffing."""
+    if stuffing != "none" or not (report["samples_lost"] or not report["frames_ok"]):
+        return
+    kind = report.pop("_head_stuffing", None)
+    if kind is not None:
+        raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
+                         f"decode with --stuffing {kind}", "standard input" if is_stdio(where)
+                         else where)
 
 
 _EVENT_KEYS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
@@ -356,7 +403,10 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         else:
             blocks.extend(new)
 
+    head = bytearray()  # the stream's first bytes, to name a stuffing nobody asked to undo
     for chunk in chunks:
+        if len(head) < SNIFF_BYTES:
+            head += chunk[: SNIFF_BYTES - len(head)]
         if unstuff is None:
             take(dec.feed(chunk))
         else:
@@ -377,6 +427,10 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     report["events"] = dec.events
     report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
                                "samples_concealed = samples x channels")
+    if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
+        kind = detect_stuffing(bytes(head))
+        if kind is not None:
+            report["_head_stuffing"] = kind
     return report, blocks, dec
 
 
@@ -431,6 +485,14 @@ def _roundtrip(args) -> int:
     return 0 if ok else 1
 
 
+def _basis_code(name: str) -> int | None:
+    """The header code of a registered basis (None for one that cannot be built alone)."""
+    from .._bases import _kinds
+
+    kind = _kinds().get(name)
+    return None if kind is None else kind.code
+
+
 def _inspect(args) -> int:
     """List every frame: where, which version/kind, which window and channels, and verdict.
 
@@ -438,12 +500,19 @@ def _inspect(args) -> int:
     every layout version and gap-mask frames, and a damaged frame is a line.
     """
     data = _read_stream(args.stream)
-    profile = None
+    profile = note = None
+    if note_path(args.stream).is_file():
+        profile, note = load_stream_note(note_path(args.stream))
     if args.profile:
         profile = load_profile(args.profile)
-    elif note_path(args.stream).is_file():
-        profile = load_stream_note(note_path(args.stream))[0]
+    stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
+    if stuffing != "none":
+        u = Unstuffer(stuffing)
+        data = b"".join(u.feed(data) + u.close())
     loc = locate_frames(data)
+    if stuffing == "none" and (kind := detect_stuffing(data[:SNIFF_BYTES])) is not None:
+        raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
+                         f"inspect with --stuffing {kind}", args.stream)
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a coefwire stream?", args.stream)
@@ -454,25 +523,34 @@ def _inspect(args) -> int:
     rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
     rows += [(int(o), None) for o in loc.crc_failures]
     rows.sort()
-    out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'terms':>5} {'bits':>7}  status"]
+    codes = {as_code: name for name in basis_names()
+             if (as_code := _basis_code(name)) is not None}
+    out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'basis':<8} {'terms':>5} "
+           f"{'step':>10} {'bits':>7}  status"]
     for off, i in rows:
         if i is None:
-            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':>5} {'-':>7}  CRC FAILED")
+            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>10} "
+                       f"{'-':>7}  CRC FAILED")
             continue
         version = loc.frames[i][2] >> 4
         kind = "gap" if version == GAP_KIND else f"v{version}"
         bits = 8 * len(loc.frames[i])
         if fr is None:
-            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  crc ok "
-                       "(no profile: contents not read)")
+            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>10} "
+                       f"{bits:>7}  crc ok (no profile: contents not read)")
             continue
         chans = fr.row_channel[fr.row_frame == i].tolist()
         chans += [c for c, _ in fr.masks.get(i, ())]
         label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
         status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
+        gap = version == GAP_KIND or fr.verdict[i] != "ok"
+        basis = "-" if gap else codes.get(int(fr.head["basis"][i]), str(fr.head["basis"][i]))
+        step = "-" if gap else format(float(step_from_code(fr.head["step_code"][i])), ".4g")
         out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
-                   f"{int(fr.head['terms'][i]):>5} {bits:>7}  {status}")
+                   f"{basis:<8} {int(fr.head['terms'][i]):>5} {step:>10} {bits:>7}  {status}")
     out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
-               f"{loc.skipped_bytes} bytes outside frames")
+               f"{loc.skipped_bytes} bytes outside frames"
+               + (f" ({stuffing.upper()}-stuffed stream: offsets in the unstuffed frames)"
+                  if stuffing != "none" else ""))
     sys.stdout.write("\n".join(out) + "\n")
     return 0
