@@ -66,6 +66,10 @@ class ChannelSpec(BaseModel):
     #: Peak-error limit in engineering units: no decoded sample of this channel
     #: is further than this from the input (None: no limit).
     max_error: float | None = Field(default=None, gt=0.0, allow_inf_nan=False)
+    #: Engineering unit of the channel's values ("K", "m/s²", "°C", "W/m²"): printed
+    #: beside every figure in the channel's units; JSON keeps the numbers as they are.
+    unit: str | None = Field(default=None, min_length=1, max_length=24,
+                             pattern=r"^[^\x00-\x1f\x7f]+$")
 
 
 class Profile(BaseModel):
@@ -164,6 +168,7 @@ def profile_id(profile: Profile) -> int:
                                         "multi_channel_frames", "windows_per_frame"})
     for ch in canon["channels"]:
         ch.pop("max_error", None)
+        ch.pop("unit", None)  # a label for people; profiles that add one keep their identifier
     if canon["basis_sha256"] is None:
         del canon["basis_sha256"]  # profiles without a trained basis keep their identifier
     else:

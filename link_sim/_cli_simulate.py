@@ -9,6 +9,7 @@ import numpy as np
 
 from codec._errors import InputError
 from codec._io import atomic_output, read_samples
+from codec._report import channel_table, pooled_label, with_unit
 from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._channels import MODULATIONS
@@ -108,6 +109,8 @@ def _interval(r: dict, key: str, spec: str) -> str:
 
 
 def _print_row(r: dict) -> None:
+    units = r.get("units", {})
+    one = next(iter(units.values()), None) if len(set(units.values())) == 1 else None
     head = f"Eb/N0 {r['ebn0_db']:.2f} dB: " if r["ebn0_db"] is not None else ""
     theory = (f" (theory {r['ber_channel_theory']:.3e})" if r.get("ber_channel_theory")
               is not None else "")
@@ -120,12 +123,21 @@ def _print_row(r: dict) -> None:
           f"out of range {r['frames_out_of_range']:.1f}")
     print(f"  samples: delivered {r['samples_delivered']:.1f}, concealed "
           f"{r['samples_concealed']:.1f}, lost {r['samples_lost']:.1f} of {r['samples_in']:.0f}")
-    print(f"  SNR delivered {_interval(r, 'snr_db_delivered', '.2f')} dB, end to end "
-          f"{_interval(r, 'snr_db_end_to_end', '.2f')} dB; max abs error delivered "
-          f"{fmt(r['max_abs_error_delivered'], '.4g')}, end to end "
-          f"{fmt(r['max_abs_error_end_to_end'], '.4g')}; fidelity delivered "
+    print(f"  {pooled_label(units)}: SNR delivered {_interval(r, 'snr_db_delivered', '.2f')} dB, "
+          f"end to end {_interval(r, 'snr_db_end_to_end', '.2f')} dB; max abs error delivered "
+          f"{with_unit(r['max_abs_error_delivered'], one)}, end to end "
+          f"{with_unit(r['max_abs_error_end_to_end'], one)}; fidelity delivered "
           f"{fmt(r['fidelity_delivered'], '.5f')}, end to end "
           f"{fmt(r['fidelity_end_to_end'], '.5f')}")
+    print(f"  end-to-end fidelity counts {r['fidelity_end_to_end_counts']}")
+    per = {n: {**f, "bits_per_sample": f.get("bits_codec_per_sample", math.nan)}
+           for n, f in r["per_channel_end_to_end"].items()}
+    lines = channel_table(per, units, "fidelity_end_to_end", "fidelity e2e")
+    print("  per channel, end to end (bits/sample: the channel's codec bits; FEC and sync "
+          "are pooled in the bits on air above):")
+    print("\n".join("  " + ln + (f" {'lost':>8}" if i == 0 else
+                                  f" {per[ln.split()[0]]['samples_lost']:>8.1f}")
+                     for i, ln in enumerate(lines)))
 
 
 def _plot(rows: list[dict], path: str) -> None:

@@ -35,7 +35,7 @@ from .._profile import (
     save_stream_note,
 )
 from .._quantize import step_from_code
-from .._report import error_figures
+from .._report import channel_table, error_figures, pooled_label, units_of, with_unit
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
@@ -186,14 +186,25 @@ def _encode(args) -> int:
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
           f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
-          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']}), "
-          f"SNR {fmt(r['snr_db'], '.2f')} dB", file=out)
+          f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']})", file=out)
+    print_channel_figures(r, out)
     if r.get("samples_gap"):
         print(f"{r['samples_gap']} missing samples "
               f"{'filled by linear interpolation' if args.gaps == 'fill' else 'marked as gaps'}",
               file=out)
     print(_CAUTION, file=out)
     return 0
+
+
+def print_channel_figures(r: dict, out=None) -> None:
+    """The per-channel table and the pooled figures, labelled as pooled."""
+    out = out or sys.stdout
+    units = r.get("units", {})
+    print("\n".join(channel_table(r["per_channel"], units)), file=out)
+    one = next(iter(units.values()), None) if len(set(units.values())) == 1 else None
+    print(f"{pooled_label(units)}: SNR {fmt(r['snr_db'], '.2f')} dB, PRD "
+          f"{fmt(r['prd_percent'], '.3f')} %, max abs error "
+          f"{with_unit(r['max_abs_error'], one)}", file=out)
 
 
 def _stuff(data: bytes, stuffing: str) -> bytes:
@@ -297,6 +308,7 @@ def _decode(args) -> int:
           f"{c['bytes_skipped']} bytes skipped" + _event_summary(c)
           + ("" if c["end_known"] else "; the stream's end is not known (no stream note), so "
              "frames lost after the last one received are not counted"), file=out)
+    print("\n".join(_count_table(c)), file=out)
     status = decode_exit_status(c)
     total = c["samples"] * c["channels"]
     if status == 0:
@@ -309,6 +321,20 @@ def _decode(args) -> int:
     else:
         print(f"{c['samples_lost']} of {total} samples lost: exit status 1", file=out)
     return status
+
+
+def _count_table(c: dict) -> list[str]:
+    """Per channel: its unit and how many samples were delivered, lost, or marked as gaps."""
+    names = list(c["per_channel"])
+    width = max([7] + [len(n) for n in names])
+    uw = max([4] + [len(u or "-") for u in c["units"].values()])
+    keys = ["samples_delivered", "samples_lost", "samples_gap"]
+    lines = [f"{'channel':<{width}} {'unit':<{uw}} "
+             + " ".join(f"{k.removeprefix('samples_'):>10}" for k in keys)]
+    for n in names:
+        lines.append(f"{n:<{width}} {c['units'].get(n) or '-':<{uw}} "
+                     + " ".join(f"{c['per_channel'][n][k]:>10}" for k in keys))
+    return lines
 
 
 def decode_exit_status(counts: dict) -> int:
@@ -393,7 +419,12 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     if live:
         sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
+    tally = np.zeros((len(STATUS_NAMES), len(names)), dtype=np.int64)  # status x channel
+
     def take(new) -> None:
+        for b in new:
+            for code in STATUS_NAMES:
+                tally[code] += (b.status == code).sum(axis=0)
         if live:
             for b in new:
                 time = (note.time_start + note.time_step * (b.start + np.arange(len(b.samples)))
@@ -424,6 +455,9 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         report["packets_bad"] = unstuff.bad_packets
         report["packets_overlong"] = unstuff.overlong
     report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
+    report["per_channel"] = {n: {f"samples_{STATUS_NAMES[k]}": int(tally[k, c])
+                                 for k in STATUS_NAMES} for c, n in enumerate(names)}
+    report["units"] = units_of(profile)
     report["events"] = dec.events
     report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
                                "samples_concealed = samples x channels")
@@ -464,6 +498,14 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
         "decoded_check": "error energy per frame recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
+    per = {}
+    for c, (name, figs) in enumerate(report["per_channel"].items()):
+        mine = (info["channel"] == c) & ~info["floor"]
+        per[name] = {**figs, **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1]),
+                     "fidelity_min": float(fidelity[mine].min()) if mine.any() else None,
+                     "fidelity_mean": float(fidelity[mine].mean()) if mine.any() else None,
+                     "frames_below_target": int((~met[info["channel"] == c]).sum())}
+    report["per_channel"] = per
     report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
     return report, bool(met.all()), dec
 
@@ -478,9 +520,8 @@ def _roundtrip(args) -> int:
           f"{fmt(report['fidelity_min'], '.5f')} (target {report['fidelity_target']}), "
           f"{report['frames_below_target']} frames below target "
           f"({report['frames_at_floor']} held to "
-          f"the resolution floor), SNR {fmt(report['snr_db'], '.2f')}"
-          f" dB, PRD {fmt(report['prd_percent'], '.3f')} %, max abs error "
-          f"{report['max_abs_error']:.6g}")
+          f"the resolution floor); checked on the decoded samples")
+    print_channel_figures(report)
     print(_CAUTION)
     return 0 if ok else 1
 
