@@ -223,6 +223,14 @@ class StreamNote(BaseModel):
     time_name: str | None = None
     time_start: float | None = Field(default=None, allow_inf_nan=False)
     time_step: float | None = Field(default=None, allow_inf_nan=False)
+    #: The time column kept exactly (see ``codec/_timecol.py``): integer ticks of
+    #: 10**-time_decimals, regular (start + step) or listed (zlib + base64 of the tick
+    #: differences); ``time_float64`` holds the raw values of a column with no decimal clock.
+    time_decimals: int | None = Field(default=None, ge=0, le=15)
+    time_start_ticks: int | None = None
+    time_step_ticks: int | None = None
+    time_ticks: str | None = None
+    time_float64: str | None = None
     #: Byte stuffing of the stream's frames for serial modems ("slip", "cobs"); absent: none.
     #: ``decode`` and ``inspect`` undo it without being told.
     stuffing: Literal["slip", "cobs"] | None = None

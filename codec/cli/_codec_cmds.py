@@ -39,6 +39,7 @@ from .._report import channel_table, error_figures, pooled_label, units_of, with
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
+from .._timecol import describe_time, time_fields, time_values
 from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
 
 __all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
@@ -180,7 +181,13 @@ def _encode(args) -> int:
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
     result = write_stream(args.output, table, profile, args.gaps, args.stuffing or "none")
-    write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
+    tf = time_fields(table.time) if table.time is not None else {}
+    kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
+                                   ("regular", "time_start_ticks")) if key in tf), None)
+    write_json(args.json, {**result.report, "time_column": {
+        "name": table.time_name if tf else None, "kept": kept,
+        "resolution": 10.0 ** -tf["time_decimals"] if "time_decimals" in tf else None},
+        "per_frame": per_frame_table(result.frames)})
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
@@ -188,6 +195,8 @@ def _encode(args) -> int:
           f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
           f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']})", file=out)
     print_channel_figures(r, out)
+    if tf:
+        print(describe_time(tf, table.time_name), file=out)
     if r.get("samples_gap"):
         print(f"{r['samples_gap']} missing samples "
               f"{'filled by linear interpolation' if args.gaps == 'fill' else 'marked as gaps'}",
@@ -252,21 +261,10 @@ def _encode_live(args) -> int:
 
 
 def _note_for(table: SampleTable) -> StreamNote:
-    start = step = None
-    if table.time is not None and table.time.size:
-        t = table.time
-        if t.size == 1:
-            start, step = float(t[0]), 0.0
-        else:
-            d = np.diff(t)
-            if np.allclose(d, d[0], rtol=1e-9, atol=0.0):
-                start, step = float(t[0]), float(d[0])
-    if table.time is not None and start is None:
-        print("note: the time column is not evenly spaced, so decode will not reproduce it",
-              file=sys.stderr)
+    """The stream note: the sample count and, when the input has one, its time column exactly."""
+    fields = time_fields(table.time) if table.time is not None else {}
     return StreamNote(samples=table.values.shape[0],
-                      time_name=table.time_name if start is not None else None,
-                      time_start=start, time_step=step)
+                      time_name=table.time_name if fields else None, **fields)
 
 
 def _decode(args) -> int:
@@ -292,9 +290,7 @@ def _decode(args) -> int:
     if not is_stdio(args.output):
         values = (np.concatenate([b.samples for b in blocks]) if blocks
                   else np.zeros((0, len(names))))
-        time = None
-        if note and note.time_start is not None:
-            time = note.time_start + note.time_step * np.arange(values.shape[0])
+        time = time_values(note, 0, values.shape[0])
         write_samples(args.output, SampleTable(values, names, time, note.time_name or "time"
                                                if note else "time"))
     write_json(args.json, report)
@@ -415,7 +411,7 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     live = output is not None and is_stdio(output)
     blocks: list = []
     names = [c.name for c in profile.channels]
-    timed = note is not None and note.time_start is not None
+    timed = time_values(note, 0, 0) is not None
     if live:
         sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
@@ -427,8 +423,7 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
                 tally[code] += (b.status == code).sum(axis=0)
         if live:
             for b in new:
-                time = (note.time_start + note.time_step * (b.start + np.arange(len(b.samples)))
-                        if timed else None)
+                time = time_values(note, b.start, len(b.samples)) if timed else None
                 write_csv_block(sys.stdout, b.samples, time)
             sys.stdout.flush()
         else:
