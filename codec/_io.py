@@ -101,12 +101,14 @@ def _read_csv_text(text: str, path, allow_gaps: bool) -> SampleTable:
                 f"line {i + 2} has {len(row)} columns but the header has {width}; "
                 "every row needs one value per column", str(path))
     try:
-        values = np.array(body, dtype=np.float64)
+        cells = np.array(body, dtype=str)
+        cells = np.where(np.char.strip(cells) == "", "nan", cells)  # empty cell: missing value
+        values = cells.astype(np.float64)
     except ValueError:
         for i, row in enumerate(body):
             for j, cell in enumerate(row):
                 try:
-                    float(cell)
+                    float(cell or "nan")
                 except ValueError:
                     raise InputError(
                         f"line {i + 2}, column '{header[j]}': {cell.strip()!r} is not a number",
@@ -128,9 +130,14 @@ def _check_finite(values: np.ndarray, path: Path, names: list[str], line_offset:
         row, col = np.argwhere(bad)[0]
         where = (f"line {row + line_offset}, column '{names[col]}'" if line_offset is not None
                  else f"sample {row}, channel {col}")
+        if np.isnan(values[row, col]):
+            raise InputError(
+                f"{where}: value is nan, a missing value ({int(bad.sum())} non-finite values "
+                "in all); code missing values (empty cells, nan) with --gaps fill or --gaps "
+                "mark, or fill them before coding", str(path))
         raise InputError(
             f"{where}: value is {values[row, col]} ({int(bad.sum())} non-finite values in all); "
-            "fill or remove the gaps before coding", str(path))
+            "an infinite value cannot be coded: correct it in the input", str(path))
 
 
 def write_samples(path: str | Path, table: SampleTable) -> None:
@@ -251,7 +258,9 @@ class CsvBlockReader:
             raise InputError(f"data row {self.rows + k + 1} has {counts[k]} columns but the "
                              f"header has {width}", self._where)
         try:
-            values = np.array(cells, dtype="S").astype(np.float64).reshape(len(lines), width)
+            raw = np.array(cells, dtype="S")
+            raw = np.where(np.char.strip(raw) == b"", b"nan", raw)  # empty cell: missing value
+            values = raw.astype(np.float64).reshape(len(lines), width)
         except ValueError:
             raise InputError(f"a value in data rows {self.rows + 1}-{self.rows + len(lines)} is "
                              "not a number", self._where) from None

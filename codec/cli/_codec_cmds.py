@@ -309,8 +309,8 @@ def _decode(args) -> int:
     total = c["samples"] * c["channels"]
     if status == 0:
         print(f"every sample delivered ({c['samples_delivered']} of {total}"
-              + (f", {c['samples_gap']} marked as gaps at encode" if c["samples_gap"] else "")
-              + "): exit status 0", file=out)
+              + (f"; the other {c['samples_gap']} were marked as gaps at encode"
+                 if c["samples_gap"] else "") + "): exit status 0", file=out)
     elif c["frames_ok"] + c["gap_frames_ok"] == 0:
         print(f"nothing could be decoded: {c['samples_lost']} of {total} samples lost, exit "
               "status 1", file=out)
