@@ -23,7 +23,7 @@ import numpy as np
 from ._errors import InputError
 
 __all__ = ["SampleTable", "read_samples", "write_samples", "atomic_output", "STDIO", "is_stdio",
-           "CsvBlockReader", "write_csv_block"]
+           "CsvBlockReader", "write_csv_block", "csv_decimals"]
 
 _TIME_NAMES = ("time", "t")
 
@@ -36,6 +36,33 @@ class SampleTable:
     names: list[str]
     time: np.ndarray | None = None
     time_name: str = "time"
+    #: Decimals each column is written with in CSV (None: full precision, 17 digits).
+    decimals: list[int | None] | None = None
+    #: Decimals of the time column (None: full precision).
+    time_decimals: int | None = None
+
+
+#: Full precision: 17 significant digits give back every float64 exactly (IEEE 754-2008, 5.12.2).
+_FULL = "%.17g"
+
+
+def csv_decimals(resolution: float, max_error: float | None = None) -> int | None:
+    """Decimals a channel's values need in CSV: one digit finer than its resolution.
+
+    Rounding to them moves a value by at most 1/20 of a resolution step (and
+    of a peak-error limit, when one is set, so the limit still holds with
+    room).  None (full precision) when no resolution is set.
+    """
+    if not resolution > 0:
+        return None
+    finest = min(resolution, max_error) if max_error else resolution
+    return int(min(max(np.ceil(-np.log10(finest) - 1e-9) + 1, 0), 17))
+
+
+def _formats(table_decimals, ncols: int) -> list[str]:
+    if table_decimals is None:
+        return [_FULL] * ncols
+    return [_FULL if d is None else f"%.{d}f" for d in table_decimals]
 
 
 def read_samples(path: str | Path, allow_gaps: bool = False) -> SampleTable:
@@ -153,12 +180,14 @@ def write_samples(path: str | Path, table: SampleTable) -> None:
             return
         cols = table.values
         names = list(table.names)
+        fmt = _formats(table.decimals, cols.shape[1])
         if table.time is not None:
             cols = np.column_stack([table.time, cols])
             names = [table.time_name] + names
+            fmt = _formats([table.time_decimals], 1) + fmt
         with open(tmp, "w", encoding="utf-8", newline="") as fh:
             fh.write(",".join(names) + "\n")
-            np.savetxt(fh, cols, delimiter=",", fmt="%.17g")
+            np.savetxt(fh, cols, delimiter=",", fmt=fmt)
 
 
 @contextlib.contextmanager
@@ -270,8 +299,16 @@ class CsvBlockReader:
         return values, None
 
 
-def write_csv_block(stream, values: np.ndarray, time: np.ndarray | None = None) -> None:
-    """Append rows to a text stream as CSV (NaN written as ``nan``), e.g. standard output."""
+def write_csv_block(stream, values: np.ndarray, time: np.ndarray | None = None,
+                    decimals: list[int | None] | None = None,
+                    time_decimals: int | None = None) -> None:
+    """Append rows to a text stream as CSV (NaN written as ``nan``), e.g. standard output.
+
+    ``decimals`` per column and ``time_decimals`` as in :class:`SampleTable`.
+    """
     cols = values if time is None else np.column_stack([time, values])
+    fmt = _formats(decimals, values.shape[1])
+    if time is not None:
+        fmt = _formats([time_decimals], 1) + fmt
     if cols.size:
-        np.savetxt(stream, cols, delimiter=",", fmt="%.17g")
+        np.savetxt(stream, cols, delimiter=",", fmt=fmt)

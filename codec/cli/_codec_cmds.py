@@ -19,6 +19,7 @@ from .._io import (
     CsvBlockReader,
     SampleTable,
     atomic_output,
+    csv_decimals,
     is_stdio,
     read_samples,
     write_csv_block,
@@ -291,8 +292,9 @@ def _decode(args) -> int:
         values = (np.concatenate([b.samples for b in blocks]) if blocks
                   else np.zeros((0, len(names))))
         time = time_values(note, 0, values.shape[0])
-        write_samples(args.output, SampleTable(values, names, time, note.time_name or "time"
-                                               if note else "time"))
+        write_samples(args.output, SampleTable(
+            values, names, time, note.time_name or "time" if note else "time",
+            decimals=_decimals(profile), time_decimals=note.time_decimals if note else None))
     write_json(args.json, report)
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     c = report
@@ -331,6 +333,11 @@ def _count_table(c: dict) -> list[str]:
         lines.append(f"{n:<{width}} {c['units'].get(n) or '-':<{uw}} "
                      + " ".join(f"{c['per_channel'][n][k]:>10}" for k in keys))
     return lines
+
+
+def _decimals(profile: Profile) -> list[int | None]:
+    """CSV decimals of each channel: what its resolution needs (full precision without one)."""
+    return [csv_decimals(c.resolution, c.max_error) for c in profile.channels]
 
 
 def decode_exit_status(counts: dict) -> int:
@@ -424,7 +431,8 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         if live:
             for b in new:
                 time = time_values(note, b.start, len(b.samples)) if timed else None
-                write_csv_block(sys.stdout, b.samples, time)
+                write_csv_block(sys.stdout, b.samples, time, _decimals(profile),
+                                note.time_decimals if note else None)
             sys.stdout.flush()
         else:
             blocks.extend(new)
