@@ -86,6 +86,9 @@ def build_parser(command: str | None = "*") -> argparse.ArgumentParser:
         "and size the link budget.",
     )
     parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
+    parser.add_argument("--quiet", action="store_true",
+                        help="no progress reports on standard error (accepted after the "
+                        "command too); long commands otherwise report after about 2 s")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     # Modules whose commands are not all known here register in full, always.
     known = {m for m, _ in _SUMMARIES.values()}
@@ -118,6 +121,11 @@ def build_parser(command: str | None = "*") -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit status."""
     argv = sys.argv[1:] if argv is None else list(argv)
+    if "--quiet" in argv:  # valid before or after the command name
+        from .._progress import set_quiet
+
+        argv = [a for a in argv if a != "--quiet"]
+        set_quiet(True)
     parser = build_parser(_command_of(argv))
     args = parser.parse_args(argv)
     try:

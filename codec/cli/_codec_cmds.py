@@ -206,15 +206,18 @@ def _encode(args) -> int:
     return 0
 
 
-def print_channel_figures(r: dict, out=None) -> None:
-    """The per-channel table and the pooled figures, labelled as pooled."""
-    out = out or sys.stdout
+def channel_figure_lines(r: dict) -> list[str]:
+    """The per-channel table and the pooled figures, labelled as pooled (a report's lines)."""
     units = r.get("units", {})
-    print("\n".join(channel_table(r["per_channel"], units)), file=out)
     one = next(iter(units.values()), None) if len(set(units.values())) == 1 else None
-    print(f"{pooled_label(units)}: SNR {fmt(r['snr_db'], '.2f')} dB, PRD "
-          f"{fmt(r['prd_percent'], '.3f')} %, max abs error "
-          f"{with_unit(r['max_abs_error'], one)}", file=out)
+    return channel_table(r["per_channel"], units) + [
+        f"{pooled_label(units)}: SNR {fmt(r['snr_db'], '.2f')} dB, PRD "
+        f"{fmt(r['prd_percent'], '.3f')} %, max abs error {with_unit(r['max_abs_error'], one)}"]
+
+
+def print_channel_figures(r: dict, out=None) -> None:
+    """Print :func:`channel_figure_lines` (standard output by default)."""
+    print("\n".join(channel_figure_lines(r)), file=out or sys.stdout)
 
 
 def _stuff(data: bytes, stuffing: str) -> bytes:
