@@ -4,18 +4,21 @@ from __future__ import annotations
 
 import argparse
 import math
+from dataclasses import replace
 
 import numpy as np
 
+from codec._codec import as_samples, encode
 from codec._errors import InputError
 from codec._io import atomic_output, read_samples
+from codec._progress import Progress
 from codec._report import channel_table, pooled_label, with_unit
 from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._channels import MODULATIONS
 from ._fec import FEC_NAMES
 from ._receiver import CONCEAL_POLICIES
-from ._simulate import CHANNEL_KINDS, ChannelConfig, simulate, sweep
+from ._simulate import CHANNEL_KINDS, ChannelConfig, simulate
 from ._theory import ber_bpsk
 
 __all__ = ["register"]
@@ -184,12 +187,16 @@ def _simulate(args) -> int:
         raise InputError("--plot draws curves against Eb/N0; use it with --channel awgn", "--plot")
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
+    points = _ebn0_list(args.ebn0) if args.channel == "awgn" else [None]
+    bar = Progress(len(points) * args.trials, "simulating", "trial")
     kw = {"fec": args.fec, "interleave": args.interleave, "trials": args.trials,
-          "seed": args.seed, "policy": args.conceal}
-    if args.channel == "awgn":
-        rows = sweep(table.values, profile, cfg, _ebn0_list(args.ebn0), **kw)
-    else:
-        rows = [simulate(table.values, profile, cfg, **kw)]
+          "policy": args.conceal, "on_trial": bar.update}
+    # As link_sim.sweep: one encode, then each Eb/N0 point with its own seed.
+    enc = encode(as_samples(table.values), profile)
+    with bar:
+        rows = [simulate(table.values, profile,
+                         cfg if e is None else replace(cfg, ebn0_db=float(e)),
+                         seed=args.seed + i, enc=enc, **kw) for i, e in enumerate(points)]
     r0 = rows[0]
     print(f"{args.channel} channel, FEC {args.fec}: bits on air {r0['bits_on_air_per_frame']:.1f} "
           f"per frame, {r0['bits_on_air_per_sample']:.3f} per sample (codec "

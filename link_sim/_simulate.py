@@ -162,17 +162,23 @@ def ci95(values) -> tuple[float | None, list | None]:
 
 
 def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int = 1,
-             trials: int = 1, seed: int = 0, policy: str = "hold", enc=None) -> dict:
+             trials: int = 1, seed: int = 0, policy: str = "hold", enc=None,
+             on_trial=None) -> dict:
     """Encode ``x`` under ``profile`` and run ``trials`` independent trials over ``cfg``.
 
     Returns one report row: every per-trial figure as its mean over trials,
-    ``<key>_ci95`` beside it, plus the bits on air.
+    ``<key>_ci95`` beside it, plus the bits on air.  ``on_trial()``, when
+    given, is called after each trial (progress reports).
     """
     x = codec.as_samples(x)
     enc = enc if enc is not None else codec.encode(x, profile)
     code = make_code(fec, interleave)
     rng = np.random.default_rng(seed)
-    rows = [run_trial(x, enc, code, cfg, rng, policy) for _ in range(trials)]
+    rows = []
+    for _ in range(trials):
+        rows.append(run_trial(x, enc, code, cfg, rng, policy))
+        if on_trial is not None:
+            on_trial()
     codec_bits = 8 * len(enc.data)
     air_bits = code.channel_bits(len(enc.data))
     nf = rows[0]["frames_sent"]
