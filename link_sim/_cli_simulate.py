@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import math
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 
@@ -143,7 +144,7 @@ def _print_row(r: dict) -> None:
                      for i, ln in enumerate(lines)))
 
 
-def _plot(rows: list[dict], path: str) -> None:
+def _plot(rows: list[dict], path: str, profile_label: str = "") -> None:
     import matplotlib
 
     matplotlib.use("Agg")
@@ -153,27 +154,29 @@ def _plot(rows: list[dict], path: str) -> None:
     fig, ax = plt.subplots(1, 3, figsize=(13, 4))
     fine = np.linspace(e.min() - 0.5, e.max() + 0.5, 200)
     ax[0].semilogy(fine, ber_bpsk(fine), "k--", label="theory, uncoded BPSK")
-    ax[0].semilogy(e, [r["ber_channel"] or np.nan for r in rows], "o-", label="channel (measured)")
-    ax[0].semilogy(e, [r["ber_post_fec"] or np.nan for r in rows], "s-",
+    ax[0].semilogy(e, [r["ber_channel"] or np.nan for r in rows], "o-", color="#1f77b4",
+                   label="channel (measured)")
+    ax[0].semilogy(e, [r["ber_post_fec"] or np.nan for r in rows], "s--", color="#ff7f0e",
                    label=f"after FEC ({rows[0]['fec']})")
     ax[0].set_ylabel("bit error rate")
-    ax[1].semilogy(e, [r["frame_error_rate"] or np.nan for r in rows], "o-", label="measured")
+    ax[1].semilogy(e, [r["frame_error_rate"] or np.nan for r in rows], "o-", color="#1f77b4",
+                   label="measured")
     if "frame_error_rate_theory" in rows[0]:
         ax[1].semilogy(e, [r["frame_error_rate_theory"] for r in rows], "k--",
                        label="theory, uncoded")
         ax[1].legend(fontsize=8)
     ax[1].set_ylabel("frame error rate")
     ax[2].plot(e, [np.nan if r["snr_db_end_to_end"] is None else r["snr_db_end_to_end"]
-                   for r in rows], "o-", label="end to end")
+                   for r in rows], "o-", color="#1f77b4", label="end to end (pooled)")
     ax[2].axhline(rows[0]["snr_db_codec_only"] or np.nan, color="k", ls=":",
                   label="codec alone")
-    ax[2].set_ylabel("SNR (dB)")
+    ax[2].set_ylabel("SNR over all channels, pooled (dB)")
     for a in ax:
         a.set_xlabel("Eb/N0 per codec bit (dB)")
         a.grid(True, which="both", alpha=0.3)
     ax[0].legend(fontsize=8)
     ax[2].legend(fontsize=8)
-    fig.suptitle(f"{rows[0]['modulation']} over AWGN, FEC {rows[0]['fec']}, "
+    fig.suptitle(f"{profile_label}: {rows[0]['modulation']} over AWGN, FEC {rows[0]['fec']}, "
                  f"{rows[0]['bits_on_air_per_sample']:.2f} bits on air per sample")
     fig.tight_layout()
     with atomic_output(path) as tmp:
@@ -213,6 +216,7 @@ def _simulate(args) -> int:
     if args.json:
         write_json(args.json, rows if len(rows) > 1 else rows[0])  # a sweep: list of rows
     if args.plot:
-        _plot(rows, args.plot)
+        _plot(rows, args.plot, f"profile {Path(args.profile).name}" if args.profile
+              else "built-in default profile")
     print(_CAUTION)
     return 0

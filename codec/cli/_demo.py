@@ -101,7 +101,7 @@ def _print_comparison(name, profile, table, out) -> int:
     cmp = compare_bases(table.values, profile, bases=DEMO_BASES, fidelities=(0.95, 0.99),
                         train_fraction=0.5, names=table.names, input_name=name, progress=True)
     plot = out / f"{name}.compare.png"
-    plot_comparison(cmp, plot, profile=profile)
+    plot_comparison(cmp, plot, profile=profile, profile_name=f"profile {name}.toml")
     write_json(out / f"{name}.compare.json", {"rows": cmp.rows})
     print(f"   bases compared on the last {cmp.test_samples} samples ('klt' trained on the first "
           f"{cmp.train_samples}); bits/sample over all channels:")
