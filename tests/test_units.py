@@ -114,3 +114,18 @@ def test_simulate_counts_lost_samples_end_to_end_and_prints_units(pump, capsys):
     # Nothing lost: end to end equals the codec alone over every sample.
     assert rep["fidelity_end_to_end"] == pytest.approx(rep["fidelity_delivered"], rel=1e-12)
     assert rep["units"]["ch3"] == "°C"
+
+
+def test_demo_prints_each_channel_with_its_unit(tmp_path, capsys):
+    assert main(["demo", "--out", str(tmp_path), "--no-compare",
+                 "--scenario", "ridge_station"]) == 0
+    out = capsys.readouterr().out
+    rows = {ln.split()[0]: ln.split() for ln in out.splitlines()
+            if ln.startswith("   ") and len(ln.split()) == 9}
+    want = {"air_temp_k": "K", "rel_humidity_pct": "%", "pressure_hpa": "hPa",
+            "wind_speed_m_s": "m/s", "solar_w_m2": "W/m²", "battery_v": "V"}
+    for name, unit in want.items():
+        assert rows[name][1] == unit and rows[name][-2] == unit, name
+    # every file the demo wrote is listed
+    listed = out.split("outputs in ")[1].splitlines()[0].split(": ")[1].split(", ")
+    assert sorted(listed) == sorted(p.name for p in tmp_path.iterdir())
