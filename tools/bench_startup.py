@@ -11,8 +11,11 @@ Measures, each in a fresh process as a user would run it:
 * ``coefwire decode`` of that stream
 
 The command is run as ``python -m codec.cli`` with this interpreter (the same
-code the ``coefwire`` script runs).  Goals are printed beside the figures; they
-are not asserted anywhere (no timed tests).
+code the ``coefwire`` script runs), as a user runs it: bytecode caching on
+(``PYTHONDONTWRITEBYTECODE`` is dropped from the environment; ``--no-cache``
+keeps it, so every module is compiled at every start) and one warm-up run per
+command that is not counted.  Goals are printed beside the figures; they are
+not asserted anywhere (no timed tests).
 """
 
 from __future__ import annotations
@@ -41,9 +44,13 @@ def _sample(path: Path) -> None:
                header="time,ax,ay,az,temp", comments="")
 
 
-def _wall(cmd: list[str], runs: int, cwd: Path) -> list[float]:
+def _wall(cmd: list[str], runs: int, cwd: Path, cache: bool) -> list[float]:
     env = {**os.environ, "OMP_NUM_THREADS": "1"}
+    if cache:
+        env.pop("PYTHONDONTWRITEBYTECODE", None)
     out = []
+    subprocess.run(cmd, cwd=cwd, env=env, check=True, stdout=subprocess.DEVNULL,
+                   stderr=subprocess.DEVNULL)  # warm-up, not counted
     for _ in range(runs):
         t0 = time.perf_counter()
         subprocess.run(cmd, cwd=cwd, env=env, check=True, stdout=subprocess.DEVNULL,
@@ -55,6 +62,8 @@ def _wall(cmd: list[str], runs: int, cwd: Path) -> list[float]:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--runs", type=int, default=5, help="runs per command (default 5)")
+    ap.add_argument("--no-cache", action="store_true",
+                    help="keep PYTHONDONTWRITEBYTECODE as set (compile every module each start)")
     args = ap.parse_args()
     py = sys.executable
     cli = [py, "-m", "codec.cli"]
@@ -71,10 +80,12 @@ def main() -> None:
             "encode 1000 x 4": cli + ["encode", "in.csv", "-o", "s.cwire"],
             "decode 1000 x 4": cli + ["decode", "s.cwire", "-o", "out.csv"],
         }
+        cache = not args.no_cache
         print(f"{'command':<24} {'median s':>9} {'min s':>7} {'max s':>7}  goal  ({args.runs} runs,"
-              f" {os.cpu_count()} CPUs, load {os.getloadavg()[0]:.2f})")
+              f" {os.cpu_count()} CPUs, load {os.getloadavg()[0]:.2f}, bytecode cache "
+              f"{'on' if cache else 'as set'})")
         for name, cmd in cases.items():
-            w = _wall(cmd, args.runs, d)
+            w = _wall(cmd, args.runs, d, cache)
             med = statistics.median(w)
             goal = GOALS_S.get(name)
             verdict = "" if goal is None else f"<= {goal} s: {'met' if med <= goal else 'MISSED'}"
