@@ -70,6 +70,13 @@ def test_encode_roundtrip_decode_print_units_and_per_channel_tables(pump, capsys
     rep = json.loads((d / "e.json").read_text())
     assert rep["units"] == dict(zip(["ch0", "ch1", "ch2", "ch3"], UNITS.values()))
 
+    assert main(["inspect", str(d / "s.cwire")]) == 0
+    lines = capsys.readouterr().out.splitlines()[1:-1]
+    # the quantizer step is in the channel's units (an orthonormal basis keeps them)
+    for ln in lines:
+        parts = ln.split()
+        assert parts[7] == UNITS[{"ch0": "ax", "ch1": "ay", "ch2": "az", "ch3": "bearing"}[
+            parts[3]]], ln
     assert main(["decode", str(d / "s.cwire"), "-o", str(d / "o.npy")]) == 0
     out = capsys.readouterr().out
     rows = _table(out)

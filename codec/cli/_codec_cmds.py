@@ -572,18 +572,19 @@ def _inspect(args) -> int:
     rows.sort()
     codes = {as_code: name for name in basis_names()
              if (as_code := _basis_code(name)) is not None}
+    units = [c.unit for c in profile.channels] if profile and profile.channels else []
     out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'basis':<8} {'terms':>5} "
-           f"{'step':>10} {'bits':>7}  status"]
+           f"{'step':>14} {'bits':>7}  status"]
     for off, i in rows:
         if i is None:
-            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>10} "
+            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>14} "
                        f"{'-':>7}  CRC FAILED")
             continue
         version = loc.frames[i][2] >> 4
         kind = "gap" if version == GAP_KIND else f"v{version}"
         bits = 8 * len(loc.frames[i])
         if fr is None:
-            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>10} "
+            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>14} "
                        f"{bits:>7}  crc ok (no profile: contents not read)")
             continue
         chans = fr.row_channel[fr.row_frame == i].tolist()
@@ -593,8 +594,11 @@ def _inspect(args) -> int:
         gap = version == GAP_KIND or fr.verdict[i] != "ok"
         basis = "-" if gap else codes.get(int(fr.head["basis"][i]), str(fr.head["basis"][i]))
         step = "-" if gap else format(float(step_from_code(fr.head["step_code"][i])), ".4g")
+        one = sorted(set(chans))
+        if not gap and len(one) == 1 and one[0] < len(units) and units[one[0]]:
+            step += f" {units[one[0]]}"  # a step is in the channel's units (orthonormal basis)
         out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
-                   f"{basis:<8} {int(fr.head['terms'][i]):>5} {step:>10} {bits:>7}  {status}")
+                   f"{basis:<8} {int(fr.head['terms'][i]):>5} {step:>14} {bits:>7}  {status}")
     out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
                f"{loc.skipped_bytes} bytes outside frames"
                + (f" ({stuffing.upper()}-stuffed stream: offsets in the unstuffed frames)"
