@@ -286,9 +286,9 @@ def _decode(args) -> int:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
     stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
-    report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, stuffing,
-                                        args.reorder, args.output)
-    _check_stuffing(report, stuffing, args.stream)
+    report, blocks, dec = decode_report(
+        _byte_chunks(args.stream), profile, note, stuffing, args.reorder, args.output,
+        "standard input" if is_stdio(args.stream) else args.stream)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
     if not is_stdio(args.output):
@@ -354,17 +354,6 @@ def decode_exit_status(counts: dict) -> int:
     return 0
 
 
-def _check_stuffing(report: dict, stuffing: str, where: str) -> None:
-    """A stuffed stream decoded as plain bytes is a usage error that names the stuffing."""
-    if stuffing != "none" or not (report["samples_lost"] or not report["frames_ok"]):
-        return
-    kind = report.pop("_head_stuffing", None)
-    if kind is not None:
-        raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
-                         f"decode with --stuffing {kind}", "standard input" if is_stdio(where)
-                         else where)
-
-
 _EVENT_KEYS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
                "before_start")
 
@@ -409,12 +398,15 @@ def _byte_chunks(path: str, size: int = 65536):
 
 
 def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: str = "none",
-                  reorder: int = 16, output: str | None = None
+                  reorder: int = 16, output: str | None = None, where: str = "the stream"
                   ) -> tuple[dict, list, StreamDecoder]:
     """Run the streaming decoder over byte ``chunks``; return the report, blocks and decoder.
 
     With ``output`` ``-`` the released samples are written to standard output
     as CSV at once and not kept (a live pipeline); otherwise they are returned.
+    A stuffed stream read as plain bytes (``stuffing`` none, samples lost, and
+    the first bytes unstuff into more frames) raises :class:`InputError`
+    naming the stuffing; ``where`` names the stream in that message.
     """
     dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder)
     unstuff = Unstuffer(stuffing) if stuffing != "none" else None
@@ -470,7 +462,8 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
         kind = detect_stuffing(bytes(head))
         if kind is not None:
-            report["_head_stuffing"] = kind
+            raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain "
+                             f"frames; decode with --stuffing {kind}", where)
     return report, blocks, dec
 
 
