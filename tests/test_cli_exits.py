@@ -103,3 +103,5 @@ def test_command_summaries_match_each_command_help():
         assert helps[name] == summary, name
     lazy = next(a for a in build_parser(None)._actions if a.dest == "command")
     assert set(lazy.choices) == set(sub.choices)
+    missing = set(sub.choices) - set(_SUMMARIES)
+    assert not missing, f"add {missing} to codec.cli._SUMMARIES so 'coefwire --help' lists them"

@@ -90,12 +90,14 @@ def build_parser(command: str | None = "*") -> argparse.ArgumentParser:
                         help="no progress reports on standard error (accepted after the "
                         "command too); long commands otherwise report after about 2 s")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    plugins = {ep.name: ep for ep in entry_points(group="coefwire.commands")}
+    if command is not None and command not in _SUMMARIES and command not in plugins:
+        command = "*"  # a command this list does not know (new, or a typo): load them all
     # Modules whose commands are not all known here register in full, always.
     known = {m for m, _ in _SUMMARIES.values()}
     full = {m for m in _MODULES if m not in known or command == "*"}
     if command in _SUMMARIES and _SUMMARIES[command][0] is not None:
         full.add(_SUMMARIES[command][0])
-    plugins = {ep.name: ep for ep in entry_points(group="coefwire.commands")}
     done: set[str] = set()
     for name, (module, summary) in _SUMMARIES.items():
         if (module is not None and module in full) or (module is None and name in plugins
