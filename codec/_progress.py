@@ -9,10 +9,12 @@ shorter than the delay, and nothing at all once :func:`set_quiet` was called
 
 from __future__ import annotations
 
+import contextlib
 import sys
+import threading
 import time
 
-__all__ = ["Progress", "set_quiet", "is_quiet"]
+__all__ = ["Progress", "busy", "set_quiet", "is_quiet"]
 
 _QUIET = False
 
@@ -103,3 +105,43 @@ class Progress:
 
     def __exit__(self, *exc) -> None:
         self.close()
+
+
+@contextlib.contextmanager
+def busy(what: str, delay_s: float = 2.0, every_s: float = 5.0, stream=None):
+    """Report that ``what`` is still running, for work that cannot count its steps.
+
+    A background thread reports the elapsed time after ``delay_s`` (a bar-less
+    line redrawn on a terminal, a plain line every ``every_s`` seconds
+    otherwise) until the block ends; silent with :func:`set_quiet`.
+    """
+    if _QUIET:
+        yield
+        return
+    stop = threading.Event()
+    p = Progress(0, what, "step", delay_s=delay_s, every_s=every_s, stream=stream)
+
+    def tick() -> None:
+        t0 = time.monotonic()
+        if stop.wait(delay_s):
+            return
+        while True:
+            elapsed = time.monotonic() - t0
+            line = f"{what}: still running, {elapsed:.0f} s"
+            if p._tty():
+                p.stream.write("\r" + line.ljust(p._drawn))
+                p._drawn = len(line)
+            else:
+                p.stream.write(line + "\n")
+            p.stream.flush()
+            if stop.wait(1.0 if p._tty() else every_s):
+                return
+
+    thread = threading.Thread(target=tick, daemon=True)
+    thread.start()
+    try:
+        yield
+    finally:
+        stop.set()
+        thread.join()
+        p.close()

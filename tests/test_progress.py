@@ -56,3 +56,25 @@ def test_quiet_is_accepted_after_the_command(tmp_path):
         assert is_quiet()
     finally:
         set_quiet(False)
+
+
+def test_busy_reports_elapsed_time_until_the_work_ends():
+    import time
+
+    from codec._progress import busy
+
+    out = io.StringIO()
+    with busy("crunching", delay_s=0.0, every_s=0.01, stream=out):
+        deadline = time.monotonic() + 10.0
+        while not out.getvalue() and time.monotonic() < deadline:
+            time.sleep(0.01)  # wait for the reporter's first line (not a timing check)
+    first = out.getvalue().splitlines()[0]
+    assert first.startswith("crunching: still running, ") and first.endswith(" s")
+    set_quiet(True)
+    try:
+        quiet = io.StringIO()
+        with busy("crunching", delay_s=0.0, every_s=0.01, stream=quiet):
+            time.sleep(0.05)
+        assert quiet.getvalue() == ""
+    finally:
+        set_quiet(False)

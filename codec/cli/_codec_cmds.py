@@ -35,6 +35,7 @@ from .._profile import (
     note_path,
     save_stream_note,
 )
+from .._progress import busy
 from .._quantize import step_from_code
 from .._report import channel_table, error_figures, pooled_label, units_of, with_unit
 from .._stream import STATUS_NAMES, locate_frames
@@ -181,7 +182,8 @@ def _encode(args) -> int:
         check_distinct(args.input, args.output)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
-    result = write_stream(args.output, table, profile, args.gaps, args.stuffing or "none")
+    with busy(f"encoding {table.values.shape[0]} samples x {table.values.shape[1]} channels"):
+        result = write_stream(args.output, table, profile, args.gaps, args.stuffing or "none")
     tf = time_fields(table.time) if table.time is not None else {}
     kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
                                    ("regular", "time_start_ticks")) if key in tf), None)
@@ -286,9 +288,12 @@ def _decode(args) -> int:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
     stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
-    report, blocks, dec = decode_report(
-        _byte_chunks(args.stream), profile, note, stuffing, args.reorder, args.output,
-        "standard input" if is_stdio(args.stream) else args.stream)
+    with contextlib.ExitStack() as stack:
+        if not is_stdio(args.stream):  # a live pipeline shows its own pace
+            stack.enter_context(busy(f"decoding {args.stream}"))
+        report, blocks, dec = decode_report(
+            _byte_chunks(args.stream), profile, note, stuffing, args.reorder, args.output,
+            "standard input" if is_stdio(args.stream) else args.stream)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
     if not is_stdio(args.output):
@@ -512,7 +517,9 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
 def _roundtrip(args) -> int:
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
-    report, ok, _ = roundtrip_report(table.values, profile)
+    with busy(f"encoding and decoding {table.values.shape[0]} samples x "
+              f"{table.values.shape[1]} channels"):
+        report, ok, _ = roundtrip_report(table.values, profile)
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
           f"(ratio {fmt(report['compression_ratio'], '.2f')}), fidelity min "
