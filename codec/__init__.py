@@ -2,28 +2,32 @@
 
 Data flows samples -> frames -> coefficients -> term selection -> quantizer ->
 frame layout -> bytes, and back in :func:`decode`.
+
+Public names are imported on first use (PEP 562 module ``__getattr__``), so
+``import codec`` and ``coefwire --help`` stay fast: the encoder, its tables and
+the libraries behind them load only when something asks for them.
 """
 
-from . import _wavelets  # noqa: F401  (registers db2..db10, sym4..sym8)
-from ._bases import Basis, as_basis, basis_from_code, basis_names, register_basis
-from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reconstruct
-from ._compare import Comparison, compare_bases, energy_compaction
-from ._crc import crc16_ibm3740, crc32_iso_hdlc
-from ._errors import CoefwireError, FrameError, InputError, ProfileError
-from ._io import SampleTable, atomic_output, read_samples
-from ._klt import TrainedBasis, load_trained_basis, save_trained_basis, train_klt
-from ._profile import (
-    ChannelSpec,
-    Profile,
-    default_profile,
-    load_profile,
-    profile_id,
-    read_toml,
-    save_profile,
-)
-from ._report import error_figures
-from ._stream import CONCEALED, DELIVERED, GAP, LOST, STATUS_NAMES
-from ._streaming import StreamDecoder, StreamEncoder
+from __future__ import annotations
+
+import importlib
+
+# Every public name and the private module that defines it.
+_WHERE = {
+    "._bases": ("Basis", "as_basis", "basis_from_code", "basis_names", "register_basis"),
+    "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct"),
+    "._compare": ("Comparison", "compare_bases", "energy_compaction"),
+    "._crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
+    "._errors": ("CoefwireError", "FrameError", "InputError", "ProfileError"),
+    "._io": ("SampleTable", "atomic_output", "read_samples"),
+    "._klt": ("TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt"),
+    "._profile": ("ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id",
+                  "read_toml", "save_profile"),
+    "._report": ("error_figures",),
+    "._stream": ("CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES"),
+    "._streaming": ("StreamDecoder", "StreamEncoder"),
+}
+_MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 
 __all__ = [
     "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
@@ -38,3 +42,16 @@ __all__ = [
     "error_figures",
     "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
 ]
+
+
+def __getattr__(name: str):
+    mod = _MODULE_OF.get(name)
+    if mod is None:
+        raise AttributeError(f"module 'codec' has no attribute {name!r}")
+    value = getattr(importlib.import_module(mod, __name__), name)
+    globals()[name] = value  # later look-ups skip this function
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

@@ -345,11 +345,14 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         row_frame = (np.unique(window, return_inverse=True)[1] if profile.multi_channel_frames
                      else np.arange(channel.size))
     else:
-        # gap-mask frames wrap the data frame of one window: one window per frame then
-        packing = profile if gap_rows is None else profile.model_copy(
-            update={"windows_per_frame": 1})
+        # gap-mask frames wrap the data frame of one window: windows with a gap travel
+        # one per frame, the runs between them keep sharing headers
+        groups = None if gap_rows is None else _gap_groups(
+            window, channel, gap_rows, profile.windows_per_frame, x.shape[1],
+            profile.multi_channel_frames)
         data, frame_bits, header_bits, row_frame = _pack_v3(
-            packing, channel, window + first_window, valid, code, mean_int, q, n, trellis)
+            profile, channel, window + first_window, valid, code, mean_int, q, n, trellis,
+            groups)
     extra_bits = 0
     if gap_rows is not None:
         data, dropped, extra_bits = _add_gap_frames(
@@ -402,7 +405,7 @@ def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_g
     masks: list[list] = [[] for _ in range(nframes)]
     for r in np.flatnonzero(has_gap).tolist():  # rows with gaps only
         masks[row_frame[r]].append((int(channel[r]), fmiss[r]))
-    first = np.searchsorted(row_frame, np.arange(nframes))
+    first = np.unique(row_frame, return_index=True)[1]  # each frame's first row
     pieces: list[bytes] = []
     extra = 0
     mv = memoryview(data)
@@ -465,15 +468,39 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
 
 
-def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, trellis=None):
+def _gap_groups(window: np.ndarray, channel: np.ndarray, gap_rows: np.ndarray, w: int,
+                channels: int, multi: bool) -> np.ndarray:
+    """Frame group of each row: a window with a gap alone, the runs between in groups of ``w``.
+
+    Per channel (each channel has its own frames), or per window when one frame
+    carries every channel.  Groups are numbered by their first window, then
+    channel, so frames stay in time order on the wire.
+    """
+    nwin = int(window.max()) + 1
+    cols = 1 if multi else channels
+    col = np.zeros_like(channel) if multi else channel
+    gap = np.zeros((nwin, cols), dtype=bool)
+    gap[window[gap_rows], col[gap_rows]] = True
+    start = gap | np.vstack([np.ones((1, cols), bool), gap[:-1]])  # at a gap, right after one
+    idx = np.arange(nwin)[:, None]
+    run_first = np.maximum.accumulate(np.where(start, idx, 0), axis=0)
+    chunk_start = run_first + (idx - run_first) // w * w  # first window of each row's group
+    key = chunk_start * cols + np.arange(cols)[None, :]
+    return np.unique(key, return_inverse=True)[1].reshape(nwin, cols)[window, col]
+
+
+def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, trellis=None,
+             groups=None):
     """Layout v3 frames: (bytes, bits per row, header bits of the stream, frame of each row).
 
-    Header bits are everything but the range-coded coefficient bytes.
+    Header bits are everything but the range-coded coefficient bytes.  ``groups``
+    (optional) gives each row's frame group of consecutive windows; by default
+    windows go ``windows_per_frame`` at a time.
     """
     multi = profile.multi_channel_frames
     w = profile.windows_per_frame
     channels = len(profile.channels)
-    group = window // w
+    group = window // w if groups is None else groups
     if multi:
         order = np.arange(channel.size)  # rows are window-major, channel-minor already
         frame = group
@@ -760,6 +787,8 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         sequence[vi], valid[vi] = p["sequence"], p["valid"]
         head["basis"][vi] = basis.code
         np.add.at(head["terms"], vi[p["frame"]], (p["q"] != 0).sum(axis=1))
+        # A frame of several windows has one step each: inspect shows the coarsest.
+        np.maximum.at(head["step_code"], vi[p["frame"]], p["step_code"])
         pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
         refuse(vi, p["profile"] != pid8, "foreign_profile",
                lambda f, p=p, vi=vi, pid8=pid8: f"made under another profile (id byte "

@@ -160,7 +160,8 @@ def compare_bases(
     input_name : str
         Recorded in the trained basis's note.
     progress : bool
-        Show a tqdm progress bar on standard error.
+        Report progress on standard error (``codec._progress``: after 2 s, a bar
+        on a terminal, a line every few seconds otherwise).
     """
     x = as_samples(values)
     if names is None:
@@ -234,10 +235,9 @@ class _NoBar:
 def _progress(total: int, show: bool):
     if not show:
         return _NoBar()
-    from tqdm import tqdm
+    from ._progress import Progress  # a bar on a terminal, a line every few seconds otherwise
 
-    return tqdm(total=total, desc="bases x targets", unit="run", leave=False,
-                disable=None)  # None: no bar when standard error is not a terminal
+    return Progress(total, "comparing bases x targets", "run")
 
 
 def _rows(test, profile, bases, fids, measured, recon) -> list[dict]:

@@ -23,7 +23,7 @@ import numpy as np
 from ._errors import InputError
 
 __all__ = ["SampleTable", "read_samples", "write_samples", "atomic_output", "STDIO", "is_stdio",
-           "CsvBlockReader", "write_csv_block"]
+           "CsvBlockReader", "write_csv_block", "csv_decimals"]
 
 _TIME_NAMES = ("time", "t")
 
@@ -36,6 +36,33 @@ class SampleTable:
     names: list[str]
     time: np.ndarray | None = None
     time_name: str = "time"
+    #: Decimals each column is written with in CSV (None: full precision, 17 digits).
+    decimals: list[int | None] | None = None
+    #: Decimals of the time column (None: full precision).
+    time_decimals: int | None = None
+
+
+#: Full precision: 17 significant digits give back every float64 exactly (IEEE 754-2008, 5.12.2).
+_FULL = "%.17g"
+
+
+def csv_decimals(resolution: float, max_error: float | None = None) -> int | None:
+    """Decimals a channel's values need in CSV: one digit finer than its resolution.
+
+    Rounding to them moves a value by at most 1/20 of a resolution step (and
+    of a peak-error limit, when one is set, so the limit still holds with
+    room).  None (full precision) when no resolution is set.
+    """
+    if not resolution > 0:
+        return None
+    finest = min(resolution, max_error) if max_error else resolution
+    return int(min(max(np.ceil(-np.log10(finest) - 1e-9) + 1, 0), 17))
+
+
+def _formats(table_decimals, ncols: int) -> list[str]:
+    if table_decimals is None:
+        return [_FULL] * ncols
+    return [_FULL if d is None else f"%.{d}f" for d in table_decimals]
 
 
 def read_samples(path: str | Path, allow_gaps: bool = False) -> SampleTable:
@@ -101,12 +128,14 @@ def _read_csv_text(text: str, path, allow_gaps: bool) -> SampleTable:
                 f"line {i + 2} has {len(row)} columns but the header has {width}; "
                 "every row needs one value per column", str(path))
     try:
-        values = np.array(body, dtype=np.float64)
+        cells = np.array(body, dtype=str)
+        cells = np.where(np.char.strip(cells) == "", "nan", cells)  # empty cell: missing value
+        values = cells.astype(np.float64)
     except ValueError:
         for i, row in enumerate(body):
             for j, cell in enumerate(row):
                 try:
-                    float(cell)
+                    float(cell or "nan")
                 except ValueError:
                     raise InputError(
                         f"line {i + 2}, column '{header[j]}': {cell.strip()!r} is not a number",
@@ -128,9 +157,14 @@ def _check_finite(values: np.ndarray, path: Path, names: list[str], line_offset:
         row, col = np.argwhere(bad)[0]
         where = (f"line {row + line_offset}, column '{names[col]}'" if line_offset is not None
                  else f"sample {row}, channel {col}")
+        if np.isnan(values[row, col]):
+            raise InputError(
+                f"{where}: value is nan, a missing value ({int(bad.sum())} non-finite values "
+                "in all); code missing values (empty cells, nan) with --gaps fill or --gaps "
+                "mark, or fill them before coding", str(path))
         raise InputError(
             f"{where}: value is {values[row, col]} ({int(bad.sum())} non-finite values in all); "
-            "fill or remove the gaps before coding", str(path))
+            "an infinite value cannot be coded: correct it in the input", str(path))
 
 
 def write_samples(path: str | Path, table: SampleTable) -> None:
@@ -146,12 +180,14 @@ def write_samples(path: str | Path, table: SampleTable) -> None:
             return
         cols = table.values
         names = list(table.names)
+        fmt = _formats(table.decimals, cols.shape[1])
         if table.time is not None:
             cols = np.column_stack([table.time, cols])
             names = [table.time_name] + names
+            fmt = _formats([table.time_decimals], 1) + fmt
         with open(tmp, "w", encoding="utf-8", newline="") as fh:
             fh.write(",".join(names) + "\n")
-            np.savetxt(fh, cols, delimiter=",", fmt="%.17g")
+            np.savetxt(fh, cols, delimiter=",", fmt=fmt)
 
 
 @contextlib.contextmanager
@@ -251,7 +287,9 @@ class CsvBlockReader:
             raise InputError(f"data row {self.rows + k + 1} has {counts[k]} columns but the "
                              f"header has {width}", self._where)
         try:
-            values = np.array(cells, dtype="S").astype(np.float64).reshape(len(lines), width)
+            raw = np.array(cells, dtype="S")
+            raw = np.where(np.char.strip(raw) == b"", b"nan", raw)  # empty cell: missing value
+            values = raw.astype(np.float64).reshape(len(lines), width)
         except ValueError:
             raise InputError(f"a value in data rows {self.rows + 1}-{self.rows + len(lines)} is "
                              "not a number", self._where) from None
@@ -261,8 +299,16 @@ class CsvBlockReader:
         return values, None
 
 
-def write_csv_block(stream, values: np.ndarray, time: np.ndarray | None = None) -> None:
-    """Append rows to a text stream as CSV (NaN written as ``nan``), e.g. standard output."""
+def write_csv_block(stream, values: np.ndarray, time: np.ndarray | None = None,
+                    decimals: list[int | None] | None = None,
+                    time_decimals: int | None = None) -> None:
+    """Append rows to a text stream as CSV (NaN written as ``nan``), e.g. standard output.
+
+    ``decimals`` per column and ``time_decimals`` as in :class:`SampleTable`.
+    """
     cols = values if time is None else np.column_stack([time, values])
+    fmt = _formats(decimals, values.shape[1])
+    if time is not None:
+        fmt = _formats([time_decimals], 1) + fmt
     if cols.size:
-        np.savetxt(stream, cols, delimiter=",", fmt="%.17g")
+        np.savetxt(stream, cols, delimiter=",", fmt=fmt)

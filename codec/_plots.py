@@ -20,7 +20,35 @@ from ._compare import Comparison, energy_compaction
 from ._framing import split_frames
 from ._io import atomic_output
 
-__all__ = ["plot_comparison", "chosen_frame"]
+__all__ = ["plot_comparison", "chosen_frame", "series_styles", "MAX_SERIES"]
+
+#: Series one figure tells apart by colour *and* line style.
+MAX_SERIES = 24
+# 24 colours: the ten of matplotlib's "tab10" first (the most distinct), then the darker
+# and lighter halves of "tab20b"/"tab20c" families that differ from them in hue.
+_COLOURS = (
+    "#1f77b4", "#ff7f0e", "#2ca02c", "#d62728", "#9467bd", "#8c564b", "#e377c2", "#7f7f7f",
+    "#bcbd22", "#17becf", "#393b79", "#637939", "#8c6d31", "#843c39", "#7b4173", "#3182bd",
+    "#e6550d", "#31a354", "#756bb1", "#000000", "#636363", "#fdae6b", "#9ecae1", "#c49c94",
+)
+_STYLES = ("-", "--", "-.", ":")
+_MARKERS = ("o", "s", "^", "D", "v", "P")
+
+
+def series_styles(names) -> dict:
+    """Matplotlib keyword arguments per series: a colour of its own and a line style.
+
+    Up to :data:`MAX_SERIES` series each get a different colour; the line
+    style and marker also change from one series to the next, so neighbours in
+    the legend differ in three ways and a grey-scale print still tells them
+    apart.
+    """
+    names = list(names)
+    if len(names) > MAX_SERIES:
+        raise ValueError(f"{len(names)} series; a figure tells at most {MAX_SERIES} apart")
+    return {b: {"color": _COLOURS[i], "ls": _STYLES[i % len(_STYLES)],
+                "marker": _MARKERS[i % len(_MARKERS)], "markevery": 0.2,
+                "lw": 2.2 if b in ("identity", "klt") else 1.4} for i, b in enumerate(names)}
 
 
 def chosen_frame(cmp: Comparison) -> tuple[int, int]:
@@ -33,11 +61,13 @@ def chosen_frame(cmp: Comparison) -> tuple[int, int]:
     return int(channel[k]), int(window[k])
 
 
-def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
+def plot_comparison(cmp: Comparison, path: str | Path, profile=None,
+                    profile_name: str | None = None) -> None:
     """Write the comparison figure to ``path`` (PNG), atomically.
 
-    ``profile`` gives sample rates for the time axis; without one the axis
-    is in samples.
+    ``profile`` gives sample rates for the time axis (without one the axis is
+    in samples) and the channels' units; ``profile_name`` (else the profile's
+    description) goes into the title.
     """
     import matplotlib
 
@@ -45,10 +75,13 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
     import matplotlib.pyplot as plt
 
     bases = cmp.bases
-    # Ten strong colours times three line styles tell up to 30 bases apart.
-    tab = plt.get_cmap("tab10").colors
-    style = {b: {"color": tab[i % 10], "ls": ("-", "--", ":")[i // 10 % 3],
-                 "lw": 2.2 if b in ("identity", "klt") else 1.3} for i, b in enumerate(bases)}
+    style = series_styles(bases)
+    line_only = {b: {k: v for k, v in st.items() if k not in ("marker", "markevery")}
+                 for b, st in style.items()}
+    units = [c.unit for c in profile.channels] if profile is not None and profile.channels \
+        else [None] * len(cmp.names)
+    label = profile_name or (profile.description if profile is not None else "") or \
+        "built-in default profile"
     n = cmp.frame_length
     cols = 5
     grid_rows = -(-len(bases) // cols)
@@ -60,12 +93,12 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
     for b in bases:
         rs = [r for r in overall if r["basis"] == b]
         ax_rate.plot([r["fidelity_target"] for r in rs], [r["bits_per_sample"] for r in rs],
-                     marker="o", label=b, **style[b])
+                     label=b, **{**style[b], "markevery": None})
     ax_rate.set_xlabel("fidelity target F (fraction of frame energy kept)")
-    ax_rate.set_ylabel("bits per sample (all stream bits)")
+    ax_rate.set_ylabel("bits per sample (all stream bits, pooled over channels)")
     ax_rate.set_title(f"Rate vs fidelity, all channels, held-out {cmp.test_samples} samples")
     ax_rate.grid(alpha=0.3)
-    ax_rate.legend(fontsize=7, ncol=2)
+    ax_rate.legend(fontsize=7, ncol=2 if len(bases) <= 12 else 3)
 
     test_frames, valid, _, _ = split_frames(cmp.test, n)
     full = test_frames[valid == n]
@@ -79,7 +112,7 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
     ax_comp.set_ylabel("energy retained (% of frame energy about its mean)")
     ax_comp.set_title("Energy compaction on held-out frames")
     ax_comp.grid(alpha=0.3, which="both")
-    ax_comp.legend(fontsize=7, ncol=2)
+    ax_comp.legend(fontsize=7, ncol=2 if len(bases) <= 12 else 3)
 
     ch, win = chosen_frame(cmp)
     name = cmp.names[ch]
@@ -95,9 +128,9 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
     original = cmp.test[idx, ch]
     for ax, b in zip(axes, bases):
         rec = cmp.reconstructions[(b, f)][idx, ch]
-        ax.plot(t, original, color="0.55", lw=2.4, label="original")
-        ax.plot(t, rec, color="navy", lw=1.0, label="reconstruction")
-        ax.plot(t, original - rec, color="crimson", lw=0.9, label="error")
+        ax.plot(t, original, color="0.55", lw=2.4, ls="-", label="original")
+        ax.plot(t, rec, label="reconstruction", **{**line_only[b], "lw": 1.1})
+        ax.plot(t, original - rec, color="crimson", lw=0.9, ls=":", label="error")
         row = next(r for r in cmp.rows if r["channel"] == name and r["basis"] == b
                    and r["fidelity_target"] == f)
         ax.set_title(f"{b}: {row['bits_per_sample']:.2f} bit/sample", fontsize=9)
@@ -106,10 +139,10 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None) -> None:
         ax.set_visible(False)
     axes[0].legend(fontsize=7)
     bottom.supxlabel(unit)
-    bottom.supylabel(f"{name} (sensor units)")
+    bottom.supylabel(f"{name} ({units[ch] or 'no unit in the profile'})")
     bottom.suptitle(f"One held-out frame (channel {name}, window {win}) at F = {f:g}: "
                     "original, reconstruction and error per basis", fontsize=11)
-    fig.suptitle(f"Basis comparison (N = {n}; trained bases fitted on the first "
+    fig.suptitle(f"Basis comparison, {label} (N = {n}; trained bases fitted on the first "
                  f"{cmp.train_samples} samples, every basis scored on the other "
                  f"{cmp.test_samples})", fontsize=12)
     path = Path(path)

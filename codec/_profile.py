@@ -66,6 +66,10 @@ class ChannelSpec(BaseModel):
     #: Peak-error limit in engineering units: no decoded sample of this channel
     #: is further than this from the input (None: no limit).
     max_error: float | None = Field(default=None, gt=0.0, allow_inf_nan=False)
+    #: Engineering unit of the channel's values ("K", "m/s²", "°C", "W/m²"): printed
+    #: beside every figure in the channel's units; JSON keeps the numbers as they are.
+    unit: str | None = Field(default=None, min_length=1, max_length=24,
+                             pattern=r"^[^\x00-\x1f\x7f]+$")
 
 
 class Profile(BaseModel):
@@ -170,6 +174,7 @@ def profile_id(profile: Profile) -> int:
                                         "fidelity_scope"})
     for ch in canon["channels"]:
         ch.pop("max_error", None)
+        ch.pop("unit", None)  # a label for people; profiles that add one keep their identifier
     if canon["basis_sha256"] is None:
         del canon["basis_sha256"]  # profiles without a trained basis keep their identifier
     else:
@@ -224,6 +229,17 @@ class StreamNote(BaseModel):
     time_name: str | None = None
     time_start: float | None = Field(default=None, allow_inf_nan=False)
     time_step: float | None = Field(default=None, allow_inf_nan=False)
+    #: The time column kept exactly (see ``codec/_timecol.py``): integer ticks of
+    #: 10**-time_decimals, regular (start + step) or listed (zlib + base64 of the tick
+    #: differences); ``time_float64`` holds the raw values of a column with no decimal clock.
+    time_decimals: int | None = Field(default=None, ge=0, le=15)
+    time_start_ticks: int | None = None
+    time_step_ticks: int | None = None
+    time_ticks: str | None = None
+    time_float64: str | None = None
+    #: Byte stuffing of the stream's frames for serial modems ("slip", "cobs"); absent: none.
+    #: ``decode`` and ``inspect`` undo it without being told.
+    stuffing: Literal["slip", "cobs"] | None = None
 
 
 def note_path(stream: str | Path) -> Path:

@@ -39,6 +39,8 @@ compression", Commun. ACM 30(6), 1987.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from ._entropy import preceding_sums
@@ -790,19 +792,22 @@ def _renorm_encode(buf, low, rng, pos, active) -> None:
 _LUT_DROP = 3
 
 
-def _build_lut():
+@functools.cache
+def _lut():
+    """The decoder's lookup, built on first use (encoding never needs it).
+
+    One ``searchsorted`` over every distinct table at once: row c is shifted by
+    ``c * 2 * TOTAL``, above every value and query of the rows before it.
+    """
     tables, row_of = np.unique(CUM, axis=0, return_inverse=True)
     width = TOTAL >> _LUT_DROP
     t = np.arange(width, dtype=np.int64) << _LUT_DROP
-    lo = np.empty((tables.shape[0], width), dtype=np.int64)
-    hi = np.empty_like(lo)
-    for c in range(tables.shape[0]):
-        lo[c] = np.searchsorted(tables[c], t, side="right") - 1
-        hi[c] = np.searchsorted(tables[c], t + (1 << _LUT_DROP) - 1, side="right") - 1
+    shift = (2 * TOTAL) * np.arange(tables.shape[0], dtype=np.int64)[:, None]
+    flat = (tables + shift).ravel()
+    first = (tables.shape[1] * np.arange(tables.shape[0], dtype=np.int64))[:, None] + 1
+    lo = np.searchsorted(flat, t + shift, side="right") - first
+    hi = np.searchsorted(flat, t + (1 << _LUT_DROP) - 1 + shift, side="right") - first
     return lo.astype(np.int8).ravel(), (lo == hi).ravel(), row_of.ravel() * width
-
-
-_LUT, _LUT_EXACT, _LUT_BASE = _build_lut()
 
 
 class RangeDecoder:
@@ -852,10 +857,11 @@ class RangeDecoder:
         r = self.rng[lanes] >> TOTAL_BITS
         val = self.value[lanes]
         t = np.minimum(val // r, TOTAL - 1)
-        li = _LUT_BASE[row] + (t >> _LUT_DROP)
-        s = _LUT[li].astype(np.int64)
+        lut, lut_exact, lut_base = _lut()
+        li = lut_base[row] + (t >> _LUT_DROP)
+        s = lut[li].astype(np.int64)
         base = row * _W
-        slow = ~_LUT_EXACT[li]
+        slow = ~lut_exact[li]
         if slow.any():  # t falls where a table step sits inside the lookup cell
             k = np.flatnonzero(slow)
             while True:

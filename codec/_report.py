@@ -15,7 +15,8 @@ import math
 
 import numpy as np
 
-__all__ = ["error_figures", "stream_report", "scope_figures"]
+__all__ = ["error_figures", "stream_report", "scope_figures", "units_of", "with_unit",
+           "channel_table", "pooled_label"]
 
 
 def _db(num: float, den: float) -> float | None:
@@ -120,6 +121,7 @@ def stream_report(
             raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()),
         )
     report["per_channel"] = per
+    report["units"] = units_of(profile)
     return report
 
 
@@ -142,3 +144,60 @@ def scope_figures(profile, block: np.ndarray, block_met: np.ndarray, block_floor
         "blocks_at_floor": int(block_floor.sum()),
         "window_fidelity_min": float(judged.min()) if judged.size else None,
     }
+
+
+def units_of(profile) -> dict:
+    """``{channel name: unit or None}``: the JSON ``units`` map (numbers stay as measured)."""
+    return {c.name: c.unit for c in profile.channels}
+
+
+def with_unit(value, unit: str | None, spec: str = ".4g", none: str = "n/a") -> str:
+    """``value`` formatted, followed by its unit when the channel has one."""
+    if value is None:
+        return none
+    text = format(value, spec)
+    return f"{text} {unit}" if unit else text
+
+
+def pooled_label(units: dict) -> str:
+    """How to name figures pooled over every channel (a warning when their units differ)."""
+    kinds = {u for u in units.values()}
+    if len(units) <= 1:
+        return "all samples"
+    if len(kinds) == 1 and None not in kinds:
+        return f"pooled over {len(units)} channels, all in {next(iter(kinds))}"
+    if kinds == {None}:
+        return (f"pooled over {len(units)} channels (no units in the profile; see the "
+                "per-channel table)")
+    return (f"pooled over {len(units)} channels of different units (dominated by the largest; "
+            "see the per-channel table)")
+
+
+def channel_table(per_channel: dict, units: dict, fidelity_key: str = "fidelity_min",
+                  fidelity_head: str = "fidelity min") -> list[str]:
+    """One line per channel: bits/sample, SNR, PRD, max error (with unit), fidelity min.
+
+    ``per_channel`` is the report's ``per_channel`` map; channels with no unit
+    show ``-`` in the unit column and bare numbers.
+    """
+    width = max([7] + [len(n) for n in per_channel])
+    uw = max([4] + [len(u or "-") for u in units.values()])
+    lines = [f"{'channel':<{width}} {'unit':<{uw}} {'bits/sample':>11} {'SNR dB':>8} "
+             f"{'SNR ac dB':>9} {'PRD %':>8} {'max error':>16} {fidelity_head:>12}"]
+    for name, f in per_channel.items():
+        unit = units.get(name)
+        lines.append(
+            f"{name:<{width}} {unit or '-':<{uw}} {f['bits_per_sample']:>11.3f} "
+            f"{_num(f.get('snr_db'), '.2f'):>8} {_num(f.get('snr_ac_db'), '.2f'):>9} "
+            f"{_num(f.get('prd_percent'), '.3f'):>8} "
+            f"{with_unit(f.get('max_abs_error'), unit):>16} "
+            f"{_num(f.get(fidelity_key), '.5f'):>12}")
+    return lines
+
+
+def _num(value, spec: str) -> str:
+    if value is None:
+        return "n/a"
+    if isinstance(value, float) and math.isinf(value):
+        return "-inf" if value < 0 else "inf"
+    return format(value, spec)

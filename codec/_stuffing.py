@@ -25,6 +25,9 @@ from __future__ import annotations
 
 from cobs import cobs
 
+#: How much of a stream's start :func:`detect_stuffing` looks at.
+SNIFF_BYTES = 1 << 16
+
 __all__ = [
     "STUFFINGS",
     "MAX_PACKET",
@@ -34,6 +37,8 @@ __all__ = [
     "cobs_decode",
     "stuff",
     "Unstuffer",
+    "detect_stuffing",
+    "SNIFF_BYTES",
 ]
 
 STUFFINGS = ("slip", "cobs")
@@ -138,3 +143,22 @@ class Unstuffer:
         elif packet:  # an empty packet carries no frame
             self.packets += 1
             out.append(packet)
+
+
+def detect_stuffing(head: bytes) -> str | None:
+    """The stuffing (``slip`` or ``cobs``) that ``head``, a stream's first bytes, was written with.
+
+    None when the bytes read as plain frames at least as well.  A stuffed
+    stream read as plain bytes loses every frame that contains an escaped
+    byte (SLIP) or any zero byte (COBS: almost all), so the stuffing that
+    yields more CRC-valid frames is the one used.
+    """
+    from ._stream import locate_frames  # the frame search; imported late to keep this module light
+
+    best, found = None, len(locate_frames(head).frames)
+    for kind in STUFFINGS:
+        u = Unstuffer(kind)
+        frames = len(locate_frames(b"".join(u.feed(head) + u.close())).frames)
+        if frames > found:
+            best, found = kind, frames
+    return best

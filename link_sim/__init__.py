@@ -1,29 +1,27 @@
 """coefwire link simulator: channel models, FEC, receiver and link budget (built on codec).
 
 ``link_sim`` imports ``codec``; ``codec`` never imports ``link_sim``.
+
+Public names are imported on first use (PEP 562 module ``__getattr__``): the
+commands of this package import only the modules they need, and SciPy's
+statistics load only when a simulation or a BER curve asks for them.
 """
 
-from ._channels import GilbertElliott, awgn, bsc, erase_frames, gilbert_elliott
-from ._fec import FEC_NAMES, make_code
-from ._receiver import CONCEAL_POLICIES, conceal, receive
-from ._simulate import (
-    CHANNEL_KINDS,
-    ChannelConfig,
-    ci95,
-    measured_ber_curve,
-    run_trial,
-    simulate,
-    sweep,
-)
-from ._theory import (
-    ber_bpsk,
-    ber_qpsk_gray,
-    ber_rs_bounded_distance,
-    ber_theory,
-    ebn0_for_ber_bpsk,
-    linear_to_db,
-    qfunc,
-)
+from __future__ import annotations
+
+import importlib
+
+# Every public name and the private module that defines it.
+_WHERE = {
+    "._channels": ("GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott"),
+    "._fec": ("FEC_NAMES", "make_code"),
+    "._receiver": ("CONCEAL_POLICIES", "conceal", "receive"),
+    "._simulate": ("CHANNEL_KINDS", "ChannelConfig", "ci95", "measured_ber_curve", "run_trial",
+                   "simulate", "sweep"),
+    "._theory": ("ber_bpsk", "ber_qpsk_gray", "ber_rs_bounded_distance", "ber_theory",
+                 "ebn0_for_ber_bpsk", "linear_to_db", "qfunc"),
+}
+_MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 
 __all__ = [
     "GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott",
@@ -34,3 +32,16 @@ __all__ = [
     "ber_bpsk", "ber_qpsk_gray", "ber_rs_bounded_distance", "ber_theory", "ebn0_for_ber_bpsk",
     "linear_to_db", "qfunc",
 ]
+
+
+def __getattr__(name: str):
+    mod = _MODULE_OF.get(name)
+    if mod is None:
+        raise AttributeError(f"module 'link_sim' has no attribute {name!r}")
+    value = getattr(importlib.import_module(mod, __name__), name)
+    globals()[name] = value  # later look-ups skip this function
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

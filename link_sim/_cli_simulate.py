@@ -4,9 +4,16 @@ from __future__ import annotations
 
 import argparse
 import math
+from dataclasses import replace
+from pathlib import Path
 
+import numpy as np
+
+from codec._codec import as_samples, encode
 from codec._errors import InputError
 from codec._io import read_samples
+from codec._progress import Progress
+from codec._report import channel_table, pooled_label, with_unit
 from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._channels import MODULATIONS
@@ -112,6 +119,8 @@ def _rate(value, counted, spec: str = ".3e") -> str:
 
 
 def _print_row(r: dict) -> None:
+    units = r.get("units", {})
+    one = next(iter(units.values()), None) if len(set(units.values())) == 1 else None
     head = f"Eb/N0 {r['ebn0_db']:.2f} dB: " if r["ebn0_db"] is not None else ""
     theory = (f" (theory {r['ber_channel_theory']:.3e})" if r.get("ber_channel_theory")
               is not None else "")
@@ -124,12 +133,21 @@ def _print_row(r: dict) -> None:
           f"out of range {r['frames_out_of_range']:.1f}")
     print(f"  samples: delivered {r['samples_delivered']:.1f}, concealed "
           f"{r['samples_concealed']:.1f}, lost {r['samples_lost']:.1f} of {r['samples_in']:.0f}")
-    print(f"  SNR delivered {_interval(r, 'snr_db_delivered', '.2f')} dB, end to end "
-          f"{_interval(r, 'snr_db_end_to_end', '.2f')} dB; max abs error delivered "
-          f"{fmt(r['max_abs_error_delivered'], '.4g')}, end to end "
-          f"{fmt(r['max_abs_error_end_to_end'], '.4g')}; fidelity delivered "
+    print(f"  {pooled_label(units)}: SNR delivered {_interval(r, 'snr_db_delivered', '.2f')} dB, "
+          f"end to end {_interval(r, 'snr_db_end_to_end', '.2f')} dB; max abs error delivered "
+          f"{with_unit(r['max_abs_error_delivered'], one)}, end to end "
+          f"{with_unit(r['max_abs_error_end_to_end'], one)}; fidelity delivered "
           f"{fmt(r['fidelity_delivered'], '.5f')}, end to end "
           f"{fmt(r['fidelity_end_to_end'], '.5f')}")
+    print(f"  end-to-end fidelity counts {r['fidelity_end_to_end_counts']}")
+    per = {n: {**f, "bits_per_sample": f.get("bits_codec_per_sample", math.nan)}
+           for n, f in r["per_channel_end_to_end"].items()}
+    lines = channel_table(per, units, "fidelity_end_to_end", "fidelity e2e")
+    print("  per channel, end to end (bits/sample: the channel's codec bits; FEC and sync "
+          "are pooled in the bits on air above):")
+    print("\n".join("  " + ln + (f" {'lost':>8}" if i == 0 else
+                                  f" {per[ln.split()[0]]['samples_lost']:>8.1f}")
+                     for i, ln in enumerate(lines)))
 
 
 def _simulate(args) -> int:
@@ -138,12 +156,16 @@ def _simulate(args) -> int:
         raise InputError("--plot draws curves against Eb/N0; use it with --channel awgn", "--plot")
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
+    points = _ebn0_list(args.ebn0) if args.channel == "awgn" else [None]
+    bar = Progress(len(points) * args.trials, "simulating", "trial")
     kw = {"fec": args.fec, "interleave": args.interleave, "trials": args.trials,
-          "seed": args.seed, "policy": args.conceal}
-    if args.channel == "awgn":
-        rows = sweep(table.values, profile, cfg, _ebn0_list(args.ebn0), **kw)
-    else:
-        rows = [simulate(table.values, profile, cfg, **kw)]
+          "policy": args.conceal, "on_trial": bar.update}
+    # As link_sim.sweep: one encode, then each Eb/N0 point with its own seed.
+    enc = encode(as_samples(table.values), profile)
+    with bar:
+        rows = [simulate(table.values, profile,
+                         cfg if e is None else replace(cfg, ebn0_db=float(e)),
+                         seed=args.seed + i, enc=enc, **kw) for i, e in enumerate(points)]
     r0 = rows[0]
     print(f"{args.channel} channel, FEC {args.fec}: bits on air {r0['bits_on_air_per_frame']:.1f} "
           f"per frame, {r0['bits_on_air_per_sample']:.3f} per sample (codec "
@@ -165,6 +187,7 @@ def _simulate(args) -> int:
     if args.json:
         write_json(args.json, rows if len(rows) > 1 else rows[0])  # a sweep: list of rows
     if args.plot:
-        plot_sweep(rows, args.plot)
+        plot_sweep(rows, args.plot, f"profile {Path(args.profile).name}" if args.profile
+                   else "built-in default profile")
     print(_CAUTION)
     return 0

@@ -10,7 +10,9 @@ only shows a gain if it pays for its own bits.
 Sample figures: ``*_delivered`` are over the samples that arrived in frames
 that passed the CRC; ``*_end_to_end`` over every sample the receiver outputs a
 value for (delivered + concealed).  Lost samples have no value; they are
-counted in ``samples_lost`` and left out of those figures.  Frame counts:
+counted in ``samples_lost`` and left out of those figures, except
+``fidelity_end_to_end``, which is over every input sample and counts a lost
+sample's whole energy as error (``fidelity_end_to_end_counts`` says so).  Frame counts:
 ``frames_delivered`` counts every frame that reached the output, including the
 ``frames_undetected_errors`` among them; ``frames_sent = frames_delivered +
 frames_dropped_crc + frames_erased``.
@@ -26,6 +28,7 @@ import numpy as np
 from scipy import stats
 
 import codec
+from codec._report import units_of
 from codec._stream import locate_frames
 
 from ._channels import GilbertElliott, awgn, bsc, erase_frames, gilbert_elliott
@@ -101,8 +104,23 @@ def run_trial(x: np.ndarray, enc, code, cfg: ChannelConfig, rng: np.random.Gener
     dl = rec.status == DELIVERED
     fig_d = codec.error_figures(x[dl], rec.samples[dl]) if dl.any() else {}
     fig_a = codec.error_figures(x[have], rec.samples[have]) if have.any() else {}
-    sig = float(np.einsum("i,i->", x[have], x[have]))
+    sig = float(np.einsum("i,i->", x.ravel(), x.ravel()))
     sig_d = float(np.einsum("i,i->", x[dl], x[dl]))
+    # End to end every input sample counts: a lost sample (not concealed, as asked with
+    # --conceal none, or with nothing to conceal from) has no output, so its whole energy
+    # is error; a concealed one counts with its concealed value.
+    lost_energy = float(np.einsum("i,i->", x[~have], x[~have]))
+    per_channel = {}
+    for c, spec in enumerate(enc.profile.channels):
+        hc, xc = have[:, c], x[:, c]
+        f = codec.error_figures(xc[hc], rec.samples[hc, c]) if hc.any() else {}
+        sc = float(xc @ xc)
+        ec = f.get("error_energy", 0.0) + float(xc[~hc] @ xc[~hc])
+        per_channel[spec.name] = {
+            "samples_lost": int((~hc).sum()),
+            "snr_db": f.get("snr_db"), "snr_ac_db": f.get("snr_ac_db"),
+            "prd_percent": f.get("prd_percent"), "max_abs_error": f.get("max_abs_error"),
+            "fidelity_end_to_end": (1.0 - ec / sc) if sc else None}
     sent = int(lengths.size)
     erased = int((~arrived).sum())
     return {
@@ -127,7 +145,9 @@ def run_trial(x: np.ndarray, enc, code, cfg: ChannelConfig, rng: np.random.Gener
         "fidelity_delivered": (1.0 - fig_d["error_energy"] / sig_d) if fig_d and sig_d else None,
         "snr_db_end_to_end": fig_a.get("snr_db"),
         "max_abs_error_end_to_end": fig_a.get("max_abs_error"),
-        "fidelity_end_to_end": (1.0 - fig_a["error_energy"] / sig) if fig_a and sig else None,
+        "fidelity_end_to_end": (1.0 - (fig_a.get("error_energy", 0.0) + lost_energy) / sig)
+        if sig else None,
+        "per_channel": per_channel,
     }
 
 
@@ -144,17 +164,23 @@ def ci95(values) -> tuple[float | None, list | None]:
 
 
 def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int = 1,
-             trials: int = 1, seed: int = 0, policy: str = "hold", enc=None) -> dict:
+             trials: int = 1, seed: int = 0, policy: str = "hold", enc=None,
+             on_trial=None) -> dict:
     """Encode ``x`` under ``profile`` and run ``trials`` independent trials over ``cfg``.
 
     Returns one report row: every per-trial figure as its mean over trials,
-    ``<key>_ci95`` beside it, plus the bits on air.
+    ``<key>_ci95`` beside it, plus the bits on air.  ``on_trial()``, when
+    given, is called after each trial (progress reports).
     """
     x = codec.as_samples(x)
     enc = enc if enc is not None else codec.encode(x, profile)
     code = make_code(fec, interleave)
     rng = np.random.default_rng(seed)
-    rows = [run_trial(x, enc, code, cfg, rng, policy) for _ in range(trials)]
+    rows = []
+    for _ in range(trials):
+        rows.append(run_trial(x, enc, code, cfg, rng, policy))
+        if on_trial is not None:
+            on_trial()
     codec_bits = 8 * len(enc.data)
     air_bits = code.channel_bits(len(enc.data))
     nf = rows[0]["frames_sent"]
@@ -175,6 +201,18 @@ def simulate(x, profile, cfg: ChannelConfig, fec: str = "none", interleave: int 
         if fec == "none":  # a frame survives only if all its bits do (independent errors)
             frame_bits = 8 * locate_frames(enc.data).lengths
             out["frame_error_rate_theory"] = float(np.mean(1.0 - (1.0 - p) ** frame_bits))
+    out["fidelity_end_to_end_counts"] = (
+        "every input sample: concealed samples with their concealed values"
+        f" ({policy}), lost samples as missing (their whole energy counts as error)")
+    per = [r.pop("per_channel") for r in rows]
+    out["per_channel_end_to_end"] = {  # mean over trials
+        name: {k: (None if any(p[name][k] is None for p in per)
+                   else float(np.mean([p[name][k] for p in per]))) for k in per[0][name]}
+        for name in per[0]}
+    if isinstance(enc.report, dict) and "per_channel" in enc.report:
+        for name, f in out["per_channel_end_to_end"].items():
+            f["bits_codec_per_sample"] = enc.report["per_channel"][name]["bits_per_sample"]
+    out["units"] = units_of(enc.profile)
     for key in rows[0]:
         if key == "ebn0_db":
             continue
@@ -308,19 +346,19 @@ def sweep_series(rows: list[dict]) -> SweepSeries:
                        snr)
 
 
-def plot_sweep(rows: list[dict], path: str | Path) -> None:
+def plot_sweep(rows: list[dict], path: str | Path, label: str = "") -> None:
     """Draw an AWGN sweep: BER, frame error rate and end-to-end SNR on one shared Eb/N0 axis."""
     import matplotlib.pyplot as plt
 
     from codec._io import atomic_output
 
-    fig = sweep_figure(rows)
+    fig = sweep_figure(rows, label)
     with atomic_output(path) as tmp:
         fig.savefig(tmp, format="png", dpi=110)
     plt.close(fig)
 
 
-def sweep_figure(rows: list[dict]):
+def sweep_figure(rows: list[dict], label: str = ""):
     """The matplotlib figure of :func:`plot_sweep` (three panels, one shared x range)."""
     import matplotlib
 
@@ -353,13 +391,13 @@ def sweep_figure(rows: list[dict]):
     ax[2].plot(s.ebn0_db, s.snr_db_end_to_end, "o-", label="end to end")
     ax[2].axhline(rows[0]["snr_db_codec_only"] or np.nan, color="k", ls=":",
                   label="codec alone")
-    ax[2].set_ylabel("SNR (dB)")
+    ax[2].set_ylabel("SNR over all channels, pooled (dB)")
     for a in ax:
         a.set_xlabel("Eb/N0 per codec bit (dB)")
         a.grid(True, which="both", alpha=0.3)
         a.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.15))
     ax[0].set_xlim(*s.x_range)  # shared by all three panels
-    fig.suptitle(f"{mod} over AWGN, FEC {rows[0]['fec']}, "
+    fig.suptitle(f"{label + ': ' if label else ''}{mod} over AWGN, FEC {rows[0]['fec']}, "
                  f"{rows[0]['bits_on_air_per_sample']:.2f} bits on air per sample; "
                  "triangles: no error seen, drawn at the 95 % upper bound (rule of three)")
     fig.tight_layout()

@@ -218,7 +218,8 @@ def test_cli_decode_reports_on_damaged_streams(tmp_path, damage):
     stream.write_bytes(bad[damage])
     rc, out, err = _run(["decode", str(stream), "-o", str(tmp_path / "o.csv"),
                          "--json", str(tmp_path / "r.json")])
-    assert rc == 0 and "Traceback" not in err
+    # Exit 1: samples were lost (the README's decode contract), never a traceback.
+    assert rc == 1 and "Traceback" not in err
     import json
 
     rep = json.loads((tmp_path / "r.json").read_text())

@@ -51,10 +51,18 @@ def ridge_station(rng: np.random.Generator):
     batt = 12.4 + 0.9 * charge + rng.normal(0, 0.004, t.size)
     spikes = rng.choice(t.size, 3, replace=False)
     wind[spikes] += 14.0  # a few gust spikes
+    # (name, values, resolution, raw bits, unit, plausible range): the range is what the
+    # physics and the sensor allow, not the data's own spread (values outside are faults).
     chans = [
-        ("air_temp_k", temp, 0.01, 12), ("rel_humidity_pct", humid, 0.1, 10),
-        ("pressure_hpa", press, 0.1, 14), ("wind_speed_m_s", wind, 0.1, 10),
-        ("solar_w_m2", np.clip(solar, 0, None), 1.0, 12), ("battery_v", batt, 0.001, 14),
+        ("air_temp_k", temp, 0.01, 12, "K", (223.15, 323.15)),  # -50 .. +50 degC
+        ("rel_humidity_pct", humid, 0.1, 10, "%", (0.0, 100.0)),
+        # lowest and highest sea-level pressures on record are about 870 and 1084 hPa
+        ("pressure_hpa", press, 0.1, 14, "hPa", (850.0, 1085.0)),
+        ("wind_speed_m_s", wind, 0.1, 10, "m/s", (0.0, 75.0)),  # a speed is never negative
+        # never negative; the solar constant (about 1361 W/m2) bounds it from above
+        ("solar_w_m2", np.clip(solar, 0, None), 1.0, 12, "W/m²", (0.0, 1400.0)),
+        # a 12 V lead-acid battery: deep discharge to equalising charge
+        ("battery_v", batt, 0.001, 14, "V", (10.5, 14.8)),
     ]
     return t, dt, chans
 
@@ -86,9 +94,15 @@ def orbiter_hk(rng: np.random.Generator):
     spikes = rng.choice(t.size, 2, replace=False)
     mag_x[spikes] += 3000.0  # single-event upsets in the magnetometer read-out
     chans = [
-        ("panel_temp_k", temp, 0.05, 12), ("sun_sensor", sun_sensor, 0.001, 10),
-        ("battery_v", batt, 0.002, 12), ("bus_current_a", current, 0.001, 12),
-        ("mag_x_nt", mag_x, 5.0, 16), ("mag_y_nt", mag_y, 5.0, 16), ("mag_z_nt", mag_z, 5.0, 16),
+        ("panel_temp_k", temp, 0.05, 12, "K", (173.15, 393.15)),  # -100 .. +120 degC
+        # the cosine of the sun angle, dimensionless (SI unit one)
+        ("sun_sensor", sun_sensor, 0.001, 10, "1", (0.0, 1.0)),
+        ("battery_v", batt, 0.002, 12, "V", (6.0, 8.4)),  # two lithium-ion cells in series
+        ("bus_current_a", current, 0.001, 12, "A", (0.0, 3.0)),
+        # the geomagnetic field stays below about 65 000 nT in magnitude
+        ("mag_x_nt", mag_x, 5.0, 16, "nT", (-65000.0, 65000.0)),
+        ("mag_y_nt", mag_y, 5.0, 16, "nT", (-65000.0, 65000.0)),
+        ("mag_z_nt", mag_z, 5.0, 16, "nT", (-65000.0, 65000.0)),
     ]
     return t, dt, chans
 
@@ -108,17 +122,19 @@ def _profile_toml(description: str, dt: float, chans) -> str:
         'reference = "ac"',
         "",
     ]
-    for name, values, res, bits in chans:
-        lo, hi = float(values.min()), float(values.max())
-        pad = 0.5 * (hi - lo) + 10 * res
+    for name, values, res, bits, unit, (lo, hi) in chans:
+        q = _quantize(values, res)
+        if q.min() < lo or q.max() > hi:  # our bug: the invented data must be plausible
+            raise RuntimeError(f"{name}: data outside its plausible range {lo} .. {hi}")
         lines += [
             "[[channels]]",
             f'name = "{name}"',
+            f'unit = "{unit}"',
             f"resolution = {res}",
             f"raw_bits_per_sample = {bits}",
             f"sample_rate_hz = {1.0 / dt!r}",
-            f"valid_min = {round(lo - pad, 3)!r}",
-            f"valid_max = {round(hi + pad, 3)!r}",
+            f"valid_min = {lo!r}",
+            f"valid_max = {hi!r}",
             "",
         ]
     return "\n".join(lines)
@@ -128,7 +144,7 @@ def main() -> None:
     for name, (make, description) in SCENARIOS.items():
         rng = np.random.default_rng([SEED, len(name)])
         t, dt, chans = make(rng)
-        cols = [t] + [_quantize(v, res) for _, v, res, _ in chans]
+        cols = [t] + [_quantize(v, res) for _, v, res, *_ in chans]
         header = ",".join(["time"] + [c[0] for c in chans])
         np.savetxt(ROOT / "codec/data" / f"{name}.csv", np.column_stack(cols), delimiter=",",
                    header=header, comments="", fmt="%.6g")

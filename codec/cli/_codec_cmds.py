@@ -19,6 +19,7 @@ from .._io import (
     CsvBlockReader,
     SampleTable,
     atomic_output,
+    csv_decimals,
     is_stdio,
     read_samples,
     write_csv_block,
@@ -34,12 +35,14 @@ from .._profile import (
     note_path,
     save_stream_note,
 )
+from .._progress import busy
 from .._quantize import step_from_code
-from .._report import error_figures
+from .._report import channel_table, error_figures, pooled_label, units_of, with_unit
 from .._select import check_blocks
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
-from .._stuffing import STUFFINGS, Unstuffer, stuff
+from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
+from .._timecol import describe_time, time_fields, time_values
 from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
 
 __all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
@@ -87,16 +90,24 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", metavar="REPORT")
     p.set_defaults(handler=_roundtrip)
 
-    p = sub.add_parser("inspect", help="list every frame of a stream")
+    p = sub.add_parser("inspect", help="list every frame of a stream",
+                       description="One line per frame: byte offset, kind (layout version or "
+                       "gap mask), sequence, channels, basis, kept terms, quantizer step (the "
+                       "coarsest, for a frame of several windows), bits and CRC status. A "
+                       "stuffed stream (SLIP or COBS, recorded in the stream's note or given "
+                       "with --stuffing) is unstuffed first; its offsets are then those of the "
+                       "unstuffed frames.")
     p.add_argument("stream", metavar="STREAM")
     p.add_argument("-p", "--profile", metavar="PROFILE")
+    _add_stream_options(p)
     p.set_defaults(handler=_inspect)
 
 
 def _add_stream_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--stuffing", choices=("none",) + STUFFINGS, default="none",
+    p.add_argument("--stuffing", choices=("none",) + STUFFINGS, default=None,
                    help="byte-stream framing for serial modems: SLIP (RFC 1055) or COBS "
-                   "(Cheshire & Baker 1999), one frame per packet")
+                   "(Cheshire & Baker 1999), one frame per packet (encode: default none, "
+                   "recorded in the stream's note; decode: default the note's)")
 
 
 def _read_stream(path: str) -> bytes:
@@ -145,6 +156,8 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: s
         sys.stdout.buffer.flush()
         return result
     note = _note_for(table)
+    if stuffing != "none":
+        note = note.model_copy(update={"stuffing": stuffing})
     with contextlib.ExitStack() as stack:
         tmp_stream = stack.enter_context(atomic_output(path))
         tmp_note = stack.enter_context(atomic_output(note_path(path)))
@@ -179,22 +192,45 @@ def _encode(args) -> int:
         check_distinct(args.input, args.output)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
-    result = write_stream(args.output, table, profile, args.gaps, args.stuffing)
-    write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
+    with busy(f"encoding {table.values.shape[0]} samples x {table.values.shape[1]} channels"):
+        result = write_stream(args.output, table, profile, args.gaps, args.stuffing or "none")
+    tf = time_fields(table.time) if table.time is not None else {}
+    kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
+                                   ("regular", "time_start_ticks")) if key in tf), None)
+    write_json(args.json, {**result.report, "time_column": {
+        "name": table.time_name if tf else None, "kept": kept,
+        "resolution": 10.0 ** -tf["time_decimals"] if "time_decimals" in tf else None},
+        "per_frame": per_frame_table(result.frames)})
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
           f"{r['bits_total']} bits ({r['bits_per_sample']:.3f} bits/sample, "
           f"ratio {fmt(r['compression_ratio'], '.2f')}); fidelity min "
           f"{fmt(r['fidelity_min'], '.5f')} (target {r['fidelity_target']} per "
-          f"{r['fidelity_scope']}), "
-          f"SNR {fmt(r['snr_db'], '.2f')} dB", file=out)
+          f"{r['fidelity_scope']})", file=out)
+    print_channel_figures(r, out)
+    if tf:
+        print(describe_time(tf, table.time_name), file=out)
     if r.get("samples_gap"):
         print(f"{r['samples_gap']} missing samples "
               f"{'filled by linear interpolation' if args.gaps == 'fill' else 'marked as gaps'}",
               file=out)
     print(_CAUTION, file=out)
     return 0
+
+
+def channel_figure_lines(r: dict) -> list[str]:
+    """The per-channel table and the pooled figures, labelled as pooled (a report's lines)."""
+    units = r.get("units", {})
+    one = next(iter(units.values()), None) if len(set(units.values())) == 1 else None
+    return channel_table(r["per_channel"], units) + [
+        f"{pooled_label(units)}: SNR {fmt(r['snr_db'], '.2f')} dB, PRD "
+        f"{fmt(r['prd_percent'], '.3f')} %, max abs error {with_unit(r['max_abs_error'], one)}"]
+
+
+def print_channel_figures(r: dict, out=None) -> None:
+    """Print :func:`channel_figure_lines` (standard output by default)."""
+    print("\n".join(channel_figure_lines(r)), file=out or sys.stdout)
 
 
 def _stuff(data: bytes, stuffing: str) -> bytes:
@@ -220,15 +256,17 @@ def _encode_live(args) -> int:
             if enc is None:
                 profile = resolve_profile(args, reader.names)
                 enc = StreamEncoder(profile, len(reader.names), gaps=args.gaps)
-            sink.write(_stuff(enc.feed(values), args.stuffing))
+            sink.write(_stuff(enc.feed(values), args.stuffing or "none"))
             sink.flush()
         if enc is None:
             raise InputError("no data rows arrived under the header", "standard input")
-        sink.write(_stuff(enc.close(), args.stuffing))
+        sink.write(_stuff(enc.close(), args.stuffing or "none"))
         sink.flush()
         if not to_stdout:
             tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
-            save_stream_note(enc.profile, StreamNote(samples=enc.samples), tmp_note)
+            save_stream_note(enc.profile, StreamNote(
+                samples=enc.samples,
+                stuffing=None if args.stuffing in (None, "none") else args.stuffing), tmp_note)
     print(f"{enc.window} windows, {enc.samples} samples x {len(reader.names)} channels -> "
           f"{8 * enc.bytes_out} bits ({8 * enc.bytes_out / (enc.samples * len(reader.names)):.3f}"
           " bits/sample)", file=info)
@@ -240,21 +278,10 @@ def _encode_live(args) -> int:
 
 
 def _note_for(table: SampleTable) -> StreamNote:
-    start = step = None
-    if table.time is not None and table.time.size:
-        t = table.time
-        if t.size == 1:
-            start, step = float(t[0]), 0.0
-        else:
-            d = np.diff(t)
-            if np.allclose(d, d[0], rtol=1e-9, atol=0.0):
-                start, step = float(t[0]), float(d[0])
-    if table.time is not None and start is None:
-        print("note: the time column is not evenly spaced, so decode will not reproduce it",
-              file=sys.stderr)
+    """The stream note: the sample count and, when the input has one, its time column exactly."""
+    fields = time_fields(table.time) if table.time is not None else {}
     return StreamNote(samples=table.values.shape[0],
-                      time_name=table.time_name if start is not None else None,
-                      time_start=start, time_step=step)
+                      time_name=table.time_name if fields else None, **fields)
 
 
 def _decode(args) -> int:
@@ -271,18 +298,22 @@ def _decode(args) -> int:
     if not profile.channels:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
-    report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, args.stuffing,
-                                        args.reorder, args.output)
+    stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
+    with contextlib.ExitStack() as stack:
+        if not is_stdio(args.stream):  # a live pipeline shows its own pace
+            stack.enter_context(busy(f"decoding {args.stream}"))
+        report, blocks, dec = decode_report(
+            _byte_chunks(args.stream), profile, note, stuffing, args.reorder, args.output,
+            "standard input" if is_stdio(args.stream) else args.stream)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
     if not is_stdio(args.output):
         values = (np.concatenate([b.samples for b in blocks]) if blocks
                   else np.zeros((0, len(names))))
-        time = None
-        if note and note.time_start is not None:
-            time = note.time_start + note.time_step * np.arange(values.shape[0])
-        write_samples(args.output, SampleTable(values, names, time, note.time_name or "time"
-                                               if note else "time"))
+        time = time_values(note, 0, values.shape[0])
+        write_samples(args.output, SampleTable(
+            values, names, time, note.time_name or "time" if note else "time",
+            decimals=_decimals(profile), time_decimals=note.time_decimals if note else None))
     write_json(args.json, report)
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     c = report
@@ -294,6 +325,48 @@ def _decode(args) -> int:
           f"{c['bytes_skipped']} bytes skipped" + _event_summary(c)
           + ("" if c["end_known"] else "; the stream's end is not known (no stream note), so "
              "frames lost after the last one received are not counted"), file=out)
+    print("\n".join(_count_table(c)), file=out)
+    status = decode_exit_status(c)
+    total = c["samples"] * c["channels"]
+    if status == 0:
+        print(f"every sample delivered ({c['samples_delivered']} of {total}"
+              + (f"; the other {c['samples_gap']} were marked as gaps at encode"
+                 if c["samples_gap"] else "") + "): exit status 0", file=out)
+    elif c["frames_ok"] + c["gap_frames_ok"] == 0:
+        print(f"nothing could be decoded: {c['samples_lost']} of {total} samples lost, exit "
+              "status 1", file=out)
+    else:
+        print(f"{c['samples_lost']} of {total} samples lost: exit status 1", file=out)
+    return status
+
+
+def _count_table(c: dict) -> list[str]:
+    """Per channel: its unit and how many samples were delivered, lost, or marked as gaps."""
+    names = list(c["per_channel"])
+    width = max([7] + [len(n) for n in names])
+    uw = max([4] + [len(u or "-") for u in c["units"].values()])
+    keys = ["samples_delivered", "samples_lost", "samples_gap"]
+    lines = [f"{'channel':<{width}} {'unit':<{uw}} "
+             + " ".join(f"{k.removeprefix('samples_'):>10}" for k in keys)]
+    for n in names:
+        lines.append(f"{n:<{width}} {c['units'].get(n) or '-':<{uw}} "
+                     + " ".join(f"{c['per_channel'][n][k]:>10}" for k in keys))
+    return lines
+
+
+def _decimals(profile: Profile) -> list[int | None]:
+    """CSV decimals of each channel: what its resolution needs (full precision without one)."""
+    return [csv_decimals(c.resolution, c.max_error) for c in profile.channels]
+
+
+def decode_exit_status(counts: dict) -> int:
+    """0 when every sample is delivered (gaps marked at encode count as delivered), else 1.
+
+    1 also when no frame at all could be decoded.  Usage and data errors exit
+    2 before this is asked.
+    """
+    if counts["frames_ok"] + counts["gap_frames_ok"] == 0 or counts["samples_lost"] > 0:
+        return 1
     return 0
 
 
@@ -341,33 +414,44 @@ def _byte_chunks(path: str, size: int = 65536):
 
 
 def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: str = "none",
-                  reorder: int = 16, output: str | None = None
+                  reorder: int = 16, output: str | None = None, where: str = "the stream"
                   ) -> tuple[dict, list, StreamDecoder]:
     """Run the streaming decoder over byte ``chunks``; return the report, blocks and decoder.
 
     With ``output`` ``-`` the released samples are written to standard output
     as CSV at once and not kept (a live pipeline); otherwise they are returned.
+    A stuffed stream read as plain bytes (``stuffing`` none, samples lost, and
+    the first bytes unstuff into more frames) raises :class:`InputError`
+    naming the stuffing; ``where`` names the stream in that message.
     """
     dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder)
     unstuff = Unstuffer(stuffing) if stuffing != "none" else None
     live = output is not None and is_stdio(output)
     blocks: list = []
     names = [c.name for c in profile.channels]
-    timed = note is not None and note.time_start is not None
+    timed = time_values(note, 0, 0) is not None
     if live:
         sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
+    tally = np.zeros((len(STATUS_NAMES), len(names)), dtype=np.int64)  # status x channel
+
     def take(new) -> None:
+        for b in new:
+            for code in STATUS_NAMES:
+                tally[code] += (b.status == code).sum(axis=0)
         if live:
             for b in new:
-                time = (note.time_start + note.time_step * (b.start + np.arange(len(b.samples)))
-                        if timed else None)
-                write_csv_block(sys.stdout, b.samples, time)
+                time = time_values(note, b.start, len(b.samples)) if timed else None
+                write_csv_block(sys.stdout, b.samples, time, _decimals(profile),
+                                note.time_decimals if note else None)
             sys.stdout.flush()
         else:
             blocks.extend(new)
 
+    head = bytearray()  # the stream's first bytes, to name a stuffing nobody asked to undo
     for chunk in chunks:
+        if len(head) < SNIFF_BYTES:
+            head += chunk[: SNIFF_BYTES - len(head)]
         if unstuff is None:
             take(dec.feed(chunk))
         else:
@@ -385,9 +469,17 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         report["packets_bad"] = unstuff.bad_packets
         report["packets_overlong"] = unstuff.overlong
     report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
+    report["per_channel"] = {n: {f"samples_{STATUS_NAMES[k]}": int(tally[k, c])
+                                 for k in STATUS_NAMES} for c, n in enumerate(names)}
+    report["units"] = units_of(profile)
     report["events"] = dec.events
     report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
                                "samples_concealed = samples x channels")
+    if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
+        kind = detect_stuffing(bytes(head))
+        if kind is not None:
+            raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain "
+                             f"frames; decode with --stuffing {kind}", where)
     return report, blocks, dec
 
 
@@ -426,6 +518,17 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
                          "recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
+    # each budget block belongs to one channel: judge the channels block by block
+    block_channel = np.zeros(blk.met.size, dtype=np.int64)
+    block_channel[info["block"]] = info["channel"]
+    per = {}
+    for c, (name, figs) in enumerate(report["per_channel"].items()):
+        mine = (block_channel == c) & ~info["block_floor"]
+        per[name] = {**figs, **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1]),
+                     "fidelity_min": float(blk.fidelity[mine].min()) if mine.any() else None,
+                     "fidelity_mean": float(blk.fidelity[mine].mean()) if mine.any() else None,
+                     "frames_below_target": int((~met[info["channel"] == c]).sum())}
+    report["per_channel"] = per
     report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)
     return report, bool(met.all()), dec
 
@@ -433,7 +536,9 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
 def _roundtrip(args) -> int:
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
-    report, ok, _ = roundtrip_report(table.values, profile)
+    with busy(f"encoding and decoding {table.values.shape[0]} samples x "
+              f"{table.values.shape[1]} channels"):
+        report, ok, _ = roundtrip_report(table.values, profile)
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
           f"(ratio {fmt(report['compression_ratio'], '.2f')}), fidelity min "
@@ -441,11 +546,18 @@ def _roundtrip(args) -> int:
           f"{report['fidelity_scope']}), "
           f"{report['frames_below_target']} frames below target "
           f"({report['frames_at_floor']} held to "
-          f"the resolution floor), SNR {fmt(report['snr_db'], '.2f')}"
-          f" dB, PRD {fmt(report['prd_percent'], '.3f')} %, max abs error "
-          f"{report['max_abs_error']:.6g}")
+          f"the resolution floor); checked on the decoded samples")
+    print_channel_figures(report)
     print(_CAUTION)
     return 0 if ok else 1
+
+
+def _basis_code(name: str) -> int | None:
+    """The header code of a registered basis (None for one that cannot be built alone)."""
+    from .._bases import _kinds
+
+    kind = _kinds().get(name)
+    return None if kind is None else kind.code
 
 
 def _inspect(args) -> int:
@@ -455,12 +567,19 @@ def _inspect(args) -> int:
     every layout version and gap-mask frames, and a damaged frame is a line.
     """
     data = _read_stream(args.stream)
-    profile = None
+    profile = note = None
+    if note_path(args.stream).is_file():
+        profile, note = load_stream_note(note_path(args.stream))
     if args.profile:
         profile = load_profile(args.profile)
-    elif note_path(args.stream).is_file():
-        profile = load_stream_note(note_path(args.stream))[0]
+    stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
+    if stuffing != "none":
+        u = Unstuffer(stuffing)
+        data = b"".join(u.feed(data) + u.close())
     loc = locate_frames(data)
+    if stuffing == "none" and (kind := detect_stuffing(data[:SNIFF_BYTES])) is not None:
+        raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
+                         f"inspect with --stuffing {kind}", args.stream)
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a coefwire stream?", args.stream)
@@ -471,25 +590,38 @@ def _inspect(args) -> int:
     rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
     rows += [(int(o), None) for o in loc.crc_failures]
     rows.sort()
-    out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'terms':>5} {'bits':>7}  status"]
+    codes = {as_code: name for name in basis_names()
+             if (as_code := _basis_code(name)) is not None}
+    units = [c.unit for c in profile.channels] if profile and profile.channels else []
+    out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'basis':<8} {'terms':>5} "
+           f"{'step':>14} {'bits':>7}  status"]
     for off, i in rows:
         if i is None:
-            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':>5} {'-':>7}  CRC FAILED")
+            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>14} "
+                       f"{'-':>7}  CRC FAILED")
             continue
         version = loc.frames[i][2] >> 4
         kind = "gap" if version == GAP_KIND else f"v{version}"
         bits = 8 * len(loc.frames[i])
         if fr is None:
-            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  crc ok "
-                       "(no profile: contents not read)")
+            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>14} "
+                       f"{bits:>7}  crc ok (no profile: contents not read)")
             continue
         chans = fr.row_channel[fr.row_frame == i].tolist()
         chans += [c for c, _ in fr.masks.get(i, ())]
         label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
         status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
+        gap = version == GAP_KIND or fr.verdict[i] != "ok"
+        basis = "-" if gap else codes.get(int(fr.head["basis"][i]), str(fr.head["basis"][i]))
+        step = "-" if gap else format(float(step_from_code(fr.head["step_code"][i])), ".4g")
+        one = sorted(set(chans))
+        if not gap and len(one) == 1 and one[0] < len(units) and units[one[0]]:
+            step += f" {units[one[0]]}"  # a step is in the channel's units (orthonormal basis)
         out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
-                   f"{int(fr.head['terms'][i]):>5} {bits:>7}  {status}")
+                   f"{basis:<8} {int(fr.head['terms'][i]):>5} {step:>14} {bits:>7}  {status}")
     out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
-               f"{loc.skipped_bytes} bytes outside frames")
+               f"{loc.skipped_bytes} bytes outside frames"
+               + (f" ({stuffing.upper()}-stuffed stream: offsets in the unstuffed frames)"
+                  if stuffing != "none" else ""))
     sys.stdout.write("\n".join(out) + "\n")
     return 0
