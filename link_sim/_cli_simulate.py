@@ -7,8 +7,6 @@ import math
 from dataclasses import replace
 from pathlib import Path
 
-import numpy as np
-
 from codec._codec import as_samples, encode
 from codec._errors import InputError
 from codec._io import read_samples
@@ -19,7 +17,7 @@ from codec.cli._common import add_profile_options, fmt, resolve_profile, write_j
 from ._channels import MODULATIONS
 from ._fec import FEC_NAMES
 from ._receiver import CONCEAL_POLICIES
-from ._simulate import CHANNEL_KINDS, ChannelConfig, plot_sweep, simulate, sweep, zero_error_bound
+from ._simulate import CHANNEL_KINDS, ChannelConfig, plot_sweep, simulate, zero_error_bound
 
 __all__ = ["register"]
 
