@@ -21,6 +21,7 @@ from .._io import (
     atomic_output,
     is_stdio,
     read_samples,
+    sample_suffix,
     write_csv_block,
     write_samples,
 )
@@ -39,7 +40,14 @@ from .._report import error_figures
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import STUFFINGS, Unstuffer, stuff
-from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
+from ._common import (
+    add_profile_options,
+    check_paths,
+    fmt,
+    json_text,
+    resolve_profile,
+    write_json,
+)
 
 __all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
 
@@ -132,23 +140,32 @@ def _quiet_broken_pipe(handler):
 
 
 def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: str = "refuse",
-                 stuffing: str = "none"):
+                 stuffing: str = "none", json_path: str | Path | None = None,
+                 json_report=None):
     """Encode ``table`` and write the stream plus its recorded profile, atomically together.
 
     ``path`` ``-`` writes the stream to standard output (no profile file then).
+    With ``json_path``, ``json_report(result)`` is written there in the same
+    commit: when any of the files cannot be written, none is.
     """
     result = encode(table.values, profile, gaps=gaps)
     data = _stuff(result.data, stuffing)
-    if is_stdio(path):
-        sys.stdout.buffer.write(data)
-        sys.stdout.buffer.flush()
-        return result
-    note = _note_for(table)
     with contextlib.ExitStack() as stack:
-        tmp_stream = stack.enter_context(atomic_output(path))
-        tmp_note = stack.enter_context(atomic_output(note_path(path)))
+        # every temporary file is made (so every folder is checked) before any is renamed
+        tmp_json = stack.enter_context(atomic_output(json_path)) if json_path else None
+        if is_stdio(path):
+            tmp_stream = tmp_note = None
+        else:
+            tmp_stream = stack.enter_context(atomic_output(path))
+            tmp_note = stack.enter_context(atomic_output(note_path(path)))
+        if tmp_json is not None:
+            tmp_json.write_text(json_text(json_report(result)), encoding="utf-8")
+        if tmp_stream is None:
+            sys.stdout.buffer.write(data)
+            sys.stdout.buffer.flush()
+            return result
         tmp_stream.write_bytes(data)
-        save_stream_note(result.profile, note, tmp_note)
+        save_stream_note(result.profile, _note_for(table), tmp_note)
     return result
 
 
@@ -165,12 +182,12 @@ def per_frame_table(frames: dict, fidelity: np.ndarray | None = None) -> dict:
 def _encode(args) -> int:
     if is_stdio(args.input):
         return _encode_live(args)
-    if not is_stdio(args.output):
-        check_distinct(args.input, args.output)
+    _check_encode_paths(args)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
     profile = resolve_profile(args, table.names)
-    result = write_stream(args.output, table, profile, args.gaps, args.stuffing)
-    write_json(args.json, {**result.report, "per_frame": per_frame_table(result.frames)})
+    _check_encode_paths(args, profile)
+    result = write_stream(args.output, table, profile, args.gaps, args.stuffing, args.json,
+                          lambda r: {**r.report, "per_frame": per_frame_table(r.frames)})
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
@@ -186,6 +203,15 @@ def _encode(args) -> int:
     return 0
 
 
+def _check_encode_paths(args, profile: Profile | None = None) -> None:
+    """No output of ``encode`` may name one of its inputs (or another output)."""
+    check_paths({"input": args.input, "profile": args.profile,
+                 "basis file": profile.basis_file if profile else None},
+                {"output": args.output,
+                 "recorded profile": None if is_stdio(args.output) else note_path(args.output),
+                 "--json report": args.json})
+
+
 def _stuff(data: bytes, stuffing: str) -> bytes:
     """Wrap each frame of a clean stream in a SLIP or COBS packet."""
     if stuffing == "none":
@@ -198,6 +224,7 @@ def _encode_live(args) -> int:
     reader = CsvBlockReader(sys.stdin.buffer)
     to_stdout = is_stdio(args.output)
     info = sys.stderr if to_stdout else sys.stdout
+    _check_encode_paths(args)
     enc = None
     with contextlib.ExitStack() as stack:
         if to_stdout:
@@ -208,6 +235,7 @@ def _encode_live(args) -> int:
         for values, _time in reader.blocks():
             if enc is None:
                 profile = resolve_profile(args, reader.names)
+                _check_encode_paths(args, profile)
                 enc = StreamEncoder(profile, len(reader.names), gaps=args.gaps)
             sink.write(_stuff(enc.feed(values), args.stuffing))
             sink.flush()
@@ -246,9 +274,19 @@ def _note_for(table: SampleTable) -> StreamNote:
                       time_start=start, time_step=step)
 
 
+def _check_decode_paths(args, profile: Profile | None = None) -> None:
+    """No output of ``decode`` may name one of its inputs (or another output)."""
+    stream = None if is_stdio(args.stream) else args.stream
+    check_paths({"stream": stream, "profile": args.profile,
+                 "recorded profile": note_path(stream) if stream else None,
+                 "basis file": profile.basis_file if profile else None},
+                {"output": args.output, "--json report": args.json})
+    if not is_stdio(args.output):
+        sample_suffix(args.output)
+
+
 def _decode(args) -> int:
-    if not is_stdio(args.stream) and not is_stdio(args.output):
-        check_distinct(args.stream, args.output)
+    _check_decode_paths(args)
     if is_stdio(args.stream) and not args.profile:
         raise InputError("a stream on standard input has no recorded profile; pass -p PROFILE",
                          "standard input")
@@ -260,19 +298,25 @@ def _decode(args) -> int:
     if not profile.channels:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
+    _check_decode_paths(args, profile)
     report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, args.stuffing,
                                         args.reorder, args.output)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
-    if not is_stdio(args.output):
-        values = (np.concatenate([b.samples for b in blocks]) if blocks
-                  else np.zeros((0, len(names))))
-        time = None
-        if note and note.time_start is not None:
-            time = note.time_start + note.time_step * np.arange(values.shape[0])
-        write_samples(args.output, SampleTable(values, names, time, note.time_name or "time"
-                                               if note else "time"))
-    write_json(args.json, report)
+    with contextlib.ExitStack() as stack:
+        # both temporary files exist before either is renamed: all or nothing
+        tmp_json = stack.enter_context(atomic_output(args.json)) if args.json else None
+        if not is_stdio(args.output):
+            tmp_out = stack.enter_context(atomic_output(args.output))
+            values = (np.concatenate([b.samples for b in blocks]) if blocks
+                      else np.zeros((0, len(names))))
+            time = None
+            if note and note.time_start is not None:
+                time = note.time_start + note.time_step * np.arange(values.shape[0])
+            write_samples(args.output, SampleTable(values, names, time, note.time_name or "time"
+                                                   if note else "time"), tmp_out)
+        if tmp_json is not None:
+            tmp_json.write_text(json_text(report), encoding="utf-8")
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     c = report
     gapf = f" ({c['gap_frames_ok']} with gap masks)" if c["gap_frames_ok"] else ""
@@ -415,8 +459,10 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
 
 
 def _roundtrip(args) -> int:
+    check_paths({"input": args.input, "profile": args.profile}, {"--json report": args.json})
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
+    check_paths({"basis file": profile.basis_file}, {"--json report": args.json})
     report, ok, _ = roundtrip_report(table.values, profile)
     write_json(args.json, report)
     print(f"{report['frames']} frames, {report['bits_per_sample']:.3f} bits/sample "
