@@ -43,6 +43,9 @@ __all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LE
 #: zstd level used for packs (store-and-forward: time is cheap, bits are not).
 PACK_LEVEL = 19
 
+#: Bytes expanded per read while a pack is checked against its cap (1 MiB).
+_READ_PIECE = 1 << 20
+
 
 def _frames_of(data: bytes) -> list[bytes]:
     return locate_frames(data).frames
@@ -131,8 +134,18 @@ def open_pack(pack: bytes, dictionary: bytes | None = None,
         raise FrameError(f"the pack would expand to {size} bytes, over the "
                          f"{max_output_size}-byte cap; raise the cap if it is genuine", "pack")
     try:
+        # Read in pieces: reader.read(cap + 1) would allocate the whole cap up front
+        # (100 GB for a cap of 1e11), whatever the pack holds.
+        parts: list[bytes] = []
+        got = 0
         with dz.stream_reader(pack, read_across_frames=False) as reader:
-            capped = reader.read(max_output_size + 1)
+            while got <= max_output_size:
+                piece = reader.read(min(_READ_PIECE, max_output_size + 1 - got))
+                if not piece:
+                    break
+                parts.append(piece)
+                got += len(piece)
+        capped = b"".join(parts)
         if len(capped) > max_output_size:
             raise FrameError(f"the pack expands beyond the {max_output_size}-byte cap; "
                              "raise the cap if it is genuine", "pack")

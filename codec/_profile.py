@@ -40,6 +40,10 @@ __all__ = [
     "save_stream_note",
     "note_path",
     "read_toml",
+    "MIN_FRAME_BYTES",
+    "MAX_WINDOWS_PER_FRAME",
+    "note_sample_limit",
+    "check_note_fits",
 ]
 
 #: Channels one stream can carry (the frame header's channel field is 8 bits).
@@ -218,6 +222,41 @@ class StreamNote(BaseModel):
     time_name: str | None = None
     time_start: float | None = Field(default=None, allow_inf_nan=False)
     time_step: float | None = Field(default=None, allow_inf_nan=False)
+
+
+#: No frame of any layout is shorter than this many bytes (sync marker, header and
+#: CRC; the shortest example in FRAME_LAYOUT.md has 12).
+MIN_FRAME_BYTES = 8
+#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
+MAX_WINDOWS_PER_FRAME = 16
+
+
+def note_sample_limit(stream_bytes: int, frame_length: int) -> int:
+    """The most samples per channel ``stream_bytes`` of frames can carry.
+
+    Every frame has at least :data:`MIN_FRAME_BYTES` bytes and at most
+    :data:`MAX_WINDOWS_PER_FRAME` windows of ``frame_length`` samples of every
+    channel; a stream note claiming more was edited or belongs to another stream.
+    """
+    return max(1, int(stream_bytes) // MIN_FRAME_BYTES) * MAX_WINDOWS_PER_FRAME * frame_length
+
+
+def check_note_fits(note: StreamNote | None, stream_bytes: int, profile: Profile,
+                    where: str) -> None:
+    """Refuse a stream note whose sample count the stream's bytes cannot carry.
+
+    A decoder fills every sample up to the note's count (lost ones as NaN), so
+    an edited ``samples = 1e9`` would otherwise make it allocate without bound.
+    """
+    if note is None:
+        return
+    limit = note_sample_limit(stream_bytes, profile.frame_length)
+    if note.samples > limit:
+        raise ProfileError(
+            f"[stream] samples = {note.samples} is more than {stream_bytes} bytes of frames "
+            f"can carry (at most {limit} samples of frames of {profile.frame_length}); the "
+            "note was edited or belongs to another stream; restore the note written with "
+            "the stream", where)
 
 
 def note_path(stream: str | Path) -> Path:

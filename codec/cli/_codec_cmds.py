@@ -30,6 +30,7 @@ from .._layout import GAP_KIND
 from .._profile import (
     Profile,
     StreamNote,
+    check_note_fits,
     load_profile,
     load_stream_note,
     note_path,
@@ -299,6 +300,10 @@ def _decode(args) -> int:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
     _check_decode_paths(args, profile)
+    if not is_stdio(args.stream):
+        with contextlib.suppress(OSError):  # an unreadable stream is reported when read
+            check_note_fits(note, os.stat(args.stream).st_size, profile,
+                            str(note_path(args.stream)))
     report, blocks, dec = decode_report(_byte_chunks(args.stream), profile, note, args.stuffing,
                                         args.reorder, args.output)
     check_some_frame_foreign(dec)
@@ -400,12 +405,16 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         else:
             blocks.extend(new)
 
+    got = 0
     for chunk in chunks:
+        got += len(chunk)
         if unstuff is None:
             take(dec.feed(chunk))
         else:
             for packet in unstuff.feed(chunk):
                 take(dec.feed(packet))
+    # closing fills every sample up to the note's count: not beyond what the bytes carry
+    check_note_fits(note, got, profile, "stream note")
     if unstuff is not None:
         for packet in unstuff.close():
             take(dec.feed(packet))
