@@ -52,6 +52,7 @@ from ._range import coefficient_cost_bits
 from ._report import stream_report
 from ._select import (
     _MARGIN,
+    check_magnitude,
     choose_steps,
     code_frame,
     frame_budgets,
@@ -192,6 +193,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         if not missing.any():
             missing = None
     profile = _bind(profile, x.shape[1])
+    check_magnitude(x, [c.name for c in profile.channels])
     n = profile.frame_length
     basis = profile_basis(profile)  # loads and hash-checks a trained basis
     frames, valid, channel, window = split_frames(x, n)

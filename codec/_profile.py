@@ -25,7 +25,7 @@ from pydantic import (
 )
 
 from ._bases import MAX_FRAME_LENGTH, basis_names
-from ._errors import ProfileError
+from ._errors import InputError, ProfileError
 
 __all__ = [
     "ChannelSpec",
@@ -44,10 +44,40 @@ __all__ = [
     "MAX_WINDOWS_PER_FRAME",
     "note_sample_limit",
     "check_note_fits",
+    "MAX_NAME_CHARS",
+    "check_channel_names",
 ]
 
 #: Channels one stream can carry (the frame header's channel field is 8 bits).
 MAX_CHANNELS = 256
+
+
+#: Characters a channel name may have.
+MAX_NAME_CHARS = 64
+
+
+def check_channel_names(names: list[str], where: str = "input") -> None:
+    """Refuse column names a profile cannot hold: too many, empty, too long or repeated.
+
+    The encoder checks the input's names here, so no stream is written whose
+    own recorded profile the decoder would then refuse.
+    """
+    if len(names) > MAX_CHANNELS:
+        raise InputError(f"the input has {len(names)} columns but a stream carries at most "
+                         f"{MAX_CHANNELS} channels; split the columns over several streams",
+                         where)
+    for i, name in enumerate(names):
+        if not name:
+            raise InputError(f"column {i + 1} has an empty name; name every column", where)
+        if len(name) > MAX_NAME_CHARS:
+            raise InputError(f"column {i + 1}'s name ({name[:24]}...) has {len(name)} "
+                             f"characters, over the {MAX_NAME_CHARS} a profile holds; shorten "
+                             "it", where)
+    seen: set[str] = set()
+    dup = sorted({n for n in names if n in seen or seen.add(n)})
+    if dup:
+        raise InputError(f"column names repeat ({', '.join(dup)}); give every column its own "
+                         "name", where)
 
 
 class ChannelSpec(BaseModel):
@@ -60,7 +90,7 @@ class ChannelSpec(BaseModel):
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    name: str = Field(min_length=1, max_length=64)
+    name: str = Field(min_length=1, max_length=MAX_NAME_CHARS)
     resolution: float = Field(default=0.0, ge=0.0, allow_inf_nan=False)
     raw_bits_per_sample: int = Field(default=16, ge=1, le=64)
     sample_rate_hz: float | None = Field(default=None, gt=0.0, allow_inf_nan=False)
@@ -132,6 +162,7 @@ class Profile(BaseModel):
         Raises :class:`ProfileError` when the profile lists channels that do
         not match the input's columns.
         """
+        check_channel_names(names)  # what a profile could not hold, decode would refuse
         if not self.channels:
             return self.model_copy(update={"channels": tuple(ChannelSpec(name=n) for n in names)})
         mine = [c.name for c in self.channels]
@@ -302,4 +333,6 @@ def _describe(exc: ValidationError) -> str:
     msg = err["msg"].removeprefix("Value error, ")
     if not err["loc"]:
         return msg  # a rule across several keys: the whole input would not help
-    return f"key '{key}': {msg} (got {err.get('input')!r})"
+    got = repr(err.get("input"))
+    got = got if len(got) <= 80 else got[:77] + "..."  # a long list would bury the sentence
+    return f"key '{key}': {msg} (got {got})"

@@ -30,6 +30,7 @@ from .._layout import GAP_KIND
 from .._profile import (
     Profile,
     StreamNote,
+    check_channel_names,
     check_note_fits,
     load_profile,
     load_stream_note,
@@ -38,6 +39,7 @@ from .._profile import (
 )
 from .._quantize import step_from_code
 from .._report import error_figures
+from .._select import check_magnitude
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import STUFFINGS, Unstuffer, stuff
@@ -185,6 +187,9 @@ def _encode(args) -> int:
         return _encode_live(args)
     _check_encode_paths(args)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
+    # what the stream's own profile could not hold or the quantizer code, named by file
+    check_channel_names(table.names, args.input)
+    check_magnitude(table.values, table.names, args.input)
     profile = resolve_profile(args, table.names)
     _check_encode_paths(args, profile)
     result = write_stream(args.output, table, profile, args.gaps, args.stuffing, args.json,
