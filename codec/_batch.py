@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import hashlib
-import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -34,6 +33,7 @@ import zstandard
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from ._errors import FrameError, InputError, ProfileError
+from ._profile import read_toml
 from ._stream import locate_frames
 
 __all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LEVEL",
@@ -226,9 +226,9 @@ def save_dictionary_note(note: DictionaryNote, path: str | Path) -> None:
 
 def load_dictionary_note(path: str | Path) -> DictionaryNote:
     """Read a dictionary note, naming the file on any error."""
+    data = read_toml(path, "dictionary note")  # size and depth checked before parsing
     try:
-        data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
         return DictionaryNote.model_validate(data)
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, ValidationError) as exc:
+    except ValidationError as exc:
         raise ProfileError(f"not a readable dictionary note ({exc.__class__.__name__}); "
                            "retrain the dictionary or remove the note", str(path)) from None
