@@ -220,7 +220,7 @@ MAX_TOML_DEPTH = 32
 
 _TOKEN = re.compile("\"\"\"|'''|\"|'|#|\n")
 _KEY_END = re.compile(r"[^\w.\- \t]")  # what cannot be part of a (dotted) bare key
-_HEADER = re.compile(r"\[[\w.\- \t]*\]")
+_HEADER = re.compile(r"^[ \t]*\[\[?[\w.\- \t]*\]", re.MULTILINE)  # [table] or [[array]]
 _OPEN_CLOSE = np.zeros(256, dtype=np.int64)
 _OPEN_CLOSE[[ord("["), ord("{")]] = 1
 _OPEN_CLOSE[[ord("]"), ord("}")]] = -1
