@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import hashlib
-import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -34,6 +33,7 @@ import zstandard
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from ._errors import FrameError, InputError, ProfileError
+from ._profile import read_toml
 from ._stream import locate_frames
 
 __all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LEVEL",
@@ -42,6 +42,9 @@ __all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LE
 
 #: zstd level used for packs (store-and-forward: time is cheap, bits are not).
 PACK_LEVEL = 19
+
+#: Bytes expanded per read while a pack is checked against its cap (1 MiB).
+_READ_PIECE = 1 << 20
 
 
 def _frames_of(data: bytes) -> list[bytes]:
@@ -131,8 +134,18 @@ def open_pack(pack: bytes, dictionary: bytes | None = None,
         raise FrameError(f"the pack would expand to {size} bytes, over the "
                          f"{max_output_size}-byte cap; raise the cap if it is genuine", "pack")
     try:
+        # Read in pieces: reader.read(cap + 1) would allocate the whole cap up front
+        # (100 GB for a cap of 1e11), whatever the pack holds.
+        parts: list[bytes] = []
+        got = 0
         with dz.stream_reader(pack, read_across_frames=False) as reader:
-            capped = reader.read(max_output_size + 1)
+            while got <= max_output_size:
+                piece = reader.read(min(_READ_PIECE, max_output_size + 1 - got))
+                if not piece:
+                    break
+                parts.append(piece)
+                got += len(piece)
+        capped = b"".join(parts)
         if len(capped) > max_output_size:
             raise FrameError(f"the pack expands beyond the {max_output_size}-byte cap; "
                              "raise the cap if it is genuine", "pack")
@@ -213,9 +226,9 @@ def save_dictionary_note(note: DictionaryNote, path: str | Path) -> None:
 
 def load_dictionary_note(path: str | Path) -> DictionaryNote:
     """Read a dictionary note, naming the file on any error."""
+    data = read_toml(path, "dictionary note")  # size and depth checked before parsing
     try:
-        data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
         return DictionaryNote.model_validate(data)
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, ValidationError) as exc:
+    except ValidationError as exc:
         raise ProfileError(f"not a readable dictionary note ({exc.__class__.__name__}); "
                            "retrain the dictionary or remove the note", str(path)) from None

@@ -55,6 +55,7 @@ from ._select import (
     block_budgets,
     block_sums,
     budget_blocks,
+    check_magnitude,
     choose_block_steps,
     choose_steps,
     code_frame,
@@ -201,6 +202,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         if not missing.any():
             missing = None
     profile = _bind(profile, x.shape[1])
+    check_magnitude(x, [c.name for c in profile.channels])
     n = profile.frame_length
     basis = profile_basis(profile)  # loads and hash-checks a trained basis
     frames, valid, channel, window = split_frames(x, n)

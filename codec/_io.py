@@ -23,7 +23,7 @@ import numpy as np
 from ._errors import InputError
 
 __all__ = ["SampleTable", "read_samples", "write_samples", "atomic_output", "STDIO", "is_stdio",
-           "CsvBlockReader", "write_csv_block", "csv_decimals"]
+           "CsvBlockReader", "write_csv_block", "csv_decimals", "sample_suffix"]
 
 _TIME_NAMES = ("time", "t")
 
@@ -84,7 +84,45 @@ def read_samples(path: str | Path, allow_gaps: bool = False) -> SampleTable:
     return _read_npy(path, allow_gaps)
 
 
+def _check_npy_header(path: Path) -> None:
+    """Refuse a .npy whose header claims more data than the file holds, before reading it.
+
+    ``np.load`` allocates the array the header declares before it reads the
+    data, so a 200-byte file claiming (2e9, 8) float64 would ask for 119 GiB.
+    The header (NumPy's format, versions 1 to 3) is read on its own first and
+    its shape checked against the file's size.
+    """
+    fmt = np.lib.format
+    try:
+        with open(path, "rb") as fh:
+            version = fmt.read_magic(fh)
+            # version 3 differs from 2 only in the header's text encoding (UTF-8 for
+            # field names); a numeric array's header is ASCII either way
+            read = (fmt.read_array_header_1_0 if version == (1, 0)
+                    else fmt.read_array_header_2_0)
+            shape, _fortran, dtype = read(fh, max_header_size=_NPY_MAX_HEADER)
+            offset = fh.tell()
+        size = path.stat().st_size
+    except (ValueError, OSError, EOFError) as exc:
+        raise InputError(f"not a readable .npy array ({exc})", str(path)) from None
+    if len(shape) != 2 or dtype.hasobject or dtype.kind not in "iuf":
+        raise InputError(
+            f"expected a 2-D numeric array (samples x channels), got shape {shape} of {dtype}",
+            str(path))
+    need = shape[0] * shape[1] * dtype.itemsize  # Python ints: no overflow
+    if need != size - offset:
+        raise InputError(
+            f"the header declares a {shape[0]} x {shape[1]} {dtype} array ({need} bytes) but "
+            f"the file holds {size - offset} bytes of data; the file is damaged or not what "
+            "it claims", str(path))
+
+
+#: Largest .npy header read (NumPy's own default limit for untrusted files).
+_NPY_MAX_HEADER = 10000
+
+
 def _read_npy(path: Path, allow_gaps: bool = False) -> SampleTable:
+    _check_npy_header(path)
     try:
         arr = np.load(path, allow_pickle=False)
     except (ValueError, OSError, EOFError) as exc:
@@ -167,13 +205,24 @@ def _check_finite(values: np.ndarray, path: Path, names: list[str], line_offset:
             "an infinite value cannot be coded: correct it in the input", str(path))
 
 
-def write_samples(path: str | Path, table: SampleTable) -> None:
-    """Write samples as .csv (with header and time column if any) or .npy, atomically."""
-    path = Path(path)
-    suffix = path.suffix.lower()
+def sample_suffix(path: str | Path) -> str:
+    """The sample-file type an output name asks for (``.csv`` or ``.npy``), or one sentence."""
+    suffix = Path(path).suffix.lower()
     if suffix not in (".csv", ".npy"):
         raise InputError("unknown output type; name a .csv or .npy file", str(path))
-    with atomic_output(path) as tmp:
+    return suffix
+
+
+def write_samples(path: str | Path, table: SampleTable, tmp: Path | None = None) -> None:
+    """Write samples as .csv (with header and time column if any) or .npy, atomically.
+
+    With ``tmp`` (a temporary file from :func:`atomic_output` the caller commits
+    together with other outputs) the file is written there, in the format
+    ``path`` names.
+    """
+    path = Path(path)
+    suffix = sample_suffix(path)
+    with contextlib.nullcontext(tmp) if tmp is not None else atomic_output(path) as tmp:
         if suffix == ".npy":
             with open(tmp, "wb") as fh:
                 np.save(fh, table.values)
@@ -197,7 +246,17 @@ def atomic_output(path: str | Path) -> Iterator[Path]:
     directory = path.parent if str(path.parent) else Path(".")
     if not directory.is_dir():
         raise InputError("the output folder does not exist; create it first", str(path))
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=directory)
+    if path.is_dir():
+        raise InputError("the output is a folder; name a file inside it", str(path))
+    if path.exists() and not path.is_file():
+        # a device or pipe (e.g. /dev/null): renaming onto it would replace it
+        raise InputError("the output exists and is not a regular file; name a file",
+                         str(path))
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=directory)
+    except OSError as exc:
+        raise InputError(f"cannot write in the output folder ({exc.strerror}); choose a "
+                         "folder you may write to", str(path)) from None
     os.close(fd)
     # mkstemp creates the file private (0600); give it the mode a plain open() would.
     umask = os.umask(0)
@@ -205,7 +264,11 @@ def atomic_output(path: str | Path) -> Iterator[Path]:
     os.chmod(tmp, 0o666 & ~umask)
     try:
         yield Path(tmp)
-        os.replace(tmp, path)
+        try:
+            os.replace(tmp, path)
+        except OSError as exc:
+            raise InputError(f"cannot put the output in place ({exc.strerror}); check the "
+                             "path", str(path)) from None
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)

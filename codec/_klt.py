@@ -40,8 +40,8 @@ from __future__ import annotations
 
 import datetime as _dt
 import hashlib
-import tomllib
 import zipfile
+import zlib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -49,10 +49,11 @@ import numpy as np
 import tomli_w
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from ._bases import Basis, as_basis, register_basis
+from ._bases import MAX_FRAME_LENGTH, Basis, as_basis, register_basis
 from ._errors import InputError, ProfileError
 from ._framing import split_frames
 from ._io import atomic_output
+from ._toml import loads_toml
 
 __all__ = [
     "KLT_CODE",
@@ -197,6 +198,8 @@ def load_trained_basis(path: str | Path, sha256: str | None = None) -> TrainedBa
     """
     path = Path(path)
     where = str(path)
+    if path.is_file():
+        _check_members(path)  # declared shapes and sizes, before anything is expanded
     try:
         with np.load(path, allow_pickle=False) as z:
             matrix, energy, note_text = z["matrix"], z["energy"], str(z["note"])
@@ -206,8 +209,8 @@ def load_trained_basis(path: str | Path, sha256: str | None = None) -> TrainedBa
         raise ProfileError(f"not a coefwire basis file ({exc.__class__.__name__}); make one "
                            "with 'coefwire train'", where) from None
     try:
-        note = BasisNote.model_validate(tomllib.loads(note_text))
-    except (tomllib.TOMLDecodeError, ValidationError):
+        note = BasisNote.model_validate(loads_toml(note_text, where, "basis file's note"))
+    except (ProfileError, ValidationError):
         raise ProfileError("the basis file's note is damaged; train the basis again",
                            where) from None
     if note.format != _FORMAT or note.format_version != _FORMAT_VERSION:
@@ -228,6 +231,55 @@ def load_trained_basis(path: str | Path, sha256: str | None = None) -> TrainedBa
     if not np.allclose(matrix @ matrix.T, np.eye(n), atol=1e-9):
         raise ProfileError("the matrix is not orthonormal; train the basis again", where)
     return TrainedBasis(matrix, energy, note)
+
+
+#: Largest note a basis file may hold (characters of TOML; a real one has about 400).
+_MAX_NOTE_CHARS = 1 << 16
+
+
+def _check_members(path: Path) -> None:
+    """Refuse a basis file whose arrays are not what they claim, before reading them.
+
+    ``np.load`` expands a member to the shape its header declares, so an 8 MB
+    deflated file declaring a 32768 x 32768 matrix would allocate 8 GiB before
+    any check.  Each member's ``.npy`` header is read on its own first: the
+    matrix must be (N, N) float64 with N at most the largest frame length, the
+    energy (N,), the note a short string, and every member's expanded size
+    exactly what its header declares.
+    """
+    fmt = np.lib.format
+    where = str(path)
+    found = {}
+    try:
+        with zipfile.ZipFile(path) as zf:
+            for key in ("matrix", "energy", "note"):
+                info = zf.getinfo(f"{key}.npy")
+                with zf.open(info) as fh:
+                    version = fmt.read_magic(fh)
+                    read = (fmt.read_array_header_1_0 if version == (1, 0)
+                            else fmt.read_array_header_2_0)
+                    shape, _fortran, dtype = read(fh, max_header_size=10000)
+                    offset = fh.tell()
+                need = int(np.prod(shape, dtype=object)) * dtype.itemsize  # exact, no overflow
+                if info.file_size != offset + need:
+                    raise ProfileError(f"the {key} array declares {shape} {dtype} but its member "
+                                       "holds another size; the file is damaged", where)
+                found[key] = (shape, dtype)
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile, zlib.error) as exc:
+        if isinstance(exc, ProfileError):
+            raise
+        raise ProfileError(f"not a coefwire basis file ({exc.__class__.__name__}); make one "
+                           "with 'coefwire train'", where) from None
+    (mshape, mtype), (eshape, _), (nshape, ntype) = (found[k] for k in ("matrix", "energy",
+                                                                         "note"))
+    if (len(mshape) != 2 or mshape[0] != mshape[1] or not 2 <= mshape[0] <= MAX_FRAME_LENGTH
+            or mtype != np.dtype("<f8") or eshape != mshape[:1]):
+        raise ProfileError(f"the matrix is {mshape} {mtype} (energy {eshape}), not (N, N) "
+                           f"float64 with N from 2 to {MAX_FRAME_LENGTH}; train the basis "
+                           "again", where)
+    if nshape != () or ntype.kind != "U" or ntype.itemsize > 4 * _MAX_NOTE_CHARS:
+        raise ProfileError("the basis file's note is not a short text; train the basis again",
+                           where)
 
 
 def note_toml(trained: TrainedBasis) -> str:

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import tomllib
 from pathlib import Path
 from typing import Literal
 
@@ -25,7 +24,8 @@ from pydantic import (
 )
 
 from ._bases import MAX_FRAME_LENGTH, basis_names
-from ._errors import ProfileError
+from ._errors import InputError, ProfileError
+from ._toml import MAX_TOML_BYTES, MAX_TOML_DEPTH, loads_toml, read_toml, toml_depth
 
 __all__ = [
     "ChannelSpec",
@@ -40,10 +40,48 @@ __all__ = [
     "save_stream_note",
     "note_path",
     "read_toml",
+    "loads_toml",
+    "toml_depth",
+    "MAX_TOML_BYTES",
+    "MAX_TOML_DEPTH",
+    "MIN_FRAME_BYTES",
+    "MAX_WINDOWS_PER_FRAME",
+    "note_sample_limit",
+    "check_note_fits",
+    "MAX_NAME_CHARS",
+    "check_channel_names",
 ]
 
 #: Channels one stream can carry (the frame header's channel field is 8 bits).
 MAX_CHANNELS = 256
+
+
+#: Characters a channel name may have.
+MAX_NAME_CHARS = 64
+
+
+def check_channel_names(names: list[str], where: str = "input") -> None:
+    """Refuse column names a profile cannot hold: too many, empty, too long or repeated.
+
+    The encoder checks the input's names here, so no stream is written whose
+    own recorded profile the decoder would then refuse.
+    """
+    if len(names) > MAX_CHANNELS:
+        raise InputError(f"the input has {len(names)} columns but a stream carries at most "
+                         f"{MAX_CHANNELS} channels; split the columns over several streams",
+                         where)
+    for i, name in enumerate(names):
+        if not name:
+            raise InputError(f"column {i + 1} has an empty name; name every column", where)
+        if len(name) > MAX_NAME_CHARS:
+            raise InputError(f"column {i + 1}'s name ({name[:24]}...) has {len(name)} "
+                             f"characters, over the {MAX_NAME_CHARS} a profile holds; shorten "
+                             "it", where)
+    seen: set[str] = set()
+    dup = sorted({n for n in names if n in seen or seen.add(n)})
+    if dup:
+        raise InputError(f"column names repeat ({', '.join(dup)}); give every column its own "
+                         "name", where)
 
 
 class ChannelSpec(BaseModel):
@@ -56,7 +94,7 @@ class ChannelSpec(BaseModel):
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    name: str = Field(min_length=1, max_length=64)
+    name: str = Field(min_length=1, max_length=MAX_NAME_CHARS)
     resolution: float = Field(default=0.0, ge=0.0, allow_inf_nan=False)
     raw_bits_per_sample: int = Field(default=16, ge=1, le=64)
     sample_rate_hz: float | None = Field(default=None, gt=0.0, allow_inf_nan=False)
@@ -137,6 +175,7 @@ class Profile(BaseModel):
         Raises :class:`ProfileError` when the profile lists channels that do
         not match the input's columns.
         """
+        check_channel_names(names)  # what a profile could not hold, decode would refuse
         if not self.channels:
             return self.model_copy(update={"channels": tuple(ChannelSpec(name=n) for n in names)})
         mine = [c.name for c in self.channels]
@@ -183,25 +222,6 @@ def profile_id(profile: Profile) -> int:
     return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
 
 
-def read_toml(path: str | Path, what: str = "profile") -> dict:
-    """Parse a human-written TOML file (a ``what``), naming the file on any error.
-
-    TOML only: nothing in the file is executed and it cannot include other files.
-    """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ProfileError(f"no such {what} file; check the path", str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ProfileError(f"cannot read the {what} ({exc.__class__.__name__})",
-                           str(path)) from None
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ProfileError(f"not valid TOML ({exc})", str(path)) from None
-
-
 def load_profile(path: str | Path) -> Profile:
     """Read and validate a TOML profile, naming the file and key on any error."""
     path = Path(path)
@@ -242,6 +262,41 @@ class StreamNote(BaseModel):
     stuffing: Literal["slip", "cobs"] | None = None
 
 
+#: No frame of any layout is shorter than this many bytes (sync marker, header and
+#: CRC; the shortest example in FRAME_LAYOUT.md has 12).
+MIN_FRAME_BYTES = 8
+#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
+MAX_WINDOWS_PER_FRAME = 16
+
+
+def note_sample_limit(stream_bytes: int, frame_length: int) -> int:
+    """The most samples per channel ``stream_bytes`` of frames can carry.
+
+    Every frame has at least :data:`MIN_FRAME_BYTES` bytes and at most
+    :data:`MAX_WINDOWS_PER_FRAME` windows of ``frame_length`` samples of every
+    channel; a stream note claiming more was edited or belongs to another stream.
+    """
+    return max(1, int(stream_bytes) // MIN_FRAME_BYTES) * MAX_WINDOWS_PER_FRAME * frame_length
+
+
+def check_note_fits(note: StreamNote | None, stream_bytes: int, profile: Profile,
+                    where: str) -> None:
+    """Refuse a stream note whose sample count the stream's bytes cannot carry.
+
+    A decoder fills every sample up to the note's count (lost ones as NaN), so
+    an edited ``samples = 1e9`` would otherwise make it allocate without bound.
+    """
+    if note is None:
+        return
+    limit = note_sample_limit(stream_bytes, profile.frame_length)
+    if note.samples > limit:
+        raise ProfileError(
+            f"[stream] samples = {note.samples} is more than {stream_bytes} bytes of frames "
+            f"can carry (at most {limit} samples of frames of {profile.frame_length}); the "
+            "note was edited or belongs to another stream; restore the note written with "
+            "the stream", where)
+
+
 def note_path(stream: str | Path) -> Path:
     """Where the profile of ``stream`` is recorded: ``STREAM.profile.toml``."""
     return Path(f"{stream}.profile.toml")
@@ -250,7 +305,7 @@ def note_path(stream: str | Path) -> Path:
 def load_stream_note(path: str | Path) -> tuple[Profile, StreamNote | None]:
     """The profile and stream note recorded beside a stream."""
     profile = load_profile(path)
-    data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    data = read_toml(path)
     if "stream" not in data:
         return profile, None
     try:
@@ -285,4 +340,6 @@ def _describe(exc: ValidationError) -> str:
     msg = err["msg"].removeprefix("Value error, ")
     if not err["loc"]:
         return msg  # a rule across several keys: the whole input would not help
-    return f"key '{key}': {msg} (got {err.get('input')!r})"
+    got = repr(err.get("input"))
+    got = got if len(got) <= 80 else got[:77] + "..."  # a long list would bury the sentence
+    return f"key '{key}': {msg} (got {got})"

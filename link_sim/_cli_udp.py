@@ -6,13 +6,16 @@ Registered through the ``coefwire.commands`` entry-point group (pyproject.toml).
 from __future__ import annotations
 
 import contextlib
+import os
+import signal
 import sys
+import threading
 from pathlib import Path
 
 from codec import InputError, StreamDecoder
-from codec._io import atomic_output, is_stdio, write_csv_block
+from codec._io import is_stdio, write_csv_block
 from codec._profile import load_stream_note
-from codec.cli._common import write_json
+from codec.cli._common import check_paths, write_json
 
 from ._udp import (
     SEND_COUNTED,
@@ -42,17 +45,22 @@ def register_send(sub) -> None:
 
 def register_receive(sub) -> None:
     p = sub.add_parser("receive", help="decode frames arriving as UDP datagrams",
-                       description="Listen on HOST:PORT, decode frames as they arrive and write "
-                       "samples to OUTPUT (.csv; - for standard output) as windows complete. "
-                       "Stops when the stream's known end is reached, after --duration seconds, "
-                       "or --idle seconds after the last datagram.")
+                       description="Listen on HOST:PORT (port 0: a free port, printed on "
+                       "standard error once bound), decode frames as they arrive and write "
+                       "samples to OUTPUT (.csv; - for standard output) as windows complete, "
+                       "flushed, so OUTPUT can be read while it runs. Stops when the stream's "
+                       "known end is reached, after --duration seconds, after --idle seconds "
+                       "waiting with no datagram, or on SIGINT (Ctrl-C) or SIGTERM; datagrams "
+                       "already waiting are still read, and OUTPUT and the JSON report are "
+                       "finished with what arrived (also when an error stops it).")
     p.add_argument("--udp", required=True, metavar="HOST:PORT")
     p.add_argument("-p", "--profile", required=True, metavar="PROFILE",
                    help="the stream's profile (STREAM.profile.toml also gives its length)")
     p.add_argument("-o", "--output", required=True, metavar="OUTPUT")
     p.add_argument("--duration", type=float, metavar="S", help="stop after S seconds")
     p.add_argument("--idle", type=float, default=5.0, metavar="S",
-                   help="stop S seconds after the last datagram (default 5)")
+                   help="stop after S seconds of waiting with no datagram, once one has "
+                   "arrived (default 5; time spent decoding does not count)")
     p.add_argument("--json", metavar="REPORT")
     p.set_defaults(handler=_receive)
 
@@ -83,7 +91,8 @@ def _send(args) -> int:
 
 
 def _receive(args) -> int:
-    host, port = parse_endpoint(args.udp)
+    host, port = parse_endpoint(args.udp, allow_any_port=True)
+    check_paths({"profile": args.profile}, {"output": args.output, "--json report": args.json})
     profile, note = load_stream_note(args.profile)
     if not profile.channels:
         raise InputError("the profile lists no channels; use the one recorded beside the stream",
@@ -91,29 +100,64 @@ def _receive(args) -> int:
     if not is_stdio(args.output) and Path(args.output).suffix.lower() != ".csv":
         raise InputError("receive writes CSV as samples arrive; name a .csv file or -",
                          args.output)
+    check_paths({"basis file": profile.basis_file}, {"output": args.output})
+    for out in (args.output, args.json):  # before listening: an unwritable path fails now
+        if out is not None and not is_stdio(out):
+            _check_output(Path(out))
     names = [c.name for c in profile.channels]
     decoder = StreamDecoder(profile, samples=note.samples if note else None)
     info = sys.stderr if is_stdio(args.output) else sys.stdout
+    signals: list[str] = []
     with contextlib.ExitStack() as stack:
-        if is_stdio(args.output):
-            sink = sys.stdout
-        else:
-            tmp = stack.enter_context(atomic_output(args.output))
-            sink = stack.enter_context(open(tmp, "w", encoding="utf-8", newline=""))
-        sink.write(",".join(names) + "\n")
+        if threading.current_thread() is threading.main_thread():
+            # a signal only sets a flag: the loop stops between datagrams, never inside
+            # a decode, and the output and the report are finished with what arrived
+            for sig in (signal.SIGINT, signal.SIGTERM):
+                old = signal.signal(sig, lambda num, _frame: signals.append(
+                    signal.Signals(num).name))
+                stack.callback(signal.signal, sig, old)
+        sink = sys.stdout if is_stdio(args.output) else None
+
+        def ready(bound: int) -> None:
+            nonlocal sink
+            if sink is None:  # written in place, not renamed at the end: readable while it runs
+                sink = stack.enter_context(open(args.output, "w", encoding="utf-8",
+                                                newline=""))
+            sink.write(",".join(names) + "\n")
+            sink.flush()
+            print(f"listening on {host}:{bound}", file=sys.stderr, flush=True)
 
         def on_block(block) -> None:
             write_csv_block(sink, block.samples)
             sink.flush()
 
-        counts = receive_frames(decoder, host, port, on_block, args.duration, args.idle)
-    counts["channels"] = len(names)
-    counts["events"] = decoder.events
-    write_json(args.json, counts)
+        def on_finish(counts: dict) -> None:
+            counts["channels"] = len(names)
+            counts["events"] = decoder.events
+            if sink is not None:
+                sink.flush()
+            write_json(args.json, counts)
+
+        counts = receive_frames(decoder, host, port, on_block, args.duration, args.idle,
+                                ready=ready, stop=lambda: signals[0] if signals else None,
+                                on_finish=on_finish)
     print(f"{counts['datagrams']} datagrams, {counts['frames_ok'] + counts['gap_frames_ok']} "
           f"frames decoded in "
           f"{counts['seconds']:.2f} s -> {counts['samples']} samples x {len(names)} channels: "
           f"{counts['samples_delivered']} delivered, {counts['samples_lost']} lost, "
           f"{counts['samples_gap']} gap" + ("" if counts["end_known"] else
-                                            "; the stream's end is not known"), file=info)
+                                            "; the stream's end is not known")
+          + f"; stopped: {counts['stopped']}", file=info)
     return 0
+
+
+def _check_output(path: Path) -> None:
+    """The checks an atomic output makes, for a file written in place as samples arrive."""
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise InputError("the output folder does not exist; create it first", str(path))
+    if path.exists() and not path.is_file():
+        raise InputError("the output is a folder or a device; name a file", str(path))
+    if not os.access(folder, os.W_OK) or (path.exists() and not os.access(path, os.W_OK)):
+        raise InputError("cannot write the output there (permission denied); choose a folder "
+                         "you may write to", str(path))

@@ -9,6 +9,7 @@ timeout and (with the stream note's sample count) by the stream's known end.
 
 from __future__ import annotations
 
+import contextlib
 import socket
 import time
 from collections.abc import Callable
@@ -24,10 +25,14 @@ __all__ = ["parse_endpoint", "split_frames_of", "send_frames", "receive_frames",
 _MAX_DATAGRAM = 65535
 
 
-def parse_endpoint(text: str) -> tuple[str, int]:
-    """``HOST:PORT`` -> (host, port); a clear error for anything else."""
+def parse_endpoint(text: str, allow_any_port: bool = False) -> tuple[str, int]:
+    """``HOST:PORT`` -> (host, port); a clear error for anything else.
+
+    ``allow_any_port``: port 0 is accepted (a listener then binds a free port).
+    """
     host, sep, port = text.rpartition(":")
-    if not sep or not host or not port.isdigit() or not 0 < int(port) < 65536:
+    low = 0 if allow_any_port else 1
+    if not sep or not host or not port.isdigit() or not low <= int(port) < 65536:
         raise InputError(f"{text!r} is not HOST:PORT (e.g. 127.0.0.1:47000)", "--udp")
     return host.strip("[]"), int(port)
 
@@ -105,54 +110,109 @@ def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | Non
     return SendStats(len(frames), sent_bits // 8, clock() - t0, rate_bps)
 
 
+#: Datagrams read, at most, from those already waiting when the receiver stops.
+_DRAIN_MAX = 65536
+#: Receive buffer asked of the kernel, so a burst waits in the socket while a
+#: datagram is decoded (the kernel may grant less: net.core.rmem_max).
+_RCVBUF_BYTES = 1 << 22
+
+
 def receive_frames(decoder: codec.StreamDecoder, host: str, port: int, on_block,
                    duration_s: float | None = None, idle_s: float | None = None,
-                   ready: Callable[[int], None] | None = None) -> dict:
+                   ready: Callable[[int], None] | None = None,
+                   stop: Callable[[], str | None] | None = None,
+                   on_finish: Callable[[dict], None] | None = None) -> dict:
     """Decode datagrams arriving at ``host:port`` until the stream is complete or time is up.
 
     ``on_block`` receives every released :class:`codec._streaming.Block`.  Stops
     when the decoder has every frame up to the stream's known end, after
-    ``duration_s`` seconds, or after ``idle_s`` seconds without a datagram
-    (once one has arrived).  ``ready(port)`` is called once the socket is bound
-    (port 0 picks a free port).  Returns the decoder's counts plus
-    ``datagrams`` and ``seconds``.
+    ``duration_s`` seconds, after ``idle_s`` seconds spent waiting with no
+    datagram (once one has arrived; time spent decoding does not count, so a
+    burst waiting in the socket is read whatever the decoding costs), or when
+    ``stop()`` returns a reason (e.g. the name of a signal received).
+    Datagrams already waiting when it stops are still read, then the decoder
+    is closed and every remaining block released, also when ``on_block`` or
+    the decoder raise: ``on_finish(counts)`` then runs before the error
+    propagates (a caller writes its report there).  ``ready(port)`` is called
+    once the socket is bound (port 0 picks a free port).  Returns the
+    decoder's counts plus ``datagrams``, ``seconds`` and ``stopped`` (why:
+    complete, duration, idle, a stop reason, interrupted or error).
     """
     if duration_s is not None and duration_s <= 0:
         raise InputError("the duration must be positive seconds", "--duration")
+    if idle_s is not None and idle_s <= 0:
+        raise InputError("the idle time must be positive seconds", "--idle")
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
     start = time.monotonic()
     datagrams = 0
-    last = None
+    reason = None
+    error: BaseException | None = None
     with socket.socket(family, socket.SOCK_DGRAM) as sock:
         try:
             sock.bind((host, port))
         except OSError as exc:
             raise InputError(f"cannot listen on {host}:{port} ({exc.strerror})", "--udp") \
                 from None
+        with contextlib.suppress(OSError):
+            sock.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, _RCVBUF_BYTES)
         if ready is not None:
             ready(sock.getsockname()[1])
-        while not decoder.complete():
-            now = time.monotonic()
-            left = [0.2]
-            if duration_s is not None:
-                left.append(start + duration_s - now)
-            if idle_s is not None and last is not None:
-                left.append(last + idle_s - now)
-            timeout = min(left)
-            if timeout <= 0:
-                break
-            sock.settimeout(timeout)
-            try:
-                data = sock.recv(_MAX_DATAGRAM)
-            except TimeoutError:
-                continue
+
+        def take(data: bytes) -> None:
+            nonlocal datagrams
             datagrams += 1
-            last = time.monotonic()
             for block in decoder.feed(data):
                 on_block(block)
-    for block in decoder.close():
-        on_block(block)
+
+        waiting_since = None  # when the receiver last began to wait for a datagram
+        try:
+            while reason is None:
+                if decoder.complete():
+                    reason = "complete"
+                    break
+                if stop is not None and (reason := stop()):
+                    break
+                now = time.monotonic()
+                left = {"": 0.2}  # wake now and then to look at stop()
+                if duration_s is not None:
+                    left["duration"] = start + duration_s - now
+                if idle_s is not None and waiting_since is not None:
+                    left["idle"] = waiting_since + idle_s - now
+                why = min(left, key=left.get)
+                if left[why] <= 0:
+                    reason = why
+                    break
+                sock.settimeout(left[why])
+                try:
+                    data = sock.recv(_MAX_DATAGRAM)
+                except TimeoutError:
+                    continue
+                take(data)
+                waiting_since = time.monotonic()  # decoding time is not idle time
+            if reason != "complete":  # what already waits in the socket was received
+                sock.setblocking(False)
+                for _ in range(_DRAIN_MAX):
+                    try:
+                        data = sock.recv(_MAX_DATAGRAM)
+                    except (BlockingIOError, InterruptedError):
+                        break
+                    take(data)
+        except KeyboardInterrupt:  # no handler installed (not the main thread): a stop too
+            reason = "interrupted"
+        except BaseException as exc:  # finish with what we have, then let it propagate
+            reason, error = "error", exc
+    try:
+        for block in decoder.close():
+            on_block(block)
+    except Exception:
+        if error is None:
+            raise
     counts = decoder.counts()
     counts["datagrams"] = datagrams
     counts["seconds"] = time.monotonic() - start
+    counts["stopped"] = reason
+    if on_finish is not None:
+        on_finish(counts)
+    if error is not None:
+        raise error
     return counts

@@ -7,14 +7,21 @@ from __future__ import annotations
 
 import contextlib
 import io
+import json
+import queue
+import signal
 import socket
+import subprocess
+import sys
 import threading
+import time
 
 import numpy as np
 import pytest
 from streams import real_stream
 
 import codec
+from codec._profile import StreamNote, save_stream_note
 from codec.cli import main
 from link_sim._udp import parse_endpoint, receive_frames, send_frames, split_frames_of
 
@@ -111,3 +118,99 @@ def test_cli_send_and_receive(tmp_path):
     ref = codec.decode(stream.read_bytes(), codec.load_profile(f"{stream}.profile.toml")
                        .bind(["a", "b"]), samples=300)
     assert np.allclose(got, ref.samples, rtol=0, atol=0)
+
+
+class _SlowFirstDecode:
+    """A StreamDecoder whose first datagram takes long to decode: it waits until the whole
+    burst sits in the socket, then stays busy for three idle periods (a stand-in for a slow
+    decode, e.g. a trained basis loaded on first use)."""
+
+    def __init__(self, decoder, sent: threading.Event, busy_s: float):
+        self._dec, self._sent, self._busy = decoder, sent, busy_s
+        self.first = True
+
+    def feed(self, data):
+        if self.first:
+            self.first = False
+            assert self._sent.wait(10.0)
+            threading.Event().wait(self._busy)  # busy decoding, not idle
+        return self._dec.feed(data)
+
+    def __getattr__(self, name):
+        return getattr(self._dec, name)
+
+
+def test_a_burst_waiting_in_the_socket_is_read_entirely():
+    # 36 datagrams sent at once while the first is being decoded: the idle timer counts
+    # time spent waiting with no datagram, so decoding time must not end the run early.
+    _, enc = real_stream(600, 3)
+    frames = split_frames_of(enc.data)[:36]
+    sent = threading.Event()
+    dec = _SlowFirstDecode(codec.StreamDecoder(enc.profile), sent, busy_s=0.6)
+    port: list[int] = []
+    bound = threading.Event()
+    result: dict = {}
+
+    def ready(p):
+        port.append(p)
+        bound.set()
+
+    rx = threading.Thread(target=lambda: result.update(receive_frames(
+        dec, "127.0.0.1", 0, lambda b: None, duration_s=30.0, idle_s=0.2, ready=ready)))
+    rx.start()
+    assert bound.wait(10.0)
+    send_frames(frames, "127.0.0.1", port[0])
+    sent.set()
+    rx.join(40.0)
+    assert not rx.is_alive()
+    assert result["datagrams"] == 36 and result["frames_ok"] == 36
+    assert result["stopped"] == "idle"
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
+def test_a_signal_leaves_the_samples_received_and_a_report(tmp_path, sig):
+    # receive runs as its own process on port 0 and says which port it bound; it gets 90
+    # of 114 frames (the end, from the stream note, is then 24 frames away), writes samples
+    # while it runs, and on the signal finishes the output and the JSON report.
+    _, enc = real_stream(600, 3, n=16)
+    frames = split_frames_of(enc.data)
+    assert len(frames) == 114  # 38 windows x 3 channels, one frame each
+    note = tmp_path / "s.cwire.profile.toml"
+    save_stream_note(enc.profile, StreamNote(samples=600), note)
+    out, report = tmp_path / "rx.csv", tmp_path / "rx.json"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "codec.cli", "receive", "--udp", "127.0.0.1:0", "-p", str(note),
+         "-o", str(out), "--json", str(report), "--idle", "120", "--duration", "120"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        lines: queue.Queue = queue.Queue()
+        threading.Thread(target=lambda: [lines.put(s) for s in proc.stderr], daemon=True).start()
+        first = lines.get(timeout=60)
+        assert first.startswith("listening on 127.0.0.1:"), first
+        send_frames(frames[:90], "127.0.0.1", int(first.rsplit(":", 1)[1]))
+        # readable while it runs: released windows reach the file before any stop
+        deadline = time.monotonic() + 60
+        while out.read_text().count("\n") < 2 and time.monotonic() < deadline:
+            threading.Event().wait(0.02)
+        assert out.read_text().count("\n") >= 2
+        proc.send_signal(sig)
+        stdout, _ = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 0, stdout
+    got = np.loadtxt(out, delimiter=",", skiprows=1)
+    # reference: the batch decoder on the same 90 frames, the rest of the known end lost
+    ref = codec.decode(b"".join(frames[:90]), enc.profile, samples=600)
+    assert np.array_equal(got, ref.samples, equal_nan=True)
+    r = json.loads(report.read_text())
+    assert r["datagrams"] == 90 and r["stopped"] == signal.Signals(sig).name
+    assert r["samples_delivered"] == int(np.isfinite(ref.samples).sum())
+    assert r["samples_delivered"] + r["samples_lost"] == 600 * 3
+
+
+def test_port_zero_only_where_asked():
+    assert parse_endpoint("127.0.0.1:0", allow_any_port=True) == ("127.0.0.1", 0)
+    with pytest.raises(codec.InputError):
+        parse_endpoint("127.0.0.1:0")

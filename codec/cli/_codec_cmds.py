@@ -22,6 +22,7 @@ from .._io import (
     csv_decimals,
     is_stdio,
     read_samples,
+    sample_suffix,
     write_csv_block,
     write_samples,
 )
@@ -30,6 +31,8 @@ from .._layout import GAP_KIND
 from .._profile import (
     Profile,
     StreamNote,
+    check_channel_names,
+    check_note_fits,
     load_profile,
     load_stream_note,
     note_path,
@@ -38,12 +41,19 @@ from .._profile import (
 from .._progress import busy
 from .._quantize import step_from_code
 from .._report import channel_table, error_figures, pooled_label, units_of, with_unit
-from .._select import check_blocks
+from .._select import check_blocks, check_magnitude
 from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import StreamDecoder, StreamEncoder
 from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from .._timecol import describe_time, time_fields, time_values
-from ._common import add_profile_options, check_distinct, fmt, resolve_profile, write_json
+from ._common import (
+    add_profile_options,
+    check_paths,
+    fmt,
+    json_text,
+    resolve_profile,
+    write_json,
+)
 
 __all__ = ["register", "roundtrip_report", "decode_report", "write_stream"]
 
@@ -144,23 +154,33 @@ def _quiet_broken_pipe(handler):
 
 
 def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: str = "refuse",
-                 stuffing: str = "none"):
+                 stuffing: str = "none", json_path: str | Path | None = None,
+                 json_report=None):
     """Encode ``table`` and write the stream plus its recorded profile, atomically together.
 
     ``path`` ``-`` writes the stream to standard output (no profile file then).
+    With ``json_path``, ``json_report(result)`` is written there in the same
+    commit: when any of the files cannot be written, none is.
     """
     result = encode(table.values, profile, gaps=gaps)
     data = _stuff(result.data, stuffing)
-    if is_stdio(path):
-        sys.stdout.buffer.write(data)
-        sys.stdout.buffer.flush()
-        return result
     note = _note_for(table)
     if stuffing != "none":
         note = note.model_copy(update={"stuffing": stuffing})
     with contextlib.ExitStack() as stack:
-        tmp_stream = stack.enter_context(atomic_output(path))
-        tmp_note = stack.enter_context(atomic_output(note_path(path)))
+        # every temporary file is made (so every folder is checked) before any is renamed
+        tmp_json = stack.enter_context(atomic_output(json_path)) if json_path else None
+        if is_stdio(path):
+            tmp_stream = tmp_note = None
+        else:
+            tmp_stream = stack.enter_context(atomic_output(path))
+            tmp_note = stack.enter_context(atomic_output(note_path(path)))
+        if tmp_json is not None:
+            tmp_json.write_text(json_text(json_report(result)), encoding="utf-8")
+        if tmp_stream is None:
+            sys.stdout.buffer.write(data)
+            sys.stdout.buffer.flush()
+            return result
         tmp_stream.write_bytes(data)
         save_stream_note(result.profile, note, tmp_note)
     return result
@@ -188,19 +208,23 @@ def per_frame_table(frames: dict, fidelity: np.ndarray | None = None,
 def _encode(args) -> int:
     if is_stdio(args.input):
         return _encode_live(args)
-    if not is_stdio(args.output):
-        check_distinct(args.input, args.output)
+    _check_encode_paths(args)
     table = read_samples(args.input, allow_gaps=args.gaps != "refuse")
+    # what the stream's own profile could not hold or the quantizer code, named by file
+    check_channel_names(table.names, args.input)
+    check_magnitude(table.values, table.names, args.input)
     profile = resolve_profile(args, table.names)
+    stuffing = args.stuffing or "none"
     with busy(f"encoding {table.values.shape[0]} samples x {table.values.shape[1]} channels"):
-        result = write_stream(args.output, table, profile, args.gaps, args.stuffing or "none")
-    tf = time_fields(table.time) if table.time is not None else {}
-    kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
-                                   ("regular", "time_start_ticks")) if key in tf), None)
-    write_json(args.json, {**result.report, "time_column": {
-        "name": table.time_name if tf else None, "kept": kept,
-        "resolution": 10.0 ** -tf["time_decimals"] if "time_decimals" in tf else None},
-        "per_frame": per_frame_table(result.frames)})
+        tf = time_fields(table.time) if table.time is not None else {}
+        kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
+                                       ("regular", "time_start_ticks")) if key in tf), None)
+        time_column = {"name": table.time_name if tf else None, "kept": kept,
+                       "resolution": 10.0 ** -tf["time_decimals"] if "time_decimals" in tf
+                       else None}
+        result = write_stream(args.output, table, profile, args.gaps, stuffing, args.json,
+                              lambda r: {**r.report, "time_column": time_column,
+                                         "per_frame": per_frame_table(r.frames)})
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
@@ -233,6 +257,15 @@ def print_channel_figures(r: dict, out=None) -> None:
     print("\n".join(channel_figure_lines(r)), file=out or sys.stdout)
 
 
+def _check_encode_paths(args, profile: Profile | None = None) -> None:
+    """No output of ``encode`` may name one of its inputs (or another output)."""
+    check_paths({"input": args.input, "profile": args.profile,
+                 "basis file": profile.basis_file if profile else None},
+                {"output": args.output,
+                 "recorded profile": None if is_stdio(args.output) else note_path(args.output),
+                 "--json report": args.json})
+
+
 def _stuff(data: bytes, stuffing: str) -> bytes:
     """Wrap each frame of a clean stream in a SLIP or COBS packet."""
     if stuffing == "none":
@@ -245,6 +278,7 @@ def _encode_live(args) -> int:
     reader = CsvBlockReader(sys.stdin.buffer)
     to_stdout = is_stdio(args.output)
     info = sys.stderr if to_stdout else sys.stdout
+    _check_encode_paths(args)
     enc = None
     with contextlib.ExitStack() as stack:
         if to_stdout:
@@ -255,6 +289,7 @@ def _encode_live(args) -> int:
         for values, _time in reader.blocks():
             if enc is None:
                 profile = resolve_profile(args, reader.names)
+                _check_encode_paths(args, profile)
                 enc = StreamEncoder(profile, len(reader.names), gaps=args.gaps)
             sink.write(_stuff(enc.feed(values), args.stuffing or "none"))
             sink.flush()
@@ -284,9 +319,19 @@ def _note_for(table: SampleTable) -> StreamNote:
                       time_name=table.time_name if fields else None, **fields)
 
 
+def _check_decode_paths(args, profile: Profile | None = None) -> None:
+    """No output of ``decode`` may name one of its inputs (or another output)."""
+    stream = None if is_stdio(args.stream) else args.stream
+    check_paths({"stream": stream, "profile": args.profile,
+                 "recorded profile": note_path(stream) if stream else None,
+                 "basis file": profile.basis_file if profile else None},
+                {"output": args.output, "--json report": args.json})
+    if not is_stdio(args.output):
+        sample_suffix(args.output)
+
+
 def _decode(args) -> int:
-    if not is_stdio(args.stream) and not is_stdio(args.output):
-        check_distinct(args.stream, args.output)
+    _check_decode_paths(args)
     if is_stdio(args.stream) and not args.profile:
         raise InputError("a stream on standard input has no recorded profile; pass -p PROFILE",
                          "standard input")
@@ -298,6 +343,11 @@ def _decode(args) -> int:
     if not profile.channels:
         raise InputError("the profile lists no channels, so the stream's columns are unknown; "
                          "use the profile recorded beside the stream", args.profile)
+    _check_decode_paths(args, profile)
+    if not is_stdio(args.stream):
+        with contextlib.suppress(OSError):  # an unreadable stream is reported when read
+            check_note_fits(note, os.stat(args.stream).st_size, profile,
+                            str(note_path(args.stream)))
     stuffing = args.stuffing or (note.stuffing if note and note.stuffing else "none")
     with contextlib.ExitStack() as stack:
         if not is_stdio(args.stream):  # a live pipeline shows its own pace
@@ -307,14 +357,20 @@ def _decode(args) -> int:
             "standard input" if is_stdio(args.stream) else args.stream)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
-    if not is_stdio(args.output):
-        values = (np.concatenate([b.samples for b in blocks]) if blocks
-                  else np.zeros((0, len(names))))
-        time = time_values(note, 0, values.shape[0])
-        write_samples(args.output, SampleTable(
-            values, names, time, note.time_name or "time" if note else "time",
-            decimals=_decimals(profile), time_decimals=note.time_decimals if note else None))
-    write_json(args.json, report)
+    with contextlib.ExitStack() as stack:
+        # both temporary files exist before either is renamed: all or nothing
+        tmp_json = stack.enter_context(atomic_output(args.json)) if args.json else None
+        if not is_stdio(args.output):
+            tmp_out = stack.enter_context(atomic_output(args.output))
+            values = (np.concatenate([b.samples for b in blocks]) if blocks
+                      else np.zeros((0, len(names))))
+            time = time_values(note, 0, values.shape[0])
+            write_samples(args.output, SampleTable(
+                values, names, time, note.time_name or "time" if note else "time",
+                decimals=_decimals(profile),
+                time_decimals=note.time_decimals if note else None), tmp_out)
+        if tmp_json is not None:
+            tmp_json.write_text(json_text(report), encoding="utf-8")
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     c = report
     gapf = f" ({c['gap_frames_ok']} with gap masks)" if c["gap_frames_ok"] else ""
@@ -449,7 +505,9 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
             blocks.extend(new)
 
     head = bytearray()  # the stream's first bytes, to name a stuffing nobody asked to undo
+    got = 0
     for chunk in chunks:
+        got += len(chunk)
         if len(head) < SNIFF_BYTES:
             head += chunk[: SNIFF_BYTES - len(head)]
         if unstuff is None:
@@ -457,6 +515,8 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         else:
             for packet in unstuff.feed(chunk):
                 take(dec.feed(packet))
+    # closing fills every sample up to the note's count: not beyond what the bytes carry
+    check_note_fits(note, got, profile, "stream note")
     if unstuff is not None:
         for packet in unstuff.close():
             take(dec.feed(packet))
@@ -534,8 +594,10 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
 
 
 def _roundtrip(args) -> int:
+    check_paths({"input": args.input, "profile": args.profile}, {"--json report": args.json})
     table = read_samples(args.input)
     profile = resolve_profile(args, table.names)
+    check_paths({"basis file": profile.basis_file}, {"--json report": args.json})
     with busy(f"encoding and decoding {table.values.shape[0]} samples x "
               f"{table.values.shape[1]} channels"):
         report, ok, _ = roundtrip_report(table.values, profile)

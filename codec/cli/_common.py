@@ -5,15 +5,17 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 from pathlib import Path
 
 import numpy as np
 
 from .._errors import InputError, ProfileError
-from .._io import atomic_output
+from .._io import atomic_output, is_stdio
 from .._profile import Profile, default_profile, load_profile
 
-__all__ = ["add_profile_options", "resolve_profile", "write_json", "fmt", "json_ready"]
+__all__ = ["add_profile_options", "resolve_profile", "write_json", "fmt", "json_ready",
+           "check_distinct", "check_paths", "json_text"]
 
 
 def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = None) -> None:
@@ -81,7 +83,12 @@ def write_json(path: str | Path | None, report: dict) -> None:
     if path is None:
         return
     with atomic_output(path) as tmp:
-        Path(tmp).write_text(json.dumps(json_ready(report), indent=2) + "\n", encoding="utf-8")
+        Path(tmp).write_text(json_text(report), encoding="utf-8")
+
+
+def json_text(report: dict) -> str:
+    """``report`` as the JSON text the commands write (for a caller committing it with others)."""
+    return json.dumps(json_ready(report), indent=2) + "\n"
 
 
 def fmt(value, spec: str = ".3f", none: str = "n/a") -> str:
@@ -91,6 +98,36 @@ def fmt(value, spec: str = ".3f", none: str = "n/a") -> str:
 
 def check_distinct(inp: str | Path, out: str | Path) -> None:
     """Refuse to overwrite the input with the output."""
-    if Path(inp).resolve() == Path(out).resolve():
-        raise InputError("the output would overwrite the input; name another output file",
-                         str(out))
+    check_paths({"input": inp}, {"output": out})
+
+
+def _same(a: Path, b: Path) -> bool:
+    """Whether two paths name one file: equal after resolving links, or one inode."""
+    if a.resolve() == b.resolve():
+        return True
+    try:
+        return os.path.samefile(a, b)  # hard links, bind mounts
+    except OSError:  # either does not exist yet
+        return False
+
+
+def check_paths(inputs: dict, outputs: dict) -> None:
+    """Refuse any output that names an input or another output (links resolved).
+
+    ``inputs`` and ``outputs`` map a label ("the profile", "--json") to a path;
+    ``None`` and ``-`` (standard input/output) are skipped.  Called before any
+    work, so a refused run writes nothing and reads nothing twice.
+    """
+    def real(items: dict) -> list[tuple[str, Path]]:
+        return [(k, Path(v)) for k, v in items.items() if v is not None and not is_stdio(v)]
+
+    ins, outs = real(inputs), real(outputs)
+    for i, (label, out) in enumerate(outs):
+        for what, inp in ins:
+            if _same(inp, out):
+                raise InputError(f"the {label} would overwrite the {what} ({inp}); name "
+                                 "another file", str(out))
+        for other, out2 in outs[i + 1:]:
+            if _same(out, out2):
+                raise InputError(f"the {label} and the {other} name the same file; name two "
+                                 "different files", str(out))

@@ -34,9 +34,16 @@ from .._batch import (
 )
 from .._errors import CoefwireError, FrameError, InputError
 from .._io import atomic_output
-from .._profile import Profile, StreamNote, load_stream_note, note_path, profile_id
+from .._profile import (
+    Profile,
+    StreamNote,
+    check_note_fits,
+    load_stream_note,
+    note_path,
+    profile_id,
+)
 from .._stream import locate_frames
-from ._common import check_distinct, write_json
+from ._common import check_paths, json_text
 
 __all__ = ["register", "DEFAULT_CAP_BYTES"]
 
@@ -136,7 +143,9 @@ def _pack_dict(args) -> int:
     streams: list[bytes] = []
     frames = 0
     for path in args.streams:
-        check_distinct(path, args.output)
+        check_paths({"stream": path, "recorded profile": note_path(path)},
+                    {"output": args.output, "dictionary note": dictionary_note_path(args.output)})
+    for path in args.streams:
         data, profile, _ = _stream_and_note(path)
         frames += _frame_count(data, path)
         ids.setdefault(profile_id(profile), path)
@@ -179,14 +188,18 @@ def _load_dictionary(path: str, stream_profile_id: int) -> bytes:
 
 
 def _pack_cmd(args) -> int:
-    if args.output:
-        check_distinct(args.stream, args.output)
-        if args.dictionary:
-            check_distinct(args.dictionary, args.output)
+    check_paths({"stream": args.stream, "recorded profile": note_path(args.stream),
+                 "dictionary": args.dictionary,
+                 "dictionary note": dictionary_note_path(args.dictionary)
+                 if args.dictionary else None},
+                {"output": args.output,
+                 "pack's profile note": note_path(args.output) if args.output else None,
+                 "--json report": args.json})
     data, profile, extra = _stream_and_note(args.stream)
     if extra is None:
         raise InputError(f"{note_path(args.stream)} has no [stream] table, so the number of "
                          "samples is unknown; re-encode the stream to a file", args.stream)
+    check_note_fits(extra, len(data), profile, str(note_path(args.stream)))
     _frame_count(data, args.stream)
     dictionary = _load_dictionary(args.dictionary, profile_id(profile)) if args.dictionary \
         else None
@@ -202,14 +215,17 @@ def _pack_cmd(args) -> int:
         "zstd_dictionary_id": pack_dictionary_id(pack),
         "pack_written": write,
     })
-    if write:
-        note_bytes = note_path(args.stream).read_bytes()
-        with contextlib.ExitStack() as stack:
+    with contextlib.ExitStack() as stack:
+        # every temporary file exists before any is renamed: all or nothing
+        tmp_json = stack.enter_context(atomic_output(args.json)) if args.json else None
+        if write:
+            note_bytes = note_path(args.stream).read_bytes()
             tmp_pack = stack.enter_context(atomic_output(args.output))
             tmp_note = stack.enter_context(atomic_output(note_path(args.output)))
             tmp_pack.write_bytes(pack)
             tmp_note.write_bytes(note_bytes)
-    write_json(args.json, report)
+        if tmp_json is not None:
+            tmp_json.write_text(json_text(report), encoding="utf-8")
     r = report
     dict_text = (f"dictionary id {r['zstd_dictionary_id']} ({r['dictionary_bytes']} bytes, held "
                  "by both ends, not counted)" if dictionary else "no dictionary")
@@ -228,11 +244,14 @@ def _pack_cmd(args) -> int:
 def _unpack_cmd(args) -> int:
     if args.max_bytes < 1:
         raise InputError("--max-bytes must be at least 1", "command line")
-    check_distinct(args.pack, args.output)
+    check_paths({"pack": args.pack, "pack's profile note": note_path(args.pack),
+                 "dictionary": args.dictionary,
+                 "dictionary note": dictionary_note_path(args.dictionary)
+                 if args.dictionary else None},
+                {"output": args.output, "recorded profile": note_path(args.output)})
     pack = _read(args.pack, "pack")
     dictionary = None
     if args.dictionary:
-        check_distinct(args.dictionary, args.output)
         dictionary = _read(args.dictionary, "dictionary")
         with _at(args.dictionary):
             dictionary_id(dictionary)
@@ -249,7 +268,9 @@ def _unpack_cmd(args) -> int:
     note_src = note_path(args.pack)
     note_bytes = None
     if note_src.is_file():
-        load_stream_note(note_src)  # a readable profile note, or one sentence now
+        # a readable profile note whose sample count the stream can carry, or one sentence now
+        profile, extra = load_stream_note(note_src)
+        check_note_fits(extra, len(data), profile, str(note_src))
         note_bytes = note_src.read_bytes()
     with contextlib.ExitStack() as stack:
         tmp_stream = stack.enter_context(atomic_output(args.output))
