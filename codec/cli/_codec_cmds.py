@@ -410,6 +410,16 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
         "decoded_check": "error energy per frame recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
+    # per channel too: the figures of the decoded samples, not the encoder's
+    report["per_channel"] = per = {k: dict(v) for k, v in report["per_channel"].items()}
+    for c, name in enumerate(per):
+        sel = info["channel"] == c
+        judged_c = fidelity[sel & ~info["floor"]]
+        per[name].update({
+            "fidelity_min": float(judged_c.min()) if judged_c.size else None,
+            "fidelity_mean": float(judged_c.mean()) if judged_c.size else None,
+            "frames_below_target": int((~met[sel]).sum()),
+            **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1])})
     report["per_frame"] = per_frame_table({**info, "met": met}, fidelity)
     return report, bool(met.all()), dec
 
