@@ -39,7 +39,8 @@ def register_receive(sub) -> None:
                        "samples to OUTPUT (.csv; - for standard output) as windows complete. "
                        "Stops when the stream's known end is reached, after --duration seconds, "
                        "or --idle seconds after the last datagram.")
-    p.add_argument("--udp", required=True, metavar="HOST:PORT")
+    p.add_argument("--udp", required=True, metavar="HOST:PORT",
+                   help="where to listen (port 0: a free port, printed once bound)")
     p.add_argument("-p", "--profile", required=True, metavar="PROFILE",
                    help="the stream's profile (STREAM.profile.toml also gives its length)")
     p.add_argument("-o", "--output", required=True, metavar="OUTPUT")
@@ -68,7 +69,7 @@ def _send(args) -> int:
 
 
 def _receive(args) -> int:
-    host, port = parse_endpoint(args.udp)
+    host, port = parse_endpoint(args.udp, any_port=True)
     profile, note = load_stream_note(args.profile)
     if not profile.channels:
         raise InputError("the profile lists no channels; use the one recorded beside the stream",
@@ -91,7 +92,11 @@ def _receive(args) -> int:
             write_csv_block(sink, block.samples)
             sink.flush()
 
-        counts = receive_frames(decoder, host, port, on_block, args.duration, args.idle)
+        def ready(bound: int) -> None:  # port 0 picks a free port: say which one
+            print(f"listening on {host}:{bound}", file=info, flush=True)
+
+        counts = receive_frames(decoder, host, port, on_block, args.duration, args.idle,
+                                ready=ready)
     counts["channels"] = len(names)
     counts["events"] = decoder.events
     write_json(args.json, counts)

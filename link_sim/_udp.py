@@ -23,10 +23,14 @@ __all__ = ["parse_endpoint", "split_frames_of", "send_frames", "receive_frames",
 _MAX_DATAGRAM = 65535
 
 
-def parse_endpoint(text: str) -> tuple[str, int]:
-    """``HOST:PORT`` -> (host, port); a clear error for anything else."""
+def parse_endpoint(text: str, any_port: bool = False) -> tuple[str, int]:
+    """``HOST:PORT`` -> (host, port); a clear error for anything else.
+
+    ``any_port``: a listener may give port 0 (the system picks a free port).
+    """
     host, sep, port = text.rpartition(":")
-    if not sep or not host or not port.isdigit() or not 0 < int(port) < 65536:
+    lowest = 0 if any_port else 1
+    if not sep or not host or not port.isdigit() or not lowest <= int(port) < 65536:
         raise InputError(f"{text!r} is not HOST:PORT (e.g. 127.0.0.1:47000)", "--udp")
     return host.strip("[]"), int(port)
 

@@ -8,6 +8,7 @@ import json
 import numpy as np
 import pytest
 import scipy.signal
+from checks import assert_png_is_a_picture
 from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
 
 import codec
@@ -129,5 +130,6 @@ def test_compare_command_writes_json_csv_png(tmp_path, capsys):
         rows = list(csv.DictReader(fh))
     assert len(rows) == len(report["rows"]) and set(REQUIRED) <= set(rows[0])
     assert out["png"].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (RFC 2083)
+    assert_png_is_a_picture(out["png"])
     bad = main(["compare", str(src), "--fidelity", "0.9,x", "--json", str(tmp_path / "b.json")])
     assert bad == 2 and not (tmp_path / "b.json").exists()
