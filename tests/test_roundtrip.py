@@ -24,10 +24,15 @@ def _structured(rng, samples, channels):
     return x + 0.01 * rng.normal(size=x.shape)
 
 
+# Every frame layout (1-4), with one or several windows and channels per frame: the budget
+# is recomputed by the independent checker whatever the layout does.
 profiles = st.builds(
-    lambda basis, n, f, ref: codec.Profile(basis=basis, frame_length=n, fidelity=f, reference=ref),
+    lambda basis, n, f, ref, layout, w, multi: codec.Profile(
+        basis=basis, frame_length=n, fidelity=f, reference=ref, layout_version=layout,
+        windows_per_frame=w, multi_channel_frames=multi and layout > 1),
     st.sampled_from(BUILTIN), st.sampled_from([8, 16, 32, 64]),
-    st.sampled_from([0.5, 0.9, 0.99, 0.999, 1.0]), st.sampled_from(["total", "ac"]))
+    st.sampled_from([0.5, 0.9, 0.99, 0.999, 1.0]), st.sampled_from(["total", "ac"]),
+    st.sampled_from([1, 2, 3, 4]), st.sampled_from([1, 3, 8]), st.booleans())
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
