@@ -6,8 +6,11 @@ import sys
 
 import numpy as np
 import pytest
+from checks import assert_png_is_a_picture
 from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
+from verify import budget_blocks, check_report
 
+import codec
 from codec._stream import locate_frames
 from codec.cli import main
 
@@ -58,8 +61,53 @@ def test_encode_decode_inspect(sample_csv, tmp_path, capsys):
 
 
 def test_roundtrip_exit_codes_and_overrides(sample_csv, tmp_path):
+    rep = tmp_path / "r.json"
     assert main(["roundtrip", str(sample_csv), "--basis", "walsh", "--fidelity", "0.999",
-                 "--reference", "total", "--frame-length", "32"]) == 0
+                 "--reference", "total", "--frame-length", "32", "--json", str(rep)]) == 0
+    # the figures of the report, recomputed by the independent checker (tests/verify.py)
+    x = np.loadtxt(sample_csv, delimiter=",", skiprows=1)[:, 1:]
+    profile = codec.Profile(basis="walsh", fidelity=0.999, reference="total",
+                            frame_length=32).bind(["temp", "vib"])
+    enc = codec.encode(x, profile)
+    x_hat = codec.decode(enc.data, enc.profile, samples=x.shape[0]).samples
+    check_report(json.loads(rep.read_text()), x, x_hat, profile, len(enc.data))
+
+
+def test_roundtrip_exits_1_and_names_exactly_the_frames_that_miss(sample_csv, tmp_path,
+                                                                  monkeypatch):
+    # A decoder that hands back two windows spoiled by known amounts (a check that
+    # fails): window 1 of 'temp' with 1.5 times its budget of error energy, window 2 of
+    # 'vib' with half of its budget.  The budgets are recomputed here from the input and
+    # the profile alone (tests/verify.py), never read from the encoder.
+    from codec.cli import _codec_cmds
+
+    x = np.loadtxt(sample_csv, delimiter=",", skiprows=1)[:, 1:]
+    profile = codec.default_profile().bind(["temp", "vib"])
+    budget = budget_blocks(x, x, profile).budget.reshape(-1, 2)  # (window, channel)
+    n = profile.frame_length
+    spoil = {(1, 0): 1.5, (2, 1): 0.5}
+    real_decode = _codec_cmds.decode
+
+    def spoiled(data, prof, samples=None, **kw):
+        d = real_decode(data, prof, samples=samples, **kw)
+        d.samples = d.samples.copy()
+        for (w, c), k in spoil.items():
+            # a constant offset d over N samples has error energy N d^2 = k * budget
+            d.samples[w * n:(w + 1) * n, c] = x[w * n:(w + 1) * n, c] + np.sqrt(
+                k * budget[w, c] / n)
+        return d
+
+    monkeypatch.setattr(_codec_cmds, "decode", spoiled)
+    rep = tmp_path / "r.json"
+    assert main(["roundtrip", str(sample_csv), "--json", str(rep)]) == 1
+    report = json.loads(rep.read_text())
+    assert report["frames_below_target"] == 1
+    pf = report["per_frame"]
+    missed = [(w, c) for w, c, m in zip(pf["window"], pf["channel"], pf["met"]) if not m]
+    assert missed == [(1, 0)]
+    x_hat = spoiled(codec.encode(x, profile).data, profile, samples=x.shape[0]).samples
+    blocks = check_report(report, x, x_hat, profile, len(codec.encode(x, profile).data))
+    assert blocks.fidelity[1 * 2 + 0] < 0.99 < blocks.fidelity[2 * 2 + 1]
 
 
 def test_roundtrip_on_real_data_every_basis(tmp_path):
@@ -72,8 +120,13 @@ def test_roundtrip_on_real_data_every_basis(tmp_path):
         code = main(["roundtrip", str(path), "--fidelity", "0.99", "--reference", "ac",
                      "--basis", basis, "--json", str(rep)])
         assert code == 0
-        r = json.loads(rep.read_text())
-        assert r["frames_below_target"] == 0 and r["fidelity_min"] >= 0.99
+        # recomputed from the input and the decoded samples by the independent checker
+        profile = codec.Profile(basis=basis, fidelity=0.99).bind(BASIC_MOTIONS_CHANNELS)
+        x = np.loadtxt(path, delimiter=",", skiprows=1)
+        enc = codec.encode(x, profile)
+        x_hat = codec.decode(enc.data, enc.profile, samples=x.shape[0]).samples
+        blocks = check_report(json.loads(rep.read_text()), x, x_hat, profile, len(enc.data))
+        assert blocks.met.all()
 
 
 BAD_CSV = [
@@ -166,7 +219,8 @@ def test_demo_runs(tmp_path, capsys):
     assert (tmp_path / "orbiter_hk.decoded.csv").is_file()
     assert main(["demo", "--out", str(tmp_path), "--scenario", "orbiter_hk"]) == 0
     assert "bases compared" in capsys.readouterr().out
-    assert (tmp_path / "orbiter_hk.compare.png").stat().st_size > 10_000
+    assert_png_is_a_picture(tmp_path / "orbiter_hk.compare.png")
+
 
 
 def test_packed_profiles_match_profiles_folder():

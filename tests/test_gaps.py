@@ -146,3 +146,38 @@ def test_gap_frame_parser_bounds_every_count():
     body = np.packbits(bits).tobytes()[2:-2]
     forged = two[:2] + body + crc16_ibm3740(body).to_bytes(2, "big")
     assert parse_gap_frame(forged, 8, 1).startswith("gap frame runs overlap")
+
+
+@pytest.mark.parametrize("inner", [False, True], ids=["masks-only", "wrapping-data"])
+def test_a_foreign_gap_frame_is_refused(inner):
+    # The sender's truth: 8 windows x 2 channels, one window per frame, frames in window-
+    # major order (FRAME_LAYOUT.md), so frame 2 w + c carries window w of channel c.  The
+    # frame of window 3, channel 0 is replaced by a gap-mask frame (masks only, or wrapping
+    # that very data frame) whose profile field names another profile: the decoder must
+    # refuse it whole, so those 32 samples are lost, never marked as gaps nor delivered.
+    # The same gap frame under our own profile id is accepted (the control).
+    x = basic_motions("train")[:256, :2]
+    enc = codec.encode(x, codec.Profile(frame_length=32, windows_per_frame=1))
+    frames = [enc.data[o : o + n] for o, n in zip(locate_frames(enc.data).offsets.tolist(),
+                                                  locate_frames(enc.data).lengths.tolist())]
+    assert len(frames) == 16
+    mask = np.zeros(32, bool)
+    mask[:32 if not inner else 5] = True
+    ours = codec.profile_id(enc.profile)
+    other = codec.profile_id(enc.profile.model_copy(update={"fidelity": 0.5}))
+    assert other != ours
+    rows = slice(96, 128)
+    for pid in (ours, other):
+        gap = pack_gap_frame(pid, 3, 32, [(0, mask)], frames[6] if inner else b"", 32)
+        dec = codec.decode(b"".join(frames[:6] + [gap] + frames[7:]), enc.profile,
+                           samples=256)
+        want = np.full(x.shape, codec.DELIVERED, np.uint8)
+        if pid == ours:
+            want[rows, 0] = np.where(mask, codec.GAP, codec.DELIVERED)
+            assert dec.counts["gap_frames_ok"] == 1
+        else:
+            want[rows, 0] = codec.LOST
+            assert dec.counts["frames_foreign_profile"] == 1 and dec.counts["gap_frames_ok"] == 0
+        np.testing.assert_array_equal(dec.status, want)
+        ok = want == codec.DELIVERED
+        np.testing.assert_array_equal(dec.samples[ok], enc.reconstruction[ok])

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from streams import assert_accounting
 
 import codec
 from codec import FrameError
@@ -180,17 +181,41 @@ def _forge(payload: bytes) -> bytes:
     return b"\xe3\x5a" + body + binascii.crc_hqx(body, 0xFFFF).to_bytes(2, "big")
 
 
+_FORGE_X = np.cumsum(np.random.default_rng(4).normal(size=(64, 2)), axis=0)
+_FORGE_ENC = codec.encode(_FORGE_X, Profile(frame_length=16))  # windows 0-3 of 8
+
+
 @settings(max_examples=150, deadline=None)
 @given(st.binary(min_size=1, max_size=120))
 def test_forged_frames_are_refused_or_decoded_never_crash(payload):
-    prof = Profile(frame_length=16).bind(["a", "b"])
-    # the right profile byte, so the payload parser itself faces the hostile bytes
-    data = _forge(bytes([codec.profile_id(prof) & 0xFF]) + payload)
-    try:
-        dec = codec.decode(data, prof)
-    except FrameError:
-        return
+    # A real stream for windows 0-3, then a forged frame (right profile byte, so the payload
+    # parser itself faces the hostile bytes), decoded as a 128-sample stream.  Whatever the
+    # forgery, the real frames must come out exactly (a decoder that refuses everything
+    # fails here), every sample is accounted for, and a forged frame that is accepted
+    # delivers finite values only where no real frame was.
+    prof = _FORGE_ENC.profile
+    data = _FORGE_ENC.data + _forge(bytes([codec.profile_id(prof) & 0xFF]) + payload)
+    dec = codec.decode(data, prof, samples=128, strict=False)
+    assert_accounting(dec, 2)
+    assert (dec.status[:64] == codec.DELIVERED).all()
+    np.testing.assert_array_equal(dec.samples[:64], _FORGE_ENC.reconstruction)
     assert np.isfinite(dec.samples[dec.delivered]).all()
+    forged_ok = dec.counts["frames_ok"] - 8  # 4 windows x 2 channels are real
+    assert forged_ok in (0, 1)
+    assert (dec.status[64:] == codec.DELIVERED).any() == bool(forged_ok)
+
+
+def test_a_forged_copy_of_a_real_frame_is_accepted():
+    # The forging helper itself is sound: a real frame's payload, moved to window 6 and
+    # re-wrapped by _forge, decodes to that frame's values at window 6.
+    loc = locate_frames(_FORGE_ENC.data)
+    first = _FORGE_ENC.data[loc.offsets[0] : loc.offsets[0] + loc.lengths[0]]
+    payload = bytearray(first[4:-2])
+    payload[1] = 6  # the sequence byte (window 6)
+    prof = _FORGE_ENC.profile
+    dec = codec.decode(_FORGE_ENC.data + _forge(bytes(payload)), prof, samples=128)
+    assert dec.counts["frames_ok"] == 9
+    np.testing.assert_array_equal(dec.samples[96:112, 0], _FORGE_ENC.reconstruction[:16, 0])
 
 
 @pytest.mark.parametrize("fidelity", [0.5, 0.95, 0.9999])

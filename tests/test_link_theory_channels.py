@@ -6,9 +6,14 @@ import math
 
 import numpy as np
 import pytest
+from realdata import basic_motions
 from scipy import stats
+from scipy.special import erfc
 
+import codec
+from codec._stream import locate_frames
 from link_sim import (
+    ChannelConfig,
     GilbertElliott,
     awgn,
     ber_bpsk,
@@ -17,7 +22,9 @@ from link_sim import (
     erase_frames,
     gilbert_elliott,
     qfunc,
+    simulate,
 )
+from link_sim._fec import make_code
 
 
 def test_qfunc_matches_scipy_normal_tail():
@@ -111,3 +118,28 @@ def test_gilbert_elliott_mean_burst_length():
 def test_erasure_rate():
     keep = erase_frames(200_000, 0.1, np.random.default_rng(0))
     assert _within_se(int((~keep).sum()), keep.size, 0.1)
+
+
+@pytest.mark.parametrize("fec", ["none", "hamming74", "rs255", "conv"])
+def test_simulator_theory_columns_charge_the_code_rate(fec):
+    # The simulator's theory column: with Eb the energy per codec bit and r codec bits per
+    # bit on air, each channel bit carries r Eb, so coherent BPSK errs at
+    # P = Q(sqrt(2 r Eb/N0)) = erfc(sqrt(r Eb/N0)) / 2 (Proakis & Salehi, 5th ed., sec. 4.3;
+    # erfc from scipy.special).  r is counted here from the bits the code actually puts on
+    # air, and the measured channel BER must agree with that P within 4 binomial standard
+    # errors; an uncoded frame survives only if all its bits do.
+    x = basic_motions("train")[:1024, :3]
+    enc = codec.encode(x, codec.Profile(frame_length=64))
+    ebn0_db = 4.0
+    r = simulate(x, enc.profile, ChannelConfig("awgn", ebn0_db=ebn0_db), fec=fec, trials=1,
+                 seed=7, enc=enc)
+    air = make_code(fec).encode(np.frombuffer(enc.data, np.uint8)).size
+    rate = 8 * len(enc.data) / air
+    assert (rate == 1.0) == (fec == "none")
+    p = 0.5 * erfc(math.sqrt(rate * 10 ** (ebn0_db / 10)))
+    assert r["ber_channel_theory"] == pytest.approx(p, rel=1e-12)
+    assert _within_se(round(r["ber_channel"] * air), air, p, k=4.0)
+    if fec == "none":
+        bits = 8 * locate_frames(enc.data).lengths
+        assert r["frame_error_rate_theory"] == pytest.approx(np.mean(1 - (1 - p) ** bits),
+                                                             rel=1e-12)

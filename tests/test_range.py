@@ -186,5 +186,11 @@ def test_a_corrupt_lane_is_flagged_or_decodes_to_something_bounded():
     data, length, start = _lanes(q, count, lane)
     bad_data = data.copy()
     bad_data[start[1]] ^= 0xFF
+    _, _, clean_reads = R.decode_coefficients(data, start, start + length, lane, count, 16)
     got, bad, reads = R.decode_coefficients(bad_data, start, start + length, lane, count, 16)
     assert np.array_equal(got[[0, 2, 3]], q[[0, 2, 3]])  # the other lanes are untouched
+    assert np.array_equal(reads[[0, 2, 3]], clean_reads[[0, 2, 3]])
+    # and the damaged lane shows it: other values, and flagged impossible or reading
+    # another number of bytes than its clean self (which the layout's length check refuses)
+    assert not np.array_equal(got[1], q[1])
+    assert bad[1] or reads[1] != clean_reads[1]

@@ -3,18 +3,24 @@
 Prints figures only (no pass/fail): uncoded BSC and AWGN BPSK on 20 M bits
 (target >= 20 M bits/s, channel plus error count), RS(255,223) codewords and
 coefwire frames per second (encode + decode) on a clean and a noisy channel,
-and the K=7 Viterbi decoder's information bits per second.
+and the K=7 Viterbi decoder's information bits per second.  The frame size is
+measured: the input is encoded under the profile and its frames are counted.
 
-Usage: python tools/bench_link.py [--bits N]
+Usage: python tools/bench_link.py [--bits N] [--input FILE] [-p PROFILE]
+(default: the shipped orbiter housekeeping demo under the built-in default profile)
 """
 
 from __future__ import annotations
 
 import argparse
 import time
+from pathlib import Path
 
 import numpy as np
 
+import codec
+from codec._io import read_samples
+from codec._stream import locate_frames
 from link_sim import awgn, bsc
 from link_sim._fec import Convolutional, ReedSolomon255
 
@@ -31,7 +37,19 @@ def _best(fn, repeat=3) -> float:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--bits", type=int, default=20_000_000)
+    ap.add_argument("--input", default=str(Path(codec.__file__).parent / "data" / "orbiter_hk.csv"),
+                    help="sample file whose frames set the frame size (default: demo data)")
+    ap.add_argument("-p", "--profile", help="profile TOML (default: the built-in profile)")
     args = ap.parse_args()
+    table = read_samples(args.input)
+    profile = (codec.load_profile(args.profile) if args.profile
+               else codec.default_profile()).bind(table.names)
+    enc = codec.encode(table.values, profile)
+    sizes = locate_frames(enc.data).lengths
+    frame_bytes = float(sizes.mean())  # measured, not assumed
+    print(f"frames of {Path(args.input).name} under {args.profile or 'the default profile'} "
+          f"(layout {profile.layout_version}, N = {profile.frame_length}): {sizes.size} "
+          f"frames, mean {frame_bytes:.1f} bytes (min {sizes.min()}, max {sizes.max()})")
     rng = np.random.default_rng(0)
     bits = rng.integers(0, 2, args.bits, dtype=np.uint8)
 
@@ -48,7 +66,6 @@ def main() -> None:
     rs = ReedSolomon255(1)
     data = rng.integers(0, 256, 223 * 400, dtype=np.uint8)  # 400 codewords
     air = rs.encode(data)
-    frame_bytes = 88  # mean coefwire frame of the BasicMotions default profile
     rate = data.size * 8 / air.size
     s_enc = _best(lambda: rs.encode(data), 2)
     for label, rx in (("clean", air), ("Eb/N0 6 dB", awgn(air, 6.0, rng, rate=rate)),
@@ -57,7 +74,7 @@ def main() -> None:
         _, st = rs.decode(rx, data.size)
         total = s + s_enc
         print(f"RS(255,223) {label:>11}: {400 / total:8.0f} codewords/s, "
-              f"{data.size / frame_bytes / total:8.0f} frames/s of {frame_bytes} bytes "
+              f"{data.size / frame_bytes / total:8.0f} frames/s of {frame_bytes:.0f} bytes "
               f"(encode {s_enc:.3f} s, decode {s:.3f} s, {st.codewords_failed} of 400 failed)")
 
     conv = Convolutional()

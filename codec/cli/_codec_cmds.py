@@ -568,7 +568,11 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
     blk = check_blocks(err, info["block"], info["block_budget"], info["block_reference_energy"])
     met = blk.met[info["block"]]
     report = dict(enc.report)
-    judged = blk.fidelity[~info["block_floor"]]
+    # every frame (one window of one channel) carries its budget block's fidelity, as in
+    # the encoder's report: the mean is over frames, the minimum over blocks alike
+    row_fid = blk.fidelity[info["block"]]
+    row_floor = info["block_floor"][info["block"]]
+    judged = row_fid[~row_floor]
     report.update({
         "fidelity_min": float(judged.min()) if judged.size else None,
         "fidelity_mean": float(judged.mean()) if judged.size else None,
@@ -578,15 +582,12 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
                          "recomputed from the decoded samples",
     })
     report.update(error_figures(values, dec.samples))
-    # each budget block belongs to one channel: judge the channels block by block
-    block_channel = np.zeros(blk.met.size, dtype=np.int64)
-    block_channel[info["block"]] = info["channel"]
     per = {}
     for c, (name, figs) in enumerate(report["per_channel"].items()):
-        mine = (block_channel == c) & ~info["block_floor"]
+        mine = (info["channel"] == c) & ~row_floor
         per[name] = {**figs, **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1]),
-                     "fidelity_min": float(blk.fidelity[mine].min()) if mine.any() else None,
-                     "fidelity_mean": float(blk.fidelity[mine].mean()) if mine.any() else None,
+                     "fidelity_min": float(row_fid[mine].min()) if mine.any() else None,
+                     "fidelity_mean": float(row_fid[mine].mean()) if mine.any() else None,
                      "frames_below_target": int((~met[info["channel"] == c]).sum())}
     report["per_channel"] = per
     report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)

@@ -1,0 +1,147 @@
+"""Accounting against the sender's truth: exact per-sample status, not only the sums.
+
+The test is the sender: it knows which frames it dropped, corrupted, duplicated
+or delayed, and which samples each frame carried.  Frame order on the wire is
+the one FRAME_LAYOUT.md states for single-channel frames: time groups of
+``windows_per_frame`` windows in order, and within a group the channels in
+profile order, so frame k carries channel k mod C of windows
+[(k div C) W, (k div C + 1) W).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from realdata import basic_motions
+
+import codec
+import link_sim._simulate as sim
+from codec._stream import locate_frames
+from link_sim import ChannelConfig, receive
+from link_sim._receiver import CONCEALED, DELIVERED, LOST
+
+N, SAMPLES, CHANNELS = 32, 640, 2  # 20 windows of 2 channels
+
+
+def _sender(windows_per_frame: int):
+    x = basic_motions("train")[:SAMPLES, :CHANNELS]
+    enc = codec.encode(x, codec.Profile(frame_length=N, windows_per_frame=windows_per_frame))
+    loc = locate_frames(enc.data)
+    frames = [enc.data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
+    assert len(frames) == CHANNELS * (SAMPLES // N) // windows_per_frame
+    return x, enc, frames
+
+
+def _carried(k: int, w: int) -> tuple[slice, int]:
+    """Rows and channel that frame ``k`` carries (the layout's frame order)."""
+    g, c = divmod(k, CHANNELS)
+    return slice(g * w * N, min((g + 1) * w * N, SAMPLES)), c
+
+
+def _flip_payload(frame: bytes) -> bytes:
+    b = bytearray(frame)
+    b[len(b) // 2] ^= 0x40  # a byte inside the frame: its CRC-16 fails
+    return bytes(b)
+
+
+@pytest.mark.parametrize("w", [1, 4])
+def test_decoder_status_is_exactly_what_the_sender_did(w):
+    x, enc, f = _sender(w)
+    nf = len(f)
+    drop, corrupt, dup, late = 5, 7, nf - 2, 2
+    # the wire: frame 'late' arrives after every other frame (more than 'reorder'
+    # = 8 windows late), frame 'dup' twice, frames 3 and 4 swapped (late but within reorder)
+    order = [k for k in range(nf) if k not in (drop, late)]
+    i3, i4 = order.index(3), order.index(4)
+    order[i3], order[i4] = 4, 3
+    wire = []
+    for k in order:
+        wire.append(_flip_payload(f[k]) if k == corrupt else f[k])
+        if k == dup:
+            wire.append(f[k])
+    wire.append(f[late])
+    dec = codec.decode(b"".join(wire), enc.profile, samples=SAMPLES, reorder=8, strict=False)
+    want = np.full((SAMPLES, CHANNELS), codec.DELIVERED, np.uint8)
+    for k in (drop, corrupt, late):
+        rows, c = _carried(k, w)
+        want[rows, c] = codec.LOST
+    np.testing.assert_array_equal(dec.status, want)
+    ok = want == codec.DELIVERED
+    np.testing.assert_array_equal(dec.samples[ok], enc.reconstruction[ok])
+    assert np.isnan(dec.samples[~ok]).all()
+    c = dec.counts
+    assert c["frames_crc_failed"] == 1  # frames on the wire (no header can be read)
+    # duplicates and late arrivals are counted in coded frames (one window of one channel,
+    # the README's unit for 'frames'): w of them per frame on the wire
+    assert c["frames_duplicate"] == w and c["frames_late"] == w
+    assert c["samples_lost"] == 3 * w * N and c["samples_delivered"] == ok.sum()
+
+
+def _link_case():
+    x, enc, f = _sender(1)
+    lengths = np.array([len(b) for b in f])
+    arrived = np.ones(len(f), bool)
+    arrived[[3, 10]] = False  # erased: never arrived
+    rx = bytearray(enc.data)
+    starts = np.cumsum(lengths) - lengths
+    rx[starts[7] + lengths[7] // 2] ^= 0x40  # CRC fails
+    # frame 12: a payload byte changed and its CRC recomputed, as a corrupted frame that
+    # passes CRC-16 by chance (about 2^-16): delivered, and counted as an undetected error
+    o, n = int(starts[12]), int(lengths[12])
+    rx[o + 10] ^= 0x01  # a coefficient byte (the header ends before byte 10)
+    rx[o + n - 2 : o + n] = codec.crc16_ibm3740(bytes(rx[o + 2 : o + n - 2])).to_bytes(2, "big")
+    return x, enc, bytes(rx), arrived, lengths
+
+
+@pytest.mark.parametrize("policy", ["none", "hold", "zero"])
+def test_receiver_status_is_exactly_what_the_link_did(policy):
+    x, enc, rx, arrived, lengths = _link_case()
+    rec = receive(rx, enc.data, arrived, lengths, enc.profile, SAMPLES, policy)
+    gone = np.zeros((SAMPLES, CHANNELS), bool)
+    for k in (3, 10, 7):
+        rows, c = _carried(k, 1)
+        gone[rows, c] = True
+    # none leaves them lost; hold and zero fill them (each lost span has a delivered
+    # sample before it in its channel, so hold can fill it too)
+    want = np.where(gone, LOST if policy == "none" else CONCEALED, DELIVERED)
+    np.testing.assert_array_equal(rec.status, want)
+    rows, c = _carried(12, 1)
+    wrong = np.zeros_like(gone)
+    wrong[rows, c] = True
+    good = ~gone & ~wrong
+    np.testing.assert_array_equal(rec.samples[good], enc.reconstruction[good])
+    assert not np.array_equal(rec.samples[wrong], enc.reconstruction[wrong])
+    if policy == "zero":
+        assert (rec.samples[gone] == 0).all()
+    assert rec.frames_delivered == len(lengths) - 3 and rec.crc_failures == 1
+    assert rec.frames_undetected_errors == 1 and rec.frames_rejected_header == 0
+
+
+def test_simulator_counts_are_what_the_link_did(monkeypatch):
+    # The simulator's own channel and erasures replaced by the test's: uncoded, frames 3
+    # and 10 erased, one bit flipped inside frame 7 (its CRC fails).  Every count of the
+    # trial must follow, including frames dropped by CRC (which the simulator derives).
+    x, enc, f = _sender(1)
+    lengths = np.array([len(b) for b in f])
+    bit = 8 * int(lengths[:7].sum() + lengths[7] // 2)
+
+    def channel(bits, cfg, rng, rate, soft):
+        out = bits.copy()
+        out[bit] ^= 1
+        return out
+
+    def erasures(count, loss_rate, rng):
+        keep = np.ones(count, bool)
+        keep[[3, 10]] = False
+        return keep
+
+    monkeypatch.setattr(sim, "transmit_bits", channel)
+    monkeypatch.setattr(sim, "erase_frames", erasures)
+    r = sim.run_trial(x, enc, sim.make_code("none"), ChannelConfig("bsc"),
+                      np.random.default_rng(0), policy="none")
+    assert r["frames_sent"] == len(f) and r["frames_erased"] == 2
+    assert r["frames_dropped_crc"] == 1 and r["frames_delivered"] == len(f) - 3
+    assert r["frames_undetected_errors"] == 0
+    assert r["samples_lost"] == 3 * N and r["samples_concealed"] == 0
+    assert r["samples_delivered"] == x.size - 3 * N
+    assert r["ber_post_fec"] == 1 / (8 * len(enc.data))
