@@ -5,7 +5,7 @@ frame layout -> bytes, and back in :func:`decode`.
 """
 
 from . import _wavelets  # noqa: F401  (registers db2..db10, sym4..sym8)
-from ._bases import Basis, as_basis, basis_from_code, basis_names, register_basis
+from ._bases import Basis, as_basis, basis_fingerprint, basis_from_code, basis_names, register_basis
 from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reconstruct
 from ._compare import Comparison, compare_bases, energy_compaction
 from ._crc import crc16_ibm3740, crc32_iso_hdlc
@@ -26,6 +26,7 @@ from ._streaming import StreamDecoder, StreamEncoder
 
 __all__ = [
     "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
+    "basis_fingerprint",
     "DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct",
     "Comparison", "compare_bases", "energy_compaction",
     "TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt",
