@@ -21,7 +21,15 @@ from ._profile import (
     save_profile,
 )
 from ._report import error_figures
-from ._stream import CONCEALED, DELIVERED, GAP, LOST, STATUS_NAMES
+from ._status import (
+    CONCEALED,
+    DELIVERED,
+    FIRST_FREE_STATUS,
+    GAP,
+    LOST,
+    STATUS_CODES,
+    STATUS_NAMES,
+)
 from ._streaming import StreamDecoder, StreamEncoder
 
 __all__ = [
@@ -36,4 +44,5 @@ __all__ = [
     "save_profile",
     "error_figures",
     "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
+    "FIRST_FREE_STATUS", "STATUS_CODES",
 ]

@@ -11,8 +11,9 @@ J. 29, 1950.  CCSDS 131.0-B, *TM Synchronization and Channel Coding* (Blue
 Book): RS(255,223) over GF(2^8) with field polynomial x^8+x^7+x^2+x+1,
 generator roots alpha^(11 j), j = 112..143, interleaving depth I, 32-bit
 attached sync marker 0x1ACFFC1D; convolutional code K=7, r=1/2, generators
-171/133 octal with the G2 output inverted (sec. 3.3).  A. J. Viterbi, "Error bounds for convolutional codes and an
-asymptotically optimum decoding algorithm", IEEE Trans. IT-13, 1967.
+171/133 octal with the G2 output inverted (sec. 3.3).  A. J. Viterbi, "Error
+bounds for convolutional codes and an asymptotically optimum decoding
+algorithm", IEEE Trans. IT-13, 1967.
 """
 
 from __future__ import annotations
