@@ -221,8 +221,8 @@ def _legendre(n: int) -> np.ndarray:
     points, with a positive leading coefficient.  Both constructions are
     three-term recurrences built from +, -, *, / and sqrt only:
 
-    * degrees below sqrt(n): the recurrence in the degree (Christoffel-Darboux
-      form in u = 2x + 1 - n), which is stable while t_k has no small tails;
+    * degrees below sqrt(n): the orthonormal recurrence in the degree, in
+      u = 2x + 1 - n, which is stable while t_k has no small tails;
     * higher degrees: the recurrence in x, run from the ends (where t_k is
       exponentially small) to the middle and mirrored by t_k(n-1-x) =
       (-1)^k t_k(x); in this direction the wanted solution is the growing one,
@@ -246,8 +246,9 @@ def _legendre(n: int) -> np.ndarray:
 
 def _gram_by_degree(n: int, rows: int) -> np.ndarray:
     # Orthonormal recurrence t_k = (u t_{k-1} - sqrt(b_{k-1}) t_{k-2}) / sqrt(b_k) with
-    # u = 2x + 1 - n and b_k = k^2 (n^2 - k^2) / (4 k^2 - 1), the recurrence coefficients
-    # of the discrete Chebyshev polynomials (Gautschi 2004, Table 1.2, scaled to u).
+    # u = 2x + 1 - n and b_k = k^2 (n^2 - k^2) / (4 k^2 - 1): the recurrence coefficients
+    # of the discrete Chebyshev polynomials (Gautschi 2004, ch. 1, written for u; from
+    # memory, and held by tests/test_bases_exact.py against exact integer arithmetic).
     u = 2.0 * np.arange(n) + 1.0 - n
     out = np.empty((rows, n))
     out[0] = np.sqrt(1.0 / n)
@@ -265,7 +266,7 @@ _SCALE = 500  # rescale by 2**±500: far from both overflow (2**1024) and underf
 
 
 def _gram_by_position(n: int, first: int) -> np.ndarray:
-    # Mukundan (2004), eqs. (21)-(24), for degrees k = first..n-1 at once:
+    # Mukundan (2004), for degrees k = first..n-1 at once (held by the exact tests):
     #   t_k(0) = -sqrt((n - k)(2k + 1) / ((n + k)(2k - 1))) t_{k-1}(0),  t_0(0) = 1/sqrt(n)
     #   t_k(1) = (1 + k(k + 1) / (1 - n)) t_k(0)
     #   t_k(x) = g1 t_k(x - 1) + g2 t_k(x - 2),

@@ -13,21 +13,19 @@ import pytest
 from codec import as_basis, basis_fingerprint
 
 
-def _exact_gram_row(n_points: int, degree: int) -> np.ndarray:
-    """Row ``degree`` of the orthonormal discrete Chebyshev (Gram) basis, in integer arithmetic.
+def _exact_gram_ints(n_points: int, degree: int) -> tuple[list[int], int]:
+    """Unnormalised discrete Chebyshev (Gram) polynomial t_n(x), x = 0..N-1, and its norm.
 
     Source: Mukundan, Ong & Lee, "Image analysis by Tchebichef moments", IEEE Trans.
-    Image Processing 10 (2001) 1357-1364, eqs. (3)-(5):
+    Image Processing 10 (2001) 1357-1364 (formulas from memory; the test below checks
+    the family's orthogonality and norms exactly):
         t_n(x) = n! sum_k (-1)^(n-k) C(N-1-k, n-k) C(n+k, n) C(x, k),
-        rho(n, N) = sum_x t_n(x)^2 = (2n)! C(N+n, 2n+1),
-    and the orthonormal value is t_n(x) / sqrt(rho).  Every step is an exact integer; the
-    square root is taken by math.isqrt on the value scaled by 2**240, so the float returned
-    is within 2**-120 (relative) of the exact value before its final rounding.
+        rho(n, N) = sum_x t_n(x)^2 = (2n)! C(N+n, 2n+1).
+    Every step is an exact integer.
     """
     n, size = degree, n_points
     coef = [(-1) ** (n - k) * math.comb(size - 1 - k, n - k) * math.comb(n + k, n)
             for k in range(n + 1)]
-    rho = math.factorial(2 * n) * math.comb(size + n, 2 * n + 1)
     values = []
     for x in range(size):
         total, binom_xk = 0, 1
@@ -35,10 +33,37 @@ def _exact_gram_row(n_points: int, degree: int) -> np.ndarray:
             total += coef[k] * binom_xk
             binom_xk = binom_xk * (x - k) // (k + 1)
         values.append(math.factorial(n) * total)
-    # The reference itself: its squared norm is exactly rho (same source, eq. (5)).
+    return values, math.factorial(2 * n) * math.comb(size + n, 2 * n + 1)
+
+
+def _exact_gram_row(n_points: int, degree: int) -> np.ndarray:
+    """Orthonormal row t_n(x) / sqrt(rho) as float64.
+
+    The square root is taken by math.isqrt on the value scaled by 2**240, so each float is
+    within 2**-120 (relative) of the exact value before its final rounding.
+    """
+    values, rho = _exact_gram_ints(n_points, degree)
     assert sum(v * v for v in values) == rho
     return np.array([(1 if v > 0 else -1) * math.isqrt(v * v * (1 << 240) // rho) / 2.0**120
                      for v in values])
+
+
+def test_exact_reference_is_an_orthogonal_polynomial_family():
+    # The reference itself, in exact integers: rows pairwise orthogonal on the grid, squared
+    # norms rho(n, N), and each t_n positive at the right end (positive leading coefficient,
+    # all roots inside the grid).
+    size = 21
+    rows = [_exact_gram_ints(size, n) for n in range(size)]
+    for i, (a, rho) in enumerate(rows):
+        assert a[-1] > 0
+        for j, (b, _) in enumerate(rows):
+            assert sum(p * q for p, q in zip(a, b)) == (rho if i == j else 0)
+    # And t_n is a polynomial of degree n: its (n+1)-th finite difference vanishes.
+    for n in (0, 3, 7):
+        diff = np.array(rows[n][0], dtype=object)
+        for _ in range(n + 1):
+            diff = diff[1:] - diff[:-1]
+        assert not diff.any()
 
 
 @pytest.mark.parametrize(("size", "degrees"), [
