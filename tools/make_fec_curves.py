@@ -26,8 +26,8 @@ bound: the exact Poisson upper limit on the event count,
 ``lambda_U = chi2.ppf(0.95, 2k + 2) / 2`` (Garwood 1936), times the point's
 mean number of wrong bits per event, over the bits sent.  With k >= 100 events
 the bound is about 1.17 times the estimate.  A point with no event uses
-lambda_U = 3.0 (the rule of three) and the largest mean bits per event seen on
-the curve.  The budget interpolates the upper bound, made non-increasing in
+lambda_U = 3.0 (the rule of three) and the mean bits per event of the nearest
+lower-Eb/N0 point.  The budget interpolates the upper bound, made non-increasing in
 Eb/N0 (running maximum from the high-Eb/N0 end), so a requirement it reads is
 conservative at 95 %.
 
@@ -128,11 +128,22 @@ def run_point(fec: str, code, ebn0: float, rng: np.random.Generator, min_events:
 
 
 def upper_bounds(events: np.ndarray, errors: np.ndarray, bits: np.ndarray) -> np.ndarray:
-    """95 % upper bound on the BER of each point (see the module docstring)."""
-    per_event = np.where(events > 0, errors / np.maximum(events, 1), 0.0)
-    worst = float(per_event.max()) if per_event.size and per_event.max() > 0 else 1.0
+    """95 % upper bound on the BER of each point (see the module docstring).
+
+    A point without events borrows the mean wrong bits per event of the nearest
+    lower-Eb/N0 point that had events (events shrink as Eb/N0 rises: fewer channel
+    errors per failed block or burst).
+    """
+    per_event = np.where(events > 0, errors / np.maximum(events, 1), np.nan)
+    seen = np.flatnonzero(events > 0)
+    if seen.size == 0:
+        per_event[:] = 1.0
+    else:
+        nearest = np.maximum.accumulate(np.where(events > 0, np.arange(events.size), -1))
+        per_event = np.where(nearest >= 0, per_event[np.maximum(nearest, 0)],
+                             per_event[seen[0]])
     lam = np.array([poisson_upper(int(k)) for k in events])
-    return np.minimum(0.5, lam * np.where(events > 0, per_event, worst) / bits)
+    return np.minimum(0.5, lam * per_event / bits)
 
 
 def monotone(upper: np.ndarray) -> np.ndarray:
@@ -163,28 +174,42 @@ def measure_curve(fec: str, grid: np.ndarray, seed: int, min_events: int,
               f"in {r['bits']:>11} bits, BER {r['errors'] / r['bits']:.3g}", flush=True)
         if r["events"] == 0:
             break
-    x = grid[: len(rows)]
-    events = np.array([r["events"] for r in rows])
-    errors = np.array([r["errors"] for r in rows])
-    bits = np.array([r["bits"] for r in rows], dtype=np.float64)
+    counts = {
+        "rate_on_air": float(rows[0]["rate_on_air"]),
+        "ebn0_db": grid[: len(rows)].tolist(),
+        "ber_channel": [r["ber_channel"] for r in rows],
+        "errors_post_fec": [r["errors"] for r in rows],
+        "events": [r["events"] for r in rows],
+        "trials": [r["trials"] for r in rows],
+        "bits_info": [r["bits"] for r in rows],
+    }
+    return summarize(fec, counts, bit_limit)
+
+
+def summarize(fec: str, counts: dict, bit_limit: int) -> dict:
+    """A curve entry of the file from its counts: BER, bounds and required Eb/N0."""
+    x = np.asarray(counts["ebn0_db"], dtype=np.float64)
+    events = np.asarray(counts["events"])
+    errors = np.asarray(counts["errors_post_fec"])
+    bits = np.asarray(counts["bits_info"], dtype=np.float64)
     ber = errors / bits
     upper = upper_bounds(events, errors, bits)
     mono = monotone(upper)
     zero = np.flatnonzero(events == 0)
     return {
         "modulation": "bpsk", "interleave": 1 if fec == "rs255" else None,
-        "rate_on_air": float(rows[0]["rate_on_air"]),
+        "rate_on_air": counts["rate_on_air"],
         "bits_info_per_point": int(bit_limit),  # the limit; bits_info gives each point's count
         "event": {"none": "bit error", "hamming74": "wrong codeword (4 information bits)",
                   "rs255": "codeword with a wrong information byte",
                   "conv": "decoded error burst (no 6 correct bits in a row inside)"}[fec],
         "ebn0_db": x.tolist(),
-        "ber_channel": [r["ber_channel"] for r in rows],
+        "ber_channel": list(counts["ber_channel"]),
         "ber_post_fec": ber.tolist(),
         "errors_post_fec": errors.tolist(),
         "events": events.tolist(),
-        "trials": [r["trials"] for r in rows],
-        "bits_info": [r["bits"] for r in rows],
+        "trials": list(counts["trials"]),
+        "bits_info": bits.astype(np.int64).tolist(),
         "ber_post_fec_upper95": upper.tolist(),
         "ber_post_fec_upper95_monotone": mono.tolist(),
         "required_ebn0_db": {f"{t:.0e}": required(x, mono, t) for t in TARGETS},
@@ -202,7 +227,13 @@ def main(argv=None) -> int:
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--out", default=str(Path(__file__).resolve().parents[1]
                                          / "link_sim/data/fec_curves.json"))
+    ap.add_argument("--recount", metavar="FILE",
+                    help="simulate nothing: recompute the bounds and required Eb/N0 from the "
+                         "event and bit counts recorded in FILE (same result as a rerun with "
+                         "FILE's seed and limits, which draws the same numbers)")
     args = ap.parse_args(argv)
+    if args.recount:
+        return _recount(Path(args.recount), Path(args.out), argv)
     grid = np.round(np.arange(0.0, 12.01, 0.25), 2)
     curves = {}
     cpu0 = time.process_time()
@@ -247,12 +278,32 @@ def main(argv=None) -> int:
             "required_ebn0_db": {f"{t:.0e}": float(ebn0_for_ber_bpsk(t)) for t in TARGETS}},
         "curves": curves,
     }
-    out = Path(args.out)
+    _write(Path(args.out), doc)
+    print(f"wrote {args.out} ({doc['provenance']['cpu_seconds']} s CPU)")
+    return 0
+
+
+def _write(out: Path, doc: dict) -> None:
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.with_suffix(".tmp")
     tmp.write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
     tmp.replace(out)
-    print(f"wrote {out} ({doc['provenance']['cpu_seconds']} s CPU)")
+
+
+def _recount(src: Path, out: Path, argv) -> int:
+    doc = json.loads(src.read_text(encoding="utf-8"))
+    for fec, c in doc["curves"].items():
+        c.update(summarize(fec, c, c["bits_info_per_point"]))
+        print(f"{fec}: events {c['events']}")
+        print(f"{fec}: required Eb/N0 (95 % upper bound) {c['required_ebn0_db']}; "
+              f"point estimate {c['required_ebn0_db_estimate']}")
+    doc["provenance"]["statistics_recomputed"] = {
+        "command": "python tools/make_fec_curves.py " + " ".join(sys.argv[1:] if argv is None
+                                                                  else argv),
+        "date_utc": dt.datetime.now(dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "coefwire_version": version("coefwire")}
+    _write(out, doc)
+    print(f"wrote {out}")
     return 0
 
 
