@@ -71,9 +71,10 @@ from link_sim import (
 TARGETS = (1e-3, 1e-4, 1e-5, 1e-6)
 CONFIDENCE = 0.95
 #: Default bit limits per point, chosen so a whole run takes about 10-15 min of one CPU
-#: core (conv decodes about 1.3 Mbit/s, RS 7, Hamming 7.5, uncoded 20).
-BIT_LIMITS = {"none": 400_000_000, "hamming74": 200_000_000, "rs255": 200_000_000,
-              "conv": 50_000_000}
+#: core (measured: conv decodes about 3.7 Mbit/s per CPU second, RS 13, Hamming and
+#: uncoded more); the points that reach the limit before 100 events dominate the time.
+BIT_LIMITS = {"none": 400_000_000, "hamming74": 200_000_000, "rs255": 600_000_000,
+              "conv": 150_000_000}
 #: Information bytes per batch: whole code blocks, a few MB of arrays at a time.
 BATCH_BYTES = {"none": 2**21, "hamming74": 2**18, "rs255": 223 * 512, "conv": 256 * 256}
 CONV_MERGE = 6  # K - 1 correct bits in a row end a convolutional error event
