@@ -14,7 +14,8 @@ import importlib
 
 # Every public name and the private module that defines it.
 _WHERE = {
-    "._bases": ("Basis", "as_basis", "basis_from_code", "basis_names", "register_basis"),
+    "._bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
+                "register_basis"),
     "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct"),
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
     "._crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
@@ -24,13 +25,15 @@ _WHERE = {
     "._profile": ("ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id",
                   "read_toml", "save_profile"),
     "._report": ("error_figures",),
-    "._stream": ("CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES"),
+    "._status": ("CONCEALED", "DELIVERED", "FIRST_FREE_STATUS", "GAP", "LOST", "STATUS_CODES",
+                 "STATUS_NAMES"),
     "._streaming": ("StreamDecoder", "StreamEncoder"),
 }
 _MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 
 __all__ = [
     "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
+    "basis_fingerprint",
     "DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct",
     "Comparison", "compare_bases", "energy_compaction",
     "TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt",
@@ -41,6 +44,7 @@ __all__ = [
     "save_profile",
     "error_figures",
     "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
+    "FIRST_FREE_STATUS", "STATUS_CODES",
 ]
 
 

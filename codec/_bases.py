@@ -10,12 +10,23 @@ exact.
 Bases are named (``identity``, ``dct``, ``legendre``, ``haar``, ``walsh``) and
 carry a small numeric code that goes into every frame header.  Other modules
 add bases with :func:`register_basis`.
+
+Sender and receiver must hold the same matrix bit for bit, so every built-in
+basis is built only from IEEE-754 operations that are correctly rounded on
+every machine (+, -, *, /, sqrt, exact scaling by powers of two) applied in a
+fixed order: no matrix product, factorisation or FFT whose result depends on
+the BLAS kernel, the SIMD width or the thread count.  The one transcendental
+table (the cosines of the DCT) is computed in multi-precision arithmetic and
+rounded once.  :func:`basis_fingerprint` hashes a matrix so two ends can check
+that they agree.
 """
 
 from __future__ import annotations
 
 import functools
+import hashlib
 import importlib
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -28,6 +39,7 @@ __all__ = [
     "as_basis",
     "basis_from_code",
     "basis_names",
+    "basis_fingerprint",
     "register_basis",
     "MAX_FRAME_LENGTH",
 ]
@@ -164,6 +176,16 @@ def _cached(name: str, n: int) -> Basis:
     return Basis(name, _KINDS[name].code, matrix)
 
 
+def basis_fingerprint(matrix: np.ndarray) -> str:
+    """SHA-256 (hex) of a basis matrix rounded to multiples of 2**-32.
+
+    Two ends that build the same basis get the same fingerprint; a basis that
+    differs by more than rounding gets another one.
+    """
+    q = np.rint(np.asarray(matrix, dtype=np.float64) * 2.0**32).astype("<i8")
+    return hashlib.sha256(q.tobytes()).hexdigest()
+
+
 def _power_of_two(n: int) -> str | None:
     return None if n & (n - 1) == 0 else "needs a power of two"
 
@@ -173,29 +195,131 @@ def _identity(n: int) -> np.ndarray:
 
 
 def _dct(n: int) -> np.ndarray:
-    # Orthonormal DCT-II: row k is the k-th cosine (Ahmed, Natarajan & Rao, 1974),
-    # M[k, j] = c_k cos(pi (2j + 1) k / 2N), c_0 = sqrt(1/N), c_k = sqrt(2/N).  The
-    # angle index (2j + 1) k is reduced modulo 4N in integers first, so every entry is
-    # one of 4N table cosines of small, exact arguments (accurate to an ulp or two).
-    # Closed form rather than scipy.fft: importing that costs 0.3 s at every start.
-    k = np.arange(n, dtype=np.int64)[:, None]
-    j = np.arange(n, dtype=np.int64)[None, :]
-    table = np.cos(np.pi * np.arange(4 * n) / (2 * n))
-    m = table[((2 * j + 1) * k) % (4 * n)] * np.sqrt(2.0 / n)
-    m[0] = np.sqrt(1.0 / n)
-    return m
+    # Orthonormal DCT-II from its closed form (Ahmed, Natarajan & Rao, 1974):
+    # M[k, i] = s_k cos(pi (2i + 1) k / (2N)), s_0 = sqrt(1/N), s_k = sqrt(2/N).
+    # The angle is reduced exactly in integers to a quarter period, and the
+    # N + 1 cosines of the quarter period come from a correctly rounded table,
+    # so the matrix is the same on every machine (an FFT's rounding is not).
+    m = (2 * np.arange(n)[None, :] + 1) * np.arange(n)[:, None] % (4 * n)
+    quarter = _quarter_cosines(n)
+    value = np.where(m <= n, quarter[np.minimum(m, n)], 0.0)
+    value = np.where((m > n) & (m <= 2 * n), -quarter[np.clip(2 * n - m, 0, n)], value)
+    value = np.where((m > 2 * n) & (m <= 3 * n), -quarter[np.clip(m - 2 * n, 0, n)], value)
+    value = np.where(m > 3 * n, quarter[np.clip(4 * n - m, 0, n)], value)
+    scale = np.full((n, 1), np.sqrt(2.0 / n))
+    scale[0] = np.sqrt(1.0 / n)
+    return scale * value
+
+
+@functools.lru_cache(maxsize=8)
+def _quarter_cosines(n: int) -> np.ndarray:
+    """cos(pi j / (2n)) for j = 0..n, each correctly rounded to float64.
+
+    Computed with mpmath at 120 bits and rounded once, so no libm or SIMD
+    variant of ``cos`` can change a bit.
+    """
+    import mpmath  # only here: a table of at most MAX_FRAME_LENGTH + 1 values
+
+    with mpmath.workprec(120):
+        return np.array([float(mpmath.cospi(mpmath.mpf(j) / (2 * n))) for j in range(n + 1)])
 
 
 def _legendre(n: int) -> np.ndarray:
-    # Discrete orthonormal polynomials: orthonormalise the degree-graded
-    # polynomials on the frame grid.  Legendre polynomials span the same nested
-    # spaces as the monomials but are far better conditioned, so QR keeps the
-    # span of the first k rows equal to polynomials of degree < k.
-    t = np.linspace(-1.0, 1.0, n)
-    vander = np.polynomial.legendre.legvander(t, n - 1)
-    q, r = np.linalg.qr(vander)
-    q *= np.sign(np.diag(r))  # leading coefficient of each polynomial positive
-    return q.T
+    """Discrete orthonormal (Gram) polynomials on the grid x = 0..n-1, degree by row.
+
+    Row k is t_k(x), the orthonormal polynomial of degree k on n equally spaced
+    points, with a positive leading coefficient.  Both constructions are
+    three-term recurrences built from +, -, *, / and sqrt only:
+
+    * degrees below sqrt(n): the orthonormal recurrence in the degree, in
+      u = 2x + 1 - n, which is stable while t_k has no small tails;
+    * higher degrees: the recurrence in x, run from the ends (where t_k is
+      exponentially small) to the middle and mirrored by t_k(n-1-x) =
+      (-1)^k t_k(x); in this direction the wanted solution is the growing one,
+      so rounding errors do not grow (Mukundan 2004).  Values are kept as
+      mantissa times a power of two, so nothing underflows even at n = 4096.
+
+    References
+    ----------
+    R. Mukundan, "Some computational aspects of discrete orthonormal moments",
+    IEEE Trans. Image Processing 13 (2004) 1055-1059.
+    W. Gautschi, Orthogonal Polynomials: Computation and Approximation,
+    Oxford 2004, sec. 1.5 (discrete Chebyshev polynomials).
+    """
+    matrix = np.empty((n, n))
+    low = min(n, max(2, math.isqrt(n)))
+    matrix[:low] = _gram_by_degree(n, low)
+    if low < n:
+        matrix[low:] = _gram_by_position(n, low)
+    return matrix
+
+
+def _gram_by_degree(n: int, rows: int) -> np.ndarray:
+    # Orthonormal recurrence t_k = (u t_{k-1} - sqrt(b_{k-1}) t_{k-2}) / sqrt(b_k) with
+    # u = 2x + 1 - n and b_k = k^2 (n^2 - k^2) / (4 k^2 - 1): the recurrence coefficients
+    # of the discrete Chebyshev polynomials (Gautschi 2004, ch. 1, written for u; from
+    # memory, and held by tests/test_bases_exact.py against exact integer arithmetic).
+    u = 2.0 * np.arange(n) + 1.0 - n
+    out = np.empty((rows, n))
+    out[0] = np.sqrt(1.0 / n)
+    out[1] = u * np.sqrt(3.0 / (n * (n * n - 1.0)))
+
+    def b(k: int) -> float:
+        return (k * k * (n * n - k * k)) / (4.0 * k * k - 1.0)
+
+    for k in range(2, rows):
+        out[k] = u * out[k - 1] * (1.0 / np.sqrt(b(k))) - out[k - 2] * np.sqrt(b(k - 1) / b(k))
+    return out
+
+
+_SCALE = 500  # rescale by 2**±500: far from both overflow (2**1024) and underflow (2**-1022)
+
+
+def _gram_by_position(n: int, first: int) -> np.ndarray:
+    # Mukundan (2004), for degrees k = first..n-1 at once (held by the exact tests):
+    #   t_k(0) = -sqrt((n - k)(2k + 1) / ((n + k)(2k - 1))) t_{k-1}(0),  t_0(0) = 1/sqrt(n)
+    #   t_k(1) = (1 + k(k + 1) / (1 - n)) t_k(0)
+    #   t_k(x) = g1 t_k(x - 1) + g2 t_k(x - 2),
+    #     g1 = (-k(k + 1) - (2x - 1)(x - n - 1) - x) / (x (n - x)),
+    #     g2 = (x - 1)(x - n - 1) / (x (n - x)).
+    # t_k(0) is about 2**-k, so it is carried as mantissa * 2**exponent.
+    mant = np.empty(n)
+    expo = np.zeros(n, dtype=np.int64)
+    m, e = 1.0 / math.sqrt(n), 0
+    mant[0] = m
+    for k in range(1, n):
+        m = -m * math.sqrt(((n - k) * (2 * k + 1)) / ((n + k) * (2 * k - 1)))
+        if abs(m) < 2.0**-_SCALE:
+            m, e = m * 2.0**_SCALE, e - _SCALE
+        mant[k], expo[k] = m, e
+    k = np.arange(first, n, dtype=np.float64)
+    kk1 = k * (k + 1.0)
+    mant, expo = mant[first:], expo[first:]
+    half = (n + 1) // 2
+    cols = np.empty((half, n - first))  # cols[x] = t_k(x) for every k
+    prev2 = mant
+    prev1 = (1.0 + kk1 / (1.0 - n)) * mant
+    cols[0] = np.ldexp(prev2, expo)
+    if half > 1:
+        cols[1] = np.ldexp(prev1, expo)
+    for x in range(2, half):
+        g1 = (-kk1 - float((2 * x - 1) * (x - n - 1) + x)) / float(x * (n - x))
+        g2 = float((x - 1) * (x - n - 1)) / float(x * (n - x))
+        cur = g1 * prev1 + g2 * prev2
+        big = np.abs(cur) > 2.0**_SCALE
+        if big.any():
+            shrink = np.where(big, 2.0**-_SCALE, 1.0)
+            cur, prev1 = cur * shrink, prev1 * shrink
+            expo = expo + np.where(big, _SCALE, 0)
+        cols[x] = np.ldexp(cur, expo)
+        prev2, prev1 = prev1, cur
+    rows = np.empty((n - first, n))
+    rows[:, :half] = cols.T
+    sign = np.where(np.arange(first, n) % 2 == 0, 1.0, -1.0)[:, None]
+    rows[:, half:] = sign * rows[:, n - 1 - np.arange(half, n)]
+    if n % 2:
+        rows[np.arange(first, n) % 2 == 1, n // 2] = 0.0  # odd polynomials vanish at the centre
+    return rows
 
 
 def _haar(n: int) -> np.ndarray:

@@ -23,7 +23,7 @@ from pydantic import (
     model_validator,
 )
 
-from ._bases import MAX_FRAME_LENGTH, basis_names
+from ._bases import MAX_FRAME_LENGTH, as_basis, basis_fingerprint, basis_names
 from ._errors import InputError, ProfileError
 from ._toml import MAX_TOML_BYTES, MAX_TOML_DEPTH, loads_toml, read_toml, toml_depth
 
@@ -50,6 +50,7 @@ __all__ = [
     "check_note_fits",
     "MAX_NAME_CHARS",
     "check_channel_names",
+    "stream_basis_fingerprint",
 ]
 
 #: Channels one stream can carry (the frame header's channel field is 8 bits).
@@ -260,6 +261,9 @@ class StreamNote(BaseModel):
     #: Byte stuffing of the stream's frames for serial modems ("slip", "cobs"); absent: none.
     #: ``decode`` and ``inspect`` undo it without being told.
     stuffing: Literal["slip", "cobs"] | None = None
+    #: :func:`codec.basis_fingerprint` of the built-in basis as the encoding machine built
+    #: it; a machine that builds another matrix refuses the stream (notes without it pass).
+    basis_fingerprint: str | None = Field(default=None, pattern=r"^[0-9a-f]{64}$")
 
 
 #: No frame of any layout is shorter than this many bytes (sync marker, header and
@@ -297,26 +301,57 @@ def check_note_fits(note: StreamNote | None, stream_bytes: int, profile: Profile
             "the stream", where)
 
 
+def stream_basis_fingerprint(profile: Profile) -> str | None:
+    """Fingerprint of the profile's basis as this machine builds it (None for a trained basis,
+    whose file is already checked by its SHA-256)."""
+    if profile.basis == "klt":
+        return None
+    return basis_fingerprint(as_basis(profile.basis, profile.frame_length).matrix)
+
+
+def _check_basis_fingerprint(profile: Profile, note: StreamNote, path: str | Path) -> None:
+    recorded = note.basis_fingerprint
+    here = stream_basis_fingerprint(profile)
+    if recorded is None or here is None or recorded == here:
+        return
+    raise ProfileError(
+        f"the basis {profile.basis!r} at N = {profile.frame_length} that this machine builds "
+        f"(fingerprint {here[:12]}) differs from the one the stream was encoded with "
+        f"({recorded[:12]}), so its samples would decode wrong; decode with a coefwire "
+        "version that builds the same basis, or re-encode the source on this machine",
+        str(path))
+
+
 def note_path(stream: str | Path) -> Path:
     """Where the profile of ``stream`` is recorded: ``STREAM.profile.toml``."""
     return Path(f"{stream}.profile.toml")
 
 
 def load_stream_note(path: str | Path) -> tuple[Profile, StreamNote | None]:
-    """The profile and stream note recorded beside a stream."""
+    """The profile and stream note recorded beside a stream.
+
+    Raises :class:`ProfileError` when the note records a basis fingerprint that
+    differs from the basis this machine builds for the profile.
+    """
     profile = load_profile(path)
     data = read_toml(path)
     if "stream" not in data:
         return profile, None
     try:
-        return profile, StreamNote.model_validate(data["stream"])
+        note = StreamNote.model_validate(data["stream"])
     except ValidationError as exc:
         raise ProfileError("[stream] " + _describe(exc), str(path)) from None
+    _check_basis_fingerprint(profile, note, path)
+    return profile, note
 
 
 def save_stream_note(profile: Profile, note: StreamNote, path: str | Path) -> None:
-    """Write the profile and the ``[stream]`` note as one TOML file."""
+    """Write the profile and the ``[stream]`` note as one TOML file.
+
+    The note records the fingerprint of the basis as this machine built it.
+    """
     data = _profile_dict(profile)
+    note = note.model_copy(update={"basis_fingerprint": stream_basis_fingerprint(profile)})
     data["stream"] = note.model_dump(exclude_none=True)
     Path(path).write_text(tomli_w.dumps(data), encoding="utf-8")
 

@@ -30,10 +30,8 @@ applies the duplicate / out-of-order policy, written down here once:
   end are dropped as ``beyond_end``; a frame claiming a window before 0 is
   dropped as ``before_start``.
 
-Per-sample accounting uses the small integer codes :data:`LOST`,
-:data:`DELIVERED`, :data:`GAP`; :data:`CONCEALED` is reserved for receivers
-that fill lost spans (the link simulator).  Codes are stable: a receiver may
-add codes above :data:`FIRST_FREE_STATUS`.
+Per-sample accounting uses the codes of :mod:`codec._status` (lost, delivered,
+gap; concealed is set only by receivers that fill lost spans).
 """
 
 from __future__ import annotations
@@ -45,6 +43,7 @@ import numpy as np
 # HEADER_BYTES: the envelope rule answers from at most this many bytes after the
 # sync marker, so a streaming scanner that waits for them decides as a whole-stream one.
 from ._layout import HEADER_BYTES, SYNC, frame_crc_ok, frame_extent
+from ._status import CONCEALED, DELIVERED, FIRST_FREE_STATUS, GAP, LOST, STATUS_NAMES
 
 __all__ = [
     "Located",
@@ -60,13 +59,8 @@ __all__ = [
     "MAX_FRAME_BYTES",
 ]
 
-#: Sample status codes (uint8), one per sample position and channel.
-LOST = 0  # no CRC-valid frame delivered this sample
-DELIVERED = 1  # decoded from a frame that passed its CRC and every header check
-GAP = 2  # the sender marked the sample missing at the source (NaN reproduced)
-CONCEALED = 3  # filled by a receiver's concealment policy (set by link_sim, never by codec)
-FIRST_FREE_STATUS = 4
-STATUS_NAMES = {LOST: "lost", DELIVERED: "delivered", GAP: "gap", CONCEALED: "concealed"}
+# Sample status codes (uint8), one per sample position and channel: defined once in
+# codec._status and re-exported here for the modules that read them from this one.
 
 #: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
 MAX_LISTED = 100_000

@@ -8,7 +8,9 @@ each wavelet family gives an N x N basis like the DCT.  Rows are ordered as
 
 Only the filter taps come from PyWavelets (the well-kept source of the
 published filters); the periodic filter-and-downsample cascade is written
-here on whole matrices, so the tests can hold it against ``pywt.wavedec``.
+here on whole matrices, so the tests can hold it against ``pywt.wavedec``,
+and with elementwise arithmetic in a fixed order, so every machine builds the
+same matrix bit for bit.
 
 Full depth is the deepest level at which the filter still fits in the
 coarsest approximation (``pywt.dwt_max_level``): deeper levels would wrap the
@@ -69,12 +71,20 @@ def _analysis_step(x: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> tuple[np.nd
 
     a[k] = sum_j lo[j] x[(2k + L/2 - j) mod m] (same for the detail with ``hi``):
     the alignment PyWavelets uses in its ``periodization`` mode.
+
+    The sum runs over the taps in a fixed order with one rounding per product
+    and per addition, not through a matrix product, so the basis does not
+    depend on the BLAS kernel or the thread count.
     """
     m = x.shape[1]
-    taps = lo.size
-    idx = (2 * np.arange(m // 2)[:, None] + taps // 2 - np.arange(taps)[None, :]) % m
-    gathered = x[:, idx]  # (rows, m/2, taps)
-    return gathered @ lo, gathered @ hi
+    half = np.arange(m // 2)
+    approx = np.zeros((x.shape[0], m // 2))
+    detail = np.zeros((x.shape[0], m // 2))
+    for j in range(lo.size):
+        column = x[:, (2 * half + lo.size // 2 - j) % m]
+        approx += column * lo[j]
+        detail += column * hi[j]
+    return approx, detail
 
 
 def wavelet_matrix(name: str, n: int, depth: int | None = None) -> np.ndarray:

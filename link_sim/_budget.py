@@ -172,6 +172,38 @@ def _required_from_curve(modulation, fec, target_ber, path: Path) -> RequiredEbN
     if modulation != curve.get("modulation", modulation):
         # Gray QPSK has the per-bit BER of BPSK over AWGN (Proakis 4.3), so the curve serves.
         measured += f", used for Gray {modulation.upper()} (same BER per bit)"
+    if "ber_post_fec_upper95" in curve:
+        # Curves with event counts: read the 95 % upper bound of each point (an exact Poisson
+        # limit on the error events, Garwood 1936, see tools/make_fec_curves.py), made
+        # non-increasing in Eb/N0, so the requirement is conservative and a noisy point can
+        # never make a higher Eb/N0 look worse than a lower one.
+        upper = np.asarray(curve["ber_post_fec_upper95"], float)
+        upper = np.maximum.accumulate(upper[::-1])[::-1]
+        events = np.asarray(curve.get("events", errors), int)
+        rate = float(curve.get("rate_on_air") or code_rate(fec))
+        rate_source = ("rate on air recorded with the measured curve (every bit on air counted)"
+                       if curve.get("rate_on_air") else "nominal code rate")
+        made = ", ".join(f"{k} {str(prov[k]).strip()}" for k in ("command", "seed", "date_utc",
+                                                      "coefwire_version") if k in prov)
+        lt = math.log10(target_ber)
+        for i in range(x.size - 1):
+            if upper[i] >= target_ber >= upper[i + 1] > 0:
+                a, b = math.log10(upper[i]), math.log10(upper[i + 1])
+                value = float(x[i] if a == b else x[i] + (lt - a) / (b - a) * (x[i + 1] - x[i]))
+                break
+        else:
+            where = ("below the lowest 95 % upper bound measured"
+                     if target_ber < upper[-1] else "not bracketed by the measured points")
+            raise ProfileError(
+                f"target_ber {target_ber:g} is {where} for fec = '{fec}' ({upper[-1]:.3g} at "
+                f"{x[-1]:g} dB after {events[-1]} error events); the budget does not "
+                "extrapolate: raise target_ber or remake the curves with a higher bit limit",
+                str(path))
+        source = (f"95 % upper bound of the measured post-FEC BER curve ({measured}; "
+                  f"{events[i]} and {events[i + 1]} error events at the two points; {made}) "
+                  f"interpolated in log10 BER between {x[i]:g} and {x[i + 1]:g} dB at BER "
+                  f"{target_ber:g}; file {path.name}")
+        return RequiredEbN0(value, source, rate, rate_source)
     if not ok.any():
         raise ProfileError(f"the measured curve for fec = '{fec}' has no point with at least "
                            f"{min_err} bit errors; remake it with more bits", str(path))

@@ -11,8 +11,9 @@ J. 29, 1950.  CCSDS 131.0-B, *TM Synchronization and Channel Coding* (Blue
 Book): RS(255,223) over GF(2^8) with field polynomial x^8+x^7+x^2+x+1,
 generator roots alpha^(11 j), j = 112..143, interleaving depth I, 32-bit
 attached sync marker 0x1ACFFC1D; convolutional code K=7, r=1/2, generators
-171/133 octal.  A. J. Viterbi, "Error bounds for convolutional codes and an
-asymptotically optimum decoding algorithm", IEEE Trans. IT-13, 1967.
+171/133 octal with the G2 output inverted (sec. 3.3).  A. J. Viterbi, "Error
+bounds for convolutional codes and an asymptotically optimum decoding
+algorithm", IEEE Trans. IT-13, 1967.
 """
 
 from __future__ import annotations
@@ -368,9 +369,12 @@ class ReedSolomon255(Code):
 
 # Convolutional code K=7, r=1/2, generators 171 and 133 octal.  Register r has
 # the current input at bit 6 and the input six steps back at bit 0; the state
-# is the six previous inputs (newest at bit 5).
+# is the six previous inputs (newest at bit 5).  CCSDS 131.0-B sec. 3.3 inverts
+# the G2 output (C2 is sent as its complement), so an all-zero input still puts
+# symbol transitions on air; _INVERT marks which outputs are inverted.
 _K = 7
 _GENS = (0o171, 0o133)
+_INVERT = (0, 1)
 _NSTATE = 1 << (_K - 1)
 
 
@@ -385,13 +389,17 @@ _NS = np.arange(_NSTATE)
 _PRED = np.stack([((_NS & 31) << 1) | x for x in (0, 1)], axis=1)  # (64, 2) previous states
 _REG = ((_NS >> 5) << 6)[:, None] | _PRED  # register for each (next state, branch)
 # Expected BPSK amplitudes (+1 for bit 0) of the two outputs on each branch.
-_EXPECT = np.stack([1.0 - 2.0 * _parity(_REG & g) for g in _GENS], axis=-1).astype(np.float32)
+_EXPECT = np.stack([1.0 - 2.0 * (_parity(_REG & g) ^ inv) for g, inv in zip(_GENS, _INVERT)],
+                   axis=-1).astype(np.float32)
 #: Index (0..3) of each branch's output pair in the order ++, +-, -+, --.
 _PAIR = ((_EXPECT[..., 0] < 0) * 2 + (_EXPECT[..., 1] < 0)).astype(np.intp)
 
 
 class Convolutional(Code):
-    """K=7, r=1/2 (171/133) code in terminated blocks, soft-decision Viterbi.
+    """K=7, r=1/2 (171/133, G2 inverted) code in terminated blocks, soft-decision Viterbi.
+
+    The symbols are those of CCSDS 131.0-B: per input bit, C1 (generator 171
+    octal) then the complement of C2 (generator 133 octal).
 
     The stream is cut into blocks of ``block_bytes`` (last one zero-padded,
     counted on air); each block ends with 6 zero tail bits so the trellis ends
@@ -414,7 +422,7 @@ class Convolutional(Code):
         return self.blocks(n_bytes) * 2 * (8 * self.block_bytes + _K - 1)
 
     def encode_bits(self, u: np.ndarray) -> np.ndarray:
-        """(B, L) info bits (tail included) -> (B, L, 2) coded bits."""
+        """(B, L) info bits (tail included) -> (B, L, 2) coded bits (C1, inverted C2)."""
         u = u.astype(np.uint8)
         B, L = u.shape
         padded = np.concatenate([np.zeros((B, _K - 1), np.uint8), u], axis=1)
@@ -423,6 +431,7 @@ class Convolutional(Code):
             for d in range(_K):  # tap d = input d steps back (bit 6 - d of the generator)
                 if g >> (_K - 1 - d) & 1:
                     out[:, :, j] ^= padded[:, _K - 1 - d: _K - 1 - d + L]
+            out[:, :, j] ^= _INVERT[j]
         return out
 
     def viterbi(self, y: np.ndarray) -> np.ndarray:

@@ -31,20 +31,21 @@ from dataclasses import dataclass
 import numpy as np
 
 import codec
+from codec import CONCEALED, DELIVERED, LOST  # the codec's status vocabulary (codec._status)
 from codec._stream import locate_frames
 
 __all__ = ["CONCEAL_POLICIES", "LOST", "DELIVERED", "CONCEALED", "Reception", "receive",
            "conceal"]
 
 CONCEAL_POLICIES = ("hold", "linear", "zero", "none")
-LOST, DELIVERED, CONCEALED = 0, 1, 2
 
 
 @dataclass
 class Reception:
     """Output samples, their status and an account of every frame received.
 
-    ``status`` holds LOST, DELIVERED or CONCEALED per sample and channel;
+    ``status`` holds the codec's codes LOST, DELIVERED or CONCEALED (uint8,
+    :data:`codec.STATUS_NAMES`) per sample and channel;
     ``out_of_range`` marks delivered samples of frames flagged implausible.
     """
 
@@ -102,7 +103,7 @@ def conceal(samples: np.ndarray, delivered: np.ndarray, policy: str):
     if policy not in CONCEAL_POLICIES:
         raise ValueError(f"unknown concealment policy {policy!r}")
     out = np.where(delivered, samples, np.nan)
-    status = np.where(delivered, DELIVERED, LOST).astype(np.int8)
+    status = np.where(delivered, DELIVERED, LOST).astype(np.uint8)
     gap = ~delivered
     if policy == "none" or not gap.any():
         return out, status

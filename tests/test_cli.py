@@ -82,7 +82,8 @@ def test_roundtrip_exits_1_and_names_exactly_the_frames_that_miss(sample_csv, tm
     from codec.cli import _codec_cmds
 
     x = np.loadtxt(sample_csv, delimiter=",", skiprows=1)[:, 1:]
-    profile = codec.default_profile().bind(["temp", "vib"])
+    # window scope: one budget per window of each channel, so the frames named are windows
+    profile = codec.Profile(fidelity_scope="window").bind(["temp", "vib"])
     budget = budget_blocks(x, x, profile).budget.reshape(-1, 2)  # (window, channel)
     n = profile.frame_length
     spoil = {(1, 0): 1.5, (2, 1): 0.5}
@@ -99,7 +100,7 @@ def test_roundtrip_exits_1_and_names_exactly_the_frames_that_miss(sample_csv, tm
 
     monkeypatch.setattr(_codec_cmds, "decode", spoiled)
     rep = tmp_path / "r.json"
-    assert main(["roundtrip", str(sample_csv), "--json", str(rep)]) == 1
+    assert main(["roundtrip", str(sample_csv), "--scope", "window", "--json", str(rep)]) == 1
     report = json.loads(rep.read_text())
     assert report["frames_below_target"] == 1
     pf = report["per_frame"]

@@ -113,8 +113,9 @@ def test_rs_interleaving_corrects_a_burst_of_16_times_depth_bytes(depth):
 
 
 def test_conv_impulse_response_is_the_generators():
-    # K=7 r=1/2 code, generators 171 and 133 octal (CCSDS 131.0-B / Proakis table 8.2-1):
-    # a single 1 at the input produces the generator bits, MSB first.
+    # K=7 r=1/2 code, generators 171 and 133 octal (CCSDS 131.0-B sec. 3.3 / Proakis table
+    # 8.2-1): a single 1 at the input produces the generator bits, MSB first, on C1 and the
+    # complement of the generator bits on C2 (CCSDS inverts the G2 output).
     code = Convolutional()
     u = np.zeros((1, 7), np.uint8)
     u[0, 0] = 1
@@ -122,7 +123,36 @@ def test_conv_impulse_response_is_the_generators():
     g1 = [int(b) for b in format(0o171, "07b")]
     g2 = [int(b) for b in format(0o133, "07b")]
     np.testing.assert_array_equal(out[:, 0], g1)
-    np.testing.assert_array_equal(out[:, 1], g2)
+    np.testing.assert_array_equal(out[:, 1], 1 - np.array(g2))
+
+
+def test_conv_symbols_match_a_hand_derived_ccsds_sequence():
+    # CCSDS 131.0-B sec. 3.3: G1 = 1111001 (171 octal), G2 = 1011011 (133 octal), i.e.
+    #   C1(t) = u(t) + u(t-1) + u(t-2) + u(t-3) + u(t-6)            (mod 2)
+    #   C2(t) = NOT [u(t) + u(t-2) + u(t-3) + u(t-5) + u(t-6)]      (the inverted output)
+    # sent as C1(1) C2(1) C1(2) C2(2) ..., register starting at zero.  For the input
+    # u = 1 0 1 1 followed by the six zero tail bits, by hand:
+    #   t        0 1 2 3 4 5 6 7 8 9
+    #   u        1 0 1 1 0 0 0 0 0 0
+    #   C1       1 1 0 1 0 0 0 0 1 1   (t=3: 1+1+0+1 = 1; t=6: u3+u0 = 0; t=8: u2 = 1)
+    #   G2 sum   1 0 0 0 1 1 0 1 0 1   (t=4: u2 = 1; t=5: u3+u2+u0 = 1; t=9: u4+u3 = 1)
+    #   C2=NOT   0 1 1 1 0 0 1 0 1 0
+    # giving the symbols 10 11 01 11 00 00 01 00 11 10.
+    code = Convolutional()
+    u = np.array([[1, 0, 1, 1, 0, 0, 0, 0, 0, 0]], np.uint8)
+    symbols = "".join(map(str, code.encode_bits(u).ravel()))
+    assert symbols == "10" "11" "01" "11" "00" "00" "01" "00" "11" "10"
+    # An all-zero input gives alternating symbols, the reason for the inversion.
+    zeros = code.encode_bits(np.zeros((1, 8), np.uint8)).ravel()
+    assert zeros.tolist() == [0, 1] * 8
+    # And the decoder still returns the input, clean and with four channel errors.
+    rng = np.random.default_rng(3)
+    data = rng.integers(0, 256, 64, dtype=np.uint8)
+    bits = code.encode(data)
+    assert np.array_equal(code.decode(bits, data.size)[0], data)
+    noisy = bits.copy()
+    noisy[rng.choice(bits.size, 4, replace=False)] ^= 1
+    assert np.array_equal(code.decode(noisy, data.size)[0], data)
 
 
 def test_viterbi_corrects_any_four_errors_in_a_block():

@@ -47,6 +47,45 @@ def test_rd_water_filling_regime_is_between_bounds():
     assert bench.rate_distortion_ar1(rho, 1.0, 1.0) == 0.0
 
 
+# Cover & Thomas, Theorem 10.3.3 (parallel Gaussian sources): for independent components with
+# variances s_i, R = (1/n) sum 1/2 log2(s_i / theta) over the components with s_i > theta,
+# where (1/n) sum min(theta, s_i) = D.
+def test_reverse_water_filling_closed_form_on_a_diagonal_source():
+    var = np.array([4.0, 1.0, 0.01])
+    # Every component above the water level: theta = D.
+    d = 0.005
+    want = np.mean(0.5 * np.log2(var / d))
+    assert bench.reverse_water_filling(var, d) == pytest.approx(want, abs=1e-9)
+    # The smallest component below the level: (0.01 + 2 theta) / 3 = D.
+    d = 0.2
+    theta = (3 * d - 0.01) / 2
+    want = (0.5 * math.log2(4.0 / theta) + 0.5 * math.log2(1.0 / theta)) / 3
+    assert bench.reverse_water_filling(var, d) == pytest.approx(want, abs=1e-9)
+    assert bench.reverse_water_filling(var, var.mean()) == 0.0
+
+
+@pytest.mark.parametrize("d", [0.01, 0.3])
+def test_block_bound_of_a_white_source_is_the_closed_form(d):
+    # rho = 0: the N x N covariance is sigma^2 I (diagonal), so R_N(D) = 1/2 log2(sigma^2 / D)
+    # for every N (Cover & Thomas, Theorem 10.3.2).
+    assert bench.rate_distortion_ar1_block(0.0, 2.0, 2.0 * d, 64) == pytest.approx(
+        0.5 * math.log2(1 / d), abs=1e-9)
+
+
+def test_block_bound_lies_above_the_process_bound_and_tends_to_it():
+    # Coding N samples alone can never beat coding the whole process (R_N >= R), and the
+    # eigenvalue distribution of the Toeplitz covariance tends to the spectrum as N grows
+    # (Grenander & Szego, Toeplitz Forms and Their Applications, 1958), so R_N -> R.
+    rho, d = 0.95, 0.01
+    inf = bench.rate_distortion_ar1(rho, 1.0, d)
+    r16 = bench.rate_distortion_ar1_block(rho, 1.0, d, 16)
+    r1024 = bench.rate_distortion_ar1_block(rho, 1.0, d, 1024)
+    assert r16 > r1024 > inf - 1e-9
+    assert r1024 - inf < 0.01 < r16 - inf
+    # Eigenvalues: the trace is N sigma^2 (definition of the covariance).
+    assert bench.ar1_covariance_eigenvalues(rho, 1.0, 64).sum() == pytest.approx(64.0)
+
+
 def test_ar1_source_has_the_model_statistics():
     # variance 1 and lag-1 correlation rho (definition of the AR(1) model)
     x = bench.ar1_source(0.9, 200_000, 5)
