@@ -15,6 +15,7 @@ add bases with :func:`register_basis`.
 from __future__ import annotations
 
 import functools
+import hashlib
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -31,6 +32,7 @@ __all__ = [
     "basis_names",
     "register_basis",
     "MAX_FRAME_LENGTH",
+    "basis_fingerprint",
 ]
 
 #: Longest frame any basis accepts; the frame layout sizes its fields for it.
@@ -211,3 +213,13 @@ register_basis("dct", 1, _dct)
 register_basis("legendre", 2, _legendre)
 register_basis("haar", 3, _haar, _power_of_two)
 register_basis("walsh", 4, _walsh, _power_of_two)
+
+
+def basis_fingerprint(matrix: np.ndarray) -> str:
+    """SHA-256 (hex) of a basis matrix rounded to multiples of 2**-32.
+
+    Two ends that build the same basis get the same fingerprint; a basis that
+    differs by more than rounding gets another one.
+    """
+    q = np.rint(np.asarray(matrix, dtype=np.float64) * 2.0**32).astype("<i8")
+    return hashlib.sha256(q.tobytes()).hexdigest()

@@ -35,6 +35,7 @@ from ._layout import (
     SHORT_LENGTH_BITS,
     SYNC,
     FrameBatchV2,
+    FrameKey,
     count_bits,
     index_bits,
     read_frame_start,
@@ -93,7 +94,7 @@ def _counts(q: np.ndarray) -> np.ndarray:
 
 
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
-                   version: int = LAYOUT_VERSION_3
+                   version: int = LAYOUT_VERSION_3, *, key: FrameKey
                    ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout v3, or v4 (``version`` 4: the
     rows of ``batch.q`` are levels of dependent quantization).
@@ -148,7 +149,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     lstart = np.cumsum(lane_len) - lane_len
     body[np.repeat(bstart + head_bytes - lstart, lane_len) + np.arange(lane_bytes.size)] = \
         lane_bytes
-    out = wrap_frames(body, body_bytes)
+    out = wrap_frames(body, body_bytes, key)
     if out.size != int(length.sum()):
         raise RuntimeError("v3 frames differ from their length fields")  # our bug
     return out.tobytes(), length, sub_bits, lane_len

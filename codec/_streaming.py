@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._codec import _bind, decode_frames, encode
+from ._codec import _bind, decode_frames, encode, frame_key
 from ._errors import ProfileError
 from ._gaps import GAP_POLICIES
 from ._profile import Profile
@@ -89,7 +89,8 @@ class StreamDecoder:
         self.n = profile.frame_length
         self.channels = len(profile.channels)
         self.basis = profile_basis(profile)  # loads and hash-checks a trained basis
-        self.scanner = FrameScanner(max_frame_bytes(profile))
+        self.key = frame_key(profile, self.basis)
+        self.scanner = FrameScanner(max_frame_bytes(profile), key=self.key)
         self.end_sample = int(samples) if samples is not None else None
         end_window = None if samples is None else -(-int(samples) // self.n)
         self.tracker = SequenceTracker(reorder=reorder, end_window=end_window)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import binascii
+import hashlib
 
 import numpy as np
 from realdata import basic_motions
@@ -10,7 +11,31 @@ from realdata import basic_motions
 import codec
 from codec._stream import locate_frames
 
-__all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting"]
+__all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting", "EXAMPLE_DIGEST",
+           "keyed_crc", "with_crc", "digest_of"]
+
+#: The profile digest of FRAME_LAYOUT.md's worked examples: bytes 00 01 02 ... 1f.
+EXAMPLE_DIGEST = bytes(range(32))
+
+
+def digest_of(profile) -> bytes:
+    """The 32-byte profile digest the codec derives (its CRC prefix is rebuilt here)."""
+    return codec.frame_key(profile).digest
+
+
+def keyed_crc(frame_wo_crc: bytes, digest: bytes) -> int:
+    """CRC of FRAME_LAYOUT.md "Profile check", rebuilt from the standard library:
+    CRC-16/IBM-3740 (binascii.crc_hqx, init 0xFFFF; catalogue check value 0x29B1)
+    over SHA-256(digest || frame length, 4 bytes big-endian) (hashlib) followed by
+    the frame's bytes after the sync marker.  ``frame_wo_crc`` ends before the CRC."""
+    length = len(frame_wo_crc) + 2
+    prefix = hashlib.sha256(digest + length.to_bytes(4, "big")).digest()
+    return binascii.crc_hqx(prefix + frame_wo_crc[2:], 0xFFFF)
+
+
+def with_crc(frame_wo_crc: bytes, digest: bytes) -> bytes:
+    """The frame with its CRC appended (a hostile sender who knows the profile can)."""
+    return frame_wo_crc + keyed_crc(frame_wo_crc, digest).to_bytes(2, "big")
 
 
 def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int = 1, **enc):
@@ -22,15 +47,15 @@ def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int
     return x, codec.encode(x, codec.Profile(frame_length=n, windows_per_frame=windows), **enc)
 
 
-def frames_of(data: bytes) -> list[tuple[int, int]]:
-    loc = locate_frames(data)
+def frames_of(data: bytes, profile=None) -> list[tuple[int, int]]:
+    loc = locate_frames(data, None if profile is None else codec.frame_key(profile))
     return list(zip(loc.offsets.tolist(), loc.lengths.tolist()))
 
 
-def crc_ok_reference(frame: bytes) -> bool:
-    """CRC-16/IBM-3740 checked with the standard library's binascii.crc_hqx (init 0xFFFF),
-    independent of the codec's own helper: catalogue check value of "123456789" is 0x29B1."""
-    return binascii.crc_hqx(frame[2:-2], 0xFFFF) == int.from_bytes(frame[-2:], "big")
+def crc_ok_reference(frame: bytes, digest: bytes) -> bool:
+    """The frame's CRC rebuilt with the standard library (:func:`keyed_crc`),
+    independent of the codec's prefix-state arithmetic."""
+    return keyed_crc(frame[:-2], digest) == int.from_bytes(frame[-2:], "big")
 
 
 def assert_accounting(dec, channels: int) -> None:

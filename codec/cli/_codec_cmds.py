@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from .._bases import basis_names
-from .._codec import check_some_frame, decode, decode_frames, encode
+from .._codec import check_some_frame, decode, decode_frames, encode, frame_key
 from .._errors import FrameError, InputError
 from .._framing import split_frames
 from .._gaps import GAP_POLICIES
@@ -443,7 +443,9 @@ def _inspect(args) -> int:
         profile = load_profile(args.profile)
     elif note_path(args.stream).is_file():
         profile = load_stream_note(note_path(args.stream))[0]
-    loc = locate_frames(data)
+    # The CRC covers the profile (FRAME_LAYOUT.md, "Profile check"): without one, frames
+    # are only split as their envelopes claim.
+    loc = locate_frames(data, frame_key(profile) if profile and profile.channels else None)
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a coefwire stream?", args.stream)
