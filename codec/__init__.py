@@ -6,8 +6,7 @@ frame layout -> bytes, and back in :func:`decode`.
 
 from . import _wavelets  # noqa: F401  (registers db2..db10, sym4..sym8)
 from ._bases import Basis, as_basis, basis_from_code, basis_names, register_basis
-from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, reconstruct
-from ._codec import frame_key
+from ._codec import DecodeResult, EncodeResult, as_samples, decode, encode, frame_key, reconstruct
 from ._compare import Comparison, compare_bases, energy_compaction
 from ._crc import crc16_ibm3740, crc32_iso_hdlc
 from ._errors import CoefwireError, FrameError, InputError, ProfileError

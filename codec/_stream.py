@@ -4,8 +4,9 @@ A receiver sees bytes, not frames.  :class:`FrameScanner` walks the stream: at
 each position it expects a sync marker, asks the layout's envelope rule
 (:func:`codec._layout.frame_extent`) how long the frame claims to be and checks
 its CRC under the profile's key (:func:`codec._layout.frame_crc_ok`).  A frame
-that passes is accepted and the walk jumps over it; otherwise the walk searches forward from the byte
-after the failed candidate, so garbage, a truncated frame, a bit slip or a false
+that passes is accepted and the walk jumps over it; otherwise the walk searches
+forward from the byte after the failed candidate, so garbage, a truncated
+frame, a bit slip or a false
 sync marker inside payload bytes costs only that candidate.  The scanner takes
 bytes in chunks of any size and gives exactly the same frames, failures and
 skipped-byte count as one call on the whole stream (:func:`locate_frames` is

@@ -465,8 +465,8 @@ def _inspect(args) -> int:
         kind = "gap" if version == GAP_KIND else f"v{version}"
         bits = 8 * len(loc.frames[i])
         if fr is None:
-            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  crc ok "
-                       "(no profile: contents not read)")
+            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':>5} {bits:>7}  "
+                       "not checked (no profile: the CRC covers it; contents not read)")
             continue
         chans = fr.row_channel[fr.row_frame == i].tolist()
         chans += [c for c, _ in fr.masks.get(i, ())]
