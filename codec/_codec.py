@@ -701,14 +701,20 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         vi = np.flatnonzero(version == number)
         if not vi.size:
             continue
+        # The profile byte sits at byte 4 (11-bit length) or 6 (27-bit length): checked
+        # before the parser reads or allocates anything for the frame.
+        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
+        pbyte = buf[offsets[vi] + np.where(buf[offsets[vi] + len(SYNC)] & 0x08, 6, 4)]
+        refuse(vi, pbyte != pid8, "foreign_profile",
+               lambda f, pb=pbyte, vi=vi, pid8=pid8: f"made under another profile (id byte "
+               f"{int(pb[vi == f][0]):#04x}, not {pid8:#04x})")
+        vi = vi[ok[vi]]
+        if not vi.size:
+            continue
         p = parse(joined, offsets[vi], lengths[vi], n, channels, profile.reference == "ac")
         sequence[vi], valid[vi] = p["sequence"], p["valid"]
         head["basis"][vi] = basis.code
         np.add.at(head["terms"], vi[p["frame"]], (p["q"] != 0).sum(axis=1))
-        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
-        refuse(vi, p["profile"] != pid8, "foreign_profile",
-               lambda f, p=p, vi=vi, pid8=pid8: f"made under another profile (id byte "
-               f"{int(p['profile'][vi == f][0]):#04x}, not {pid8:#04x})")
         refuse(vi, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
         bad_ch = np.zeros(vi.size, dtype=bool)
         np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
@@ -781,7 +787,8 @@ def _inner_problem(inner: bytes, key: FrameKey) -> str:
 
 
 def decode(data: bytes, profile: Profile, samples: int | None = None,
-           reorder: int = 16, strict: bool = True) -> DecodeResult:
+           reorder: int = 16, strict: bool = True, max_fill: int | None = None
+           ) -> DecodeResult:
     """Decode a whole stream made under ``profile`` (bound: one channel spec per column).
 
     The same machine as the streaming decoder (:class:`codec._streaming.StreamDecoder`)
@@ -789,7 +796,10 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     CRC fails never reach the output; foreign, damaged, duplicated or late
     frames become events in the result, not errors.  ``samples`` (the stream
     note's count) fixes the output length; without it the stream runs to the
-    last frame received, and ``end_known`` says whether that end is certain.
+    last frame received, and ``end_known`` says whether that end is certain;
+    then a sequence jump adds at most ``max_fill`` lost windows (default
+    ``codec._streaming.MAX_FILL_WINDOWS``) and the rest is a ``discontinuity``
+    event.
 
     Raises :class:`ProfileError` when the profile lists no channels and, when
     ``strict``, :class:`FrameError` when not one frame was accepted (saying
@@ -798,7 +808,8 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     """
     from ._streaming import StreamDecoder  # the streaming module builds on this one
 
-    dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True)
+    dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True,
+                        max_fill=max_fill)
     blocks = dec.feed(data) + dec.close()
     if strict:
         check_some_frame(dec.counts(), dec.events)

@@ -60,6 +60,7 @@ __all__ = [
     "wrap_frames",
     "read_subheaders",
     "write_subheaders",
+    "subframes_fit",
 ]
 
 LAYOUT_VERSION = 1
@@ -784,6 +785,23 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     return pp, bad
 
 
+def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n: int,
+                  has_mean: bool, quantizer_bit: bool = False) -> np.ndarray:
+    """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-4).
+
+    A subframe header takes at least its step (10 bits for the first, a 1-bit
+    exp-Golomb code for the others), a 1-bit mean code (reference ``ac``),
+    the count (``count_bits(n)``) and layout 4's quantizer bit.
+    ``head_bits`` are the bits the frame header took from the sync marker on.
+    Checked before a parser allocates any row, so a short frame claiming 16
+    windows of every channel costs no more than its length.
+    """
+    extra = int(has_mean) + count_bits(n) + int(quantizer_bit)
+    need = np.where(cnt > 0, STEP_BITS + extra + (cnt - 1) * (1 + extra), 0)
+    room = (np.asarray(lengths, np.int64) - CRC_BYTES) * 8 - head_bits
+    return need <= room
+
+
 def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
                     channels: int, has_mean: bool) -> dict[str, np.ndarray]:
     """Parse CRC-checked v2 frames at ``offsets`` into per-subframe arrays.
@@ -810,6 +828,8 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     p = p + 1 + np.where(short, vb, 0)
 
     cnt = np.where(multi, channels, 1)
+    fits = subframes_fit(cnt, p - offsets.astype(np.int64) * 8, lengths, n, has_mean)
+    cnt = np.where(fits, cnt, 0)  # refused before any row is allocated
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
     owner = np.repeat(np.arange(nf), cnt)
@@ -819,7 +839,7 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     mean = np.zeros(ns, np.int64) if has_mean else None
     count = np.zeros(ns, np.int64)
     q = np.zeros((ns, n), dtype=np.int64)
-    ok = np.ones(nf, dtype=bool)
+    ok = fits.copy()
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s

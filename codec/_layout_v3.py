@@ -41,6 +41,7 @@ from ._layout import (
     read_frame_start,
     read_subheaders,
     size_length_fields,
+    subframes_fit,
     wrap_frames,
     write_frame_heads,
     write_subheaders,
@@ -187,6 +188,12 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
 
     per_win = np.where(multi, channels, 1)
     cnt = windows * per_win
+    # Before anything is allocated: a frame whose header claims more subframes than its
+    # own bytes can hold (each subframe header takes at least min_subframe_bits) is
+    # refused and gets no rows, so the work and memory per frame follow its length.
+    fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
+                         version == LAYOUT_VERSION_4)
+    cnt = np.where(fits, cnt, 0)
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
     owner = np.repeat(np.arange(nf), cnt)
@@ -198,7 +205,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     mean = np.zeros(ns, np.int64) if has_mean else None
     count = np.zeros(ns, np.int64)
     quant = np.zeros(ns, np.int64) if version == LAYOUT_VERSION_4 else None
-    ok = np.ones(nf, dtype=bool)
+    ok = fits.copy()
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s

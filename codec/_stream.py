@@ -6,8 +6,8 @@ each position it expects a sync marker, asks the layout's envelope rule
 its CRC under the profile's key (:func:`codec._layout.frame_crc_ok`).  A frame
 that passes is accepted and the walk jumps over it; otherwise the walk searches
 forward from the byte after the failed candidate, so garbage, a truncated
-frame, a bit slip or a false
-sync marker inside payload bytes costs only that candidate.  The scanner takes
+frame, a bit slip or a false sync marker inside payload bytes costs only that
+candidate.  The scanner takes
 bytes in chunks of any size and gives exactly the same frames, failures and
 skipped-byte count as one call on the whole stream (:func:`locate_frames` is
 that one call), holding at most one frame (at most ``max_frame`` bytes, which
@@ -30,6 +30,12 @@ applies the duplicate / out-of-order policy, written down here once:
 * With a known stream length (the stream note), frames for windows past the
   end are dropped as ``beyond_end``; a frame claiming a window before 0 is
   dropped as ``before_start``.
+* With the end unknown and ``max_fill`` set, a frame more than ``max_fill``
+  windows past the head (or a first frame further than that from window 0)
+  is placed ``max_fill`` windows after it: the windows in between are lost,
+  the ones beyond are cut out of the output as a *discontinuity* (one CRC-valid
+  frame with a far sequence number cannot make the output grow by more than
+  ``max_fill`` windows).  Later sequence numbers are read relative to the cut.
 
 Per-sample accounting uses the small integer codes :data:`LOST`,
 :data:`DELIVERED`, :data:`GAP`; :data:`CONCEALED` is reserved for receivers
@@ -285,6 +291,13 @@ class SequenceTracker:
     head: int | None = None
     released: int = 0  # windows below this were handed out and are closed
     _seen: dict = field(default_factory=dict)  # (window, channel, kind) -> CRC of first copy
+    #: With the end unknown, most lost windows a forward jump (or a first frame) may leave
+    #: before it; windows beyond are a discontinuity, not output (None: no limit).
+    max_fill: int | None = None
+    #: Wire windows minus output windows: what discontinuities have cut out so far.
+    shift: int = 0
+    #: Windows the last :meth:`place` cut out (0: none).
+    last_cut: int = 0
 
     def place(self, sequence: int, channel: int, kind: int, crc: int,
               modulus: int = 65536) -> tuple[int, str]:
@@ -294,12 +307,22 @@ class SequenceTracker:
         v1 and gap-mask frames, 256 in layout v2: there a frame more than 128
         windows away from the head is ambiguous).
         """
+        self.last_cut = 0
         if self.head is None:
-            window = int(sequence)  # the first frame fixes the unwrapping
+            window = int(sequence) - self.shift  # the first frame fixes the unwrapping
+            last = -1
         else:
             half = modulus // 2
-            step = (int(sequence) - self.head + half) % modulus - half
+            step = (int(sequence) - self.head - self.shift + half) % modulus - half
             window = self.head + step
+            last = self.head
+        if (self.max_fill is not None and self.end_window is None
+                and window - last - 1 > self.max_fill):
+            # A jump into the unknown: keep max_fill lost windows, cut the rest out.
+            cut = window - last - 1 - self.max_fill
+            window -= cut
+            self.shift += cut
+            self.last_cut = cut
         if window < 0:
             return window, "before_start"
         if self.end_window is not None and window >= self.end_window:
