@@ -135,6 +135,9 @@ class FrameScanner:
         self.max_frame = max_frame
         self.key = key
         self._buf = bytearray()
+        # CRC-16 register states before each byte of _buf and after the last (extended as
+        # bytes arrive, trimmed with _buf): any candidate's CRC is two lookups away.
+        self._states = np.full(1, 0xFFFF, dtype=np.uint16)
         self._base = 0  # stream offset of _buf[0]
         self._pos = 0  # index in _buf where the walk stands
         self._expected = True  # _pos is a frame boundary (not found by searching)
@@ -148,6 +151,10 @@ class FrameScanner:
         """Add bytes; return the frames they complete."""
         self._buf += chunk
         self.bytes_in += len(chunk)
+        if self.key is not None and len(chunk):
+            more = crc16_prefix_states(np.frombuffer(bytes(chunk), dtype=np.uint8),
+                                       int(self._states[-1]))
+            self._states = np.concatenate([self._states, more[1:]])
         if len(self._buf) < self._need:
             return []
         out = self._walk(final=False)
@@ -177,9 +184,7 @@ class FrameScanner:
         if self.key is None:  # no profile: envelopes as claimed, CRCs unchecked
             ok[whole] = True
         elif whole.size:
-            lo = int(sp[whole].min())  # CRC states only over the bytes the candidates span
-            states = crc16_prefix_states(u[lo:])
-            ok[whole] = frames_crc_ok(states, u[lo:], sp[whole] - lo, length[whole], self.key)
+            ok[whole] = frames_crc_ok(self._states, u, sp[whole], length[whole], self.key)
         return sp, length, need, wait, ok
 
     def _walk(self, final: bool) -> list[tuple[int, bytes]]:
@@ -244,6 +249,8 @@ class FrameScanner:
         drop = self._pos
         if drop:
             del self._buf[:drop]
+            if self.key is not None:
+                self._states = self._states[drop:].copy()
             self._base += drop
             self._need = max(0, self._need - drop)
             self._pos = 0
