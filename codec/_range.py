@@ -920,100 +920,105 @@ def _finish_scalar(dec: RangeDecoder, active: int, k0: int, nsorted, lstart, sym
     decodes to the same codes whether its batch is large or small.
     """
     data = dec.data.tolist()
-    last = len(data) - 1  # the zero byte read past a lane's end
     rows_l, js_l = sym_row.tolist(), sym_j.tolist()
     tr = None if trellis is None else trellis.tolist()
+    for lane in range(active):
+        _scalar_lane(dec, lane, data, k0, int(nsorted[lane]), int(lstart[lane]), rows_l, js_l,
+                     hist[:, lane].tolist(), int(state[lane]), q, n, tr)
+
+
+def _scalar_lane(dec: RangeDecoder, lane: int, data: list, k0: int, k1: int, idx0: int,
+                 rows_l: list, js_l: list, h: list, st: int, q: np.ndarray, n: int,
+                 tr: list | None) -> None:
+    """Symbols ``k0 .. k1 - 1`` of one lane (see :func:`_finish_scalar`)."""
+    pos, end = int(dec.pos[lane]), int(dec.end[lane])
+    rng, value = int(dec.rng[lane]), int(dec.value[lane])
+    bad, reads = bool(dec.bad[lane]), int(dec.reads[lane])
+    zero = data[-1]  # the zero byte read past a lane's end
     cum_rows, shift, lut, exact, base = (_CUM_ROWS, _SHIFT_LIST, _LUT_LIST, _LUT_EXACT_LIST,
                                          _LUT_BASE_LIST)
     top_w = _W - 2
-    for lane in range(active):
-        pos, end = int(dec.pos[lane]), int(dec.end[lane])
-        rng, value = int(dec.rng[lane]), int(dec.value[lane])
-        bad, reads = bool(dec.bad[lane]), int(dec.reads[lane])
-        h = hist[:, lane].tolist()
-        st = int(state[lane])
 
-        def narrow(r, val, new_rng):
-            nonlocal rng, value, bad, pos, reads
-            if val >= new_rng:
-                bad = True
-                val = new_rng - 1
-            value, rng = val, new_rng
-            for _ in range(3):
-                if rng >= _TOP:
-                    break
-                value = (value << 8) | (data[pos] if pos < end else data[last])
-                pos += 1
-                reads += 1
-                rng <<= 8
+    def narrow(val: int, new_rng: int) -> None:
+        nonlocal rng, value, bad, pos, reads
+        if val >= new_rng:
+            bad = True
+            val = new_rng - 1
+        value, rng = val, new_rng
+        for _ in range(3):
+            if rng >= _TOP:
+                break
+            value = (value << 8) | (data[pos] if pos < end else zero)
+            pos += 1
+            reads += 1
+            rng <<= 8
 
-        def symbol(cls):
-            r = rng >> TOTAL_BITS
-            t = min(value // r, TOTAL - 1)
-            li = base[cls] + (t >> _LUT_DROP)
-            sym = lut[li]
-            row_ = cum_rows[cls]
-            if not exact[li]:
-                while sym < top_w and row_[sym + 1] <= t:
-                    sym += 1
-            c0 = row_[sym]
-            narrow(r, value - r * c0, r * (row_[sym + 1] - c0))
-            return sym
+    def symbol(cls: int) -> int:
+        r = rng >> TOTAL_BITS
+        t = min(value // r, TOTAL - 1)
+        li = base[cls] + (t >> _LUT_DROP)
+        sym = lut[li]
+        row_ = cum_rows[cls]
+        if not exact[li]:
+            while sym < top_w and row_[sym + 1] <= t:
+                sym += 1
+        c0 = row_[sym]
+        narrow(value - r * c0, r * (row_[sym + 1] - c0))
+        return sym
 
-        def bits(width):
-            r = rng >> width
-            v = min(value // r, (1 << width) - 1)
-            narrow(r, value - r * v, r)
-            return v
+    def bits(width: int) -> int:
+        r = rng >> width
+        v = min(value // r, (1 << width) - 1)
+        narrow(value - r * v, r)
+        return v
 
-        def long_bits(width):
-            out = 0
-            while width > 0:
-                cw = min(width, _BYPASS_MAX)
-                width -= cw
-                out = (out << cw) | bits(cw)
-            return out
+    def long_bits(width: int) -> int:
+        out = 0
+        while width > 0:
+            cw = min(width, _BYPASS_MAX)
+            width -= cw
+            out = (out << cw) | bits(cw)
+        return out
 
-        idx0 = int(lstart[lane])
-        for k in range(k0, int(nsorted[lane])):
-            row, j = rows_l[idx0 + k], js_l[idx0 + k]
-            if j == 0:
-                h = [0, 0, 0, 0]
-                st = 0
-                cls, s = LEN_ROW, 0
-            else:
-                tot = h[0] + h[1] + h[2] + h[3]
-                u = (tot << 4) // min(j, CONTEXT_WINDOW)
-                bl = math.frexp(float(u))[1]
-                hb = (u >> max(bl - 2, 0)) & 1
-                band = min(max(((j << 8) // n).bit_length() - 1, 0), _BANDS - 1)
-                scale = min(max(2 * bl + hb - 5, 1), _SCALES - 1) if tot else 0
-                cls = scale * _BANDS + band
-                if tr is not None and tr[row]:
-                    cls += TRELLIS_BASE * (1 + (st >> 1))
-                s = shift[cls]
-            sym = symbol(cls)
-            mag = sym
-            if j == 0 or sym == MODEL_SYMBOLS:
-                eb = sym if j == 0 else symbol(LEN_ROW)
-                low = long_bits(max(eb - 1, 0))
-                e = ((1 << (eb - 1)) | low) if eb > 0 else 0
-                mag = e if j == 0 else e + MODEL_SYMBOLS
-            over = mag >= _BIG or (mag > 0 and mag.bit_length() + s > _BIG_BITS)
-            if s:
-                mag = (mag << s) | long_bits(s)
-            if over:
-                bad = True
-                mag = 0
-            val = mag
-            if mag and bits(1) == 1:
-                val = -mag
-            q[row, j] = val
-            if tr is not None:
-                st = _TRANSITIONS_LIST[st][mag & 1]
-            h = [mag, h[0], h[1], h[2]]
-        dec.pos[lane], dec.rng[lane], dec.value[lane] = pos, rng, value
-        dec.bad[lane], dec.reads[lane] = bad, reads
+    for k in range(k0, k1):
+        row, j = rows_l[idx0 + k], js_l[idx0 + k]
+        if j == 0:
+            h = [0, 0, 0, 0]
+            st = 0
+            cls, s = LEN_ROW, 0
+        else:
+            tot = h[0] + h[1] + h[2] + h[3]
+            u = (tot << 4) // min(j, CONTEXT_WINDOW)
+            bl = math.frexp(float(u))[1]  # as the vector path: float64 exponent
+            hb = (u >> max(bl - 2, 0)) & 1
+            band = min(max(((j << 8) // n).bit_length() - 1, 0), _BANDS - 1)
+            scale = min(max(2 * bl + hb - 5, 1), _SCALES - 1) if tot else 0
+            cls = scale * _BANDS + band
+            if tr is not None and tr[row]:
+                cls += TRELLIS_BASE * (1 + (st >> 1))
+            s = shift[cls]
+        sym = symbol(cls)
+        mag = sym
+        if j == 0 or sym == MODEL_SYMBOLS:
+            eb = sym if j == 0 else symbol(LEN_ROW)
+            low = long_bits(max(eb - 1, 0))
+            e = ((1 << (eb - 1)) | low) if eb > 0 else 0
+            mag = e if j == 0 else e + MODEL_SYMBOLS
+        over = mag >= _BIG or (mag > 0 and mag.bit_length() + s > _BIG_BITS)
+        if s:
+            mag = (mag << s) | long_bits(s)
+        if over:
+            bad = True
+            mag = 0
+        val = mag
+        if mag and bits(1) == 1:
+            val = -mag
+        q[row, j] = val
+        if tr is not None:
+            st = _TRANSITIONS_LIST[st][mag & 1]
+        h = [mag, h[0], h[1], h[2]]
+    dec.pos[lane], dec.rng[lane], dec.value[lane] = pos, rng, value
+    dec.bad[lane], dec.reads[lane] = bad, reads
 
 
 def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,

@@ -348,3 +348,35 @@ def test_arbitrary_crc_valid_frames_raise_only_project_errors(specs):
     assert peak < HYP_PEAK_BYTES, peak
     assert_accounting(dec, 8)
     assert np.isfinite(dec.samples[dec.delivered]).all()
+
+
+# ---------------------------------------------------------------------------------------
+# The fuzzer's verdict is its exit status (issue: it used to exit 0 whatever it found).
+# ---------------------------------------------------------------------------------------
+
+def _fuzzer(monkeypatch):
+    import importlib
+    from pathlib import Path
+
+    monkeypatch.syspath_prepend(str(Path(__file__).resolve().parents[1] / "tools"))
+    return importlib.import_module("fuzz_mutations")
+
+
+def test_fuzzer_exits_0_when_clean_and_1_on_any_finding(monkeypatch, capsys):
+    fm = _fuzzer(monkeypatch)
+    monkeypatch.setattr("sys.argv", ["fuzz_mutations.py", "--streams", "12",
+                                     "--profiles", "0,1"])
+    assert fm.main() == 0
+    assert "exceptions 0" in capsys.readouterr().out
+    real_decode = codec.decode
+
+    def leaky(data, profile, **kw):  # a decoder bug: one sample flagged delivered wrongly
+        dec = real_decode(data, profile, **kw)
+        lost = np.flatnonzero(dec.status.ravel() == codec.LOST)
+        if lost.size:
+            dec.status.ravel()[lost[0]] = codec.DELIVERED
+        return dec
+
+    monkeypatch.setattr(codec, "decode", leaky)
+    assert fm.main() == 1
+    assert "FINDING" in capsys.readouterr().out

@@ -114,7 +114,7 @@ def build_cases(rng: np.random.Generator, which: list[int]) -> list[Case]:
         for off, w, c in zip(t["offset"].tolist(), t["window"].tolist(), t["channel"].tolist()):
             k = loc.offsets.tolist().index(off)
             rows.setdefault(frames[k], set()).add((w, c))
-        for f, off in zip(frames, loc.offsets.tolist()):  # gap frames with no inner data
+        for f in frames:  # gap frames with no inner data
             rows.setdefault(f, set())
         cases.append(Case(enc.profile, samples, enc.data, enc.reconstruction, frames, key,
                           key.digest, rows))
