@@ -380,11 +380,20 @@ def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_g
             pieces.append(frame)
             continue
         r = first[f]
-        inner = b"" if all_gap[f] else bytes(frame)
+        # the inner frame is signed with the inner key: found alone, it fails its CRC
+        inner = b"" if all_gap[f] else _resign(bytes(frame), key.inner())
         g = pack_gap_frame(pid, int(sequence[r]), int(valid[r]), masks[f], inner, n, key)
         pieces.append(g)
         extra += 8 * (len(g) - len(inner))
     return b"".join(pieces), all_gap[row_frame], extra
+
+
+def _resign(frame: bytes, key: FrameKey) -> bytes:
+    """``frame`` with its CRC recomputed under ``key``."""
+    from ._crc import crc16_ibm3740
+
+    crc = crc16_ibm3740(key.prefix(len(frame)) + frame[len(SYNC) : -2])
+    return frame[:-2] + crc.to_bytes(2, "big")
 
 
 def _v1_term_bits(batch: FrameBatch, n: int) -> int:
@@ -747,7 +756,7 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         masks[f] = fmasks
         if not inner:
             continue
-        why = _inner_problem(inner, key)
+        why = _inner_problem(inner, key.inner())
         sub = None if why else decode_frames([inner], profile, basis)
         if sub is not None and sub.verdict[0] != "ok":
             why = sub.detail[0] or sub.verdict[0]

@@ -68,6 +68,8 @@ SYNC = b"\xe3\x5a"
 #: Version nibble of the gap-mask frame kind (layout in ``_gaps.py``), valid beside any version.
 GAP_KIND = 15
 _GAP_MIN_BYTES = 14  # its fixed header (12 bytes with the sync marker) and CRC
+#: Appended to the profile digest for the key of a gap-mask frame's inner frame.
+INNER_KEY_LABEL = b"gap-mask inner frame"
 
 #: (field, bits, meaning) after the sync marker, in order.
 HEADER_FIELDS: tuple[tuple[str, int, str], ...] = (
@@ -143,6 +145,18 @@ class FrameKey:
 
     digest: bytes
     _inits: dict = field(default_factory=dict, compare=False, repr=False)
+    _inner: list = field(default_factory=list, compare=False, repr=False)
+
+    def inner(self) -> FrameKey:
+        """The key of a data frame carried inside a gap-mask frame.
+
+        Its digest is SHA-256(``digest`` || "gap-mask inner frame"), so an inner
+        frame found on its own (its gap-mask frame damaged) fails its CRC: the
+        stand-in values under a gap never pass for data.
+        """
+        if not self._inner:
+            self._inner.append(FrameKey(hashlib.sha256(self.digest + INNER_KEY_LABEL).digest()))
+        return self._inner[0]
 
     def prefix(self, length: int) -> bytes:
         """The implicit prefix of a frame of ``length`` bytes."""

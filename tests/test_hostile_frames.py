@@ -380,3 +380,21 @@ def test_fuzzer_exits_0_when_clean_and_1_on_any_finding(monkeypatch, capsys):
     monkeypatch.setattr(codec, "decode", leaky)
     assert fm.main() == 1
     assert "FINDING" in capsys.readouterr().out
+
+
+def test_damaged_gap_frame_never_hands_out_its_inner_frame_as_data():
+    # The inner data frame holds interpolated stand-ins at the gaps; when its gap-mask
+    # frame fails the CRC the search finds the inner frame's sync marker next.  Signed
+    # with the inner key (FRAME_LAYOUT.md), it fails its CRC on its own.
+    prof = codec.Profile(frame_length=32).bind(["a", "b"])
+    enc = _gap_stream(prof)
+    o, n = [(a, m) for a, m in frames_of(enc.data, enc.profile) if enc.data[a + 2] >> 4 == 15][0]
+    at = enc.data.index(SYNC, o + 2, o + n)  # the inner frame's sync marker
+    inner = enc.data[at : o + n - 2]
+    assert not crc_ok_reference(inner, digest_of(prof))  # not a frame of the profile alone
+    damaged = bytearray(enc.data)
+    damaged[o + n - 1] ^= 0x01  # the gap frame's CRC
+    dec = codec.decode(bytes(damaged), prof, samples=256, strict=False)
+    assert dec.counts["frames_crc_failed"] == 1 and dec.counts["gap_frames_ok"] == 0
+    assert not dec.delivered[32:64, 1].any()  # the window with gaps: lost, not stand-ins
+    assert dec.counts["frames_ok"] == len(frames_of(enc.data, enc.profile)) - 1
