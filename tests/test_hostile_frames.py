@@ -273,7 +273,8 @@ HYP_PID = codec.profile_id(HYP_PROFILE)
 # float64), and the decoder holds about six arrays of that size per frame in flight
 # (codes, lane output, synthesis, rows, released blocks) for at most 6 frames: 6 x 6 x
 # 2 MiB = 72 MiB; with 8 MB of fixed state, 96 MB is generous.  Unbounded allocation
-# (the bomb above) needs gigabytes.
+# (the bomb above) needs gigabytes.  Measured here: 1.6 MB at most over the 150 examples
+# (one decode each); the cap is for what a frame may legitimately describe, not for them.
 HYP_PEAK_BYTES = 96_000_000
 
 _v234 = st.tuples(
