@@ -16,7 +16,8 @@ import importlib
 _WHERE = {
     "._bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
                 "register_basis"),
-    "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct"),
+    "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "frame_key",
+                "reconstruct"),
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
     "._crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
     "._errors": ("CoefwireError", "FrameError", "InputError", "ProfileError"),
@@ -35,6 +36,7 @@ __all__ = [
     "Basis", "as_basis", "basis_from_code", "basis_names", "register_basis",
     "basis_fingerprint",
     "DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "reconstruct",
+    "frame_key",
     "Comparison", "compare_bases", "energy_compaction",
     "TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt",
     "crc16_ibm3740", "crc32_iso_hdlc",

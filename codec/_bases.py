@@ -355,3 +355,5 @@ register_basis("dct", 1, _dct)
 register_basis("legendre", 2, _legendre)
 register_basis("haar", 3, _haar, _power_of_two)
 register_basis("walsh", 4, _walsh, _power_of_two)
+
+

@@ -7,12 +7,13 @@ once.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from functools import partial
 
 import numpy as np
 
-from ._bases import Basis
+from ._bases import Basis, basis_fingerprint
 from ._bits import MAX_FIELD_BITS
 from ._entropy import exp_golomb_bits, zigzag
 from ._errors import FrameError, InputError, ProfileError
@@ -28,6 +29,7 @@ from ._layout import (
     SYNC,
     FrameBatch,
     FrameBatchV2,
+    FrameKey,
     expected_length,
     frame_crc_ok,
     frame_extent,
@@ -46,7 +48,7 @@ from ._layout_v3 import (
     pack_frames_v3,
     parse_frames_v3,
 )
-from ._profile import Profile, profile_id
+from ._profile import Profile, profile_digest, profile_id
 from ._quantize import code_for_step, step_from_code
 from ._range import coefficient_cost_bits
 from ._report import scope_figures, stream_report
@@ -66,7 +68,7 @@ from ._stream import DELIVERED, locate_frames
 from ._trellis import dequantize_levels
 
 __all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
-           "check_some_frame",
+           "check_some_frame", "frame_key",
            "as_samples", "reconstruct"]
 
 
@@ -181,6 +183,30 @@ def _bind(profile: Profile, channels: int) -> Profile:
             "give a profile for this input"
         )
     return profile
+
+
+@functools.lru_cache(maxsize=32)
+def _fingerprint(basis: Basis) -> str:
+    return basis_fingerprint(basis.matrix)  # bases are cached objects: hash each once
+
+
+@functools.lru_cache(maxsize=32)
+def _key_of(digest: bytes) -> FrameKey:
+    return FrameKey(digest)  # one cache of per-length CRC start values per profile
+
+
+def frame_key(profile: Profile, basis: Basis | None = None) -> FrameKey:
+    """The profile's share of every frame's CRC: its digest with the basis fingerprint.
+
+    ``basis`` is the profile's basis when already built (else it is built, a
+    trained one loaded and hash-checked).  Every frame search and every packer
+    takes this key; frames made under another profile fail their CRC.
+    """
+    if basis is None:
+        from ._klt import profile_basis as _pb
+
+        basis = _pb(profile)
+    return _key_of(profile_digest(profile, _fingerprint(basis)))
 
 
 def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 0) -> EncodeResult:
@@ -337,13 +363,14 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
             mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
             terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
         )
-        data, lengths = pack_frames(batch, profile_id(profile), n)
+        data, lengths = pack_frames(batch, profile_id(profile), n, key=frame_key(profile, basis))
         frame_bits = lengths * 8
         header_bits = int(frame_bits.sum()) - int(_v1_term_bits(batch, n))
         row_frame = np.arange(channel.size)
     elif profile.layout_version == 2:
         data, frame_bits, header_bits = _pack_v2(profile, channel, window + first_window,
-                                                 valid, code, mean_int, q, n)
+                                                 valid, code, mean_int, q, n,
+                                                 frame_key(profile, basis))
         row_frame = (np.unique(window, return_inverse=True)[1] if profile.multi_channel_frames
                      else np.arange(channel.size))
     else:
@@ -354,12 +381,12 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
             profile.multi_channel_frames)
         data, frame_bits, header_bits, row_frame = _pack_v3(
             profile, channel, window + first_window, valid, code, mean_int, q, n, trellis,
-            groups)
+            groups, key=frame_key(profile, basis))
     extra_bits = 0
     if gap_rows is not None:
         data, dropped, extra_bits = _add_gap_frames(
             data, row_frame, fmiss, gap_rows, channel, window + first_window, valid,
-            profile_id(profile), n)
+            profile_id(profile), n, frame_key(profile, basis))
         frame_bits = np.where(dropped, 0, frame_bits)
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
@@ -391,7 +418,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
 
 def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_gap: np.ndarray,
                     channel: np.ndarray, sequence: np.ndarray, valid: np.ndarray, pid: int,
-                    n: int) -> tuple[bytes, np.ndarray, int]:
+                    n: int, key: FrameKey) -> tuple[bytes, np.ndarray, int]:
     """Wrap every data frame holding a gap in a gap-mask frame (``codec._gaps``).
 
     ``row_frame`` maps each row (one window of one channel) to its data frame
@@ -399,7 +426,7 @@ def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_g
     gap sends the masks alone.  Returns the new stream, which rows lost their
     data frame, and the bits the gap-mask frames add.
     """
-    loc = locate_frames(data)  # our own clean stream: one entry per data frame
+    loc = locate_frames(data, key)  # our own clean stream: one entry per data frame
     nframes = loc.offsets.size
     full = (fmiss & (np.arange(n) < valid[:, None])).sum(axis=1) == valid
     all_gap = np.ones(nframes, dtype=bool)
@@ -417,11 +444,20 @@ def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_g
             pieces.append(frame)
             continue
         r = first[f]
-        inner = b"" if all_gap[f] else bytes(frame)
-        g = pack_gap_frame(pid, int(sequence[r]), int(valid[r]), masks[f], inner, n)
+        # the inner frame is signed with the inner key: found alone, it fails its CRC
+        inner = b"" if all_gap[f] else _resign(bytes(frame), key.inner())
+        g = pack_gap_frame(pid, int(sequence[r]), int(valid[r]), masks[f], inner, n, key)
         pieces.append(g)
         extra += 8 * (len(g) - len(inner))
     return b"".join(pieces), all_gap[row_frame], extra
+
+
+def _resign(frame: bytes, key: FrameKey) -> bytes:
+    """``frame`` with its CRC recomputed under ``key``."""
+    from ._crc import crc16_ibm3740
+
+    crc = crc16_ibm3740(key.prefix(len(frame)) + frame[len(SYNC) : -2])
+    return frame[:-2] + crc.to_bytes(2, "big")
 
 
 def _v1_term_bits(batch: FrameBatch, n: int) -> int:
@@ -438,7 +474,7 @@ def _v1_term_bits(batch: FrameBatch, n: int) -> int:
     return int((mw + terms * (index_bits(n) + vw)).sum())
 
 
-def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
+def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n, key):
     """Layout v2 frames; returns (bytes, bits per subframe, header bits of the stream)."""
     multi = profile.multi_channel_frames
     rows = channel.size
@@ -459,7 +495,7 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n):
             multi=np.full(b - a, multi), channel=channel[fs], sequence=window[fs],
             valid=valid[fs], frame=frame[r0:r1] - frame[r0], step_code=code[r0:r1],
             mean=None if mean_int is None else mean_int[r0:r1], q=q[r0:r1])
-        parts.append(pack_frames_v2(batch, pid, n))
+        parts.append(pack_frames_v2(batch, pid, n, key=key))
     data = b"".join(p[0] for p in parts)
     lengths, sub_bits, side_bits = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
     cnt = np.bincount(frame, minlength=first.size)
@@ -492,7 +528,7 @@ def _gap_groups(window: np.ndarray, channel: np.ndarray, gap_rows: np.ndarray, w
 
 
 def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, trellis=None,
-             groups=None):
+             groups=None, *, key: FrameKey):
     """Layout v3 frames: (bytes, bits per row, header bits of the stream, frame of each row).
 
     Header bits are everything but the range-coded coefficient bytes.  ``groups``
@@ -527,7 +563,7 @@ def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, tre
             frame=frame[r0:r1] - frame[r0], step_code=code[rows],
             mean=None if mean_int is None else mean_int[rows], q=q[rows],
             quantizer=None if trellis is None else trellis[rows])
-        parts.append(pack_frames_v3(batch, pid, n, channels, profile.layout_version))
+        parts.append(pack_frames_v3(batch, pid, n, channels, profile.layout_version, key=key))
     data = b"".join(p[0] for p in parts)
     lengths, sub_bits, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
     cnt = np.bincount(frame, minlength=first.size)
@@ -722,6 +758,7 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
     valid = np.zeros(nf, np.int64)
     head = {k: np.zeros(nf, dtype=np.int64) for k in _HEAD_KEYS}
     pid = profile_id(profile)
+    key = frame_key(profile, basis)
 
     def refuse(idx: np.ndarray, bad: np.ndarray, key: str, words) -> None:
         for f in idx[bad & ok[idx]].tolist():  # only the refused frames, usually none
@@ -785,16 +822,22 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         vi = np.flatnonzero(version == number)
         if not vi.size:
             continue
+        # The profile byte sits at byte 4 (11-bit length) or 6 (27-bit length): checked
+        # before the parser reads or allocates anything for the frame.
+        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
+        pbyte = buf[offsets[vi] + np.where(buf[offsets[vi] + len(SYNC)] & 0x08, 6, 4)]
+        refuse(vi, pbyte != pid8, "foreign_profile",
+               lambda f, pb=pbyte, vi=vi, pid8=pid8: f"made under another profile (id byte "
+               f"{int(pb[vi == f][0]):#04x}, not {pid8:#04x})")
+        vi = vi[ok[vi]]
+        if not vi.size:
+            continue
         p = parse(joined, offsets[vi], lengths[vi], n, channels, profile.reference == "ac")
         sequence[vi], valid[vi] = p["sequence"], p["valid"]
         head["basis"][vi] = basis.code
         np.add.at(head["terms"], vi[p["frame"]], (p["q"] != 0).sum(axis=1))
         # A frame of several windows has one step each: inspect shows the coarsest.
         np.maximum.at(head["step_code"], vi[p["frame"]], p["step_code"])
-        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
-        refuse(vi, p["profile"] != pid8, "foreign_profile",
-               lambda f, p=p, vi=vi, pid8=pid8: f"made under another profile (id byte "
-               f"{int(p['profile'][vi == f][0]):#04x}, not {pid8:#04x})")
         refuse(vi, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
         bad_ch = np.zeros(vi.size, dtype=bool)
         np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
@@ -827,7 +870,7 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         masks[f] = fmasks
         if not inner:
             continue
-        why = _inner_problem(inner)
+        why = _inner_problem(inner, key.inner())
         sub = None if why else decode_frames([inner], profile, basis)
         if sub is not None and sub.verdict[0] != "ok":
             why = sub.detail[0] or sub.verdict[0]
@@ -855,19 +898,20 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
                      rr, masks, ro, rv)
 
 
-def _inner_problem(inner: bytes) -> str:
+def _inner_problem(inner: bytes, key: FrameKey) -> str:
     """Why the bytes inside a gap-mask frame are not one whole, CRC-valid data frame ('' if ok)."""
     mv = memoryview(inner)
     length = frame_extent(mv, 0)
     if length is None or length != len(inner) or (inner[len(SYNC)] >> 4) == GAP_KIND:
         return "inner bytes are not one data frame"
-    if not frame_crc_ok(mv, 0, length):
+    if not frame_crc_ok(mv, 0, length, key):
         return "inner frame fails its CRC"
     return ""
 
 
 def decode(data: bytes, profile: Profile, samples: int | None = None,
-           reorder: int = 16, strict: bool = True) -> DecodeResult:
+           reorder: int = 16, strict: bool = True, max_fill: int | None = None
+           ) -> DecodeResult:
     """Decode a whole stream made under ``profile`` (bound: one channel spec per column).
 
     The same machine as the streaming decoder (:class:`codec._streaming.StreamDecoder`)
@@ -875,7 +919,10 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     CRC fails never reach the output; foreign, damaged, duplicated or late
     frames become events in the result, not errors.  ``samples`` (the stream
     note's count) fixes the output length; without it the stream runs to the
-    last frame received, and ``end_known`` says whether that end is certain.
+    last frame received, and ``end_known`` says whether that end is certain;
+    then a sequence jump adds at most ``max_fill`` lost windows (default
+    ``codec._streaming.MAX_FILL_WINDOWS``) and the rest is a ``discontinuity``
+    event.
 
     Raises :class:`ProfileError` when the profile lists no channels and, when
     ``strict``, :class:`FrameError` when not one frame was accepted (saying
@@ -884,7 +931,8 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     """
     from ._streaming import StreamDecoder  # the streaming module builds on this one
 
-    dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True)
+    dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True,
+                        max_fill=max_fill)
     blocks = dec.feed(data) + dec.close()
     if strict:
         check_some_frame(dec.counts(), dec.events)
@@ -912,5 +960,6 @@ def check_some_frame(counts: dict, events: list) -> None:
         raise FrameError(f"every CRC-valid frame was refused ({refused[0].get('detail')}); the "
                          "stream does not match this profile", f"frame at byte "
                          f"{refused[0]['offset']}")
-    raise FrameError("no frame with a valid sync marker and CRC was found; is this a coefwire "
-                     "stream?")
+    raise FrameError("no frame with a valid sync marker and CRC was found (frames made under "
+                     "another profile fail their CRC too); give a coefwire stream and the "
+                     "profile it was encoded with")

@@ -26,7 +26,8 @@ window modulo 65 536; ``valid`` the real samples of the window; ``ib`` is
 samples among the ``valid`` samples of that channel, increasing, neither
 overlapping nor touching.  The inner frame, when present, is one complete data
 frame (its own sync marker and CRC) of the same window.  The CRC is
-CRC-16/IBM-3740 over every byte after the sync marker up to the CRC.
+CRC-16/IBM-3740 over the implicit profile prefix (``FrameKey``) then every
+byte after the sync marker up to the CRC.
 """
 
 from __future__ import annotations
@@ -93,11 +94,12 @@ def mask_runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def pack_gap_frame(profile: int, sequence: int, valid: int,
-                   masks: list[tuple[int, np.ndarray]], inner: bytes, n: int) -> bytes:
+                   masks: list[tuple[int, np.ndarray]], inner: bytes, n: int, key) -> bytes:
     """One gap-mask frame: ``(channel, mask)`` pairs (True = missing) and the inner data frame.
 
     ``inner`` is the complete data frame of the same window (empty when every
-    sample of the window is a gap).
+    sample of the window is a gap).  ``key`` (:class:`codec._layout.FrameKey`)
+    is the profile's share of the CRC.
     """
     ib = index_bits(n)
     values: list = []
@@ -114,7 +116,7 @@ def pack_gap_frame(profile: int, sequence: int, valid: int,
     fields = pack_fields(np.array(head + values, dtype=np.uint64),
                          np.array([b for _, b in GAP_HEADER_FIELDS] + widths))
     body = fields.tobytes() + inner
-    return SYNC + body + crc16_ibm3740(body).to_bytes(2, "big")
+    return SYNC + body + crc16_ibm3740(key.prefix(length) + body).to_bytes(2, "big")
 
 
 def parse_gap_frame(frame: bytes, n: int, channels: int

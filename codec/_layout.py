@@ -20,13 +20,15 @@ byte after the sync marker up to the CRC itself.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import binascii
+import hashlib
+from dataclasses import dataclass, field
 
 import bitstring
 import numpy as np
 
 from ._bits import MAX_FIELD_BITS, from_twos, pack_fields, read_fields, signed_width, to_twos
-from ._crc import crc16_ibm3740
+from ._crc import crc16_ibm3740, crc16_prefix_states, crc16_span
 from ._entropy import exp_golomb_bits
 
 __all__ = [
@@ -44,6 +46,9 @@ __all__ = [
     "unpack_frame_reference",
     "frame_extent",
     "frame_crc_ok",
+    "FrameKey",
+    "frame_extents",
+    "frames_crc_ok",
     "LAYOUT_VERSION_2",
     "CONTEXT_WINDOW",
     "FrameBatchV2",
@@ -55,6 +60,7 @@ __all__ = [
     "wrap_frames",
     "read_subheaders",
     "write_subheaders",
+    "subframes_fit",
 ]
 
 LAYOUT_VERSION = 1
@@ -62,6 +68,8 @@ SYNC = b"\xe3\x5a"
 #: Version nibble of the gap-mask frame kind (layout in ``_gaps.py``), valid beside any version.
 GAP_KIND = 15
 _GAP_MIN_BYTES = 14  # its fixed header (12 bytes with the sync marker) and CRC
+#: Appended to the profile digest for the key of a gap-mask frame's inner frame.
+INNER_KEY_LABEL = b"gap-mask inner frame"
 
 #: (field, bits, meaning) after the sync marker, in order.
 HEADER_FIELDS: tuple[tuple[str, int, str], ...] = (
@@ -121,17 +129,111 @@ def frame_extent(mv: memoryview, pos: int) -> int | None:
     return None
 
 
-def frame_crc_ok(mv: memoryview, pos: int, length: int) -> bool:
-    """Whether the frame at ``pos`` of ``length`` bytes passes its CRC."""
+@dataclass(frozen=True)
+class FrameKey:
+    """The profile's share of every frame's CRC (``FRAME_LAYOUT.md``, "Profile check").
+
+    A frame's CRC-16/IBM-3740 runs over an implicit prefix, then the frame's
+    bytes after the sync marker up to the CRC.  The prefix is never sent:
+    it is SHA-256(``digest`` || frame length as 4 bytes big-endian), where
+    ``digest`` is the 32-byte profile digest
+    (:func:`codec._profile.profile_digest`), so a frame made under another
+    profile fails its CRC like a damaged one, and each frame length gets an
+    independent check.  The CRC register after the prefix (the initial value
+    for the frame's own bytes) is cached per length.
+    """
+
+    digest: bytes
+    _inits: dict = field(default_factory=dict, compare=False, repr=False)
+    _inner: list = field(default_factory=list, compare=False, repr=False)
+
+    def inner(self) -> FrameKey:
+        """The key of a data frame carried inside a gap-mask frame.
+
+        Its digest is SHA-256(``digest`` || "gap-mask inner frame"), so an inner
+        frame found on its own (its gap-mask frame damaged) fails its CRC: the
+        stand-in values under a gap never pass for data.
+        """
+        if not self._inner:
+            self._inner.append(FrameKey(hashlib.sha256(self.digest + INNER_KEY_LABEL).digest()))
+        return self._inner[0]
+
+    def prefix(self, length: int) -> bytes:
+        """The implicit prefix of a frame of ``length`` bytes."""
+        return hashlib.sha256(self.digest + int(length).to_bytes(4, "big")).digest()
+
+    def init(self, length: int) -> int:
+        """CRC register after the prefix of a frame of ``length`` bytes."""
+        v = self._inits.get(length)
+        if v is None:
+            if len(self._inits) >= 1 << 16:  # bounded: a long hostile stream claims many lengths
+                self._inits.clear()
+            v = self._inits[length] = crc16_ibm3740(self.prefix(length))
+        return v
+
+    def inits(self, lengths: np.ndarray) -> np.ndarray:
+        """:meth:`init` of every length (one hash per distinct length)."""
+        uniq, inv = np.unique(np.asarray(lengths, dtype=np.int64), return_inverse=True)
+        vals = np.fromiter((self.init(v) for v in uniq.tolist()), dtype=np.uint16,
+                           count=uniq.size)
+        return vals[inv.reshape(-1)]
+
+
+def frame_crc_ok(mv: memoryview, pos: int, length: int, key: FrameKey) -> bool:
+    """Whether the frame at ``pos`` of ``length`` bytes passes its CRC under ``key``."""
     end = pos + length
     if end > len(mv):
         return False
-    return crc16_ibm3740(mv[pos + len(SYNC) : end - CRC_BYTES]) == int.from_bytes(
-        mv[end - CRC_BYTES : end], "big")
+    return binascii.crc_hqx(mv[pos + len(SYNC) : end - CRC_BYTES], key.init(length)) == \
+        int.from_bytes(mv[end - CRC_BYTES : end], "big")
 
 
-def wrap_frames(body: np.ndarray, body_bytes: np.ndarray) -> np.ndarray:
-    """Frames from their bodies: sync marker + body + CRC-16 of the body, back to back.
+def frame_extents(u: np.ndarray, pos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`frame_extent` of the candidates at byte ``pos`` of ``u`` (sync markers there).
+
+    Returns ``(length, need)``: the claimed length (-1 where
+    :func:`frame_extent` gives None) and the bytes from ``pos`` the envelope
+    rule read (a candidate nearer the end than that is undecided).  Whole-array.
+    """
+    pos = np.asarray(pos, dtype=np.int64)
+    pad = np.concatenate([u, np.zeros(HEADER_BYTES, np.uint8)]).astype(np.int64)
+    b0 = pad[pos + 2]
+    version = b0 >> 4
+    w16 = (pad[pos + 3] << 8) | pad[pos + 4]
+    w27 = ((b0 << 24) | (pad[pos + 3] << 16) | (pad[pos + 4] << 8) | pad[pos + 5]) & (
+        (1 << 27) - 1)
+    w11 = ((b0 & 7) << 8) | pad[pos + 3]
+    longf = (b0 & 0x08) > 0
+    v234 = (version == LAYOUT_VERSION_2) | (version == _LAYOUT_VERSION_3) | (
+        version == _LAYOUT_VERSION_4)
+    need = np.select([version == GAP_KIND, version == LAYOUT_VERSION, v234 & longf],
+                     [5, HEADER_BYTES, len(SYNC) + 4], len(SYNC) + 2)
+    need = np.maximum(need, len(SYNC) + 2)
+    minimum = np.where(version == LAYOUT_VERSION_2, _MIN_V2_BYTES, _MIN_V3_BYTES)
+    length = np.select(
+        [version == GAP_KIND, version == LAYOUT_VERSION, v234 & longf, v234],
+        [np.where(w16 >= _GAP_MIN_BYTES, w16, -1),
+         np.where(w16 >= HEADER_BYTES + CRC_BYTES, w16, -1),
+         np.where(w27 >= (1 << SHORT_LENGTH_BITS), w27, -1),
+         np.where(w11 >= minimum, w11, -1)], -1)
+    length = np.where(pos + need <= u.size, length, -1)
+    return length, need
+
+
+def frames_crc_ok(states: np.ndarray, u: np.ndarray, pos: np.ndarray, length: np.ndarray,
+                  key: FrameKey) -> np.ndarray:
+    """CRC verdicts of whole candidate frames at ``pos`` (each inside ``u``), whole-array.
+
+    ``states`` are :func:`codec._crc.crc16_prefix_states` of ``u``: each check
+    costs the same whatever the length the candidate claims.
+    """
+    end = pos + length
+    field_ = (u[end - 2].astype(np.uint16) << 8) | u[end - 1]
+    return crc16_span(states, pos + len(SYNC), end - CRC_BYTES, key.inits(length)) == field_
+
+
+def wrap_frames(body: np.ndarray, body_bytes: np.ndarray, key: FrameKey) -> np.ndarray:
+    """Frames from their bodies: sync marker + body + CRC-16 (under ``key``), back to back.
 
     ``body`` holds every frame's bytes between the sync marker and the CRC, frame
     after frame; ``body_bytes`` gives each frame's share.  Every layout version
@@ -145,11 +247,9 @@ def wrap_frames(body: np.ndarray, body_bytes: np.ndarray) -> np.ndarray:
     dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
     out[dest] = body
     out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
-    mv = memoryview(np.ascontiguousarray(body))
-    crc = np.fromiter(
-        (crc16_ibm3740(mv[s : s + b]) for s, b in zip(bstart.tolist(), body_bytes.tolist())),
-        dtype=np.int64, count=body_bytes.size,
-    )
+    # CRC of the implicit prefix (``FrameKey``) then the body: a frame's whole CRC.
+    states = crc16_prefix_states(np.ascontiguousarray(body, dtype=np.uint8))
+    crc = crc16_span(states, bstart, bstart + body_bytes, key.inits(length)).astype(np.int64)
     cpos = ostart + length - CRC_BYTES
     out[cpos] = crc >> 8
     out[cpos + 1] = crc & 0xFF
@@ -185,8 +285,12 @@ class FrameBatch:
         return int(self.channel.size)
 
 
-def pack_frames(batch: FrameBatch, profile_id: int, n: int) -> tuple[bytes, np.ndarray]:
-    """Pack every frame of ``batch``; return the bytes and each frame's byte length."""
+def pack_frames(batch: FrameBatch, profile_id: int, n: int, *, key: FrameKey
+                ) -> tuple[bytes, np.ndarray]:
+    """Pack every frame of ``batch``; return the bytes and each frame's byte length.
+
+    ``key`` is the profile's share of the CRC (:class:`FrameKey`).
+    """
     nf = len(batch)
     ib = index_bits(n)
     terms = batch.terms.astype(np.int64)
@@ -229,7 +333,7 @@ def pack_frames(batch: FrameBatch, profile_id: int, n: int) -> tuple[bytes, np.n
     widths[fstart + per_frame - 1] = pad
     body = pack_fields(values, widths)
 
-    out = wrap_frames(body, body_bytes)
+    out = wrap_frames(body, body_bytes, key)
     return out.tobytes(), length
 
 
@@ -280,7 +384,7 @@ def _bitstring_format(mean_width: int, terms: int, ib: int, vw: int, pad: int) -
 
 
 def pack_frame_reference(fields: dict, mean: int | None, index: list[int], value: list[int],
-                         n: int) -> bytes:
+                         n: int, key: FrameKey) -> bytes:
     """Pack one frame with bitstring, field by field (reference and documentation path).
 
     ``fields`` holds the header fields except ``version``, ``flags``, ``length``,
@@ -303,10 +407,12 @@ def pack_frame_reference(fields: dict, mean: int | None, index: list[int], value
         items.append(0)
     body = bitstring.pack(",".join(_bitstring_format(mw, len(index), ib, vw, pad)), *items)
     raw = body.tobytes()
-    return raw + crc16_ibm3740(raw[len(SYNC):]).to_bytes(2, "big")
+    crc = crc16_ibm3740(key.prefix(len(raw) + CRC_BYTES) + raw[len(SYNC):])
+    return raw + crc.to_bytes(2, "big")
 
 
-def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list[int], list[int]]:
+def unpack_frame_reference(frame: bytes, n: int, key: FrameKey
+                           ) -> tuple[dict, int | None, list[int], list[int]]:
     """Parse one frame with bitstring; the inverse of :func:`pack_frame_reference`."""
     bits = bitstring.Bits(frame)
     if bits[:16].tobytes() != SYNC:
@@ -322,7 +428,7 @@ def unpack_frame_reference(frame: bytes, n: int) -> tuple[dict, int | None, list
     pairs = rest[1:] if mw else rest
     index, value = list(pairs[0::2]), list(pairs[1::2])
     crc = bits[-16:].uint
-    if crc != crc16_ibm3740(frame[len(SYNC) : -CRC_BYTES]):
+    if crc != crc16_ibm3740(key.prefix(len(frame)) + frame[len(SYNC) : -CRC_BYTES]):
         raise ValueError("CRC mismatch")
     return head, mean, index, value
 
@@ -500,7 +606,7 @@ class FrameBatchV2:
         return int(self.multi.size)
 
 
-def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
+def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int, *, key: FrameKey
                    ) -> tuple[bytes, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout v2.
 
@@ -568,7 +674,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int
     write_frame_heads(val, wid, first, lastrow, head, body_bytes * 8 - bits)
     body = pack_bits(val.ravel(), wid.ravel())
 
-    out = wrap_frames(body, body_bytes)
+    out = wrap_frames(body, body_bytes, key)
     return out.tobytes(), length, sub_bits, side_bits
 
 
@@ -693,6 +799,23 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     return pp, bad
 
 
+def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n: int,
+                  has_mean: bool, quantizer_bit: bool = False) -> np.ndarray:
+    """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-4).
+
+    A subframe header takes at least its step (10 bits for the first, a 1-bit
+    exp-Golomb code for the others), a 1-bit mean code (reference ``ac``),
+    the count (``count_bits(n)``) and layout 4's quantizer bit.
+    ``head_bits`` are the bits the frame header took from the sync marker on.
+    Checked before a parser allocates any row, so a short frame claiming 16
+    windows of every channel costs no more than its length.
+    """
+    extra = int(has_mean) + count_bits(n) + int(quantizer_bit)
+    need = np.where(cnt > 0, STEP_BITS + extra + (cnt - 1) * (1 + extra), 0)
+    room = (np.asarray(lengths, np.int64) - CRC_BYTES) * 8 - head_bits
+    return need <= room
+
+
 def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
                     channels: int, has_mean: bool) -> dict[str, np.ndarray]:
     """Parse CRC-checked v2 frames at ``offsets`` into per-subframe arrays.
@@ -719,6 +842,8 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     p = p + 1 + np.where(short, vb, 0)
 
     cnt = np.where(multi, channels, 1)
+    fits = subframes_fit(cnt, p - offsets.astype(np.int64) * 8, lengths, n, has_mean)
+    cnt = np.where(fits, cnt, 0)  # refused before any row is allocated
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
     owner = np.repeat(np.arange(nf), cnt)
@@ -728,7 +853,7 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     mean = np.zeros(ns, np.int64) if has_mean else None
     count = np.zeros(ns, np.int64)
     q = np.zeros((ns, n), dtype=np.int64)
-    ok = np.ones(nf, dtype=bool)
+    ok = fits.copy()
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s

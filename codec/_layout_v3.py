@@ -35,11 +35,13 @@ from ._layout import (
     SHORT_LENGTH_BITS,
     SYNC,
     FrameBatchV2,
+    FrameKey,
     count_bits,
     index_bits,
     read_frame_start,
     read_subheaders,
     size_length_fields,
+    subframes_fit,
     wrap_frames,
     write_frame_heads,
     write_subheaders,
@@ -93,7 +95,7 @@ def _counts(q: np.ndarray) -> np.ndarray:
 
 
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
-                   version: int = LAYOUT_VERSION_3
+                   version: int = LAYOUT_VERSION_3, *, key: FrameKey
                    ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout v3, or v4 (``version`` 4: the
     rows of ``batch.q`` are levels of dependent quantization).
@@ -148,7 +150,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     lstart = np.cumsum(lane_len) - lane_len
     body[np.repeat(bstart + head_bytes - lstart, lane_len) + np.arange(lane_bytes.size)] = \
         lane_bytes
-    out = wrap_frames(body, body_bytes)
+    out = wrap_frames(body, body_bytes, key)
     if out.size != int(length.sum()):
         raise RuntimeError("v3 frames differ from their length fields")  # our bug
     return out.tobytes(), length, sub_bits, lane_len
@@ -186,6 +188,12 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
 
     per_win = np.where(multi, channels, 1)
     cnt = windows * per_win
+    # Before anything is allocated: a frame whose header claims more subframes than its
+    # own bytes can hold (each subframe header takes at least min_subframe_bits) is
+    # refused and gets no rows, so the work and memory per frame follow its length.
+    fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
+                         version == LAYOUT_VERSION_4)
+    cnt = np.where(fits, cnt, 0)
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
     owner = np.repeat(np.arange(nf), cnt)
@@ -197,7 +205,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     mean = np.zeros(ns, np.int64) if has_mean else None
     count = np.zeros(ns, np.int64)
     quant = np.zeros(ns, np.int64) if version == LAYOUT_VERSION_4 else None
-    ok = np.ones(nf, dtype=bool)
+    ok = fits.copy()
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s

@@ -34,6 +34,7 @@ __all__ = [
     "load_profile",
     "save_profile",
     "profile_id",
+    "profile_digest",
     "MAX_CHANNELS",
     "StreamNote",
     "load_stream_note",
@@ -221,6 +222,29 @@ def profile_id(profile: Profile) -> int:
         canon["basis_sha256"] = canon["basis_sha256"].lower()
     blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
     return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
+
+
+def profile_digest(profile: Profile, fingerprint: str) -> bytes:
+    """32-byte digest of everything both ends must share: the profile and its basis.
+
+    SHA-256 of the canonical form :func:`profile_id` hashes (the same settings
+    left out) followed by the basis fingerprint
+    (:func:`codec._bases.basis_fingerprint` of the matrix the profile builds),
+    so two ends whose bases differ by more than rounding get different
+    digests.  Frames carry it implicitly in their CRC (``FRAME_LAYOUT.md``,
+    "Profile check"), never on the wire.
+    """
+    canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
+                                        "multi_channel_frames", "windows_per_frame"})
+    for ch in canon["channels"]:
+        ch.pop("max_error", None)
+    if canon["basis_sha256"] is None:
+        del canon["basis_sha256"]
+    else:
+        canon["basis_sha256"] = canon["basis_sha256"].lower()
+    blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
+    return hashlib.sha256(b"coefwire profile digest\0" + blob + b"\0"
+                          + fingerprint.lower().encode()).digest()
 
 
 def load_profile(path: str | Path) -> Profile:

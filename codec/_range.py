@@ -40,6 +40,7 @@ compression", Commun. ACM 30(6), 1987.
 from __future__ import annotations
 
 import functools
+import math
 
 import numpy as np
 
@@ -903,6 +904,130 @@ class RangeDecoder:
         self._renorm(lanes)
 
 
+#: At most this many lanes still decoding: they finish one at a time in plain integers.
+SCALAR_LANES = 8
+_BIG_BITS = 53
+_BIG = 1 << _BIG_BITS
+
+
+@functools.cache
+def _scalar_tables() -> tuple[list, list, list, list, list, list]:
+    """The model and lookup tables as Python lists for :func:`_finish_scalar`, built on
+    first use (like :func:`_lut`, so importing the coder stays cheap)."""
+    lut, exact, base = _lut()
+    return (CUM.tolist(), SHIFT.tolist(), lut.tolist(), exact.tolist(), base.tolist(),
+            TRANSITIONS.tolist())
+
+
+def _finish_scalar(dec: RangeDecoder, active: int, k0: int, nsorted, lstart, sym_row, sym_j,
+                   hist, state, q, n: int, trellis) -> None:
+    """Decode symbols ``k0`` on of lanes ``0 .. active - 1``, one lane at a time.
+
+    The same arithmetic as the vector loop of :func:`decode_coefficients`, step
+    for step (every read, every renormalisation, the same refusals), so a frame
+    decodes to the same codes whether its batch is large or small.
+    """
+    data = dec.data.tolist()
+    rows_l, js_l = sym_row.tolist(), sym_j.tolist()
+    tr = None if trellis is None else trellis.tolist()
+    for lane in range(active):
+        _scalar_lane(dec, lane, data, k0, int(nsorted[lane]), int(lstart[lane]), rows_l, js_l,
+                     hist[:, lane].tolist(), int(state[lane]), q, n, tr)
+
+
+def _scalar_lane(dec: RangeDecoder, lane: int, data: list, k0: int, k1: int, idx0: int,
+                 rows_l: list, js_l: list, h: list, st: int, q: np.ndarray, n: int,
+                 tr: list | None) -> None:
+    """Symbols ``k0 .. k1 - 1`` of one lane (see :func:`_finish_scalar`)."""
+    pos, end = int(dec.pos[lane]), int(dec.end[lane])
+    rng, value = int(dec.rng[lane]), int(dec.value[lane])
+    bad, reads = bool(dec.bad[lane]), int(dec.reads[lane])
+    zero = data[-1]  # the zero byte read past a lane's end
+    cum_rows, shift, lut, exact, base, transitions = _scalar_tables()
+    top_w = _W - 2
+
+    def narrow(val: int, new_rng: int) -> None:
+        nonlocal rng, value, bad, pos, reads
+        if val >= new_rng:
+            bad = True
+            val = new_rng - 1
+        value, rng = val, new_rng
+        for _ in range(3):
+            if rng >= _TOP:
+                break
+            value = (value << 8) | (data[pos] if pos < end else zero)
+            pos += 1
+            reads += 1
+            rng <<= 8
+
+    def symbol(cls: int) -> int:
+        r = rng >> TOTAL_BITS
+        t = min(value // r, TOTAL - 1)
+        li = base[cls] + (t >> _LUT_DROP)
+        sym = lut[li]
+        row_ = cum_rows[cls]
+        if not exact[li]:
+            while sym < top_w and row_[sym + 1] <= t:
+                sym += 1
+        c0 = row_[sym]
+        narrow(value - r * c0, r * (row_[sym + 1] - c0))
+        return sym
+
+    def bits(width: int) -> int:
+        r = rng >> width
+        v = min(value // r, (1 << width) - 1)
+        narrow(value - r * v, r)
+        return v
+
+    def long_bits(width: int) -> int:
+        out = 0
+        while width > 0:
+            cw = min(width, _BYPASS_MAX)
+            width -= cw
+            out = (out << cw) | bits(cw)
+        return out
+
+    for k in range(k0, k1):
+        row, j = rows_l[idx0 + k], js_l[idx0 + k]
+        if j == 0:
+            h = [0, 0, 0, 0]
+            st = 0
+            cls, s = LEN_ROW, 0
+        else:
+            tot = h[0] + h[1] + h[2] + h[3]
+            u = (tot << 4) // min(j, CONTEXT_WINDOW)
+            bl = math.frexp(float(u))[1]  # as the vector path: float64 exponent
+            hb = (u >> max(bl - 2, 0)) & 1
+            band = min(max(((j << 8) // n).bit_length() - 1, 0), _BANDS - 1)
+            scale = min(max(2 * bl + hb - 5, 1), _SCALES - 1) if tot else 0
+            cls = scale * _BANDS + band
+            if tr is not None and tr[row]:
+                cls += TRELLIS_BASE * (1 + (st >> 1))
+            s = shift[cls]
+        sym = symbol(cls)
+        mag = sym
+        if j == 0 or sym == MODEL_SYMBOLS:
+            eb = sym if j == 0 else symbol(LEN_ROW)
+            low = long_bits(max(eb - 1, 0))
+            e = ((1 << (eb - 1)) | low) if eb > 0 else 0
+            mag = e if j == 0 else e + MODEL_SYMBOLS
+        over = mag >= _BIG or (mag > 0 and mag.bit_length() + s > _BIG_BITS)
+        if s:
+            mag = (mag << s) | long_bits(s)
+        if over:
+            bad = True
+            mag = 0
+        val = mag
+        if mag and bits(1) == 1:
+            val = -mag
+        q[row, j] = val
+        if tr is not None:
+            st = transitions[st][mag & 1]
+        h = [mag, h[0], h[1], h[2]]
+    dec.pos[lane], dec.rng[lane], dec.value[lane] = pos, rng, value
+    dec.bad[lane], dec.reads[lane] = bad, reads
+
+
 def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
                         lane_of_row: np.ndarray, count: np.ndarray, n: int,
                         trellis: np.ndarray | None = None
@@ -940,6 +1065,12 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
     for k in range(int(nsorted[0])):
         while active and nsorted[active - 1] <= k:
             active -= 1
+        if active <= SCALAR_LANES:
+            # Few lanes left (a frame decoded alone, or the longest lanes of a batch): one
+            # lane at a time in plain integers, far cheaper than a vector step per symbol.
+            _finish_scalar(dec, active, k, nsorted, lstart, sym_row, sym_j, hist, state, q,
+                           n, trellis)
+            break
         lanes = slice(0, active)
         idx = lstart[:active] + k
         row = sym_row[idx]
@@ -969,9 +1100,16 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
             low = dec.long_bits(li, np.maximum(eb - 1, 0))
             e = np.where(eb > 0, (np.int64(1) << np.maximum(eb - 1, 0)) | low, 0)
             mag[li] = np.where(first[li], e, e + MODEL_SYMBOLS)
+        # A magnitude of 2**53 or more is no code of ours (the encoder keeps codes below
+        # 2**52): the lane is corrupt, and the shift below must not wrap.
+        over = (mag < 0) | (mag >= _BIG) | ((mag > 0) & (_bit_length(np.minimum(mag, _BIG))
+                                                        + s > _BIG_BITS))
         si = np.flatnonzero(s)
         if si.size:  # the s low bits
             mag[si] = (mag[si] << s[si]) | dec.long_bits(si, s[si])
+        if over.any():
+            dec.bad[np.flatnonzero(over)] = True
+            mag[over] = 0
         zi = np.flatnonzero(mag)
         val = mag
         if zi.size:  # sign of each non-zero

@@ -28,16 +28,22 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._codec import _bind, decode_frames, encode
+from ._codec import _bind, decode_frames, encode, frame_key
 from ._errors import ProfileError
 from ._gaps import GAP_POLICIES
 from ._profile import Profile
 from ._stream import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
 
-__all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "max_frame_bytes"]
+__all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "MAX_FILL_WINDOWS",
+           "max_frame_bytes"]
 
 #: Events kept in detail; later ones are only counted.
 MAX_EVENTS = 1000
+#: With the end unknown, lost windows one sequence jump may add at most (the rest is a
+#: discontinuity).  256 covers every jump of layouts 2 to 4 (their 8-bit sequence
+#: numbers cannot tell a jump over 127 windows), so only version 1, gap-mask frames
+#: and a first frame far from window 0 meet it: 16 384 samples per channel at N = 64.
+MAX_FILL_WINDOWS = 256
 
 
 @dataclass
@@ -75,10 +81,15 @@ class StreamDecoder:
     keep_frames : bool
         Keep a table of every accepted frame (batch decoding); off for live
         streams, whose memory must not grow with their length.
+    max_fill : int or None
+        With the end unknown, most lost windows a sequence jump may add to the
+        output (default :data:`MAX_FILL_WINDOWS`); windows beyond are cut out
+        and reported as one ``discontinuity`` event.  None: no limit.  A
+        decoder setting, not part of the profile.
     """
 
     def __init__(self, profile: Profile, samples: int | None = None, reorder: int = 16,
-                 keep_frames: bool = False):
+                 keep_frames: bool = False, max_fill: int | None = None):
         if not profile.channels:
             raise ProfileError("the profile lists no channels; decode with the stream's own "
                                "profile")
@@ -90,10 +101,16 @@ class StreamDecoder:
         self.n = profile.frame_length
         self.channels = len(profile.channels)
         self.basis = profile_basis(profile)  # loads and hash-checks a trained basis
-        self.scanner = FrameScanner(max_frame_bytes(profile))
+        self.key = frame_key(profile, self.basis)
+        self.scanner = FrameScanner(max_frame_bytes(profile), key=self.key)
         self.end_sample = int(samples) if samples is not None else None
         end_window = None if samples is None else -(-int(samples) // self.n)
-        self.tracker = SequenceTracker(reorder=reorder, end_window=end_window)
+        if max_fill is None:
+            max_fill = MAX_FILL_WINDOWS
+        elif max_fill < 0:
+            raise ValueError("max_fill must be >= 0")
+        self.tracker = SequenceTracker(reorder=reorder, end_window=end_window,
+                                       max_fill=max_fill)
         # Accepted data frames not yet released: window, channel, valid, flags, rows.
         self._pending: list[tuple[np.ndarray, ...]] = []
         self._masks: dict[tuple[int, int], np.ndarray] = {}  # (window, channel) -> gap mask
@@ -105,6 +122,8 @@ class StreamDecoder:
         self._keep = keep_frames
         self._table: list[np.ndarray] = []
         self._closed = False
+        self._jumps = 0  # discontinuities (jumps cut short with the end unknown)
+        self._cut = 0  # windows they left out
 
     @property
     def end_known(self) -> bool:
@@ -170,6 +189,8 @@ class StreamDecoder:
             items += [(ch, 1, mask, 0, valids[i]) for ch, mask in fr.masks.get(i, ())]
             for ch, kind, what, off, rvalid in items:  # data rows, then a gap frame's masks
                 window, where = tr.place((seqs[i] + off) % mods[i], ch, kind, crcs[i], mods[i])
+                if tr.last_cut:
+                    self._discontinuity(offset, window, tr.last_cut)
                 if where != "ok":
                     self._event(where, offset, window=window, channel=ch)
                     continue
@@ -259,6 +280,14 @@ class StreamDecoder:
             self.events.append({"event": kind, "offset": int(offset),
                                 **{k: v for k, v in info.items() if v not in (None, "")}})
 
+    def _discontinuity(self, offset: int, window: int, cut: int) -> None:
+        """A jump with the end unknown: ``cut`` windows left out before ``window``."""
+        self._jumps += 1
+        self._cut += cut
+        if len(self.events) < MAX_EVENTS:
+            self.events.append({"event": "discontinuity", "offset": int(offset),
+                                "window": int(window), "windows_cut": int(cut)})
+
     def counts(self) -> dict:
         """Frame and sample counts so far (samples only for released windows)."""
         c = {"frames_ok": 0, "gap_frames_ok": 0, **self._frame_counts}
@@ -268,6 +297,8 @@ class StreamDecoder:
         c["samples"] = self._emitted
         c.update({f"samples_{k}": v for k, v in self._sample_counts.items()})
         c["end_known"] = self.end_known
+        c["discontinuities"] = self._jumps
+        c["windows_cut"] = self._cut
         c["events_listed"] = len(self.events)
         return c
 

@@ -145,20 +145,21 @@ class Unstuffer:
             out.append(packet)
 
 
-def detect_stuffing(head: bytes) -> str | None:
+def detect_stuffing(head: bytes, key=None) -> str | None:
     """The stuffing (``slip`` or ``cobs``) that ``head``, a stream's first bytes, was written with.
 
     None when the bytes read as plain frames at least as well.  A stuffed
     stream read as plain bytes loses every frame that contains an escaped
     byte (SLIP) or any zero byte (COBS: almost all), so the stuffing that
-    yields more CRC-valid frames is the one used.
+    yields more CRC-valid frames is the one used.  ``key`` is the profile's
+    share of the CRC (:func:`codec.frame_key`); without it no CRC can be checked.
     """
     from ._stream import locate_frames  # the frame search; imported late to keep this module light
 
-    best, found = None, len(locate_frames(head).frames)
+    best, found = None, len(locate_frames(head, key).frames)
     for kind in STUFFINGS:
         u = Unstuffer(kind)
-        frames = len(locate_frames(b"".join(u.feed(head) + u.close())).frames)
+        frames = len(locate_frames(b"".join(u.feed(head) + u.close()), key).frames)
         if frames > found:
             best, found = kind, frames
     return best

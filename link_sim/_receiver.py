@@ -72,7 +72,7 @@ def _decode_tolerant(rx: bytes, profile, total: int):
         pass
     except IndexError:
         pass  # a corrupted sequence number placed a frame outside the grid
-    loc = locate_frames(rx)
+    loc = locate_frames(rx, codec.frame_key(profile))
     out = np.full((total, len(profile.channels)), np.nan)
     got = np.zeros(out.shape, bool)
     keep, lens, windows, chans = [], [], [], []

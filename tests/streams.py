@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import hashlib
+
 import numpy as np
 from crcref import crc16_ibm3740_ref
 from realdata import basic_motions
@@ -9,7 +11,32 @@ from realdata import basic_motions
 import codec
 from codec._stream import locate_frames
 
-__all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting"]
+__all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting", "EXAMPLE_DIGEST",
+           "keyed_crc", "with_crc", "digest_of"]
+
+#: The profile digest of FRAME_LAYOUT.md's worked examples: bytes 00 01 02 ... 1f.
+EXAMPLE_DIGEST = bytes(range(32))
+
+
+def digest_of(profile) -> bytes:
+    """The 32-byte profile digest the codec derives (its CRC prefix is rebuilt here)."""
+    return codec.frame_key(profile).digest
+
+
+def keyed_crc(frame_wo_crc: bytes, digest: bytes) -> int:
+    """CRC of FRAME_LAYOUT.md "Profile check", rebuilt outside the codec:
+    CRC-16/IBM-3740 by the implementation written from the catalogue parameters
+    (tests/crcref.py; check value 0x29B1) over SHA-256(digest || frame length, 4 bytes
+    big-endian) (hashlib) followed by the frame's bytes after the sync marker.
+    ``frame_wo_crc`` ends before the CRC."""
+    length = len(frame_wo_crc) + 2
+    prefix = hashlib.sha256(digest + length.to_bytes(4, "big")).digest()
+    return crc16_ibm3740_ref(prefix + frame_wo_crc[2:])
+
+
+def with_crc(frame_wo_crc: bytes, digest: bytes) -> bytes:
+    """The frame with its CRC appended (a hostile sender who knows the profile can)."""
+    return frame_wo_crc + keyed_crc(frame_wo_crc, digest).to_bytes(2, "big")
 
 
 def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int = 1, **enc):
@@ -21,15 +48,15 @@ def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int
     return x, codec.encode(x, codec.Profile(frame_length=n, windows_per_frame=windows), **enc)
 
 
-def frames_of(data: bytes) -> list[tuple[int, int]]:
-    loc = locate_frames(data)
+def frames_of(data: bytes, profile=None) -> list[tuple[int, int]]:
+    loc = locate_frames(data, None if profile is None else codec.frame_key(profile))
     return list(zip(loc.offsets.tolist(), loc.lengths.tolist()))
 
 
-def crc_ok_reference(frame: bytes) -> bool:
-    """The frame's CRC-16/IBM-3740 checked by the implementation written from the catalogue
-    parameters (tests/crcref.py), not by the standard-library function the codec wraps."""
-    return crc16_ibm3740_ref(frame[2:-2]) == int.from_bytes(frame[-2:], "big")
+def crc_ok_reference(frame: bytes, digest: bytes) -> bool:
+    """The frame's CRC rebuilt by :func:`keyed_crc` (the catalogue implementation of
+    tests/crcref.py), independent of the codec's prefix-state arithmetic."""
+    return keyed_crc(frame[:-2], digest) == int.from_bytes(frame[-2:], "big")
 
 
 def assert_accounting(dec, channels: int) -> None:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from realdata import basic_motions
+from streams import digest_of, keyed_crc
 
 import codec
 import link_sim._simulate as sim
@@ -89,7 +90,9 @@ def _link_case():
     # passes CRC-16 by chance (about 2^-16): delivered, and counted as an undetected error
     o, n = int(starts[12]), int(lengths[12])
     rx[o + 10] ^= 0x01  # a coefficient byte (the header ends before byte 10)
-    rx[o + n - 2 : o + n] = codec.crc16_ibm3740(bytes(rx[o + 2 : o + n - 2])).to_bytes(2, "big")
+    # the CRC covers the profile digest (FRAME_LAYOUT.md, "Profile check"): rebuilt here
+    rx[o + n - 2 : o + n] = keyed_crc(bytes(rx[o : o + n - 2]), digest_of(enc.profile)).to_bytes(
+        2, "big")
     return x, enc, bytes(rx), arrived, lengths
 
 

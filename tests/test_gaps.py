@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-import binascii
+import hashlib
 
 import bitstring
 import numpy as np
@@ -10,10 +10,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from realdata import basic_motions
-from streams import assert_accounting
+from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
 
 import codec
 from codec._gaps import fill_gaps, pack_gap_frame, parse_gap_frame
+from codec._layout import FrameKey
 from codec._stream import locate_frames
 
 
@@ -112,7 +113,7 @@ def test_gap_frame_layout_by_hand():
     mask = np.array([0, 1, 1, 0, 0, 0, 1, 0], bool)
     inner = b"\xe3\x5a\x10"
     got = pack_gap_frame(profile=0xBEEF, sequence=70000, valid=8, masks=[(2, mask)],
-                         inner=inner, n=8)
+                         inner=inner, n=8, key=FrameKey(EXAMPLE_DIGEST))
     # Reference built field by field with bitstring from the table in codec/_gaps.py:
     # kind 15, flags 0, length, profile, sequence, valid, masks 1, reserved 0; then
     # channel 2, runs 2, (start, count - 1) = (1, 1), (6, 0); zero padding; inner; CRC.
@@ -122,29 +123,30 @@ def test_gap_frame_layout_by_hand():
                           "uint:8, uint:13, uint:3, uint:3, uint:3, uint:3, uint:7",
                           15, 0, length, 0xBEEF, 4464, 8, 1, 0, 2, 2, 1, 1, 6, 0, 0
                           ).tobytes() + inner
-    # CRC-16/IBM-3740 from the standard library (binascii.crc_hqx with init 0xFFFF).
-    want = b"\xe3\x5a" + body + binascii.crc_hqx(body, 0xFFFF).to_bytes(2, "big")
+    # CRC-16/IBM-3740 over the implicit profile prefix (digest 00 01 ... 1f), rebuilt
+    # from binascii and hashlib (streams.with_crc); bytes printed in FRAME_LAYOUT.md.
+    want = with_crc(b"\xe3\x5a" + body, EXAMPLE_DIGEST)
     assert got == want and length == 22
+    assert want.hex() == "e35af00016beef11700040040200113800e35a106e6f"
     head, masks, back_inner = parse_gap_frame(got, 8, 3)
     assert head["sequence"] == 4464 and back_inner == inner
     assert masks[0][0] == 2 and np.array_equal(masks[0][1], mask)
 
 
 def test_gap_frame_parser_bounds_every_count():
-    good = pack_gap_frame(1, 0, 8, [(0, np.array([1, 0, 1, 0, 1, 0, 1, 0], bool))], b"", 8)
+    key = FrameKey(EXAMPLE_DIGEST)
+    good = pack_gap_frame(1, 0, 8, [(0, np.array([1, 0, 1, 0, 1, 0, 1, 0], bool))], b"", 8, key)
     assert isinstance(parse_gap_frame(good, 8, 1), tuple)
     assert isinstance(parse_gap_frame(good, 4, 1), str)  # valid 8 > N 4
     assert isinstance(parse_gap_frame(good, 8, 0), str)  # more masks than channels
     assert isinstance(parse_gap_frame(good[:-3], 8, 1), str)
     # A forged frame whose CRC is right but whose runs overlap is refused too.
-    from codec._crc import crc16_ibm3740
-
-    two = pack_gap_frame(1, 0, 8, [(0, np.array([1, 0, 0, 1, 0, 0, 0, 0], bool))], b"", 8)
+    two = pack_gap_frame(1, 0, 8, [(0, np.array([1, 0, 0, 1, 0, 0, 0, 0], bool))], b"", 8, key)
     bits = np.unpackbits(np.frombuffer(two, np.uint8)).copy()
     start2 = 16 + 80 + 21 + 6  # second run's start field
     bits[start2 : start2 + 3] = [0, 0, 0]  # 3 -> 0: overlaps the first run
     body = np.packbits(bits).tobytes()[2:-2]
-    forged = two[:2] + body + crc16_ibm3740(body).to_bytes(2, "big")
+    forged = with_crc(two[:2] + body, EXAMPLE_DIGEST)
     assert parse_gap_frame(forged, 8, 1).startswith("gap frame runs overlap")
 
 
@@ -167,8 +169,13 @@ def test_a_foreign_gap_frame_is_refused(inner):
     other = codec.profile_id(enc.profile.model_copy(update={"fidelity": 0.5}))
     assert other != ours
     rows = slice(96, 128)
+    # a wrapped data frame is signed with the inner key, SHA-256(digest || "gap-mask inner
+    # frame") (FRAME_LAYOUT.md, "Profile check"), so that found alone it fails its CRC
+    inner_digest = hashlib.sha256(digest_of(enc.profile) + b"gap-mask inner frame").digest()
+    wrapped = with_crc(frames[6][:-2], inner_digest) if inner else b""
     for pid in (ours, other):
-        gap = pack_gap_frame(pid, 3, 32, [(0, mask)], frames[6] if inner else b"", 32)
+        # our CRC key, the other profile's id in the header: the id check must refuse it
+        gap = pack_gap_frame(pid, 3, 32, [(0, mask)], wrapped, 32, codec.frame_key(enc.profile))
         dec = codec.decode(b"".join(frames[:6] + [gap] + frames[7:]), enc.profile,
                            samples=256)
         want = np.full(x.shape, codec.DELIVERED, np.uint8)

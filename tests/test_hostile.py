@@ -17,16 +17,16 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from streams import assert_accounting, crc_ok_reference, frames_of, real_stream
+from streams import assert_accounting, crc_ok_reference, digest_of, frames_of, real_stream, with_crc
 
 import codec
 from codec import CoefwireError
-from codec._crc import crc16_ibm3740
 from codec._layout import HEADER_FIELDS, SYNC
 from codec.cli import main
 
 X, ENC = real_stream(400, 2, n=32)
 CLEAN = codec.decode(ENC.data, ENC.profile, samples=400)
+DIGEST = digest_of(ENC.profile)
 
 
 def _check(data: bytes, samples: int | None = 400) -> codec.DecodeResult:
@@ -37,7 +37,7 @@ def _check(data: bytes, samples: int | None = 400) -> codec.DecodeResult:
     assert_accounting(dec, 2)
     fr = dec.frames
     for off, length in zip(fr["offset"].tolist(), fr["length"].tolist()):
-        assert crc_ok_reference(data[off : off + length])
+        assert crc_ok_reference(data[off : off + length], DIGEST)
     # A delivered sample is bit-exact the clean stream's (no CRC-valid forgery in these inputs).
     d = dec.status == codec.DELIVERED
     n = min(d.shape[0], CLEAN.samples.shape[0])
@@ -96,7 +96,7 @@ def _check_mutations(rng, version, count):
         dec = codec.decode(data, enc1.profile, samples=400, strict=False)
         assert_accounting(dec, 2)
         for off, n in zip(dec.frames["offset"].tolist(), dec.frames["length"].tolist()):
-            assert crc_ok_reference(data[off : off + n])
+            assert crc_ok_reference(data[off : off + n], digest_of(enc1.profile))
         assert np.array_equal(dec.samples[dec.delivered], clean1.samples[dec.delivered])
 
 
@@ -139,7 +139,7 @@ def test_damage_leaves_every_untouched_frame_bit_exact():
     assert dec.counts["frames_ok"] == len(f) - 2 and dec.counts["bytes_skipped"] > 0
 
 
-def _forge(frame: bytes, **fields) -> bytes:
+def _forge(frame: bytes, digest: bytes, **fields) -> bytes:
     """Rewrite header fields of a frame and give it a correct CRC (an adversary can)."""
     widths = [b for _, b, _ in HEADER_FIELDS]
     names = [k for k, _, _ in HEADER_FIELDS]
@@ -150,8 +150,7 @@ def _forge(frame: bytes, **fields) -> bytes:
             v = fields[name]
             bits[pos : pos + w] = [(v >> (w - 1 - i)) & 1 for i in range(w)]
         pos += w
-    body = np.packbits(bits).tobytes()[2:-2]
-    return SYNC + body + crc16_ibm3740(body).to_bytes(2, "big")
+    return with_crc(np.packbits(bits).tobytes()[:-2], digest)
 
 
 @pytest.mark.parametrize("fields, reason", [
@@ -169,7 +168,7 @@ def test_forged_headers_become_events(fields, reason):
     # Layout v1 (fixed header fields); the v2 parser is exercised below without the CRC gate.
     enc1 = codec.encode(X, codec.Profile(frame_length=32, layout_version=1))
     f = [enc1.data[a : a + n] for a, n in frames_of(enc1.data)]
-    forged = _forge(f[0], **fields)
+    forged = _forge(f[0], digest_of(enc1.profile), **fields)
     dec = codec.decode(forged + b"".join(f[1:]), enc1.profile, samples=400, strict=False)
     assert_accounting(dec, 2)
     assert not dec.delivered[:32, 0].any()
@@ -253,7 +252,7 @@ def test_frame_interpreter_never_raises_on_crc_valid_garbage(version):
             body[1:3] = (size + 4).to_bytes(2, "big")
             if version == 1 and rng.random() < 0.9:
                 body[3:5] = codec.profile_id(ENC.profile).to_bytes(2, "big")
-        frame = SYNC + bytes(body) + crc16_ibm3740(bytes(body)).to_bytes(2, "big")
+        frame = with_crc(SYNC + bytes(body), DIGEST)
         if frame_extent(memoryview(frame), 0) == len(frame):
             frames.append(frame)
     assert len(frames) > 300

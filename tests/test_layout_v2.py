@@ -1,17 +1,17 @@
 """Frame layout version 2: a hand-computed frame to the exact byte, and streams of both versions."""
 
-import binascii
 
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from streams import assert_accounting
+from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
 
 import codec
 from codec import FrameError
 from codec._layout import (
     FrameBatchV2,
+    FrameKey,
     frame_crc_ok,
     frame_extent,
     pack_frames_v2,
@@ -47,8 +47,11 @@ HAND_BITS = (
 
 def _hand_frame() -> bytes:
     body = int(HAND_BITS, 2).to_bytes(len(HAND_BITS) // 8, "big")
-    # CRC-16/IBM-3740 by the standard library (binascii.crc_hqx, init 0xFFFF)
-    return b"\xe3\x5a" + body + binascii.crc_hqx(body, 0xFFFF).to_bytes(2, "big")
+    # CRC-16/IBM-3740 over the implicit profile prefix, rebuilt with binascii and hashlib
+    return with_crc(b"\xe3\x5a" + body, EXAMPLE_DIGEST)
+
+
+KEY = FrameKey(EXAMPLE_DIGEST)
 
 
 def _batch():
@@ -61,16 +64,16 @@ def _batch():
 
 def test_hand_computed_frame_packs_to_exact_bytes():
     assert len(HAND_BITS) == 72
-    data, lengths, _, _ = pack_frames_v2(_batch(), 0xABCD, 8)
+    data, lengths, _, _ = pack_frames_v2(_batch(), 0xABCD, 8, key=KEY)
     assert data == _hand_frame()
-    assert data.hex() == "e35a200dcd0500a0020b70108f"  # the hex printed in FRAME_LAYOUT.md
+    assert data.hex() == "e35a200dcd0500a0020b705473"  # the hex printed in FRAME_LAYOUT.md
     assert list(lengths) == [13]
 
 
 def test_hand_computed_frame_parses_back():
     data = _hand_frame()
     mv = memoryview(data)
-    assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13)
+    assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13, KEY)
     p = parse_frames_v2(data, np.array([0]), np.array([13]), 8, 4, False)
     assert p["consumed_ok"].all()
     assert p["profile"][0] == 0xCD and p["sequence"][0] == 5 and p["channel"][0] == 1
@@ -171,14 +174,15 @@ def test_layout_document_example_matches_the_packer():
     from pathlib import Path
 
     doc = (Path(codec.__file__).parent / "FRAME_LAYOUT.md").read_text(encoding="utf-8")
-    assert pack_frames_v2(_batch(), 0xABCD, 8)[0].hex() in doc
+    assert pack_frames_v2(_batch(), 0xABCD, 8, key=KEY)[0].hex() in doc
 
 
-def _forge(payload: bytes) -> bytes:
-    """A v2 frame around arbitrary bytes with a correct length and CRC (a hostile sender)."""
+def _forge(payload: bytes, profile) -> bytes:
+    """A v2 frame around arbitrary bytes with a correct length and CRC (a hostile sender
+    who knows the profile)."""
     length = 2 + 2 + len(payload) + 2
     body = bytes([0x20 | (length >> 8), length & 0xFF]) + payload
-    return b"\xe3\x5a" + body + binascii.crc_hqx(body, 0xFFFF).to_bytes(2, "big")
+    return with_crc(b"\xe3\x5a" + body, digest_of(profile))
 
 
 _FORGE_X = np.cumsum(np.random.default_rng(4).normal(size=(64, 2)), axis=0)
@@ -194,7 +198,7 @@ def test_forged_frames_are_refused_or_decoded_never_crash(payload):
     # fails here), every sample is accounted for, and a forged frame that is accepted
     # delivers finite values only where no real frame was.
     prof = _FORGE_ENC.profile
-    data = _FORGE_ENC.data + _forge(bytes([codec.profile_id(prof) & 0xFF]) + payload)
+    data = _FORGE_ENC.data + _forge(bytes([codec.profile_id(prof) & 0xFF]) + payload, prof)
     dec = codec.decode(data, prof, samples=128, strict=False)
     assert_accounting(dec, 2)
     assert (dec.status[:64] == codec.DELIVERED).all()
@@ -213,7 +217,7 @@ def test_a_forged_copy_of_a_real_frame_is_accepted():
     payload = bytearray(first[4:-2])
     payload[1] = 6  # the sequence byte (window 6)
     prof = _FORGE_ENC.profile
-    dec = codec.decode(_FORGE_ENC.data + _forge(bytes(payload)), prof, samples=128)
+    dec = codec.decode(_FORGE_ENC.data + _forge(bytes(payload), prof), prof, samples=128)
     assert dec.counts["frames_ok"] == 9
     np.testing.assert_array_equal(dec.samples[96:112, 0], _FORGE_ENC.reconstruction[:16, 0])
 
@@ -232,7 +236,7 @@ def test_rate_estimate_is_the_packed_size(fidelity):
     batch = FrameBatchV2(multi=np.zeros(nf, bool), channel=np.zeros(nf, np.int64),
                          sequence=np.arange(nf), valid=np.full(nf, n), frame=np.arange(nf),
                          step_code=np.full(nf, 500), mean=None, q=q)
-    _, _, sub_bits, _ = pack_frames_v2(batch, 1, n)
+    _, _, sub_bits, _ = pack_frames_v2(batch, 1, n, key=KEY)
     assert np.array_equal(payload_bits_v2(q, None, n), sub_bits)
 
 

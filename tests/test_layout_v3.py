@@ -1,13 +1,13 @@
 """Frame layout version 3: the worked example of FRAME_LAYOUT.md and stream behaviour."""
 
-import binascii
 
 import numpy as np
 import pytest
 from checks import assert_meets_target
+from streams import EXAMPLE_DIGEST, keyed_crc, with_crc
 
 import codec
-from codec._layout import frame_crc_ok, frame_extent
+from codec._layout import FrameKey, frame_crc_ok, frame_extent
 from codec._layout_v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
 from codec._stream import locate_frames
 
@@ -21,6 +21,7 @@ HEADER_BITS = (
     "1000000000" "0010" "000"
 )
 EXAMPLE = bytes.fromhex("e35a") + int(HEADER_BITS, 2).to_bytes(7, "big") + bytes([0x0A, 0x45])
+KEY = FrameKey(EXAMPLE_DIGEST)
 
 
 def _example_batch():
@@ -31,14 +32,15 @@ def _example_batch():
 
 
 def test_worked_example_packs_to_the_documented_bytes():
-    # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
-    crc = binascii.crc_hqx(EXAMPLE[2:], 0xFFFF).to_bytes(2, "big")
+    # CRC-16/IBM-3740 over the implicit profile prefix (digest 00 01 ... 1f), rebuilt
+    # with binascii and hashlib
+    crc = keyed_crc(EXAMPLE, EXAMPLE_DIGEST).to_bytes(2, "big")
     want = EXAMPLE + crc
-    assert want.hex() == "e35a300dcd050500100a45f294"
-    data, length, _, lane = pack_frames_v3(_example_batch(), 0xABCD, 8, 2)
+    assert want.hex() == "e35a300dcd050500100a45b668"
+    data, length, _, lane = pack_frames_v3(_example_batch(), 0xABCD, 8, 2, key=KEY)
     assert data == want and length.tolist() == [13] and lane.tolist() == [2]
     mv = memoryview(data)
-    assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13)
+    assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13, KEY)
     p = parse_frames_v3(data, np.array([0]), np.array([13]), 8, 2, False)
     assert p["consumed_ok"].all()
     assert p["channel"].tolist() == [1] and p["sequence"].tolist() == [5]
@@ -95,10 +97,10 @@ def test_corrupt_v3_frame_costs_only_its_windows():
 
 def test_a_frame_whose_coefficient_bytes_do_not_match_is_refused():
     # a trailing zero byte added to the coefficient bytes (CRC recomputed) is not a v3 frame
-    data, *_ = pack_frames_v3(_example_batch(), 0xABCD, 8, 2)
+    data, *_ = pack_frames_v3(_example_batch(), 0xABCD, 8, 2, key=KEY)
     body = bytearray(data[:-2]) + b"\x00"
     body[3] += 1  # length 13 -> 14
-    frame = bytes(body) + binascii.crc_hqx(bytes(body[2:]), 0xFFFF).to_bytes(2, "big")
+    frame = with_crc(bytes(body), EXAMPLE_DIGEST)
     p = parse_frames_v3(frame, np.array([0]), np.array([14]), 8, 2, False)
     assert not p["consumed_ok"].any()
 

@@ -84,9 +84,11 @@ def test_concealment_policies_on_a_hand_example():
     assert st[0, 0] == LOST and st[1, 0] == DELIVERED and st[2, 0] == CONCEALED
 
 
-def _with_crc(buf: bytearray, off: int, length: int) -> None:
+def _with_crc(buf: bytearray, off: int, length: int, profile) -> None:
     """Recompute a frame's CRC-16/IBM-3740 (the codec's CRC) after tampering."""
-    crc = codec.crc16_ibm3740(bytes(buf[off + 2: off + length - 2]))
+    # the codec's CRC: over the profile's implicit prefix (FRAME_LAYOUT.md, "Profile check")
+    prefix = codec.frame_key(profile).prefix(length)
+    crc = codec.crc16_ibm3740(prefix + bytes(buf[off + 2: off + length - 2]))
     buf[off + length - 2: off + length] = crc.to_bytes(2, "big")
 
 
@@ -98,10 +100,10 @@ def test_crc_valid_but_corrupted_frames_are_counted_not_crashed(data, coded):
     rx = bytearray(coded.data)
     o, L = int(starts[5]), int(lengths[5])
     rx[o + L - 4] ^= 0x10  # a payload byte: header still fits the profile
-    _with_crc(rx, o, L)
+    _with_crc(rx, o, L, coded.profile)
     o, L = int(starts[9]), int(lengths[9])
     rx[o + 5] ^= 0xFF  # profile id field: the codec refuses this header
-    _with_crc(rx, o, L)
+    _with_crc(rx, o, L, coded.profile)
     arrived = np.ones(lengths.size, bool)
     rec = receive(bytes(rx), coded.data, arrived, lengths, coded.profile, data.shape[0])
     assert rec.frames_rejected_header == 1

@@ -1,6 +1,5 @@
 """Dependent (trellis-coded) quantization and frame layout version 4."""
 
-import binascii
 import itertools
 import math
 
@@ -10,9 +9,10 @@ import scipy.signal
 from checks import assert_meets_target
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from streams import EXAMPLE_DIGEST, with_crc
 
 import codec
-from codec._layout import frame_crc_ok, frame_extent
+from codec._layout import FrameKey, frame_crc_ok, frame_extent
 from codec._layout_v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
 from codec._trellis import TRANSITIONS, dequantize_levels, quantizer_ids, trellis_quantize
 
@@ -70,17 +70,19 @@ EXAMPLE = bytes.fromhex("e35a") + int(HEADER_BITS, 2).to_bytes(7, "big") + bytes
 
 
 def test_worked_example_packs_to_the_documented_bytes():
-    # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
-    want = EXAMPLE + binascii.crc_hqx(EXAMPLE[2:], 0xFFFF).to_bytes(2, "big")
-    assert want.hex() == "e35a400ccd0505000c0a1ec3"
+    # CRC-16/IBM-3740 over the implicit profile prefix (digest 00 01 ... 1f), rebuilt
+    # with binascii and hashlib
+    want = with_crc(EXAMPLE, EXAMPLE_DIGEST)
+    assert want.hex() == "e35a400ccd0505000c0a26fa"
+    key = FrameKey(EXAMPLE_DIGEST)
     batch = FrameBatchV3(
         multi=np.array([False]), channel=np.array([1]), sequence=np.array([5]),
         windows=np.array([1]), valid=np.array([8]), frame=np.array([0]),
         step_code=np.array([512]), mean=None, q=np.array([[3, 0, 0, 0, 0, 0, 0, 0]]),
         quantizer=np.array([1]))
-    data, length, _, lane = pack_frames_v3(batch, 0xABCD, 8, 2, version=4)
+    data, length, _, lane = pack_frames_v3(batch, 0xABCD, 8, 2, version=4, key=key)
     assert data == want and length.tolist() == [12] and lane.tolist() == [1]
-    assert frame_extent(memoryview(data), 0) == 12 and frame_crc_ok(memoryview(data), 0, 12)
+    assert frame_extent(memoryview(data), 0) == 12 and frame_crc_ok(memoryview(data), 0, 12, key)
     p = parse_frames_v3(data, np.array([0]), np.array([12]), 8, 2, False, version=4)
     assert p["consumed_ok"].all() and p["trellis"].tolist() == [True]
     assert p["q"].tolist() == [[3, 0, 0, 0, 0, 0, 0, 0]]
@@ -133,7 +135,7 @@ def test_v4_saves_bits_at_high_fidelity_and_uses_both_quantizers():
 
 def _frames(data):
     from codec._stream import locate_frames
-    found = locate_frames(data)
+    found = locate_frames(data)  # our own clean stream: split as written
     return found.offsets, found.lengths
 
 

@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from .._bases import basis_names
-from .._codec import check_some_frame, decode, decode_frames, encode
+from .._codec import check_some_frame, decode, decode_frames, encode, frame_key
 from .._errors import FrameError, InputError
 from .._framing import split_frames
 from .._gaps import GAP_POLICIES
@@ -536,7 +536,7 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
                                "samples_concealed = samples x channels")
     if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
-        kind = detect_stuffing(bytes(head))
+        kind = detect_stuffing(bytes(head), frame_key(profile))
         if kind is not None:
             raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain "
                              f"frames; decode with --stuffing {kind}", where)
@@ -639,8 +639,11 @@ def _inspect(args) -> int:
     if stuffing != "none":
         u = Unstuffer(stuffing)
         data = b"".join(u.feed(data) + u.close())
-    loc = locate_frames(data)
-    if stuffing == "none" and (kind := detect_stuffing(data[:SNIFF_BYTES])) is not None:
+    # The CRC covers the profile (FRAME_LAYOUT.md, "Profile check"): without one, frames
+    # are only split as their envelopes claim.
+    loc = locate_frames(data, frame_key(profile) if profile and profile.channels else None)
+    if stuffing == "none" and (kind := detect_stuffing(
+            data[:SNIFF_BYTES], frame_key(profile) if profile and profile.channels else None)):
         raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
                          f"inspect with --stuffing {kind}", args.stream)
     if loc.offsets.size == 0 and not loc.crc_failures:
@@ -668,7 +671,7 @@ def _inspect(args) -> int:
         bits = 8 * len(loc.frames[i])
         if fr is None:
             out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>14} "
-                       f"{bits:>7}  crc ok (no profile: contents not read)")
+                       f"{bits:>7}  not checked (no profile: the CRC covers it; contents not read)")
             continue
         chans = fr.row_channel[fr.row_frame == i].tolist()
         chans += [c for c, _ in fr.masks.get(i, ())]
