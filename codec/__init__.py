@@ -28,7 +28,7 @@ _WHERE = {
     "._report": ("error_figures",),
     "._status": ("CONCEALED", "DELIVERED", "FIRST_FREE_STATUS", "GAP", "LOST", "STATUS_CODES",
                  "STATUS_NAMES"),
-    "._streaming": ("StreamDecoder", "StreamEncoder"),
+    "._streaming": ("MAX_FILL_WINDOWS", "StreamDecoder", "StreamEncoder"),
 }
 _MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 
@@ -46,6 +46,7 @@ __all__ = [
     "save_profile",
     "error_figures",
     "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
+    "MAX_FILL_WINDOWS",
     "FIRST_FREE_STATUS", "STATUS_CODES",
 ]
 

@@ -12,7 +12,7 @@ import sys
 import threading
 from pathlib import Path
 
-from codec import InputError, StreamDecoder
+from codec import MAX_FILL_WINDOWS, InputError, StreamDecoder
 from codec._io import is_stdio, write_csv_block
 from codec._profile import load_stream_note
 from codec.cli._common import check_paths, write_json
@@ -61,6 +61,10 @@ def register_receive(sub) -> None:
     p.add_argument("--idle", type=float, default=5.0, metavar="S",
                    help="stop after S seconds of waiting with no datagram, once one has "
                    "arrived (default 5; time spent decoding does not count)")
+    p.add_argument("--max-fill", type=int, default=MAX_FILL_WINDOWS, metavar="W",
+                   help="with the stream's end unknown, the most lost windows one sequence jump "
+                   f"may add to the output; the rest is cut as a discontinuity (default "
+                   f"{MAX_FILL_WINDOWS})")
     p.add_argument("--json", metavar="REPORT")
     p.set_defaults(handler=_receive)
 
@@ -105,7 +109,10 @@ def _receive(args) -> int:
         if out is not None and not is_stdio(out):
             _check_output(Path(out))
     names = [c.name for c in profile.channels]
-    decoder = StreamDecoder(profile, samples=note.samples if note else None)
+    if args.max_fill < 0:
+        raise InputError("--max-fill must be 0 or more windows", "command line")
+    decoder = StreamDecoder(profile, samples=note.samples if note else None,
+                            max_fill=args.max_fill)
     info = sys.stderr if is_stdio(args.output) else sys.stdout
     signals: list[str] = []
     with contextlib.ExitStack() as stack:

@@ -12,12 +12,14 @@ from __future__ import annotations
 
 import contextlib
 import io
+import json
 import tracemalloc
 
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from realdata import basic_motions
 from streams import assert_accounting, crc_ok_reference, digest_of, frames_of, with_crc
 
 import codec
@@ -399,3 +401,31 @@ def test_damaged_gap_frame_never_hands_out_its_inner_frame_as_data():
     assert dec.counts["frames_crc_failed"] == 1 and dec.counts["gap_frames_ok"] == 0
     assert not dec.delivered[32:64, 1].any()  # the window with gaps: lost, not stand-ins
     assert dec.counts["frames_ok"] == len(frames_of(enc.data, enc.profile)) - 1
+
+
+def test_decode_cli_max_fill_bounds_a_jump_with_the_end_unknown(tmp_path):
+    # Two real stretches of one stream: windows 0-2, then windows 100-101 (a sequence
+    # jump of 97 windows, well inside the sequence field's half range).  The note holds the profile but no [stream] table, so the end
+    # is unknown: --max-fill 5 lets the jump add 5 lost windows and cuts the rest.
+    from codec._profile import save_profile
+
+    n = 16
+    x = basic_motions("train")[: 5 * n, :1]
+    prof = codec.Profile(frame_length=n, windows_per_frame=1).bind(["a"])
+    a = codec.encode(x[: 3 * n], prof)
+    b = codec.encode(x[3 * n :], prof, first_window=100)
+    stream = tmp_path / "s.cwire"
+    stream.write_bytes(a.data + b.data)
+    save_profile(prof, tmp_path / "s.cwire.profile.toml")  # no [stream]: end unknown
+    out, rep = tmp_path / "out.npy", tmp_path / "r.json"
+    rc = main(["decode", str(stream), "-o", str(out), "--max-fill", "5", "--json", str(rep),
+               "--quiet"])
+    assert rc == 1  # the filled windows are lost samples
+    got = np.load(out)
+    assert got.shape == ((3 + 5 + 2) * n, 1)
+    np.testing.assert_array_equal(got[: 3 * n], a.reconstruction)
+    assert np.isnan(got[3 * n : 8 * n]).all()
+    np.testing.assert_array_equal(got[8 * n :], b.reconstruction)
+    r = json.loads(rep.read_text())
+    assert r["discontinuities"] == 1 and r["windows_cut"] == 97 - 5
+    assert main(["decode", str(stream), "-o", str(tmp_path / "o2.npy"), "--max-fill", "-1"]) == 2

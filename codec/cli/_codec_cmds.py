@@ -43,7 +43,7 @@ from .._quantize import step_from_code
 from .._report import channel_table, error_figures, pooled_label, units_of, with_unit
 from .._select import check_blocks, check_magnitude
 from .._stream import STATUS_NAMES, locate_frames
-from .._streaming import StreamDecoder, StreamEncoder
+from .._streaming import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
 from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from .._timecol import describe_time, time_fields, time_values
 from ._common import (
@@ -90,6 +90,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     _add_stream_options(p)
     p.add_argument("--reorder", type=int, default=16, metavar="W",
                    help="time windows a frame may arrive late and still be placed (default 16)")
+    p.add_argument("--max-fill", type=int, default=MAX_FILL_WINDOWS, metavar="W",
+                   help="with the stream's end unknown, the most lost windows one sequence jump "
+                   f"may add to the output; the rest is cut as a discontinuity (default "
+                   f"{MAX_FILL_WINDOWS})")
     p.set_defaults(handler=_quiet_broken_pipe(_decode))
 
     p = sub.add_parser("roundtrip", help="encode, decode and check every frame meets the target",
@@ -337,6 +341,8 @@ def _decode(args) -> int:
                          "standard input")
     if args.reorder < 0:
         raise InputError("--reorder must be 0 or more windows", "command line")
+    if args.max_fill < 0:
+        raise InputError("--max-fill must be 0 or more windows", "command line")
     # A profile recorded beside a stream (STREAM.profile.toml) also gives its length.
     profile, note = (_stream_profile(args) if not is_stdio(args.stream)
                      else load_stream_note(args.profile))
@@ -354,7 +360,7 @@ def _decode(args) -> int:
             stack.enter_context(busy(f"decoding {args.stream}"))
         report, blocks, dec = decode_report(
             _byte_chunks(args.stream), profile, note, stuffing, args.reorder, args.output,
-            "standard input" if is_stdio(args.stream) else args.stream)
+            "standard input" if is_stdio(args.stream) else args.stream, max_fill=args.max_fill)
     check_some_frame_foreign(dec)
     names = [c.name for c in profile.channels]
     with contextlib.ExitStack() as stack:
@@ -470,8 +476,8 @@ def _byte_chunks(path: str, size: int = 65536):
 
 
 def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: str = "none",
-                  reorder: int = 16, output: str | None = None, where: str = "the stream"
-                  ) -> tuple[dict, list, StreamDecoder]:
+                  reorder: int = 16, output: str | None = None, where: str = "the stream",
+                  max_fill: int | None = None) -> tuple[dict, list, StreamDecoder]:
     """Run the streaming decoder over byte ``chunks``; return the report, blocks and decoder.
 
     With ``output`` ``-`` the released samples are written to standard output
@@ -480,7 +486,8 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     the first bytes unstuff into more frames) raises :class:`InputError`
     naming the stuffing; ``where`` names the stream in that message.
     """
-    dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder)
+    dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder,
+                        max_fill=max_fill)
     unstuff = Unstuffer(stuffing) if stuffing != "none" else None
     live = output is not None and is_stdio(output)
     blocks: list = []
