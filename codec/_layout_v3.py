@@ -178,7 +178,8 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     v4 = version == LAYOUT_VERSION_4
     quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
              else batch.quantizer.astype(bool)) if v4 else None
-    cum, freq, shift, row = coefficient_ops(q, count, trellis=quant)
+    cum, freq, shift, row = coefficient_ops(q, count, trellis=quant,
+                                            mean=batch.mean is not None)
     lane_bytes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
 
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
@@ -304,7 +305,8 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     start = np.minimum(start, end)
     buf = np.frombuffer(data, dtype=np.uint8)
     trellis = None if quant is None else quant.astype(bool)
-    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n, trellis=trellis)
+    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n, trellis=trellis,
+                                        mean=has_mean)
     # the lane must be used: no byte past what the decoder read, and no trailing zero byte
     lane_len = end - start
     last = buf[np.maximum(end - 1, 0)]

@@ -50,19 +50,20 @@ def test_worked_example_packs_to_the_documented_bytes():
 # coefficients 0 (count 0); window 1: mean code 103, q = [1, 0, ...] (count 1).
 # Header and subframe bits written out by hand from the layout table (both
 # change flags set: changes of 3 and +1 cost 5 + 3 bits against 15 + 4); the
-# one coefficient byte by hand with the range-coder arithmetic in the document.
+# one coefficient byte by hand with the range-coder arithmetic in the document
+# (coefficient 0 beside a mean: bit length from the row P(0) = 7/8, ratio 3/4).
 HEADER2_BITS = (
     "0011" "0" "00000001111" "11001101" "00000101" "0001" "0" "1" "0" "1" "1"
     "1000000000" "000000011001001" "0000"
     "1" "00111" "011" "0"
 )
-EXAMPLE2 = bytes.fromhex("e35a") + int(HEADER2_BITS, 2).to_bytes(10, "big") + bytes([0x04])
+EXAMPLE2 = bytes.fromhex("e35a") + int(HEADER2_BITS, 2).to_bytes(10, "big") + bytes([0xE0])
 
 
 def test_two_window_example_sends_mean_and_count_as_changes():
     # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
     want = EXAMPLE2 + binascii.crc_hqx(EXAMPLE2[2:], 0xFFFF).to_bytes(2, "big")
-    assert want.hex() == "e35a300fcd0515c000324276042bc4"
+    assert want.hex() == "e35a300fcd0515c000324276e0966e"
     q = np.zeros((2, 8), np.int64)
     q[1, 0] = 1
     batch = FrameBatchV3(
@@ -164,7 +165,7 @@ def test_streaming_decoder_reads_multi_window_frames_in_any_chunks(multi):
     # 700 windows of N = 2 in frames of 8 windows: sequence numbers (8 bits) wrap twice;
     # two frames swapped across the wrap, and the bytes fed in odd-sized chunks.
     x = np.stack([np.sin(np.arange(1400) * 0.01), np.cos(np.arange(1400) * 0.02)], axis=1)
-    enc = codec.encode(x, codec.Profile(frame_length=2, fidelity=0.9,
+    enc = codec.encode(x, codec.Profile(frame_length=2, fidelity=0.9, windows_per_frame=8,
                                         multi_channel_frames=multi))
     loc = locate_frames(enc.data)
     f = [enc.data[a : a + n] for a, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
