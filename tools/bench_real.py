@@ -204,7 +204,7 @@ def bit_split(enc) -> dict:
     cp = later & f["count_pred"][fr]
     count = np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
                      int(p.frame_length).bit_length()).sum()
-    coef = coefficient_cost_bits(f["q"]).sum()
+    coef = coefficient_cost_bits(f["q"], mean=f["mean"] is not None).sum()
     total = len(enc.data) * 8
     samples = enc.reconstruction.size
     out = {"mean": mean, "step": step.sum(), "count": count, "coef": coef}
