@@ -149,11 +149,15 @@ def _read_subheaders(r: BitReader, pp: np.ndarray, rows: np.ndarray, s: int,
         v, used = r.exp_golomb(pp)
         mean[rows] = unzigzag(v) + np.where(mean_pred, mean[prev], 0)
         pp = pp + used
-    v, used = r.exp_golomb(pp)
-    c = np.where(count_pred, count[prev] + unzigzag(v), r.read(pp, lb))
+    c = r.read(pp, lb)
+    width = np.full(pp.size, lb)
+    ci = np.flatnonzero(count_pred)
+    if ci.size:
+        v, width[ci] = r.exp_golomb(pp[ci])
+        c[ci] = count[prev[ci]] + unzigzag(v)
     bad |= (c < 0) | (c > n)
     count[rows] = np.clip(c, 0, n)
-    pp = pp + np.where(count_pred, used, lb)
+    pp = pp + width
     if quant is not None:  # layout 4
         quant[rows] = r.read(pp, 1)
         pp = pp + 1
