@@ -92,6 +92,27 @@ def test_means_near_zero_go_whole():
     assert p["mean"].tolist() == [1, -1] and p["count"].tolist() == [0, 0]
 
 
+def test_multi_channel_changes_follow_each_channel():
+    # three channels in each of two windows: window 1's subframes predict from the same
+    # channel three subframes back, not from the subframe just before (a change from the
+    # previous subframe would cost zigzag(103 - 7) = 192: 15 bits instead of 5)
+    q = np.zeros((6, 8), np.int64)
+    q[3:, 0] = [1, 0, -2]
+    mean = np.array([100, -50, 7, 103, -52, 9])
+    batch = FrameBatchV3(
+        multi=np.array([True]), channel=np.array([0]), sequence=np.array([0]),
+        windows=np.array([2]), valid=np.array([8]), frame=np.zeros(6, np.int64),
+        step_code=np.full(6, 512), mean=mean, q=q)
+    data, length, sub_bits, _ = pack_frames_v3(batch, 0xABCD, 8, 3)
+    # window 1: step change 0 (1 bit), mean changes +3, -2, +2 (5, 5, 5 bits: zigzag 6, 3, 4),
+    # count changes +1, 0, +1 (3, 1, 3 bits); counted by hand from the exp-Golomb rule
+    assert sub_bits[3:].tolist() == [1 + 5 + 3, 1 + 5 + 1, 1 + 5 + 3]
+    p = parse_frames_v3(data, np.array([0]), length, 8, 3, True)
+    assert p["consumed_ok"].all() and p["mean_pred"].tolist() == [True]
+    assert p["mean"].tolist() == mean.tolist() and p["q"].tolist() == q.tolist()
+    assert p["count"].tolist() == [0, 0, 0, 1, 0, 1]
+
+
 def _signal(n=3000, c=3, seed=0):
     return np.random.default_rng(seed).standard_normal((n, c)).cumsum(axis=0)
 
