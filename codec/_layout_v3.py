@@ -10,6 +10,7 @@ Written down bit by bit in ``FRAME_LAYOUT.md`` ("Version 3").  A frame::
 
     sync(16) | version(4)=3 long(1) length(11 or 27) profile(8) sequence(8)
     windows-1(4) multi(1) [channel(cb) if multi = 0] short(1) [valid-1(ib) if short]
+    [mean_change(1) if windows > 1 and reference ac] [count_change(1) if windows > 1]
     | per subframe: step(10, or exp-Golomb of the zigzag change) [mean: exp-Golomb
       of zigzag, reference ac] count(bit_length(N)) [quantizer(1), version 4]
     | zero padding to a byte | range-coded coefficients of every subframe | crc(16)
@@ -18,6 +19,9 @@ Subframes come window by window (the ``windows`` consecutive windows from
 ``sequence``), and inside a window channel by channel (every channel of the
 profile when multi = 1, else the one ``channel``).  ``short`` marks that the
 frame's last window is a short last window.  ``cb = bit_length(channels - 1)``.
+With ``mean_change`` (``count_change``) set, every subframe after a
+channel's first one in the frame sends its mean (count) as the exp-Golomb
+code of the zigzag change from that channel's previous window in the frame.
 The coefficients are one range-coded lane (:mod:`codec._range`) running from
 the first byte after the padding to the CRC; bytes past its end read as zero.
 """
@@ -28,18 +32,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._entropy import BitReader, pack_bits
+from ._entropy import BitReader, exp_golomb_bits, pack_bits, unzigzag, zigzag
 from ._layout import (
     CRC_BYTES,
     LONG_LENGTH_BITS,
     SHORT_LENGTH_BITS,
+    STEP_BITS,
     SYNC,
     FrameBatchV2,
     FrameKey,
     count_bits,
     index_bits,
     read_frame_start,
-    read_subheaders,
     size_length_fields,
     subframes_fit,
     wrap_frames,
@@ -94,6 +98,74 @@ def _counts(q: np.ndarray) -> np.ndarray:
     return np.where(nz.any(axis=1), q.shape[1] - np.argmax(nz[:, ::-1], axis=1), 0)
 
 
+def _predictions(mean: np.ndarray | None, count: np.ndarray, prev: np.ndarray,
+                 has_prev: np.ndarray, owner: np.ndarray, nf: int, lb: int
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray]:
+    """Per frame, whether mean and count go as changes from the previous window.
+
+    A frame sends its later windows' means (and, separately, counts) as
+    changes from the same channel's previous window in the frame when that
+    codes the frame's fields in fewer bits; measured on real recordings the
+    mean of a slow signal moves little from one window to the next, while the
+    mean of a signal centred on zero is cheaper sent whole.  Returns the two
+    per-frame flags, the mean fields to send (None without means) and the
+    zigzag of each count's change.
+    """
+    def per_frame(bits):
+        return np.bincount(owner, bits, minlength=nf)
+
+    cz = zigzag(count - count[prev])
+    count_pred = per_frame(np.where(has_prev, exp_golomb_bits(cz), lb)) < per_frame(
+        np.full(count.size, lb))
+    if mean is None:
+        return np.zeros(nf, bool), count_pred, None, cz
+    delta = np.where(has_prev, mean - mean[prev], mean)
+    mean_pred = per_frame(exp_golomb_bits(zigzag(delta))) < per_frame(
+        exp_golomb_bits(zigzag(mean)))
+    return mean_pred, count_pred, np.where(mean_pred[owner], delta, mean), cz
+
+
+def _read_subheaders(r: BitReader, pp: np.ndarray, rows: np.ndarray, s: int,
+                     step: np.ndarray, mean: np.ndarray | None, count: np.ndarray, lb: int,
+                     n: int, quant: np.ndarray | None, mean_pred: np.ndarray,
+                     count_pred: np.ndarray, prev: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Read subframe ``s`` of each frame: step, mean, count (and layout 4's quantizer bit).
+
+    As layout 2 (``codec._layout.read_subheaders``), except that rows with
+    ``mean_pred`` / ``count_pred`` send their mean / count as the zigzag
+    exp-Golomb change from row ``prev`` (the same channel's previous window in
+    the frame).  Returns the bit positions after the fields and which frames
+    hold an impossible value.
+    """
+    bad = np.zeros(pp.size, dtype=bool)
+    if s == 0:
+        step[rows] = r.read(pp, STEP_BITS)
+        pp = pp + STEP_BITS
+    else:
+        v, used = r.exp_golomb(pp)
+        code = step[rows - 1] + unzigzag(v)
+        bad |= (code < 0) | (code >= (1 << STEP_BITS))
+        step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
+        pp = pp + used
+    if mean is not None:
+        v, used = r.exp_golomb(pp)
+        mean[rows] = unzigzag(v) + np.where(mean_pred, mean[prev], 0)
+        pp = pp + used
+    c = r.read(pp, lb)
+    width = np.full(pp.size, lb)
+    ci = np.flatnonzero(count_pred)
+    if ci.size:
+        v, width[ci] = r.exp_golomb(pp[ci])
+        c[ci] = count[prev[ci]] + unzigzag(v)
+    bad |= (c < 0) | (c > n)
+    count[rows] = np.clip(c, 0, n)
+    pp = pp + width
+    if quant is not None:  # layout 4
+        quant[rows] = r.read(pp, 1)
+        pp = pp + 1
+    return pp, bad
+
+
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
                    version: int = LAYOUT_VERSION_3, *, key: FrameKey
                    ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
@@ -112,32 +184,48 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     v4 = version == LAYOUT_VERSION_4
     quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
              else batch.quantizer.astype(bool)) if v4 else None
-    cum, freq, shift, row = coefficient_ops(q, count, trellis=quant)
+    cum, freq, shift, row = coefficient_ops(q, count, trellis=quant,
+                                            mean=batch.mean is not None)
     lane_bytes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
 
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
     lastrow = np.r_[first[1:] - 1, ns - 1]
-    nh, nsub = 10, 5 if v4 else 4
+    nh, nsub = 12, 5 if v4 else 4
     slots = nh + nsub + 1
     val = np.zeros((ns, slots), dtype=np.uint64)
     wid = np.zeros((ns, slots), dtype=np.int64)
     lead = np.zeros(ns, dtype=bool)
     lead[first] = True
-    write_subheaders(val, wid, nh, lead, batch.step_code, batch.mean, count, count_bits(n),
+    # later windows of a channel in a frame may send mean and count as changes
+    # from that channel's previous window in the frame (flags in the frame header)
+    owner = np.repeat(np.arange(nf), np.diff(np.r_[first, ns]))
+    per_win = np.where(batch.multi.astype(bool), channels, 1)[owner]
+    has_prev = np.arange(ns) - first[owner] >= per_win
+    prev = np.where(has_prev, np.arange(ns) - per_win, 0)
+    mean_pred, count_pred, mean_sent, count_delta = _predictions(
+        batch.mean, count, prev, has_prev, owner, nf, count_bits(n))
+    write_subheaders(val, wid, nh, lead, batch.step_code, mean_sent, count, count_bits(n),
                      quant)
+    cp = count_pred[owner] & has_prev
+    val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
+    wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
     sub_bits = wid[:, nh:].sum(axis=1)
 
     short = batch.valid < n
     multi = batch.multi.astype(bool)
+    several = batch.windows > 1
+    mean_flag = several & (batch.mean is not None)
     head_bits = (4 + 1 + 8 + 8 + WINDOW_BITS + 1 + np.where(multi, 0, cb) + 1
-                 + np.where(short, vb, 0))
+                 + np.where(short, vb, 0) + mean_flag + several)
     payload = np.add.reduceat(sub_bits, first)
     long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len)
     head = [(version, 4), (long, 1),
             (length, np.where(long, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)),
             (profile_id & 0xFF, 8), (batch.sequence % 256, 8), (batch.windows - 1, WINDOW_BITS),
             (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, cb)),
-            (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
+            (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0)),
+            (mean_pred & mean_flag, mean_flag.astype(np.int64)),
+            (count_pred & several, several.astype(np.int64))]
     write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
     heads = pack_bits(val.ravel(), wid.ravel())
 
@@ -166,8 +254,10 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     (window index relative to the frame's ``sequence``), ``sub_valid``,
     ``step_code``, ``mean`` (or None), ``count``, ``q``, ``trellis`` (layout
     4: whether the subframe's levels are of dependent quantization; else
-    None).  ``consumed_ok`` is False for a frame whose contents do not match
-    its length.
+    None), and per frame ``mean_pred`` / ``count_pred`` (whether later
+    windows send their mean / count as a change from the previous window).
+    ``consumed_ok`` is False for a frame whose contents do not match its
+    length.
     """
     r = BitReader(data)
     nf = offsets.size
@@ -185,6 +275,12 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     short = r.read(p, 1).astype(bool)
     valid = np.where(short, r.read(p + 1, np.where(short, vb, 0)) + 1, n)
     p = p + 1 + np.where(short, vb, 0)
+    several = windows > 1
+    mean_flag = several & has_mean
+    mean_pred = r.read(p, mean_flag.astype(np.int64)).astype(bool)
+    p = p + mean_flag
+    count_pred = r.read(p, several.astype(np.int64)).astype(bool)
+    p = p + several
 
     per_win = np.where(multi, channels, 1)
     cnt = windows * per_win
@@ -209,7 +305,11 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
-        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n, quant)
+        pw = per_win[fr]
+        later = s >= pw
+        p[fr], bad = _read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n, quant,
+                                      later & mean_pred[fr], later & count_pred[fr],
+                                      np.where(later, rows - pw, rows))
         ok[fr] &= ~bad
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
@@ -217,7 +317,8 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     start = np.minimum(start, end)
     buf = np.frombuffer(data, dtype=np.uint8)
     trellis = None if quant is None else quant.astype(bool)
-    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n, trellis=trellis)
+    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n, trellis=trellis,
+                                        mean=has_mean)
     # the lane must be used: no byte past what the decoder read, and no trailing zero byte
     lane_len = end - start
     last = buf[np.maximum(end - 1, 0)]
@@ -225,4 +326,5 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     return {"profile": profile, "sequence": sequence, "multi": multi, "valid": valid,
             "length": length, "consumed_ok": ok, "frame": owner, "channel": sub_channel,
             "window_offset": woff, "sub_valid": sub_valid, "windows": windows,
-            "step_code": step, "mean": mean, "count": count, "q": q, "trellis": trellis}
+            "step_code": step, "mean": mean, "count": count, "q": q, "trellis": trellis,
+            "mean_pred": mean_pred, "count_pred": count_pred}

@@ -134,7 +134,7 @@ class Profile(BaseModel):
     multi_channel_frames: bool = False
     #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
-    windows_per_frame: int = Field(default=8, ge=1, le=16)
+    windows_per_frame: int = Field(default=16, ge=1, le=16)
     #: What one fidelity budget covers: "window" (each window of each channel on its
     #: own) or "frame" (the windows of one channel that travel in one frame share one
     #: budget; layouts 3 and 4 with several windows per frame).  Only the encoder

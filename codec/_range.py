@@ -58,6 +58,7 @@ __all__ = [
     "TRELLIS_BASE",
     "SHIFT",
     "LEN_ROW",
+    "MEAN_LEN_ROW",
     "encode_lanes",
     "RangeDecoder",
     "coefficient_ops",
@@ -528,12 +529,31 @@ def _build_tables():
         shifts.append(s)
     rows.append(_uniform_cum())
     shifts.append(0)
+    rows.append(_mean_len_cum())
+    shifts.append(0)
     return np.array(rows, dtype=np.int64), np.array(shifts, dtype=np.int64)
 
 
-#: Cumulative tables, one row per class (last row: the uniform bit-length table).
+def _mean_len_cum() -> list[int]:
+    """Bit lengths of coefficient 0 when the subframe sends its mean (reference ac).
+
+    The mean then lives in the mean field, and for a basis whose first vector
+    is constant (dct, legendre, haar, walsh) coefficient 0 holds only the
+    mean's rounding error, below half a step: its code is 0.  A zero-modified
+    geometric law with P(0) = 7/8 and ratio 3/4 (round values chosen from that
+    argument, not fitted) codes that 0 in 0.19 bits instead of the uniform
+    table's 6; a wavelet's coefficient 0 of bit length 1 to 6 costs 5.0 to 6.7.
+    Bit lengths 0 .. 63 (the last as the law's escape), width 66 like the
+    uniform row.
+    """
+    return geometric_cum(3 << 14, 7 << 13, m=MODEL_SYMBOLS - 1) + [TOTAL]
+
+
+#: Cumulative tables, one row per class (then the uniform bit-length table and
+#: the bit-length table of coefficient 0 beside a mean).
 CUM, SHIFT = _build_tables()
-LEN_ROW = CUM.shape[0] - 1
+LEN_ROW = CUM.shape[0] - 2
+MEAN_LEN_ROW = CUM.shape[0] - 1
 _W = CUM.shape[1]
 _FLAT = CUM.ravel()
 # cost in bits of each (class, symbol): -log2(freq / TOTAL)
@@ -593,7 +613,7 @@ def _trellis_classes(mag: np.ndarray, q: np.ndarray, trellis) -> np.ndarray:
     return cls
 
 
-def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None):
+def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool = False):
     """Coding operations of the coded coefficients (j < count) of each row of ``q``.
 
     Returns ``(cum, freq, shift, row)`` flat in row-major order (rows in order,
@@ -603,6 +623,8 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None):
     sign of a non-zero.  Rare operations are built only where present.
     ``trellis`` (a bool, or one per row): rows of levels of dependent
     quantization (layout 4), whose classes also name each level's quantizer.
+    ``mean``: the subframes send a mean (reference ac), so coefficient 0's
+    bit length uses the row ``MEAN_LEN_ROW``.
     """
     ns, n = q.shape
     mag2 = np.abs(q).astype(np.int64)
@@ -618,7 +640,7 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None):
     esc = ~first & (hi >= MODEL_SYMBOLS)
     big = first | esc
     sym = np.where(first, _bit_length(mag), np.minimum(hi, MODEL_SYMBOLS))
-    tab = np.where(first, LEN_ROW, cls) * _W + sym
+    tab = np.where(first, MEAN_LEN_ROW if mean else LEN_ROW, cls) * _W + sym
     bi = np.flatnonzero(big)
     e = np.where(first[bi], mag[bi], hi[bi] - MODEL_SYMBOLS)
     eb = _bit_length(e)
@@ -668,11 +690,12 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None):
 
 
 def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
-                          trellis=None) -> np.ndarray:
+                          trellis=None, mean: bool = False) -> np.ndarray:
     """Ideal code length in bits, -sum log2 p, of each row's coded coefficients.
 
     Used by the encoder's rate choice; the range coder spends this plus at most
-    a few bits per lane.  ``count`` defaults to last non-zero + 1.
+    a few bits per lane.  ``count`` defaults to last non-zero + 1; ``mean`` as in
+    :func:`coefficient_ops`.
     """
     ns, n = q.shape
     mag = np.abs(q).astype(np.int64)
@@ -690,7 +713,7 @@ def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
     bl0 = _bit_length(mag[:, 0])
     sym[:, 0] = bl0
     row_cls = cls.copy()
-    row_cls[:, 0] = LEN_ROW
+    row_cls[:, 0] = MEAN_LEN_ROW if mean else LEN_ROW
     bits = _COST[row_cls, sym] + s + (mag > 0)
     eb = _bit_length(np.where(esc, hi - MODEL_SYMBOLS, 0))
     bits += np.where(esc, _COST[LEN_ROW, 0] + np.maximum(eb - 1, 0), 0)
@@ -1030,7 +1053,7 @@ def _scalar_lane(dec: RangeDecoder, lane: int, data: list, k0: int, k1: int, idx
 
 def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
                         lane_of_row: np.ndarray, count: np.ndarray, n: int,
-                        trellis: np.ndarray | None = None
+                        trellis: np.ndarray | None = None, mean: bool = False
                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Decode the coded coefficients of subframes (rows) in lanes ``data[start:end]``.
 
@@ -1038,7 +1061,7 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
     ``lane_of_row[i]``, has ``count[i]`` coefficients.  The inverse of
     :func:`coefficient_ops` + :func:`encode_lanes`.  Returns ``(q, bad, reads)``:
     per lane, whether its state became impossible and the bytes it read
-    after its first four.  ``trellis``: layout 4, per row (see
+    after its first four.  ``trellis``: layout 4, per row, and ``mean`` (see
     :func:`coefficient_ops`).
     """
     ns = count.size
@@ -1084,7 +1107,7 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
             st = state[:active]
             st[first] = 0
             cls += np.where(trellis[row], TRELLIS_BASE * (1 + (st >> 1)), 0)
-        cls[first] = LEN_ROW
+        cls[first] = MEAN_LEN_ROW if mean else LEN_ROW
         s = SHIFT[cls]
         s[first] = 0
         sym = dec.symbol(lanes, cls)

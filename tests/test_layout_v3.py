@@ -48,6 +48,74 @@ def test_worked_example_packs_to_the_documented_bytes():
     assert p["q"].tolist() == [[3, -1, 0, 0, 0, 0, 0, 0]]
 
 
+# FRAME_LAYOUT.md, "Version 3 worked example with two windows": as above but
+# reference ac and two windows from sequence 5; window 0: mean code 100, all
+# coefficients 0 (count 0); window 1: mean code 103, q = [1, 0, ...] (count 1).
+# Header and subframe bits written out by hand from the layout table (both
+# change flags set: changes of 3 and +1 cost 5 + 3 bits against 15 + 4); the
+# one coefficient byte by hand with the range-coder arithmetic in the document
+# (coefficient 0 beside a mean: bit length from the row P(0) = 7/8, ratio 3/4).
+HEADER2_BITS = (
+    "0011" "0" "00000001111" "11001101" "00000101" "0001" "0" "1" "0" "1" "1"
+    "1000000000" "000000011001001" "0000"
+    "1" "00111" "011" "0"
+)
+EXAMPLE2 = bytes.fromhex("e35a") + int(HEADER2_BITS, 2).to_bytes(10, "big") + bytes([0xE0])
+
+
+def test_two_window_example_sends_mean_and_count_as_changes():
+    # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
+    want = EXAMPLE2 + binascii.crc_hqx(EXAMPLE2[2:], 0xFFFF).to_bytes(2, "big")
+    assert want.hex() == "e35a300fcd0515c000324276e0966e"
+    q = np.zeros((2, 8), np.int64)
+    q[1, 0] = 1
+    batch = FrameBatchV3(
+        multi=np.array([False]), channel=np.array([1]), sequence=np.array([5]),
+        windows=np.array([2]), valid=np.array([8]), frame=np.array([0, 0]),
+        step_code=np.array([512, 512]), mean=np.array([100, 103]), q=q)
+    data, length, _, lane = pack_frames_v3(batch, 0xABCD, 8, 2)
+    assert data == want and length.tolist() == [15] and lane.tolist() == [1]
+    p = parse_frames_v3(data, np.array([0]), np.array([15]), 8, 2, True)
+    assert p["consumed_ok"].all()
+    assert p["mean_pred"].tolist() == [True] and p["count_pred"].tolist() == [True]
+    assert p["mean"].tolist() == [100, 103] and p["count"].tolist() == [0, 1]
+    assert p["q"].tolist() == q.tolist()
+
+
+def test_means_near_zero_go_whole():
+    # means 1, -1: changes (-2) cost more than the values, so the flag stays 0
+    q = np.zeros((2, 8), np.int64)
+    batch = FrameBatchV3(
+        multi=np.array([False]), channel=np.array([0]), sequence=np.array([0]),
+        windows=np.array([2]), valid=np.array([8]), frame=np.array([0, 0]),
+        step_code=np.array([512, 512]), mean=np.array([1, -1]), q=q)
+    data, *_ = pack_frames_v3(batch, 0xABCD, 8, 1)
+    p = parse_frames_v3(data, np.array([0]), np.array([len(data)]), 8, 1, True)
+    assert p["consumed_ok"].all() and p["mean_pred"].tolist() == [False]
+    assert p["mean"].tolist() == [1, -1] and p["count"].tolist() == [0, 0]
+
+
+def test_multi_channel_changes_follow_each_channel():
+    # three channels in each of two windows: window 1's subframes predict from the same
+    # channel three subframes back, not from the subframe just before (a change from the
+    # previous subframe would cost zigzag(103 - 7) = 192: 15 bits instead of 5)
+    q = np.zeros((6, 8), np.int64)
+    q[3:, 0] = [1, 0, -2]
+    mean = np.array([100, -50, 7, 103, -52, 9])
+    batch = FrameBatchV3(
+        multi=np.array([True]), channel=np.array([0]), sequence=np.array([0]),
+        windows=np.array([2]), valid=np.array([8]), frame=np.zeros(6, np.int64),
+        step_code=np.full(6, 512), mean=mean, q=q)
+    data, length, sub_bits, _ = pack_frames_v3(batch, 0xABCD, 8, 3)
+    # window 1: step change 0 (1 bit), mean changes +3, -2, +2 (5, 5, 5 bits: zigzag 6, 3, 4),
+    # count changes +1, 0, +1 (3, 1, 3 bits); counted by hand from the exp-Golomb rule
+    assert sub_bits[3:].tolist() == [1 + 5 + 3, 1 + 5 + 1, 1 + 5 + 3]
+    p = parse_frames_v3(data, np.array([0]), length, 8, 3, True)
+    assert p["consumed_ok"].all() and p["mean_pred"].tolist() == [True]
+    assert p["mean"].tolist() == mean.tolist() and p["q"].tolist() == q.tolist()
+    assert p["count"].tolist() == [0, 0, 0, 1, 0, 1]
+
+
 def _signal(n=3000, c=3, seed=0):
     return np.random.default_rng(seed).standard_normal((n, c)).cumsum(axis=0)
 
@@ -121,7 +189,7 @@ def test_streaming_decoder_reads_multi_window_frames_in_any_chunks(multi):
     # 700 windows of N = 2 in frames of 8 windows: sequence numbers (8 bits) wrap twice;
     # two frames swapped across the wrap, and the bytes fed in odd-sized chunks.
     x = np.stack([np.sin(np.arange(1400) * 0.01), np.cos(np.arange(1400) * 0.02)], axis=1)
-    enc = codec.encode(x, codec.Profile(frame_length=2, fidelity=0.9,
+    enc = codec.encode(x, codec.Profile(frame_length=2, fidelity=0.9, windows_per_frame=8,
                                         multi_channel_frames=multi))
     loc = locate_frames(enc.data)
     f = [enc.data[a : a + n] for a, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]

@@ -135,7 +135,9 @@ def test_reports_say_which_scope_holds(tmp_path):
         assert main(["roundtrip", str(src), "--scope", scope, "--json", str(rep)]) == 0
         r = json.loads(rep.read_text())
         assert r["fidelity_scope"] == scope
-        assert r["budget_blocks"] == (32 if scope == "window" else 4)
+        # 32 windows; in frame scope one block per frame of the default windows_per_frame
+        assert r["budget_blocks"] == (32 if scope == "window"
+                                      else 32 // codec.Profile().windows_per_frame)
         assert r["blocks_below_target"] == 0 and r["fidelity_min"] >= 0.99
         if scope == "frame":  # a silent window alone is far below F; its frame is not
             assert r["window_fidelity_min"] < 0.99

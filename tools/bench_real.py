@@ -191,9 +191,20 @@ def bit_split(enc) -> dict:
                         len(p.channels), p.reference == "ac", version=p.layout_version)
     lead = np.r_[True, f["frame"][1:] != f["frame"][:-1]]
     step = np.where(lead, 10, exp_golomb_bits(zigzag(np.diff(f["step_code"], prepend=0))))
-    mean = 0 if f["mean"] is None else exp_golomb_bits(zigzag(f["mean"])).sum()
-    count = lead.size * int(p.frame_length).bit_length()
-    coef = coefficient_cost_bits(f["q"]).sum()
+    # the previous window of the same channel in the frame (mean and count changes)
+    fr = f["frame"]
+    per_win = np.where(f["multi"], len(p.channels), 1)[fr]
+    first = np.flatnonzero(lead)[fr]
+    later = np.arange(fr.size) - first >= per_win
+    prev = np.where(later, np.arange(fr.size) - per_win, 0)
+    mean = 0
+    if f["mean"] is not None:
+        mp = later & f["mean_pred"][fr]
+        mean = exp_golomb_bits(zigzag(f["mean"] - np.where(mp, f["mean"][prev], 0))).sum()
+    cp = later & f["count_pred"][fr]
+    count = np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
+                     int(p.frame_length).bit_length()).sum()
+    coef = coefficient_cost_bits(f["q"], mean=f["mean"] is not None).sum()
     total = len(enc.data) * 8
     samples = enc.reconstruction.size
     out = {"mean": mean, "step": step.sum(), "count": count, "coef": coef}
