@@ -800,18 +800,23 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
 
 
 def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n: int,
-                  has_mean: bool, quantizer_bit: bool = False) -> np.ndarray:
+                  has_mean: bool, quantizer_bit: bool = False,
+                  count_change: np.ndarray | None = None) -> np.ndarray:
     """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-4).
 
     A subframe header takes at least its step (10 bits for the first, a 1-bit
     exp-Golomb code for the others), a 1-bit mean code (reference ``ac``),
-    the count (``count_bits(n)``) and layout 4's quantizer bit.
-    ``head_bits`` are the bits the frame header took from the sync marker on.
-    Checked before a parser allocates any row, so a short frame claiming 16
-    windows of every channel costs no more than its length.
+    the count (``count_bits(n)``, or for a later subframe of a frame with
+    ``count_change`` set a 1-bit exp-Golomb change) and layout 4's quantizer
+    bit.  ``head_bits`` are the bits the frame header took from the sync
+    marker on.  Checked before a parser allocates any row, so a short frame
+    claiming 16 windows of every channel costs no more than its length.
     """
-    extra = int(has_mean) + count_bits(n) + int(quantizer_bit)
-    need = np.where(cnt > 0, STEP_BITS + extra + (cnt - 1) * (1 + extra), 0)
+    fixed = int(has_mean) + int(quantizer_bit)
+    later_count = (count_bits(n) if count_change is None
+                   else np.where(count_change, 1, count_bits(n)))
+    need = np.where(cnt > 0, STEP_BITS + fixed + count_bits(n)
+                    + (cnt - 1) * (1 + fixed + later_count), 0)
     room = (np.asarray(lengths, np.int64) - CRC_BYTES) * 8 - head_bits
     return need <= room
 

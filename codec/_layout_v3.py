@@ -288,7 +288,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     # own bytes can hold (each subframe header takes at least min_subframe_bits) is
     # refused and gets no rows, so the work and memory per frame follow its length.
     fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
-                         version == LAYOUT_VERSION_4)
+                         version == LAYOUT_VERSION_4, count_pred)
     cnt = np.where(fits, cnt, 0)
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt

@@ -943,7 +943,7 @@ def _scalar_tables() -> tuple[list, list, list, list, list, list]:
 
 
 def _finish_scalar(dec: RangeDecoder, active: int, k0: int, nsorted, lstart, sym_row, sym_j,
-                   hist, state, q, n: int, trellis) -> None:
+                   hist, state, q, n: int, trellis, mean: bool = False) -> None:
     """Decode symbols ``k0`` on of lanes ``0 .. active - 1``, one lane at a time.
 
     The same arithmetic as the vector loop of :func:`decode_coefficients`, step
@@ -955,12 +955,13 @@ def _finish_scalar(dec: RangeDecoder, active: int, k0: int, nsorted, lstart, sym
     tr = None if trellis is None else trellis.tolist()
     for lane in range(active):
         _scalar_lane(dec, lane, data, k0, int(nsorted[lane]), int(lstart[lane]), rows_l, js_l,
-                     hist[:, lane].tolist(), int(state[lane]), q, n, tr)
+                     hist[:, lane].tolist(), int(state[lane]), q, n, tr,
+                     MEAN_LEN_ROW if mean else LEN_ROW)
 
 
 def _scalar_lane(dec: RangeDecoder, lane: int, data: list, k0: int, k1: int, idx0: int,
                  rows_l: list, js_l: list, h: list, st: int, q: np.ndarray, n: int,
-                 tr: list | None) -> None:
+                 tr: list | None, first_row: int = LEN_ROW) -> None:
     """Symbols ``k0 .. k1 - 1`` of one lane (see :func:`_finish_scalar`)."""
     pos, end = int(dec.pos[lane]), int(dec.end[lane])
     rng, value = int(dec.rng[lane]), int(dec.value[lane])
@@ -1015,7 +1016,7 @@ def _scalar_lane(dec: RangeDecoder, lane: int, data: list, k0: int, k1: int, idx
         if j == 0:
             h = [0, 0, 0, 0]
             st = 0
-            cls, s = LEN_ROW, 0
+            cls, s = first_row, 0  # coefficient 0's bit length: its own table
         else:
             tot = h[0] + h[1] + h[2] + h[3]
             u = (tot << 4) // min(j, CONTEXT_WINDOW)
@@ -1092,7 +1093,7 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
             # Few lanes left (a frame decoded alone, or the longest lanes of a batch): one
             # lane at a time in plain integers, far cheaper than a vector step per symbol.
             _finish_scalar(dec, active, k, nsorted, lstart, sym_row, sym_j, hist, state, q,
-                           n, trellis)
+                           n, trellis, mean)
             break
         lanes = slice(0, active)
         idx = lstart[:active] + k

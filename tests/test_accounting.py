@@ -89,10 +89,20 @@ def _link_case():
     # frame 12: a payload byte changed and its CRC recomputed, as a corrupted frame that
     # passes CRC-16 by chance (about 2^-16): delivered, and counted as an undetected error
     o, n = int(starts[12]), int(lengths[12])
-    rx[o + 10] ^= 0x01  # a coefficient byte (the header ends before byte 10)
-    # the CRC covers the profile digest (FRAME_LAYOUT.md, "Profile check"): rebuilt here
-    rx[o + n - 2 : o + n] = keyed_crc(bytes(rx[o : o + n - 2]), digest_of(enc.profile)).to_bytes(
-        2, "big")
+    digest = digest_of(enc.profile)
+    # the first coefficient byte (the header ends before byte 10) whose change still
+    # decodes: a change the range decoder sees as impossible is refused, not delivered
+    for b in range(10, n - 2):
+        bad = bytearray(rx[o : o + n])
+        bad[b] ^= 0x01
+        # the CRC covers the profile digest (FRAME_LAYOUT.md, "Profile check"): rebuilt here
+        bad[-2:] = keyed_crc(bytes(bad[:-2]), digest).to_bytes(2, "big")
+        if codec.decode(bytes(bad), enc.profile, samples=SAMPLES, strict=False).counts.get(
+                "frames_ok") == 1:
+            rx[o : o + n] = bad
+            break
+    else:
+        raise AssertionError("no decodable one-bit change in frame 12")
     return x, enc, bytes(rx), arrived, lengths
 
 

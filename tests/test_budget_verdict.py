@@ -3,7 +3,7 @@
 Checks against the arithmetic of the conditions themselves (bits on air per
 second against the radio's rate on air; margin at the radio's rate; one orbit's
 bits against the passes of one orbit) and an end-to-end acceptance run on an
-invented pump-vibration monitor with a 433 MHz radio at 24 000 bit/s.
+invented pump-vibration monitor with a 433 MHz radio at 32 000 bit/s.
 """
 
 from __future__ import annotations
@@ -114,8 +114,8 @@ def test_more_passes_a_day_than_revolutions_is_refused():
 
 
 # An invented scenario: a pump-vibration monitor (three acceleration axes and a bearing
-# temperature, 2000 samples/s) on a 433 MHz link inside a plant; the radio runs at
-# 24 000 bit/s.  Illustrative planning figures only.
+# temperature, 2500 samples/s) on a 433 MHz link inside a plant; the radio runs at
+# 32 000 bit/s.  Illustrative planning figures only.
 PUMP_LINK = """\
 description = "pump-vibration monitor to plant gateway, 433 MHz, 800 m"
 frequency_hz = 433.92e6
@@ -124,7 +124,7 @@ tx_power_w = 0.01
 tx_antenna_gain_dbi = 0.0
 rx_antenna_gain_dbi = 2.15
 system_noise_temperature_k = 600.0
-data_rate_bps = 24000.0
+data_rate_bps = 32000.0
 modulation = "bpsk"
 fec = "none"
 target_ber = 1e-5
@@ -135,11 +135,11 @@ walls_and_machinery = 20.0
 """
 
 PUMP_PROFILE = "fidelity = 0.99\n" + "".join(
-    f'[[channels]]\nname = "{n}"\nsample_rate_hz = 2000.0\n'
+    f'[[channels]]\nname = "{n}"\nsample_rate_hz = 2500.0\n'
     for n in ("acc_x", "acc_y", "acc_z", "bearing_temp"))
 
 
-def pump_sample(n: int = 4000, fs: float = 2000.0, seed: int = 7) -> np.ndarray:
+def pump_sample(n: int = 5000, fs: float = 2500.0, seed: int = 7) -> np.ndarray:
     """Invented pump vibration: shaft 24.5 Hz, its second harmonic, 7-vane pass, noise."""
     rng = np.random.default_rng(seed)
     t = np.arange(n) / fs
@@ -168,20 +168,20 @@ def test_acceptance_pump_monitor(tmp_path, capsys):
     # The F = 0.999 stream needs more than the radio: its own bits over the sample's 2 s.
     names = ["acc_x", "acc_y", "acc_z", "bearing_temp"]
     need = encode(x, Profile(fidelity=0.999).bind(names)).report["bits_total"] / 2.0
-    assert rows[0.999]["bits_per_second"] == pytest.approx(need) and need > 24_000.0
+    assert rows[0.999]["bits_per_second"] == pytest.approx(need) and need > 32_000.0
     assert rows[0.999]["fits"] is False and rows[0.999]["limited_by"] == "rate"
-    assert r["margin_db"] >= 10.0  # the link itself keeps its margin at 24 000 bit/s
+    assert r["margin_db"] >= 10.0  # the link itself keeps its margin at 32 000 bit/s
     best = r["best_fidelity"]
     assert best is not None and best < 0.999 and rows[best]["fits"]
-    assert rows[best]["bits_per_second"] <= 24_000.0 and rows[best]["limited_by"] is None
+    assert rows[best]["bits_per_second"] <= 32_000.0 and rows[best]["limited_by"] is None
     text = capsys.readouterr().out
-    assert "433.92 MHz" in text and "  800 m  " in text and "24 000 bit/s" in text
+    assert "433.92 MHz" in text and "  800 m  " in text and "32 000 bit/s" in text
     assert f"best fidelity that fits: {best:g}" in text
 
 
 def test_no_fidelity_fits_names_the_reason(tmp_path, capsys):
     link = tmp_path / "slow.link.toml"
-    link.write_text(PUMP_LINK.replace("data_rate_bps = 24000.0", "data_rate_bps = 4800.0"),
+    link.write_text(PUMP_LINK.replace("data_rate_bps = 32000.0", "data_rate_bps = 4800.0"),
                     encoding="utf-8")
     prof = tmp_path / "pump.toml"
     prof.write_text(PUMP_PROFILE, encoding="utf-8")

@@ -4,6 +4,7 @@
 import numpy as np
 import pytest
 from checks import assert_meets_target
+from realdata import basic_motions
 from streams import EXAMPLE_DIGEST, keyed_crc, with_crc
 
 import codec
@@ -64,16 +65,17 @@ EXAMPLE2 = bytes.fromhex("e35a") + int(HEADER2_BITS, 2).to_bytes(10, "big") + by
 
 
 def test_two_window_example_sends_mean_and_count_as_changes():
-    # CRC-16/IBM-3740 is binascii.crc_hqx with initial value 0xFFFF (Python stdlib)
-    want = EXAMPLE2 + binascii.crc_hqx(EXAMPLE2[2:], 0xFFFF).to_bytes(2, "big")
-    assert want.hex() == "e35a300fcd0515c000324276e0966e"
+    # the CRC over the implicit prefix SHA-256(D || 00 00 00 0f) of the example digest D,
+    # rebuilt by the catalogue CRC-16/IBM-3740 of tests/crcref.py (FRAME_LAYOUT.md)
+    want = with_crc(EXAMPLE2, EXAMPLE_DIGEST)
+    assert want.hex() == "e35a300fcd0515c000324276e040e4"
     q = np.zeros((2, 8), np.int64)
     q[1, 0] = 1
     batch = FrameBatchV3(
         multi=np.array([False]), channel=np.array([1]), sequence=np.array([5]),
         windows=np.array([2]), valid=np.array([8]), frame=np.array([0, 0]),
         step_code=np.array([512, 512]), mean=np.array([100, 103]), q=q)
-    data, length, _, lane = pack_frames_v3(batch, 0xABCD, 8, 2)
+    data, length, _, lane = pack_frames_v3(batch, 0xABCD, 8, 2, key=KEY)
     assert data == want and length.tolist() == [15] and lane.tolist() == [1]
     p = parse_frames_v3(data, np.array([0]), np.array([15]), 8, 2, True)
     assert p["consumed_ok"].all()
@@ -89,7 +91,7 @@ def test_means_near_zero_go_whole():
         multi=np.array([False]), channel=np.array([0]), sequence=np.array([0]),
         windows=np.array([2]), valid=np.array([8]), frame=np.array([0, 0]),
         step_code=np.array([512, 512]), mean=np.array([1, -1]), q=q)
-    data, *_ = pack_frames_v3(batch, 0xABCD, 8, 1)
+    data, *_ = pack_frames_v3(batch, 0xABCD, 8, 1, key=KEY)
     p = parse_frames_v3(data, np.array([0]), np.array([len(data)]), 8, 1, True)
     assert p["consumed_ok"].all() and p["mean_pred"].tolist() == [False]
     assert p["mean"].tolist() == [1, -1] and p["count"].tolist() == [0, 0]
@@ -106,7 +108,7 @@ def test_multi_channel_changes_follow_each_channel():
         multi=np.array([True]), channel=np.array([0]), sequence=np.array([0]),
         windows=np.array([2]), valid=np.array([8]), frame=np.zeros(6, np.int64),
         step_code=np.full(6, 512), mean=mean, q=q)
-    data, length, sub_bits, _ = pack_frames_v3(batch, 0xABCD, 8, 3)
+    data, length, sub_bits, _ = pack_frames_v3(batch, 0xABCD, 8, 3, key=KEY)
     # window 1: step change 0 (1 bit), mean changes +3, -2, +2 (5, 5, 5 bits: zigzag 6, 3, 4),
     # count changes +1, 0, +1 (3, 1, 3 bits); counted by hand from the exp-Golomb rule
     assert sub_bits[3:].tolist() == [1 + 5 + 3, 1 + 5 + 1, 1 + 5 + 3]
@@ -233,3 +235,40 @@ def test_more_windows_per_frame_spend_fewer_header_bits():
     eight = codec.encode(x, codec.Profile(windows_per_frame=8))
     assert eight.report["header_bits_per_sample"] < one.report["header_bits_per_sample"]
     assert len(eight.data) < len(one.data)
+
+
+@pytest.mark.parametrize("reference", ["ac", "total"])
+@pytest.mark.parametrize("layout", [3, 4])
+def test_a_frame_decodes_alone_as_in_its_batch(reference, layout):
+    # The range decoder finishes its last few lanes one at a time in plain integers (the
+    # whole decode of a frame that arrives alone): that path must read every model row the
+    # batch path reads, coefficient 0 beside a mean included, so each frame of a real
+    # stream decodes alone to exactly what the whole stream gives.
+    x = basic_motions("train")[:1024, :2]
+    prof = codec.Profile(frame_length=32, windows_per_frame=4, reference=reference,
+                         layout_version=layout)
+    enc = codec.encode(x, prof)
+    whole = codec.decode(enc.data, enc.profile, samples=x.shape[0])
+    loc = locate_frames(enc.data, codec.frame_key(enc.profile))
+    assert loc.offsets.size > 8  # more lanes than the scalar path takes at once
+    for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist()):
+        alone = codec.decode(enc.data[o : o + n], enc.profile, samples=x.shape[0],
+                             strict=False)
+        assert alone.counts["frames_ok"] == 1
+        got = alone.delivered
+        np.testing.assert_array_equal(alone.samples[got], whole.samples[got])
+
+
+@pytest.mark.parametrize("layout", [3, 4])
+def test_a_frame_of_silent_windows_decodes(layout):
+    # A constant channel: every window codes count 0, so with count changes a later
+    # subframe header is a few bits.  The parser's before-allocation size check
+    # (FRAME_LAYOUT.md: the least bits a subframe header can take) must still admit
+    # the frame, a short last window included (1000 = 15 x 64 + 40 samples).
+    x = np.full((1000, 1), 5.0)
+    prof = codec.Profile(frame_length=64, windows_per_frame=16, reference="ac",
+                         layout_version=layout)
+    enc = codec.encode(x, prof)
+    dec = codec.decode(enc.data, enc.profile, samples=1000)
+    assert dec.delivered.all() and dec.counts.get("frames_bad_header", 0) == 0
+    np.testing.assert_allclose(dec.samples, x, rtol=0, atol=1e-9)
