@@ -31,8 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 import codec
-from codec import CONCEALED, DELIVERED, LOST  # the codec's status vocabulary (codec._status)
-from codec._stream import locate_frames
+from codec import CONCEALED, DELIVERED, LOST, locate_frames  # status vocabulary, frame search
 
 __all__ = ["CONCEAL_POLICIES", "LOST", "DELIVERED", "CONCEALED", "Reception", "receive",
            "conceal"]

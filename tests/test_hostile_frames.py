@@ -405,8 +405,9 @@ def test_damaged_gap_frame_never_hands_out_its_inner_frame_as_data():
 
 def test_decode_cli_max_fill_bounds_a_jump_with_the_end_unknown(tmp_path):
     # Two real stretches of one stream: windows 0-2, then windows 100-101 (a sequence
-    # jump of 97 windows, well inside the sequence field's half range).  The note holds the profile but no [stream] table, so the end
-    # is unknown: --max-fill 5 lets the jump add 5 lost windows and cuts the rest.
+    # jump of 97 windows, well inside the sequence field's half range).  The note holds the
+    # profile but no [stream] table, so the end is unknown: --max-fill 5 lets the jump add
+    # 5 lost windows and cuts the rest.
     from codec._profile import save_profile
 
     n = 16
