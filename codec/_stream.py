@@ -64,7 +64,6 @@ __all__ = [
     "CONCEALED",
     "FIRST_FREE_STATUS",
     "STATUS_NAMES",
-    "MAX_FRAME_BYTES",
 ]
 
 # Sample status codes (uint8), one per sample position and channel: defined once in
@@ -72,8 +71,6 @@ __all__ = [
 
 #: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
 MAX_LISTED = 100_000
-#: No layout-v1 frame can claim more bytes than its 16-bit length field holds.
-MAX_FRAME_BYTES = 65535
 _SYNC_LEN = len(SYNC)
 
 

@@ -69,8 +69,6 @@ def _decode_tolerant(rx: bytes, profile, total: int):
             d.frames["window"], d.frames["channel"], len(d.crc_failures), refused
     except codec.FrameError:
         pass
-    except IndexError:
-        pass  # a corrupted sequence number placed a frame outside the grid
     loc = locate_frames(rx, codec.frame_key(profile))
     out = np.full((total, len(profile.channels)), np.nan)
     got = np.zeros(out.shape, bool)
@@ -78,7 +76,7 @@ def _decode_tolerant(rx: bytes, profile, total: int):
     for off, length in zip(loc.offsets.tolist(), loc.lengths.tolist()):
         try:
             d = codec.decode(rx[off: off + length], profile, samples=total)
-        except (codec.FrameError, IndexError):
+        except codec.FrameError:
             continue
         out = np.where(d.delivered, d.samples, out)
         got |= d.delivered
