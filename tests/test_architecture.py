@@ -263,3 +263,15 @@ def test_no_import_cycle_inside_package(package):
                for p in _py_files(package)}
     found = cycles(import_graph(sources))
     assert found - KNOWN_CYCLES == set(), sorted(found - KNOWN_CYCLES)
+
+
+def test_public_api_examples_run():
+    # The Examples sections of names exported for other packages run as doctests
+    # (Python's doctest module is the reference); attempted > 0 so an example that
+    # vanishes fails here.
+    import doctest
+
+    import codec._stream
+
+    result = doctest.testmod(codec._stream)
+    assert result.attempted >= 5 and result.failed == 0, result
