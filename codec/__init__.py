@@ -3,6 +3,11 @@
 Data flows samples -> frames -> coefficients -> term selection -> quantizer ->
 frame layout -> bytes, and back in :func:`decode`.
 
+Everything another package (``link_sim``, the scripts in ``tools/``) uses is
+exported here; ``tests/test_architecture.py`` fails on any import of an
+underscore module across packages.  The command-line helpers that commands of
+other packages share are the public module :mod:`codec.cli.common`.
+
 Public names are imported on first use (PEP 562 module ``__getattr__``), so
 ``import codec`` and ``coefwire --help`` stay fast: the encoder, its tables and
 the libraries behind them load only when something asks for them.
@@ -21,14 +26,17 @@ _WHERE = {
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
     "._crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
     "._errors": ("CoefwireError", "FrameError", "InputError", "ProfileError"),
-    "._io": ("SampleTable", "atomic_output", "read_samples"),
+    "._io": ("SampleTable", "atomic_output", "read_samples", "is_stdio", "write_csv_block"),
     "._klt": ("TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt"),
     "._profile": ("ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id",
-                  "read_toml", "save_profile"),
-    "._report": ("error_figures",),
+                  "read_toml", "save_profile", "StreamNote", "load_stream_note"),
+    "._progress": ("Progress",),
+    "._report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit"),
     "._status": ("CONCEALED", "DELIVERED", "FIRST_FREE_STATUS", "GAP", "LOST", "STATUS_CODES",
                  "STATUS_NAMES"),
-    "._streaming": ("MAX_FILL_WINDOWS", "StreamDecoder", "StreamEncoder"),
+    "._stream": ("Located", "locate_frames"),
+    "._streaming": ("MAX_FILL_WINDOWS", "StreamDecoder", "StreamEncoder", "max_frame_bytes"),
+    "._stuffing": ("Unstuffer", "stuff"),
 }
 _MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 
@@ -48,6 +56,10 @@ __all__ = [
     "CONCEALED", "DELIVERED", "GAP", "LOST", "STATUS_NAMES", "StreamDecoder", "StreamEncoder",
     "MAX_FILL_WINDOWS",
     "FIRST_FREE_STATUS", "STATUS_CODES",
+    # used by link_sim and tools/ (issue 14, item 4): I/O, reports, frame search
+    "is_stdio", "write_csv_block", "StreamNote", "load_stream_note", "Progress",
+    "channel_table", "pooled_label", "units_of", "with_unit", "Located", "locate_frames",
+    "max_frame_bytes", "Unstuffer", "stuff",
 ]
 
 

@@ -56,7 +56,6 @@ __all__ = [
     "parse_frames_v2",
     "payload_bits_v2",
     "rice_parameters",
-    "frame_version",
     "wrap_frames",
     "read_subheaders",
     "write_subheaders",
@@ -676,11 +675,6 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int, *, key: FrameKe
 
     out = wrap_frames(body, body_bytes, key)
     return out.tobytes(), length, sub_bits, side_bits
-
-
-def frame_version(buf: np.ndarray, offsets: np.ndarray) -> np.ndarray:
-    """Layout version nibble of the frames at ``offsets``."""
-    return buf[offsets.astype(np.int64) + len(SYNC)] >> 4
 
 
 def read_frame_start(r, offsets: np.ndarray

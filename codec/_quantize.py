@@ -16,8 +16,6 @@ __all__ = [
     "STEP_CODE_MAX",
     "step_from_code",
     "code_for_step",
-    "quantize",
-    "dequantize",
 ]
 
 STEP_CODE_BITS = 10
@@ -56,12 +54,3 @@ def code_for_step(step: np.ndarray | float) -> np.ndarray:
     high = step_from_code(guess) < step
     return np.clip(np.where(high, guess + 1, guess), 0, STEP_CODE_MAX)
 
-
-def quantize(coeffs: np.ndarray, step: np.ndarray) -> np.ndarray:
-    """Integer codes of ``coeffs`` (frames x terms) for per-frame ``step`` (frames,)."""
-    return np.rint(coeffs / np.asarray(step)[..., None]).astype(np.int64)
-
-
-def dequantize(codes: np.ndarray, step: np.ndarray) -> np.ndarray:
-    """Coefficients from integer codes; the exact inverse used by both ends."""
-    return codes.astype(np.float64) * np.asarray(step)[..., None]

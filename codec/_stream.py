@@ -64,7 +64,6 @@ __all__ = [
     "CONCEALED",
     "FIRST_FREE_STATUS",
     "STATUS_NAMES",
-    "MAX_FRAME_BYTES",
 ]
 
 # Sample status codes (uint8), one per sample position and channel: defined once in
@@ -72,8 +71,6 @@ __all__ = [
 
 #: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
 MAX_LISTED = 100_000
-#: No layout-v1 frame can claim more bytes than its 16-bit length field holds.
-MAX_FRAME_BYTES = 65535
 _SYNC_LEN = len(SYNC)
 
 
@@ -271,10 +268,34 @@ def locate_frames(data: bytes, key: FrameKey | None = None,
                   max_frame: int | None = None) -> Located:
     """Locate every CRC-valid frame of the profile whose ``key`` is given in ``data``.
 
-    One :class:`FrameScanner` pass; ``key`` is :func:`codec._codec.frame_key`
+    One :class:`FrameScanner` pass; ``key`` is :func:`codec.frame_key`
     of the stream's profile (frames of another profile fail their CRC).
     Without ``key`` the frames are only split as their envelopes claim, CRCs
     unchecked: for a sender's own stream, never for decoding.
+
+    Parameters
+    ----------
+    data : bytes
+        A coded stream, or any part of one (bytes between frames are skipped).
+    key : FrameKey, optional
+        ``codec.frame_key(profile)`` of the stream's profile.
+    max_frame : int, optional
+        Largest frame length to accept, in bytes (see :func:`codec.max_frame_bytes`).
+
+    Returns
+    -------
+    Located
+        Offsets, lengths and bytes of the accepted frames, the offsets of
+        candidates whose CRC failed, and the count of skipped bytes.
+
+    Examples
+    --------
+    >>> import numpy as np, codec
+    >>> x = np.sin(np.arange(256) / 9.0)[:, None]
+    >>> enc = codec.encode(x, codec.default_profile())
+    >>> loc = codec.locate_frames(b"junk" + enc.data, codec.frame_key(enc.profile))
+    >>> int(loc.offsets[0]), loc.skipped_bytes, b"".join(loc.frames) == enc.data
+    (4, 4, True)
     """
     scan = FrameScanner(max_frame, key=key)
     found = scan.feed(data) + scan.close()

@@ -17,15 +17,15 @@ from pathlib import Path
 
 import numpy as np
 
-from codec import InputError, ProfileError, encode
-from codec._io import atomic_output, read_samples
-from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
+from codec import InputError, ProfileError, atomic_output, encode, read_samples
+from codec.cli.common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._budget import Budget, compute_budget, judge_stream, pass_summary
 from ._linkfile import load_link
 
 __all__ = ["register", "CAUTIONS", "FIT_CONDITIONS", "fidelity_rows", "human"]
 
+#: The fidelity targets ``budget`` (and ``survey``) try when none are given.
 DEFAULT_FIDELITIES = "0.9,0.95,0.99,0.999"
 
 CAUTIONS = (

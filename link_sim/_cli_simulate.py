@@ -7,12 +7,17 @@ import math
 from dataclasses import replace
 from pathlib import Path
 
-from codec._codec import as_samples, encode
-from codec._errors import InputError
-from codec._io import read_samples
-from codec._progress import Progress
-from codec._report import channel_table, pooled_label, with_unit
-from codec.cli._common import add_profile_options, fmt, resolve_profile, write_json
+from codec import (
+    InputError,
+    Progress,
+    as_samples,
+    channel_table,
+    encode,
+    pooled_label,
+    read_samples,
+    with_unit,
+)
+from codec.cli.common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._channels import MODULATIONS
 from ._fec import FEC_NAMES

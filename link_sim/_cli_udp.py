@@ -12,10 +12,15 @@ import sys
 import threading
 from pathlib import Path
 
-from codec import MAX_FILL_WINDOWS, InputError, StreamDecoder
-from codec._io import is_stdio, write_csv_block
-from codec._profile import load_stream_note
-from codec.cli._common import check_paths, write_json
+from codec import (
+    MAX_FILL_WINDOWS,
+    InputError,
+    StreamDecoder,
+    is_stdio,
+    load_stream_note,
+    write_csv_block,
+)
+from codec.cli.common import check_paths, write_json
 
 from ._udp import (
     SEND_COUNTED,

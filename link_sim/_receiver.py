@@ -31,8 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 import codec
-from codec import CONCEALED, DELIVERED, LOST  # the codec's status vocabulary (codec._status)
-from codec._stream import locate_frames
+from codec import CONCEALED, DELIVERED, LOST, locate_frames  # status vocabulary, frame search
 
 __all__ = ["CONCEAL_POLICIES", "LOST", "DELIVERED", "CONCEALED", "Reception", "receive",
            "conceal"]
@@ -70,8 +69,6 @@ def _decode_tolerant(rx: bytes, profile, total: int):
             d.frames["window"], d.frames["channel"], len(d.crc_failures), refused
     except codec.FrameError:
         pass
-    except IndexError:
-        pass  # a corrupted sequence number placed a frame outside the grid
     loc = locate_frames(rx, codec.frame_key(profile))
     out = np.full((total, len(profile.channels)), np.nan)
     got = np.zeros(out.shape, bool)
@@ -79,7 +76,7 @@ def _decode_tolerant(rx: bytes, profile, total: int):
     for off, length in zip(loc.offsets.tolist(), loc.lengths.tolist()):
         try:
             d = codec.decode(rx[off: off + length], profile, samples=total)
-        except (codec.FrameError, IndexError):
+        except codec.FrameError:
             continue
         out = np.where(d.delivered, d.samples, out)
         got |= d.delivered

@@ -28,8 +28,7 @@ import numpy as np
 from scipy import stats
 
 import codec
-from codec._report import units_of
-from codec._stream import locate_frames
+from codec import locate_frames, units_of
 
 from ._channels import GilbertElliott, awgn, bsc, erase_frames, gilbert_elliott
 from ._fec import make_code
@@ -350,7 +349,7 @@ def plot_sweep(rows: list[dict], path: str | Path, label: str = "") -> None:
     """Draw an AWGN sweep: BER, frame error rate and end-to-end SNR on one shared Eb/N0 axis."""
     import matplotlib.pyplot as plt
 
-    from codec._io import atomic_output
+    from codec import atomic_output
 
     fig = sweep_figure(rows, label)
     with atomic_output(path) as tmp:

@@ -16,8 +16,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import codec
-from codec import InputError
-from codec._stream import locate_frames
+from codec import InputError, locate_frames
 
 __all__ = ["parse_endpoint", "split_frames_of", "send_frames", "receive_frames", "SendStats",
            "SEND_COUNTED"]
@@ -124,7 +123,7 @@ def receive_frames(decoder: codec.StreamDecoder, host: str, port: int, on_block,
                    on_finish: Callable[[dict], None] | None = None) -> dict:
     """Decode datagrams arriving at ``host:port`` until the stream is complete or time is up.
 
-    ``on_block`` receives every released :class:`codec._streaming.Block`.  Stops
+    ``on_block`` receives every released :class:`codec.StreamDecoder` block.  Stops
     when the decoder has every frame up to the stream's known end, after
     ``duration_s`` seconds, after ``idle_s`` seconds spent waiting with no
     datagram (once one has arrived; time spent decoding does not count, so a

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import os
 
+import pytest
 from hypothesis import HealthCheck, settings
 
 # No deadline and no too-slow health check: both measure wall time, which a loaded CI
@@ -39,3 +40,13 @@ def pytest_collection_modifyitems(items) -> None:
         if own is not None and getattr(fn, "is_hypothesis_test", False):
             fn._hypothesis_internal_use_settings = settings(
                 own, max_examples=own.max_examples * LONG_FACTOR)
+
+
+@pytest.fixture(autouse=True)
+def _progress_reports_on():
+    """``--quiet`` sets a process-wide switch; reset it so one test's CLI call cannot
+    silence the progress reports another test reads."""
+    yield
+    from codec._progress import set_quiet
+
+    set_quiet(False)

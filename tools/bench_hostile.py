@@ -29,8 +29,7 @@ from pathlib import Path
 import numpy as np
 
 import codec
-from codec._stream import locate_frames
-from codec._streaming import max_frame_bytes
+from codec import locate_frames, max_frame_bytes
 from codec.cli import main as cli
 
 

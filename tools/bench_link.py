@@ -19,10 +19,8 @@ from pathlib import Path
 import numpy as np
 
 import codec
-from codec._io import read_samples
-from codec._stream import locate_frames
-from link_sim import awgn, bsc
-from link_sim._fec import Convolutional, ReedSolomon255
+from codec import locate_frames, read_samples
+from link_sim import Convolutional, ReedSolomon255, awgn, bsc
 
 
 def _best(fn, repeat=3) -> float:

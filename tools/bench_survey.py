@@ -26,9 +26,13 @@ from pathlib import Path
 
 import numpy as np
 
-from link_sim._cli_budget import DEFAULT_FIDELITIES
-from link_sim._survey import SurveySettings, expand_archive, resolve_survey_bases
-from link_sim._survey_run import run_survey
+from link_sim import (
+    DEFAULT_FIDELITIES,
+    SurveySettings,
+    expand_archive,
+    resolve_survey_bases,
+    run_survey,
+)
 
 CHANNELS = ["temp_k", "humidity_pct", "pressure_hpa", "wind_m_s", "solar_w_m2", "battery_v"]
 STEP_S = 60.0
@@ -63,7 +67,7 @@ def _maxrss_mb() -> float:
 
 
 def _warm() -> float:
-    import link_sim._survey  # noqa: F401  (import what a task imports before measuring)
+    from link_sim import expand_archive  # noqa: F401  (load what a task imports before measuring)
 
     return _maxrss_mb()
 

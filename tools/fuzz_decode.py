@@ -46,10 +46,10 @@ except ImportError:  # pragma: no cover - only --replay works without the fuzzer
 if atheris is not None:
     with atheris.instrument_imports():
         import codec
-        from codec._stuffing import Unstuffer
+        from codec import Unstuffer
 else:
     import codec
-    from codec._stuffing import Unstuffer
+    from codec import Unstuffer
 
 import fuzz_mutations as fm  # noqa: E402  (profiles, keyed CRC, forgery helpers)
 

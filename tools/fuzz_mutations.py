@@ -49,7 +49,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from test_hostile import _mutate  # noqa: E402  (the byte-damage operators of the tests)
 
 import codec  # noqa: E402
-from codec._stream import locate_frames  # noqa: E402
+from codec import locate_frames  # noqa: E402
 
 GAP_KIND = 15
 

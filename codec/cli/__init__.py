@@ -26,13 +26,11 @@ from importlib.metadata import PackageNotFoundError, entry_points, version
 
 from .._errors import CoefwireError
 
-__all__ = ["main", "build_parser", "UsageError"]
+__all__ = ["main", "build_parser"]
 
-EXIT_OK, EXIT_MISSED, EXIT_ERROR = 0, 1, 2
-
-
-class UsageError(CoefwireError):
-    """A command-line combination that cannot work (exit 2)."""
+# Exit statuses: 0 done; 1 a target missed (returned by the command itself); 2 a
+# user's error (a CoefwireError, printed as one sentence).
+EXIT_OK, EXIT_ERROR = 0, 2
 
 
 def _version() -> str:

@@ -46,7 +46,7 @@ from .._stream import STATUS_NAMES, locate_frames
 from .._streaming import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
 from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from .._timecol import describe_time, time_fields, time_values
-from ._common import (
+from .common import (
     add_profile_options,
     check_paths,
     fmt,

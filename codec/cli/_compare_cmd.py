@@ -11,7 +11,7 @@ from .._errors import InputError
 from .._io import atomic_output, read_samples
 from .._profile import default_profile, load_profile
 from ._codec_cmds import _CAUTION
-from ._common import check_distinct, fmt, json_ready, write_json
+from .common import check_distinct, fmt, json_ready, write_json
 
 __all__ = ["register"]
 

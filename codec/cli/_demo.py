@@ -16,7 +16,7 @@ from .._io import SampleTable, csv_decimals, read_samples, write_samples
 from .._profile import load_profile
 from .._timecol import time_fields
 from ._codec_cmds import channel_figure_lines, roundtrip_report, write_stream
-from ._common import fmt, write_json
+from .common import fmt, write_json
 
 __all__ = ["register", "SCENARIOS", "scenario_files"]
 

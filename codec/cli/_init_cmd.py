@@ -10,7 +10,7 @@ from .._errors import ProfileError
 from .._infer import FRAME_LENGTHS, infer_profile, profile_text
 from .._io import atomic_output, read_samples
 from .._profile import load_profile
-from ._common import check_distinct
+from .common import check_distinct
 
 __all__ = ["register"]
 

@@ -43,7 +43,7 @@ from .._profile import (
     profile_id,
 )
 from .._stream import locate_frames
-from ._common import check_paths, json_text
+from .common import check_paths, json_text
 
 __all__ = ["register", "DEFAULT_CAP_BYTES"]
 

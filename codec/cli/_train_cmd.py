@@ -8,7 +8,7 @@ from pathlib import Path
 from .._errors import InputError
 from .._io import read_samples
 from .._klt import note_toml, save_trained_basis, train_klt
-from ._common import check_distinct
+from .common import check_distinct
 
 __all__ = ["register"]
 

@@ -1,4 +1,9 @@
-"""Pieces shared by several commands: profile options, reports, output files."""
+"""Pieces shared by several commands: profile options, reports, output files.
+
+A public module: the commands of packages built on the codec (``link_sim``'s
+``simulate``, ``budget``, ``send`` and ``receive``) use these helpers too, so
+their options, number formats and JSON output match the codec's commands.
+"""
 
 from __future__ import annotations
 
