@@ -234,7 +234,7 @@ def _fleet_link(k: int, distance_km: float, terrain_db: float) -> str:
     ])
 
 
-def make_fleet(root: Path = ROOT / "fleet") -> None:
+def make_fleet(root: Path = ROOT / "profiles" / "fleet") -> None:
     """Write the invented ridge fleet: one CSV per station and day, a link file per station.
 
     Files are ``archive/ridgeNN_2026-03-DD.csv`` (survey them with
