@@ -68,6 +68,12 @@ LAYOUTS = [
     dict(layout_version=3, reference="total", fidelity=0.999, basis="haar"),
     dict(layout_version=4, fidelity=0.999),
     dict(layout_version=4, windows_per_frame=1, basis="legendre"),
+    # window scope asked for explicitly: each window its own budget (the README's
+    # "Fidelity, SNR and PRD"), on every layout whose encoder reads the setting
+    dict(layout_version=1, fidelity_scope="window"),
+    dict(layout_version=2, multi_channel_frames=True, fidelity_scope="window"),
+    dict(layout_version=3, fidelity_scope="window"),
+    dict(layout_version=4, fidelity=0.999, fidelity_scope="window"),
 ]
 
 
