@@ -757,14 +757,18 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
 
 def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarray,
                     mean: np.ndarray | None, count: np.ndarray, lb: int, n: int,
-                    quantizer: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                    quantizer: np.ndarray | None = None, mean_pred: np.ndarray | None = None,
+                    count_pred: np.ndarray | None = None, prev: np.ndarray | None = None
+                    ) -> tuple[np.ndarray, np.ndarray]:
     """Read subframe ``s`` of each frame (layouts 2 to 4): step, mean, term count.
 
     The first subframe sends its step code whole, later ones as an exp-Golomb
     difference from the previous subframe's; the mean (when sent) is a
-    zig-zag exp-Golomb code; the count has ``lb`` bits.  Fills ``step``,
-    ``mean`` and ``count`` (and layout 4's ``quantizer`` bit) at ``rows``;
-    returns the bit positions after them
+    zig-zag exp-Golomb code; the count has ``lb`` bits.  Layouts 3 and 4 may
+    send, at rows with ``mean_pred`` / ``count_pred``, the mean / count as the
+    zig-zag exp-Golomb change from row ``prev`` (the same channel's previous
+    window in the frame).  Fills ``step``, ``mean`` and ``count`` (and layout
+    4's ``quantizer`` bit) at ``rows``; returns the bit positions after them
     and which frames hold an impossible value (refused by the decoder).
     """
     from ._entropy import unzigzag
@@ -781,12 +785,18 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
         pp = pp + used
     if mean is not None:
         v, used = r.exp_golomb(pp)
-        mean[rows] = unzigzag(v)
+        mean[rows] = unzigzag(v) + (0 if mean_pred is None
+                                    else np.where(mean_pred, mean[prev], 0))
         pp = pp + used
     c = r.read(pp, lb)
-    bad |= c > n
-    count[rows] = np.minimum(c, n)
-    pp = pp + lb
+    width = np.full(pp.size, lb)
+    ci = np.flatnonzero(count_pred) if count_pred is not None else np.zeros(0, np.int64)
+    if ci.size:
+        v, width[ci] = r.exp_golomb(pp[ci])
+        c[ci] = count[prev[ci]] + unzigzag(v)
+    bad |= (c < 0) | (c > n)
+    count[rows] = np.clip(c, 0, n)
+    pp = pp + width
     if quantizer is not None:  # layout 4
         quantizer[rows] = r.read(pp, 1)
         pp = pp + 1

@@ -32,18 +32,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._entropy import BitReader, exp_golomb_bits, pack_bits, unzigzag, zigzag
+from ._entropy import BitReader, exp_golomb_bits, pack_bits, zigzag
 from ._layout import (
     CRC_BYTES,
     LONG_LENGTH_BITS,
     SHORT_LENGTH_BITS,
-    STEP_BITS,
     SYNC,
     FrameBatchV2,
     FrameKey,
     count_bits,
     index_bits,
     read_frame_start,
+    read_subheaders,
     size_length_fields,
     subframes_fit,
     wrap_frames,
@@ -123,47 +123,6 @@ def _predictions(mean: np.ndarray | None, count: np.ndarray, prev: np.ndarray,
     mean_pred = per_frame(exp_golomb_bits(zigzag(delta))) < per_frame(
         exp_golomb_bits(zigzag(mean)))
     return mean_pred, count_pred, np.where(mean_pred[owner], delta, mean), cz
-
-
-def _read_subheaders(r: BitReader, pp: np.ndarray, rows: np.ndarray, s: int,
-                     step: np.ndarray, mean: np.ndarray | None, count: np.ndarray, lb: int,
-                     n: int, quant: np.ndarray | None, mean_pred: np.ndarray,
-                     count_pred: np.ndarray, prev: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Read subframe ``s`` of each frame: step, mean, count (and layout 4's quantizer bit).
-
-    As layout 2 (``codec._layout.read_subheaders``), except that rows with
-    ``mean_pred`` / ``count_pred`` send their mean / count as the zigzag
-    exp-Golomb change from row ``prev`` (the same channel's previous window in
-    the frame).  Returns the bit positions after the fields and which frames
-    hold an impossible value.
-    """
-    bad = np.zeros(pp.size, dtype=bool)
-    if s == 0:
-        step[rows] = r.read(pp, STEP_BITS)
-        pp = pp + STEP_BITS
-    else:
-        v, used = r.exp_golomb(pp)
-        code = step[rows - 1] + unzigzag(v)
-        bad |= (code < 0) | (code >= (1 << STEP_BITS))
-        step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
-        pp = pp + used
-    if mean is not None:
-        v, used = r.exp_golomb(pp)
-        mean[rows] = unzigzag(v) + np.where(mean_pred, mean[prev], 0)
-        pp = pp + used
-    c = r.read(pp, lb)
-    width = np.full(pp.size, lb)
-    ci = np.flatnonzero(count_pred)
-    if ci.size:
-        v, width[ci] = r.exp_golomb(pp[ci])
-        c[ci] = count[prev[ci]] + unzigzag(v)
-    bad |= (c < 0) | (c > n)
-    count[rows] = np.clip(c, 0, n)
-    pp = pp + width
-    if quant is not None:  # layout 4
-        quant[rows] = r.read(pp, 1)
-        pp = pp + 1
-    return pp, bad
 
 
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
@@ -307,7 +266,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
         rows = sstart[fr] + s
         pw = per_win[fr]
         later = s >= pw
-        p[fr], bad = _read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n, quant,
+        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, lb, n, quant,
                                       later & mean_pred[fr], later & count_pred[fr],
                                       np.where(later, rows - pw, rows))
         ok[fr] &= ~bad
