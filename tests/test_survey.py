@@ -219,8 +219,10 @@ def test_local_cluster_of_two_workers_gives_exactly_the_serial_rows(archive, ser
     from distributed import LocalCluster
 
     out = tmp_path / "dask"
+    # scheduler and dashboard on free ports: the default dashboard port (8787) may be held
+    # by any other cluster on the machine, and its warning is an error in the tests
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, scheduler_port=0,
-                      dashboard_address=None) as cluster:
+                      dashboard_address=":0") as cluster:
         assert main(_args(archive, out, "--scheduler", cluster.scheduler_address)) == 0
     assert (out / "rows.csv").read_bytes() == (serial / "rows.csv").read_bytes()
     a = pq.read_table(out / "rows").to_pylist()

@@ -76,7 +76,7 @@ def _timed(n_workers: int, items, settings, root: Path) -> tuple[float, list, li
     from distributed import Client, LocalCluster
 
     with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
-                      scheduler_port=0, dashboard_address=None,
+                      scheduler_port=0, dashboard_address=":0",
                       silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
         before = sorted(client.run(_warm).values())
         t0 = time.perf_counter()
