@@ -18,7 +18,13 @@ from pathlib import Path
 import numpy as np
 
 from codec import InputError, ProfileError, atomic_output, encode, read_samples
-from codec.cli.common import add_profile_options, fmt, resolve_profile, write_json
+from codec.cli.common import (
+    add_profile_options,
+    fmt,
+    parse_fidelities,
+    resolve_profile,
+    write_json,
+)
 
 from ._budget import Budget, compute_budget, judge_stream, pass_summary
 from ._linkfile import load_link
@@ -58,21 +64,6 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", metavar="OUT", help="write the JSON report here")
     p.add_argument("--plot", metavar="OUT.png", help="write the plot here (.png, .svg or .pdf)")
     p.set_defaults(handler=_budget)
-
-
-def _parse_fidelities(text: str) -> list[float]:
-    values = []
-    for part in text.split(","):
-        try:
-            f = float(part)
-        except ValueError:
-            raise ProfileError(f"--fidelity: {part.strip()!r} is not a number; give a comma-"
-                               "separated list such as 0.9,0.99", "command line") from None
-        if not 0.0 < f <= 1.0 or not math.isfinite(f):
-            raise ProfileError(f"--fidelity: {f:g} is outside the allowed range 0 < F <= 1",
-                               "command line")
-        values.append(f)
-    return sorted(set(values))
 
 
 def _stream_rate_hz(args, profile, table) -> tuple[float, str]:
@@ -184,7 +175,7 @@ def _budget(args) -> int:
     rows = best = rate_info = reason = None
     passing = pass_summary(budget)
     if args.input is not None:
-        fidelities = _parse_fidelities(args.fidelity)
+        fidelities = parse_fidelities(args.fidelity)
         table = read_samples(args.input)
         codec_args = argparse.Namespace(**{**vars(args), "fidelity": None})
         profile = resolve_profile(codec_args, table.names)

@@ -6,11 +6,11 @@ Registered through the ``coefwire.commands`` entry-point group.
 from __future__ import annotations
 
 import argparse
-import math
 import sys
 from pathlib import Path
 
 from codec import InputError, ProfileError, default_profile, load_profile
+from codec.cli.common import parse_fidelities
 
 from ._cli_budget import DEFAULT_FIDELITIES
 from ._fleet_report import write_report
@@ -69,21 +69,6 @@ def register_report(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(handler=_report)
 
 
-def _fidelities(text: str) -> tuple[float, ...]:
-    values = []
-    for part in text.split(","):
-        try:
-            f = float(part)
-        except ValueError:
-            raise InputError(f"--fidelity: {part.strip()!r} is not a number; give a comma-"
-                             "separated list such as 0.9,0.99", "command line") from None
-        if not (math.isfinite(f) and 0.0 < f <= 1.0):
-            raise InputError(f"--fidelity: {f:g} is outside 0 < F <= 1; give targets such as "
-                             "0.9,0.99", "command line")
-        values.append(f)
-    return tuple(sorted(set(values)))
-
-
 def _links(groups: list[str], args) -> dict[str, str | None]:
     if args.link:
         if not Path(args.link).is_file():
@@ -119,7 +104,7 @@ def _survey(args) -> int:
     settings = SurveySettings(
         profile=profile.model_dump(mode="json"),
         bases=resolve_survey_bases(args.bases, profile.frame_length),
-        fidelities=_fidelities(args.fidelity), group_by=args.group_by)
+        fidelities=tuple(parse_fidelities(args.fidelity)), group_by=args.group_by)
     items = expand_archive(args.archive, args.group_by)
     out = Path(args.out)
     for item in items:

@@ -62,18 +62,8 @@ def rate_distortion_ar1(rho: float, sigma2: float, d: float, grid: int = 1 << 16
     The integrals are midpoint sums over [0, pi] (S is even).
     """
     omega = (np.arange(grid) + 0.5) * (math.pi / grid)
-    s = ar1_spectrum(rho, sigma2, omega)
-    if d >= s.mean():
-        return 0.0
-    lo, hi = 0.0, float(s.max())
-    for _ in range(200):  # bisection on the water level
-        theta = 0.5 * (lo + hi)
-        if np.minimum(theta, s).mean() > d:
-            hi = theta
-        else:
-            lo = theta
-    theta = 0.5 * (lo + hi)
-    return float(np.maximum(0.0, 0.5 * np.log2(s / theta)).mean())
+    # the midpoint sums are reverse water-filling over the spectrum's samples
+    return reverse_water_filling(ar1_spectrum(rho, sigma2, omega), d)
 
 
 def reverse_water_filling(variances, d: float) -> float:

@@ -20,7 +20,7 @@ from .._io import atomic_output, is_stdio
 from .._profile import Profile, default_profile, load_profile
 
 __all__ = ["add_profile_options", "resolve_profile", "write_json", "fmt", "json_ready",
-           "check_distinct", "check_paths", "json_text"]
+           "check_distinct", "check_paths", "json_text", "parse_fidelities"]
 
 
 def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = None) -> None:
@@ -136,3 +136,19 @@ def check_paths(inputs: dict, outputs: dict) -> None:
             if _same(out, out2):
                 raise InputError(f"the {label} and the {other} name the same file; name two "
                                  "different files", str(out))
+
+
+def parse_fidelities(text: str) -> list[float]:
+    """``--fidelity F1,F2,...`` as sorted distinct targets 0 < F <= 1 (one sentence if not)."""
+    values = []
+    for part in text.split(","):
+        try:
+            f = float(part)
+        except ValueError:
+            raise InputError(f"--fidelity: {part.strip()!r} is not a number; give a comma-"
+                             "separated list such as 0.9,0.99", "command line") from None
+        if not (math.isfinite(f) and 0.0 < f <= 1.0):
+            raise InputError(f"--fidelity: {f:g} is outside the allowed range 0 < F <= 1; "
+                             "give targets such as 0.9,0.99", "command line")
+        values.append(f)
+    return sorted(set(values))
