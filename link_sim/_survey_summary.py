@@ -25,6 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from codec import CoefwireError, Profile, decode, encode, error_figures
+from codec.cli.common import json_ready
 
 from ._budget import compute_budget
 from ._cli_budget import CAUTIONS as LINK_CAUTIONS
@@ -296,18 +297,6 @@ def _write_csv(path: Path, keys, rows) -> None:
                             repr(r[k]) if isinstance(r[k], float) else r[k]) for k in keys})
 
 
-def _json_ready(obj):
-    if isinstance(obj, dict):
-        return {str(k): _json_ready(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_json_ready(v) for v in obj]
-    if isinstance(obj, np.generic):
-        return _json_ready(obj.item())
-    if isinstance(obj, float):
-        return _num(obj)
-    return obj
-
-
 def finish_survey(out: Path, items: list[ArchiveFile], settings: SurveySettings,
                   links: dict[str, str | None], inputs: list[str]) -> dict:
     """Gather the finished rows and write rows.csv, groups.csv, group_channels.csv, summary.json.
@@ -331,5 +320,5 @@ def finish_survey(out: Path, items: list[ArchiveFile], settings: SurveySettings,
     _write_csv(out / "groups.csv", GROUP_KEYS, summary["groups"])
     _write_csv(out / "group_channels.csv", GROUP_CHANNEL_KEYS, summary["group_channels"])
     with atomic_output(out / "summary.json") as tmp:
-        tmp.write_text(json.dumps(_json_ready(summary), indent=1) + "\n", encoding="utf-8")
+        tmp.write_text(json.dumps(json_ready(summary), indent=1) + "\n", encoding="utf-8")
     return summary

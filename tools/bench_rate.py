@@ -112,7 +112,8 @@ def ar1_source(rho: float, samples: int, seed: int) -> np.ndarray:
     return scipy.signal.lfilter([1.0], [1.0, -rho], e)
 
 
-def _smallest_int(codes: np.ndarray) -> np.ndarray:
+def smallest_int(codes: np.ndarray) -> np.ndarray:
+    """The codes in the narrowest signed integer type that holds them (what zstd is given)."""
     for dt in (np.int8, np.int16, np.int32, np.int64):
         info = np.iinfo(dt)
         if codes.min() >= info.min and codes.max() <= info.max:
@@ -125,9 +126,9 @@ def zstd_baselines(x: np.ndarray, mse: float) -> tuple[float, float, float]:
     step = math.sqrt(12.0 * mse)
     codes = np.rint(x / step).astype(np.int64)
     zc = zstandard.ZstdCompressor(level=19)
-    plain = len(zc.compress(_smallest_int(codes).tobytes())) * 8 / x.size
+    plain = len(zc.compress(smallest_int(codes).tobytes())) * 8 / x.size
     diff = np.diff(codes, prepend=0)
-    dbits = len(zc.compress(_smallest_int(diff).tobytes())) * 8 / x.size
+    dbits = len(zc.compress(smallest_int(diff).tobytes())) * 8 / x.size
     return plain, dbits, float(np.mean((x - codes * step) ** 2))
 
 

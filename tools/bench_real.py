@@ -53,6 +53,9 @@ import zstandard
 import codec
 from codec._infer import infer_profile
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_rate import smallest_int  # noqa: E402  (the baseline's integer packing, one place)
+
 N_FRAME = 64
 
 
@@ -115,14 +118,6 @@ def recordings() -> dict:
     }
 
 
-def _smallest_int(codes: np.ndarray) -> np.ndarray:
-    for dt in (np.int8, np.int16, np.int32, np.int64):
-        info = np.iinfo(dt)
-        if codes.min() >= info.min and codes.max() <= info.max:
-            return codes.astype(dt)
-    raise AssertionError("codes exceed int64")
-
-
 def diff_zstd_bits(x: np.ndarray, x_hat: np.ndarray) -> float:
     """Bits/sample of each channel quantized to coefwire's error energy, differenced, zstd-19."""
     parts = []
@@ -135,7 +130,7 @@ def diff_zstd_bits(x: np.ndarray, x_hat: np.ndarray) -> float:
             step = math.sqrt(12.0 * mse)
         codes = np.rint(x[:, c] / step).astype(np.int64)
         parts.append(np.diff(codes, prepend=0))
-    data = _smallest_int(np.concatenate(parts)).tobytes()
+    data = smallest_int(np.concatenate(parts)).tobytes()
     return len(zstandard.ZstdCompressor(level=19).compress(data)) * 8 / x.size
 
 
