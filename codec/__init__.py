@@ -19,24 +19,24 @@ import importlib
 
 # Every public name and the private module that defines it.
 _WHERE = {
-    "._bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
+    ".transform.bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
                 "register_basis"),
     "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "frame_key",
                 "reconstruct"),
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
-    "._crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
+    ".layouts.crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
     "._errors": ("CoefwireError", "FrameError", "InputError", "ProfileError"),
     "._io": ("SampleTable", "atomic_output", "read_samples", "is_stdio", "write_csv_block"),
-    "._klt": ("TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt"),
+    ".transform.klt": ("TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt"),
     "._profile": ("ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id",
                   "read_toml", "save_profile", "StreamNote", "load_stream_note"),
     "._progress": ("Progress",),
-    "._report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit"),
+    ".report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit"),
     "._status": ("CONCEALED", "DELIVERED", "FIRST_FREE_STATUS", "GAP", "LOST", "STATUS_CODES",
                  "STATUS_NAMES"),
-    "._stream": ("Located", "locate_frames"),
-    "._streaming": ("MAX_FILL_WINDOWS", "StreamDecoder", "StreamEncoder", "max_frame_bytes"),
-    "._stuffing": ("Unstuffer", "stuff"),
+    ".stream.search": ("Located", "locate_frames"),
+    ".stream.live": ("MAX_FILL_WINDOWS", "StreamDecoder", "StreamEncoder", "max_frame_bytes"),
+    ".stream.stuffing": ("Unstuffer", "stuff"),
 }
 _MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 

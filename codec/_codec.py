@@ -13,14 +13,13 @@ from functools import partial
 
 import numpy as np
 
-from ._bases import Basis, basis_fingerprint
-from ._bits import MAX_FIELD_BITS
-from ._entropy import exp_golomb_bits, zigzag
 from ._errors import FrameError, InputError, ProfileError
-from ._framing import merge_frames, split_frames
-from ._gaps import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
-from ._klt import profile_basis
-from ._layout import (
+from ._profile import Profile, profile_digest, profile_id
+from .entropy.bits import MAX_FIELD_BITS
+from .entropy.rangecoder import coefficient_cost_bits
+from .entropy.rice import exp_golomb_bits, zigzag
+from .layouts.gapmask import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
+from .layouts.v1v2 import (
     GAP_KIND,
     LAYOUT_VERSION,
     LAYOUT_VERSION_2,
@@ -41,18 +40,14 @@ from ._layout import (
     parse_payloads,
     payload_bits_v2,
 )
-from ._layout_v3 import (
+from .layouts.v3v4 import (
     LAYOUT_VERSION_3,
     LAYOUT_VERSION_4,
     FrameBatchV3,
     pack_frames_v3,
     parse_frames_v3,
 )
-from ._profile import Profile, profile_digest, profile_id
-from ._quantize import code_for_step, step_from_code
-from ._range import coefficient_cost_bits
-from ._report import scope_figures, stream_report
-from ._select import (
+from .quantize.select import (
     _MARGIN,
     block_budgets,
     block_sums,
@@ -64,8 +59,13 @@ from ._select import (
     frame_budgets,
     reference_energy,
 )
-from ._stream import DELIVERED, locate_frames
-from ._trellis import dequantize_levels
+from .quantize.steps import code_for_step, step_from_code
+from .quantize.trellis import dequantize_levels
+from .report import scope_figures, stream_report
+from .stream.search import DELIVERED, locate_frames
+from .transform.bases import Basis, basis_fingerprint
+from .transform.framing import merge_frames, split_frames
+from .transform.klt import profile_basis
 
 __all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
            "check_some_frame", "frame_key",
@@ -93,7 +93,7 @@ class EncodeResult:
         frame on the wire): ``block_budget``, ``block_reference_energy``,
         ``block_error_energy``, ``block_fidelity``, ``block_met``, ``block_floor``.
     report : dict
-        The JSON report (see :func:`codec._report.stream_report`).
+        The JSON report (see :func:`codec.report.stream_report`).
     """
 
     data: bytes
@@ -117,7 +117,7 @@ class DecodeResult:
     frames: dict
     crc_failures: list[int] = field(default_factory=list)
     skipped_bytes: int = 0
-    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec._stream``).
+    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec.stream.search``).
     status: np.ndarray | None = None
     #: What happened to frames that did not make it (capped list of dicts).
     events: list = field(default_factory=list)
@@ -203,7 +203,7 @@ def frame_key(profile: Profile, basis: Basis | None = None) -> FrameKey:
     takes this key; frames made under another profile fail their CRC.
     """
     if basis is None:
-        from ._klt import profile_basis as _pb
+        from .transform.klt import profile_basis as _pb
 
         basis = _pb(profile)
     return _key_of(profile_digest(profile, _fingerprint(basis)))
@@ -214,7 +214,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
 
     The target is checked on the reconstruction the decoder will produce, and
     any frame that misses it is re-quantized with a finer step until it holds.
-    ``gaps`` is the policy for NaN samples (``codec._gaps``: refuse, fill,
+    ``gaps`` is the policy for NaN samples (``codec.layouts.gapmask``: refuse, fill,
     mark); ``first_window`` numbers the first time window (the streaming
     encoder codes a live stream block by block).
     """
@@ -419,7 +419,7 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
 def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_gap: np.ndarray,
                     channel: np.ndarray, sequence: np.ndarray, valid: np.ndarray, pid: int,
                     n: int, key: FrameKey) -> tuple[bytes, np.ndarray, int]:
-    """Wrap every data frame holding a gap in a gap-mask frame (``codec._gaps``).
+    """Wrap every data frame holding a gap in a gap-mask frame (``codec.layouts.gapmask``).
 
     ``row_frame`` maps each row (one window of one channel) to its data frame
     (several rows share a multi-channel frame).  A window whose rows are all
@@ -454,7 +454,7 @@ def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_g
 
 def _resign(frame: bytes, key: FrameKey) -> bytes:
     """``frame`` with its CRC recomputed under ``key``."""
-    from ._crc import crc16_ibm3740
+    from .layouts.crc import crc16_ibm3740
 
     crc = crc16_ibm3740(key.prefix(len(frame)) + frame[len(SYNC) : -2])
     return frame[:-2] + crc.to_bytes(2, "big")
@@ -462,7 +462,7 @@ def _resign(frame: bytes, key: FrameKey) -> bytes:
 
 def _v1_term_bits(batch: FrameBatch, n: int) -> int:
     """Bits of the v1 payload that carry terms and the mean (the rest is header)."""
-    from ._bits import signed_width
+    from .entropy.bits import signed_width
 
     terms = batch.terms.astype(np.int64)
     vw = np.zeros(terms.size, np.int64)
@@ -735,7 +735,7 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
     and the length field equal to the length the fields imply, all before any
     payload field is read; v2 coefficient counts <= N and the coded contents
     filling the frame exactly (checked by the v2 parser); gap masks by
-    :func:`codec._gaps.parse_gap_frame`.
+    :func:`codec.layouts.gapmask.parse_gap_frame`.
     """
     n = profile.frame_length
     channels = len(profile.channels)
@@ -914,14 +914,14 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
            ) -> DecodeResult:
     """Decode a whole stream made under ``profile`` (bound: one channel spec per column).
 
-    The same machine as the streaming decoder (:class:`codec._streaming.StreamDecoder`)
+    The same machine as the streaming decoder (:class:`codec.stream.live.StreamDecoder`)
     fed the whole stream at once, so both give identical results.  Frames whose
     CRC fails never reach the output; foreign, damaged, duplicated or late
     frames become events in the result, not errors.  ``samples`` (the stream
     note's count) fixes the output length; without it the stream runs to the
     last frame received, and ``end_known`` says whether that end is certain;
     then a sequence jump adds at most ``max_fill`` lost windows (default
-    ``codec._streaming.MAX_FILL_WINDOWS``) and the rest is a ``discontinuity``
+    ``codec.stream.live.MAX_FILL_WINDOWS``) and the rest is a ``discontinuity``
     event.
 
     Raises :class:`ProfileError` when the profile lists no channels and, when
@@ -929,7 +929,7 @@ def decode(data: bytes, profile: Profile, samples: int | None = None,
     why: no frame at all, or frames of another profile).  With ``strict``
     False such a stream gives an all-lost result and its counts.
     """
-    from ._streaming import StreamDecoder  # the streaming module builds on this one
+    from .stream.live import StreamDecoder  # the streaming module builds on this one
 
     dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True,
                         max_fill=max_fill)

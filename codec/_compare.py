@@ -24,14 +24,14 @@ from pathlib import Path
 
 import numpy as np
 
-from ._bases import as_basis, basis_names
 from ._codec import as_samples, decode, encode
 from ._errors import InputError
-from ._framing import split_frames
-from ._klt import TrainedBasis, save_trained_basis, train_klt
 from ._profile import Profile
-from ._report import error_figures
-from ._select import check_blocks
+from .quantize.select import check_blocks
+from .report import error_figures
+from .transform.bases import as_basis, basis_names
+from .transform.framing import split_frames
+from .transform.klt import TrainedBasis, save_trained_basis, train_klt
 
 __all__ = ["Comparison", "compare_bases", "energy_compaction", "resolve_bases", "ROW_KEYS"]
 

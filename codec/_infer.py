@@ -18,9 +18,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._bases import as_basis, basis_names
 from ._errors import InputError
 from ._profile import ChannelSpec, Profile
+from .transform.bases import as_basis, basis_names
 
 __all__ = ["Quantum", "find_quantum", "ChannelInference", "Inference", "infer_profile",
            "profile_text", "RANGE_MARGIN", "FRAME_LENGTHS", "SEARCH_BASES"]

@@ -15,10 +15,10 @@ from pathlib import Path
 
 import numpy as np
 
-from ._bases import as_basis
 from ._compare import Comparison, energy_compaction
-from ._framing import split_frames
 from ._io import atomic_output
+from .transform.bases import as_basis
+from .transform.framing import split_frames
 
 __all__ = ["plot_comparison", "chosen_frame", "series_styles", "MAX_SERIES"]
 

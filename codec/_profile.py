@@ -23,9 +23,9 @@ from pydantic import (
     model_validator,
 )
 
-from ._bases import MAX_FRAME_LENGTH, as_basis, basis_fingerprint, basis_names
 from ._errors import InputError, ProfileError
 from ._toml import MAX_TOML_BYTES, MAX_TOML_DEPTH, loads_toml, read_toml, toml_depth
+from .transform.bases import MAX_FRAME_LENGTH, as_basis, basis_fingerprint, basis_names
 
 __all__ = [
     "ChannelSpec",
@@ -229,7 +229,7 @@ def profile_digest(profile: Profile, fingerprint: str) -> bytes:
 
     SHA-256 of the canonical form :func:`profile_id` hashes (the same settings
     left out) followed by the basis fingerprint
-    (:func:`codec._bases.basis_fingerprint` of the matrix the profile builds),
+    (:func:`codec.transform.bases.basis_fingerprint` of the matrix the profile builds),
     so two ends whose bases differ by more than rounding get different
     digests.  Frames carry it implicitly in their CRC (``FRAME_LAYOUT.md``,
     "Profile check"), never on the wire.

@@ -9,7 +9,7 @@ from crcref import crc16_ibm3740_ref
 from realdata import basic_motions
 
 import codec
-from codec._stream import locate_frames
+from codec.stream.search import locate_frames
 
 __all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting", "EXAMPLE_DIGEST",
            "keyed_crc", "with_crc", "digest_of"]

@@ -17,7 +17,7 @@ from streams import digest_of, keyed_crc
 
 import codec
 import link_sim._simulate as sim
-from codec._stream import locate_frames
+from codec.stream.search import locate_frames
 from link_sim import ChannelConfig, receive
 from link_sim._receiver import CONCEALED, DELIVERED, LOST
 

@@ -23,30 +23,30 @@ ROOT = Path(__file__).resolve().parent.parent
 ALLOWED_PRIVATE = {
     # Forges frames around the envelope parser: it needs the raw extent rule that
     # the frame search uses, before any CRC check (not a user's operation).
-    ("tools/fuzz_decode.py", "codec._layout"),
+    ("tools/fuzz_decode.py", "codec.layouts.v1v2"),
     # Fits the range coder's probability tables: it runs term selection and the
     # trellis stage by stage and reads the coder's model parameters.
-    ("tools/fit_range_model.py", "codec._range"),
+    ("tools/fit_range_model.py", "codec.entropy.rangecoder"),
     # (as_basis is public now; this file was off limits in the change that exported it)
-    ("tools/fit_range_model.py", "codec._bases"),
-    ("tools/fit_range_model.py", "codec._select"),
-    ("tools/fit_range_model.py", "codec._trellis"),
+    ("tools/fit_range_model.py", "codec.transform.bases"),
+    ("tools/fit_range_model.py", "codec.quantize.select"),
+    ("tools/fit_range_model.py", "codec.quantize.trellis"),
     # Measures where the coefficient coder's bits go: the selection stage and the
     # coder's ideal code lengths, each on its own.
-    ("tools/rate_losses.py", "codec._range"),
-    ("tools/rate_losses.py", "codec._select"),
+    ("tools/rate_losses.py", "codec.entropy.rangecoder"),
+    ("tools/rate_losses.py", "codec.quantize.select"),
     # Splits the bits of real recordings by coder stage (Exp-Golomb vs range
     # model costs of parsed layout-3 frames) and draws profiles as `init` does.
     ("tools/bench_real.py", "codec._infer"),
-    ("tools/bench_real.py", "codec._entropy"),
-    ("tools/bench_real.py", "codec._layout_v3"),
-    ("tools/bench_real.py", "codec._range"),
+    ("tools/bench_real.py", "codec.entropy.rice"),
+    ("tools/bench_real.py", "codec.layouts.v3v4"),
+    ("tools/bench_real.py", "codec.entropy.rangecoder"),
     # (locate_frames is public now; this file was off limits in the change that exported it)
-    ("tools/bench_real.py", "codec._stream"),
+    ("tools/bench_real.py", "codec.stream.search"),
 }
 
 #: Module-level import cycles that exist today, each as the sorted tuple of its
-#: modules.  None: ``codec._codec`` and ``codec._streaming`` do import each other,
+#: modules.  None: ``codec._codec`` and ``codec.stream.live`` do import each other,
 #: but ``_codec.decode`` imports ``StreamDecoder`` inside the function, so the
 #: cycle never runs at import time and this graph (module level only) leaves it
 #: out; issue 14 item 2 removes it.
@@ -116,42 +116,51 @@ def _imported(node: ast.Import | ast.ImportFrom, module: str, is_package: bool) 
     return [pkg] + [f"{pkg}.{a.name}" for a in node.names if a.name != "*"]
 
 
+#: The modules of a package that other packages may import: the package itself
+#: (its ``__all__``), and the command-line helpers shared by commands of both packages.
+PUBLIC_MODULES = {"codec", "codec.cli", "codec.cli.common", "link_sim"}
+
+
 def private_imports(source: str, home: str | None) -> list[str]:
-    """Every import in ``source`` (all of it, deferred ones too) of an underscore
-    module or name of a package other than ``home``, e.g. ``codec._stream``."""
+    """Every import in ``source`` (all of it, deferred ones too) of a module of a
+    package other than ``home`` that is not one of ``PUBLIC_MODULES`` (e.g.
+    ``codec.stream.search``), or of an underscore name from a public one."""
     bad = []
     for node in ast.walk(ast.parse(source)):
         if not isinstance(node, ast.Import | ast.ImportFrom) or getattr(node, "level", 0):
             continue  # relative imports stay inside their own package
-        for name in _imported(node, "", False):
-            parts = name.split(".")
-            if parts[0] not in PACKAGES or parts[0] == home:
+        if isinstance(node, ast.Import):
+            pairs = [(a.name, None) for a in node.names]
+        else:
+            pairs = [(node.module or "", a.name) for a in node.names]
+        for module, name in pairs:
+            if module.split(".")[0] not in PACKAGES or module.split(".")[0] == home:
                 continue
-            if any(p.startswith("_") and p not in ("__init__", "__main__") for p in parts[1:]):
-                bad.append(name)
-    return bad
+            if module not in PUBLIC_MODULES:
+                bad.append(module)
+            elif name and name.startswith("_"):
+                bad.append(f"{module}.{name}")
+    return list(dict.fromkeys(bad))
 
 
 def _scan_private(folder: str) -> set[tuple[str, str]]:
     found = set()
     for path in _py_files(folder):
         home = folder if folder in PACKAGES else None
-        for name in private_imports(path.read_text(encoding="utf-8"), home):
-            # report the module (``codec._x``), not the name imported from it
-            parts = name.split(".")
-            cut = next(i for i, p in enumerate(parts) if i and p.startswith("_"))
-            found.add((str(path.relative_to(ROOT)), ".".join(parts[: cut + 1])))
+        for module in private_imports(path.read_text(encoding="utf-8"), home):
+            found.add((str(path.relative_to(ROOT)), module))
     return found
 
 
 def test_scanner_flags_private_imports_of_another_package():
-    src = ("import codec\nfrom codec import encode\nfrom codec._stream import locate_frames\n"
+    src = ("import codec\nfrom codec import encode\nfrom codec.stream.search import locate_frames\n"
            "from codec.cli import common\nimport codec.cli._codec_cmds\n"
            "from codec import _range as R\nfrom . import _fec\nfrom link_sim._fec import x\n"
+           "from codec.layouts import v1v2\n"
            "def f():\n    from codec._io import is_stdio\n")
     assert private_imports(src, "link_sim") == [
-        "codec._stream", "codec._stream.locate_frames", "codec.cli._codec_cmds",
-        "codec._range", "codec._io", "codec._io.is_stdio"]
+        "codec.stream.search", "codec.cli._codec_cmds", "codec._range", "codec.layouts",
+        "codec._io"]
     assert "link_sim._fec" in private_imports(src, None)
 
 
@@ -271,7 +280,7 @@ def test_public_api_examples_run():
     # vanishes fails here.
     import doctest
 
-    import codec._stream
+    import codec.stream.search
 
-    result = doctest.testmod(codec._stream)
+    result = doctest.testmod(codec.stream.search)
     assert result.attempted >= 5 and result.failed == 0, result

@@ -7,7 +7,7 @@ import zstandard
 
 import codec
 from codec import FrameError, InputError, Profile
-from codec._batch import make_pack, open_pack, pack_report, train_dictionary
+from codec.stream.packs import make_pack, open_pack, pack_report, train_dictionary
 
 
 def _stream(seed, samples=4000, profile=None):

@@ -11,8 +11,8 @@ from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
 from verify import budget_blocks, check_report
 
 import codec
-from codec._stream import locate_frames
 from codec.cli import main
+from codec.stream.search import locate_frames
 
 
 def _csv(path, header, rows):

@@ -13,8 +13,8 @@ import pytest
 from cobs import cobs
 
 from codec._profile import load_stream_note, note_path
-from codec._stream import locate_frames
 from codec.cli import _SUMMARIES, build_parser, main
+from codec.stream.search import locate_frames
 
 
 @pytest.fixture

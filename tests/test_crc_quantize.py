@@ -6,7 +6,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from codec import crc16_ibm3740, crc32_iso_hdlc
-from codec._quantize import code_for_step, step_from_code
+from codec.quantize.steps import code_for_step, step_from_code
 
 
 def test_crc_check_values():

@@ -5,8 +5,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from codec._bits import pack_fields
-from codec._entropy import (
+from codec.entropy.bits import pack_fields
+from codec.entropy.rice import (
     ESCAPE_BITS,
     RICE_ESCAPE,
     BitReader,

@@ -13,9 +13,9 @@ from realdata import basic_motions
 from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
 
 import codec
-from codec._gaps import fill_gaps, pack_gap_frame, parse_gap_frame
-from codec._layout import FrameKey
-from codec._stream import locate_frames
+from codec.layouts.gapmask import fill_gaps, pack_gap_frame, parse_gap_frame
+from codec.layouts.v1v2 import FrameKey
+from codec.stream.search import locate_frames
 
 
 def _with_gaps(x: np.ndarray) -> np.ndarray:
@@ -114,7 +114,7 @@ def test_gap_frame_layout_by_hand():
     inner = b"\xe3\x5a\x10"
     got = pack_gap_frame(profile=0xBEEF, sequence=70000, valid=8, masks=[(2, mask)],
                          inner=inner, n=8, key=FrameKey(EXAMPLE_DIGEST))
-    # Reference built field by field with bitstring from the table in codec/_gaps.py:
+    # Reference built field by field with bitstring from the table in codec/layouts/gapmask.py:
     # kind 15, flags 0, length, profile, sequence, valid, masks 1, reserved 0; then
     # channel 2, runs 2, (start, count - 1) = (1, 1), (6, 0); zero padding; inner; CRC.
     mask_bits = 8 + 13 + 4 * 3

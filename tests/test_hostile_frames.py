@@ -23,8 +23,8 @@ from realdata import basic_motions
 from streams import assert_accounting, crc_ok_reference, digest_of, frames_of, with_crc
 
 import codec
-from codec._layout import HEADER_FIELDS, SYNC
 from codec.cli import main
+from codec.layouts.v1v2 import HEADER_FIELDS, SYNC
 
 
 def _bits(*fields: tuple[int, int]) -> str:
@@ -164,8 +164,8 @@ def test_profiles_differing_only_in_basis_are_told_apart():
     # Same canonical profile, so the same 16-bit identifier; the basis fingerprint in the
     # digest separates them (a trained basis that differs; here two built-in bases whose
     # header codes are equal cannot exist, so the digest is checked directly).
-    from codec._bases import basis_fingerprint
     from codec._profile import profile_digest
+    from codec.transform.bases import basis_fingerprint
 
     p = codec.Profile(frame_length=32).bind(["a"])
     m = codec.as_basis("dct", 32).matrix
@@ -234,7 +234,7 @@ def test_sequence_jump_with_unknown_end_adds_at_most_the_fill(fill):
     spans = frames_of(enc.data, enc.profile)
     jump = _forge_v1(enc.data[: spans[0][1]], digest_of(prof), sequence=32000)
     data = enc.data + jump
-    limit = codec._streaming.MAX_FILL_WINDOWS if fill is None else fill
+    limit = codec.stream.live.MAX_FILL_WINDOWS if fill is None else fill
     dec = codec.decode(data, prof, strict=False, max_fill=fill)
     # 10 windows, at most `limit` lost ones, then the jumped frame's window
     assert dec.status.shape[0] == 32 * (10 + limit + 1)

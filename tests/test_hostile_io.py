@@ -22,11 +22,11 @@ import pytest
 from realdata import basic_motions
 
 import codec
-from codec._batch import make_pack, open_pack
-from codec._klt import load_trained_basis, save_trained_basis, train_klt
 from codec._profile import MAX_TOML_DEPTH, read_toml, toml_depth
-from codec._select import MAX_MAGNITUDE
 from codec.cli import main
+from codec.quantize.select import MAX_MAGNITUDE
+from codec.stream.packs import make_pack, open_pack
+from codec.transform.klt import load_trained_basis, save_trained_basis, train_klt
 
 
 def _run(argv: list[str], capsys) -> tuple[int, str]:

@@ -12,8 +12,8 @@ from checks import assert_meets_target
 
 import codec
 from codec._compare import energy_compaction
-from codec._klt import KLT_CODE
 from codec.cli import main
+from codec.transform.klt import KLT_CODE
 
 
 def _ar1(rho: float, size: int, seed: int) -> np.ndarray:

@@ -5,7 +5,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from streams import EXAMPLE_DIGEST, keyed_crc
 
-from codec._layout import (
+from codec.layouts.v1v2 import (
     FrameBatch,
     FrameKey,
     pack_frame_reference,

@@ -9,7 +9,7 @@ from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
 
 import codec
 from codec import FrameError
-from codec._layout import (
+from codec.layouts.v1v2 import (
     FrameBatchV2,
     FrameKey,
     frame_crc_ok,
@@ -17,7 +17,7 @@ from codec._layout import (
     pack_frames_v2,
     parse_frames_v2,
 )
-from codec._stream import locate_frames
+from codec.stream.search import locate_frames
 
 
 def Profile(**kw):  # noqa: N802  (these tests are about layout 2, which is no longer the default)
@@ -225,7 +225,7 @@ def test_a_forged_copy_of_a_real_frame_is_accepted():
 @pytest.mark.parametrize("fidelity", [0.5, 0.95, 0.9999])
 def test_rate_estimate_is_the_packed_size(fidelity):
     # the encoder's rate-fidelity choice counts bits with payload_bits_v2; it must be exact
-    from codec._layout import payload_bits_v2
+    from codec.layouts.v1v2 import payload_bits_v2
 
     x = _signal(c=1)
     x[500] += 1e6  # a spike forces escapes

@@ -8,9 +8,9 @@ from realdata import basic_motions
 from streams import EXAMPLE_DIGEST, keyed_crc, with_crc
 
 import codec
-from codec._layout import FrameKey, frame_crc_ok, frame_extent
-from codec._layout_v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
-from codec._stream import locate_frames
+from codec.layouts.v1v2 import FrameKey, frame_crc_ok, frame_extent
+from codec.layouts.v3v4 import FrameBatchV3, pack_frames_v3, parse_frames_v3
+from codec.stream.search import locate_frames
 
 # FRAME_LAYOUT.md, "Version 3 worked example": N = 8, reference total, two
 # channels, profile id 0xABCD, window 5, channel 1 alone, one full window,

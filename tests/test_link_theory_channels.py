@@ -11,7 +11,7 @@ from scipy import stats
 from scipy.special import erfc
 
 import codec
-from codec._stream import locate_frames
+from codec.stream.search import locate_frames
 from link_sim import (
     ChannelConfig,
     GilbertElliott,

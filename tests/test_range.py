@@ -16,7 +16,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from codec import _range as R
+import codec.entropy.rangecoder as R
 
 TOP = 1 << 24
 

@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from streams import assert_accounting, real_stream
 
 import codec
-from codec._stream import FrameScanner, locate_frames
+from codec.stream.search import FrameScanner, locate_frames
 
 
 def _stream_decode(data: bytes, profile, cuts, samples=None, reorder=16):

@@ -8,7 +8,7 @@ from hypothesis import strategies as st
 from streams import frames_of, real_stream
 
 import codec
-from codec._stuffing import (
+from codec.stream.stuffing import (
     MAX_PACKET,
     Unstuffer,
     cobs_decode,

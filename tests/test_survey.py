@@ -102,7 +102,7 @@ def test_frame_search_survives_a_view_held_on_its_buffer():
     # be resized (CPython raises BufferError), so the scanner must not rely on that.
     from streams import real_stream
 
-    from codec._stream import FrameScanner, locate_frames
+    from codec.stream.search import FrameScanner, locate_frames
 
     _, enc = real_stream(600, 3)
     data = enc.data

@@ -12,9 +12,9 @@ from hypothesis import strategies as st
 from streams import EXAMPLE_DIGEST, with_crc
 
 import codec
-from codec._layout import FrameKey, frame_crc_ok, frame_extent
-from codec._layout_v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
-from codec._trellis import TRANSITIONS, dequantize_levels, quantizer_ids, trellis_quantize
+from codec.layouts.v1v2 import FrameKey, frame_crc_ok, frame_extent
+from codec.layouts.v3v4 import FrameBatchV3, pack_frames_v3, parse_frames_v3
+from codec.quantize.trellis import TRANSITIONS, dequantize_levels, quantizer_ids, trellis_quantize
 
 
 def test_state_machine_is_the_h266_one():
@@ -134,7 +134,7 @@ def test_v4_saves_bits_at_high_fidelity_and_uses_both_quantizers():
 
 
 def _frames(data):
-    from codec._stream import locate_frames
+    from codec.stream.search import locate_frames
     found = locate_frames(data)  # our own clean stream: split as written
     return found.offsets, found.lengths
 
@@ -154,9 +154,9 @@ def test_step_search_from_the_scalar_hint_is_feasible_and_matches_a_full_search(
     # coefficients is that of the samples).  The trellis error is not monotone in the
     # step (a lone coefficient's error oscillates with it), so neither search is exact;
     # the hinted one must rarely end finer than a bisection over the whole code range.
-    from codec._bases import as_basis
-    from codec._quantize import step_from_code
-    from codec._select import choose_steps, frame_budgets, reference_energy
+    from codec.quantize.select import choose_steps, frame_budgets, reference_energy
+    from codec.quantize.steps import step_from_code
+    from codec.transform.bases import as_basis
 
     rng = np.random.default_rng(8)
     n = 64
@@ -225,7 +225,7 @@ def test_trim_tail_keeps_the_path_and_the_budget():
     # Dropping a row's last levels must leave the reconstruction of every earlier
     # coefficient as it was (the trellis state before them is unchanged) and keep the
     # error energy within the limit; the error it reports is the true one (Parseval).
-    from codec._trellis import trim_tail
+    from codec.quantize.trellis import trim_tail
     rng = np.random.default_rng(13)
     c = rng.standard_normal((300, 32)) * np.linspace(20, 0.5, 32)
     step = np.full(300, 0.7)

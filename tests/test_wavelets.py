@@ -10,7 +10,7 @@ import pywt
 from checks import assert_meets_target
 
 import codec
-from codec._wavelets import WAVELET_CODES, wavelet_depth, wavelet_matrix
+from codec.transform.wavelets import WAVELET_CODES, wavelet_depth, wavelet_matrix
 
 NAMES = list(WAVELET_CODES)
 

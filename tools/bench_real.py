@@ -175,10 +175,10 @@ def bit_split(enc) -> dict:
     range coder's ideal code length of the coefficients, ``frame`` the rest
     (sync marker, frame header, padding, CRC, the range coder's last bytes).
     """
-    from codec._entropy import exp_golomb_bits, zigzag
-    from codec._layout_v3 import parse_frames_v3
-    from codec._range import coefficient_cost_bits
-    from codec._stream import locate_frames
+    from codec.entropy.rangecoder import coefficient_cost_bits
+    from codec.entropy.rice import exp_golomb_bits, zigzag
+    from codec.layouts.v3v4 import parse_frames_v3
+    from codec.stream.search import locate_frames
 
     p = enc.profile
     loc = locate_frames(enc.data)

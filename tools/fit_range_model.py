@@ -1,4 +1,4 @@
-"""Measure the coefficient model of layout v3 (the tables of ``codec/_range.py``).
+"""Measure the coefficient model of layout v3 (the tables of ``codec/entropy/rangecoder.py``).
 
 Codes Gaussian AR(1) sources (rho 0.9, 0.95, 0.99; F 0.9, 0.95, 0.99, 0.999;
 N = 64 and 256; 400 000 samples each, seeds 99-101, which the rate benchmark
@@ -27,10 +27,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from bench_rate import ar1_source  # noqa: E402
 
-from codec import _range as R  # noqa: E402
-from codec._bases import as_basis  # noqa: E402
-from codec._select import choose_steps, code_frame, frame_budgets, reference_energy  # noqa: E402
-from codec._trellis import quantizer_ids  # noqa: E402
+import codec.entropy.rangecoder as R  # noqa: E402
+from codec.quantize.select import choose_steps, code_frame, frame_budgets, reference_energy  # noqa: E402
+from codec.quantize.trellis import quantizer_ids  # noqa: E402
+from codec.transform.bases import as_basis  # noqa: E402
 
 MIN_SAMPLES = 400
 

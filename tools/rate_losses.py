@@ -36,9 +36,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from bench_rate import ar1_source  # noqa: E402
 from fit_range_model import MIN_SAMPLES, _params  # noqa: E402
 
-from codec import _range as R  # noqa: E402
+import codec.entropy.rangecoder as R  # noqa: E402
 from codec import as_basis  # noqa: E402
-from codec._select import choose_steps, code_frame, frame_budgets, reference_energy  # noqa: E402
+from codec.quantize.select import choose_steps, code_frame, frame_budgets, reference_energy  # noqa: E402
 
 N = 256
 WINDOWS = 8

@@ -10,11 +10,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .._bases import basis_names
 from .._codec import check_some_frame, decode, decode_frames, encode, frame_key
 from .._errors import FrameError, InputError
-from .._framing import split_frames
-from .._gaps import GAP_POLICIES
 from .._io import (
     CsvBlockReader,
     SampleTable,
@@ -26,8 +23,6 @@ from .._io import (
     write_csv_block,
     write_samples,
 )
-from .._klt import profile_basis
-from .._layout import GAP_KIND
 from .._profile import (
     Profile,
     StreamNote,
@@ -39,13 +34,18 @@ from .._profile import (
     save_stream_note,
 )
 from .._progress import busy
-from .._quantize import step_from_code
-from .._report import channel_table, error_figures, pooled_label, units_of, with_unit
-from .._select import check_blocks, check_magnitude
-from .._stream import STATUS_NAMES, locate_frames
-from .._streaming import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
-from .._stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from .._timecol import describe_time, time_fields, time_values
+from ..layouts.gapmask import GAP_POLICIES
+from ..layouts.v1v2 import GAP_KIND
+from ..quantize.select import check_blocks, check_magnitude
+from ..quantize.steps import step_from_code
+from ..report import channel_table, error_figures, pooled_label, units_of, with_unit
+from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
+from ..stream.search import STATUS_NAMES, locate_frames
+from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
+from ..transform.bases import basis_names
+from ..transform.framing import split_frames
+from ..transform.klt import profile_basis
 from .common import (
     add_profile_options,
     check_paths,
@@ -624,7 +624,7 @@ def _roundtrip(args) -> int:
 
 def _basis_code(name: str) -> int | None:
     """The header code of a registered basis (None for one that cannot be built alone)."""
-    from .._bases import _kinds
+    from ..transform.bases import _kinds
 
     kind = _kinds().get(name)
     return None if kind is None else kind.code

@@ -19,7 +19,17 @@ import hashlib
 import sys
 from pathlib import Path
 
-from .._batch import (
+from .._errors import CoefwireError, FrameError, InputError
+from .._io import atomic_output
+from .._profile import (
+    Profile,
+    StreamNote,
+    check_note_fits,
+    load_stream_note,
+    note_path,
+    profile_id,
+)
+from ..stream.packs import (
     PACK_LEVEL,
     dictionary_id,
     dictionary_note,
@@ -32,17 +42,7 @@ from .._batch import (
     save_dictionary_note,
     train_dictionary,
 )
-from .._errors import CoefwireError, FrameError, InputError
-from .._io import atomic_output
-from .._profile import (
-    Profile,
-    StreamNote,
-    check_note_fits,
-    load_stream_note,
-    note_path,
-    profile_id,
-)
-from .._stream import locate_frames
+from ..stream.search import locate_frames
 from .common import check_paths, json_text
 
 __all__ = ["register", "DEFAULT_CAP_BYTES"]

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from .._errors import InputError
 from .._io import read_samples
-from .._klt import note_toml, save_trained_basis, train_klt
+from ..transform.klt import note_toml, save_trained_basis, train_klt
 from .common import check_distinct
 
 __all__ = ["register"]

@@ -32,9 +32,9 @@ import tomli_w
 import zstandard
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from ._errors import FrameError, InputError, ProfileError
-from ._profile import read_toml
-from ._stream import locate_frames
+from .._errors import FrameError, InputError, ProfileError
+from .._profile import read_toml
+from .search import locate_frames
 
 __all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LEVEL",
            "dictionary_id", "pack_dictionary_id", "DictionaryNote", "dictionary_note",

@@ -8,12 +8,12 @@ equal those of :func:`codec.encode` on the whole input (with the ``fill`` gap
 policy interpolation only sees the samples of the current block; see below).
 
 :class:`StreamDecoder` takes bytes in chunks of any size and returns decoded
-sample blocks with a status per sample (``codec._stream`` codes), plus events
+sample blocks with a status per sample (``codec.stream.search`` codes), plus events
 for everything that did not make it.  It holds one frame's bytes
-(:class:`codec._stream.FrameScanner`), the windows within the reorder depth,
+(:class:`codec.stream.search.FrameScanner`), the windows within the reorder depth,
 and a capped event list, whatever the input length.  Windows are released in
 order once no frame can still land in them (the duplicate / out-of-order
-policy of :class:`codec._stream.SequenceTracker`); the decision is made frame
+policy of :class:`codec.stream.search.SequenceTracker`); the decision is made frame
 by frame, so any chunking of the input gives the same output.
 
 End of stream: with the stream note's sample count the end is known and every
@@ -28,11 +28,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._codec import _bind, decode_frames, encode, frame_key
-from ._errors import ProfileError
-from ._gaps import GAP_POLICIES
-from ._profile import Profile
-from ._stream import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
+from .._codec import _bind, decode_frames, encode, frame_key
+from .._errors import ProfileError
+from .._profile import Profile
+from ..layouts.gapmask import GAP_POLICIES
+from .search import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
 
 __all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "MAX_FILL_WINDOWS",
            "max_frame_bytes"]
@@ -95,7 +95,7 @@ class StreamDecoder:
                                "profile")
         if reorder < 0:
             raise ValueError("reorder must be >= 0")
-        from ._klt import profile_basis
+        from ..transform.klt import profile_basis
 
         self.profile = profile
         self.n = profile.frame_length
@@ -326,7 +326,7 @@ class StreamEncoder:
 
     Holds fewer than N samples per channel between calls (in frame scope, fewer
     than N x windows_per_frame: a frame's windows share one budget).  ``gaps`` is the gap
-    policy (``codec._gaps``); with ``fill`` the interpolation sees only the
+    policy (``codec.layouts.gapmask``); with ``fill`` the interpolation sees only the
     samples of the windows being coded, so a gap at a block edge is held flat.
     """
 
@@ -352,7 +352,7 @@ class StreamEncoder:
         if block.ndim == 1:
             block = block[:, None]
         if block.shape[1] != self._pending.shape[1]:
-            from ._errors import InputError
+            from .._errors import InputError
 
             raise InputError(f"a block has {block.shape[1]} channels, the stream "
                              f"{self._pending.shape[1]}")

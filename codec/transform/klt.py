@@ -49,11 +49,11 @@ import numpy as np
 import tomli_w
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from ._bases import MAX_FRAME_LENGTH, Basis, as_basis, register_basis
-from ._errors import InputError, ProfileError
-from ._framing import split_frames
-from ._io import atomic_output
-from ._toml import loads_toml
+from .._errors import InputError, ProfileError
+from .._io import atomic_output
+from .._toml import loads_toml
+from .bases import MAX_FRAME_LENGTH, Basis, as_basis, register_basis
+from .framing import split_frames
 
 __all__ = [
     "KLT_CODE",

@@ -7,7 +7,7 @@ Three published codes of non-negative integers are here:
 * **Rice code** of parameter ``k`` (Rice 1979; the split-sample option of the
   CCSDS 121.0-B lossless data compression standard): the Golomb code with
   ``m = 2**k``, i.e. ``v >> k`` zeros, a 1, then the ``k`` low bits of ``v``.
-  As one field of :func:`codec._bits.pack_fields` that is an item of width
+  As one field of :func:`codec.entropy.bits.pack_fields` that is an item of width
   ``q + 1 + k`` and value ``(1 << k) | (v & (2**k - 1))``.
 * **Exponential-Golomb code** of order ``k`` (Teuhola 1978; the ue(v) code of
   ITU-T H.264 for k = 0): with ``w = v + 2**k``, ``bit_length(w) - 1 - k``
@@ -38,7 +38,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._bits import _bit_length as _bit_length_any
+from .bits import _bit_length as _bit_length_any
 
 __all__ = [
     "exp_golomb_bits",
@@ -281,7 +281,7 @@ class BitReader:
 
 
 def pack_bits(values: np.ndarray, widths: np.ndarray) -> np.ndarray:
-    """Same result as :func:`codec._bits.pack_fields`, working per field instead of per bit.
+    """Same result as :func:`codec.entropy.bits.pack_fields`, working per field instead of per bit.
 
     Each field (at most 64 bits) lands in one or two 64-bit words; fields never
     overlap, so the words are the bitwise OR of their parts, reduced with

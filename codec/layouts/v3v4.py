@@ -2,7 +2,7 @@
 
 Version 4 is version 3 bit for bit except the version field and one more
 subframe-header bit after the count: 1 when the subframe's integers are
-levels of dependent (trellis-coded) quantization (:mod:`codec._trellis`),
+levels of dependent (trellis-coded) quantization (:mod:`codec.quantize.trellis`),
 whose range-coder contexts also name the quantizer each level belongs to;
 0 for the scalar quantizer of version 3.
 
@@ -22,7 +22,7 @@ frame's last window is a short last window.  ``cb = bit_length(channels - 1)``.
 With ``mean_change`` (``count_change``) set, every subframe after a
 channel's first one in the frame sends its mean (count) as the exp-Golomb
 code of the zigzag change from that channel's previous window in the frame.
-The coefficients are one range-coded lane (:mod:`codec._range`) running from
+The coefficients are one range-coded lane (:mod:`codec.entropy.rangecoder`) running from
 the first byte after the padding to the CRC; bytes past its end read as zero.
 """
 
@@ -32,8 +32,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._entropy import BitReader, exp_golomb_bits, pack_bits, zigzag
-from ._layout import (
+from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
+from ..entropy.rice import BitReader, exp_golomb_bits, pack_bits, zigzag
+from .v1v2 import (
     CRC_BYTES,
     LONG_LENGTH_BITS,
     SHORT_LENGTH_BITS,
@@ -50,7 +51,6 @@ from ._layout import (
     write_frame_heads,
     write_subheaders,
 )
-from ._range import coefficient_ops, decode_coefficients, encode_lanes
 
 __all__ = [
     "LAYOUT_VERSION_3",
@@ -64,7 +64,7 @@ __all__ = [
 ]
 
 LAYOUT_VERSION_3 = 3
-#: Version 4: version 3 with levels of dependent quantization (``codec._trellis``).
+#: Version 4: version 3 with levels of dependent quantization (``codec.quantize.trellis``).
 LAYOUT_VERSION_4 = 4
 WINDOW_BITS = 4
 #: Most windows one frame carries.

@@ -27,9 +27,16 @@ from dataclasses import dataclass, field
 import bitstring
 import numpy as np
 
-from ._bits import MAX_FIELD_BITS, from_twos, pack_fields, read_fields, signed_width, to_twos
-from ._crc import crc16_ibm3740, crc16_prefix_states, crc16_span
-from ._entropy import exp_golomb_bits
+from ..entropy.bits import (
+    MAX_FIELD_BITS,
+    from_twos,
+    pack_fields,
+    read_fields,
+    signed_width,
+    to_twos,
+)
+from ..entropy.rice import exp_golomb_bits
+from .crc import crc16_ibm3740, crc16_prefix_states, crc16_span
 
 __all__ = [
     "LAYOUT_VERSION",
@@ -64,7 +71,7 @@ __all__ = [
 
 LAYOUT_VERSION = 1
 SYNC = b"\xe3\x5a"
-#: Version nibble of the gap-mask frame kind (layout in ``_gaps.py``), valid beside any version.
+#: Version nibble of the gap-mask frame kind (layout in ``gapmask.py``), valid beside any version.
 GAP_KIND = 15
 _GAP_MIN_BYTES = 14  # its fixed header (12 bytes with the sync marker) and CRC
 #: Appended to the profile digest for the key of a gap-mask frame's inner frame.
@@ -223,7 +230,7 @@ def frames_crc_ok(states: np.ndarray, u: np.ndarray, pos: np.ndarray, length: np
                   key: FrameKey) -> np.ndarray:
     """CRC verdicts of whole candidate frames at ``pos`` (each inside ``u``), whole-array.
 
-    ``states`` are :func:`codec._crc.crc16_prefix_states` of ``u``: each check
+    ``states`` are :func:`codec.layouts.crc.crc16_prefix_states` of ``u``: each check
     costs the same whatever the length the candidate claims.
     """
     end = pos + length
@@ -466,7 +473,7 @@ def rice_parameters(mag: np.ndarray, k_init: np.ndarray) -> tuple[np.ndarray, np
     LOCO-I rule on ``total``, the sum of the previous ``min(j, CONTEXT_WINDOW)``
     magnitudes.  Returns ``(k, total)`` (``total[:, 0]`` is -1: no context).
     """
-    from ._entropy import preceding_sums, rice_k_from_context
+    from ..entropy.rice import preceding_sums, rice_k_from_context
 
     nf, n = mag.shape
     total = preceding_sums(mag, CONTEXT_WINDOW)
@@ -506,7 +513,7 @@ def _coding_state(q: np.ndarray, k_init: np.ndarray, last: np.ndarray):
 
 def coefficient_bits(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> np.ndarray:
     """Bits of the coded coefficients of each subframe (what :func:`coefficient_items` packs)."""
-    from ._entropy import rice_escape_bits
+    from ..entropy.rice import rice_escape_bits
 
     ns = q.shape[0]
     mag, nz, k, inside, run = _coding_state(q, k_init, last)
@@ -534,7 +541,7 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
     the run codeword at a run's first index; the codeword (whole when it fits
     64 bits, else its unary part) and its remainder, at the index it codes.
     """
-    from ._entropy import rice_escape_fields
+    from ..entropy.rice import rice_escape_fields
 
     ns, n = q.shape
     mag, nz, k, inside, run = _coding_state(q, k_init, last)
@@ -560,7 +567,7 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
 
 def initial_parameter(mag0: np.ndarray) -> np.ndarray:
     """``k_init`` the encoder sends: the Rice parameter that codes coefficient 0 shortest."""
-    from ._entropy import bit_length as _bit_length
+    from ..entropy.rice import bit_length as _bit_length
 
     return np.clip(_bit_length(mag0) - 1, 0, (1 << K_INIT_BITS) - 1)
 
@@ -571,7 +578,7 @@ def payload_bits_v2(q: np.ndarray, mean_int: np.ndarray | None, n: int) -> np.nd
     Exact for a subframe that leads its frame; a later subframe of a
     multi-channel frame sends its step as a difference, usually in fewer bits.
     """
-    from ._entropy import zigzag
+    from ..entropy.rice import zigzag
 
     nz = q != 0
     last = np.where(nz.any(axis=1), n - np.argmax(nz[:, ::-1], axis=1), 0)
@@ -612,7 +619,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int, *, key: FrameKe
     Returns the bytes, each frame's byte length, each subframe's payload bits
     and, of those, its side-information bits (step, count, k_init).
     """
-    from ._entropy import pack_bits
+    from ..entropy.rice import pack_bits
 
     q = batch.q
     ns = q.shape[0]
@@ -737,7 +744,7 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
     count in ``lb`` bits; layout 4 adds a fifth slot, the quantizer bit
     (``quantizer``: 1 = dependent quantization).
     """
-    from ._entropy import bit_length, zigzag
+    from ..entropy.rice import bit_length, zigzag
 
     dz = zigzag(np.diff(step_code, prepend=0)) + 1
     val[:, col] = np.where(lead, step_code, dz)
@@ -771,7 +778,7 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     4's ``quantizer`` bit) at ``rows``; returns the bit positions after them
     and which frames hold an impossible value (refused by the decoder).
     """
-    from ._entropy import unzigzag
+    from ..entropy.rice import unzigzag
 
     bad = np.zeros(pp.size, dtype=bool)
     if s == 0:
@@ -835,7 +842,7 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     ``consumed_ok`` is False for a frame whose contents do not fill its length
     exactly (to the byte), which the decoder refuses.
     """
-    from ._entropy import BitReader
+    from ..entropy.rice import BitReader
 
     r = BitReader(data)
     nf = offsets.size
@@ -895,8 +902,8 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
     codeword of up to 57 bits; longer codewords and escapes take the general
     path.  Returns ``(q, end positions, malformed)``.
     """
-    from ._entropy import bit_length as _bit_length
-    from ._entropy import rice_k_from_context
+    from ..entropy.rice import bit_length as _bit_length
+    from ..entropy.rice import rice_k_from_context
 
     m = pos.size
     w1 = n + 1

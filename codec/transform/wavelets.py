@@ -31,7 +31,7 @@ import functools
 import numpy as np
 import pywt
 
-from ._bases import register_basis
+from .bases import register_basis
 
 __all__ = ["WAVELET_CODES", "wavelet_matrix", "wavelet_depth", "wavelet_check"]
 

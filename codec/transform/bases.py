@@ -32,7 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._errors import InputError
+from .._errors import InputError
 
 __all__ = [
     "Basis",
@@ -89,7 +89,7 @@ class _Kind:
 _KINDS: dict[str, _Kind] = {}
 #: Modules that register further bases when imported; loaded on the first look-up
 #: (not at ``import codec``), so starting the command line stays fast.
-_PLUGINS = ["._wavelets", "._klt"]
+_PLUGINS = [".wavelets", ".klt"]
 
 
 def _kinds() -> dict[str, _Kind]:

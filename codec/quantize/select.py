@@ -18,9 +18,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._errors import InputError
-from ._quantize import STEP_CODE_MAX, code_for_step, step_from_code
-from ._trellis import trellis_quantize, trim_tail
+from .._errors import InputError
+from .steps import STEP_CODE_MAX, code_for_step, step_from_code
+from .trellis import trellis_quantize, trim_tail
 
 __all__ = [
     "frame_budgets", "reference_energy", "choose_steps", "code_frame", "spend_slack",
@@ -120,8 +120,8 @@ def code_frame(
     the decoder is unaffected, it always reconstructs ``q * step``).
     ``trellis``: dependent quantization (layout 4; ``offset`` unused): ``q``
     are trellis levels, reconstructed by
-    :func:`codec._trellis.dequantize_levels`, and a ``budget`` is spent by
-    :func:`codec._trellis.trim_tail`.  With ``block`` (scalar codes only) the
+    :func:`codec.quantize.trellis.dequantize_levels`, and a ``budget`` is spent by
+    :func:`codec.quantize.trellis.trim_tail`.  With ``block`` (scalar codes only) the
     ``budget`` is one per budget block and is spent over each block's rows
     together (:func:`spend_block_slack`).
     """

@@ -34,10 +34,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._bits import pack_fields, read_fields
-from ._crc import crc16_ibm3740
-from ._errors import InputError
-from ._layout import GAP_KIND, SYNC, index_bits
+from .._errors import InputError
+from ..entropy.bits import pack_fields, read_fields
+from .crc import crc16_ibm3740
+from .v1v2 import GAP_KIND, SYNC, index_bits
 
 __all__ = [
     "GAP_POLICIES",
@@ -98,7 +98,7 @@ def pack_gap_frame(profile: int, sequence: int, valid: int,
     """One gap-mask frame: ``(channel, mask)`` pairs (True = missing) and the inner data frame.
 
     ``inner`` is the complete data frame of the same window (empty when every
-    sample of the window is a gap).  ``key`` (:class:`codec._layout.FrameKey`)
+    sample of the window is a gap).  ``key`` (:class:`codec.layouts.v1v2.FrameKey`)
     is the profile's share of the CRC.
     """
     ib = index_bits(n)

@@ -154,7 +154,7 @@ def detect_stuffing(head: bytes, key=None) -> str | None:
     yields more CRC-valid frames is the one used.  ``key`` is the profile's
     share of the CRC (:func:`codec.frame_key`); without it no CRC can be checked.
     """
-    from ._stream import locate_frames  # the frame search; imported late to keep this module light
+    from .search import locate_frames  # the frame search; imported late to keep this module light
 
     best, found = None, len(locate_frames(head, key).frames)
     for kind in STUFFINGS:

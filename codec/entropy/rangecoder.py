@@ -44,8 +44,8 @@ import math
 
 import numpy as np
 
-from ._entropy import preceding_sums
-from ._trellis import TRANSITIONS, quantizer_ids
+from ..quantize.trellis import TRANSITIONS, quantizer_ids
+from .rice import preceding_sums
 
 __all__ = [
     "TOTAL_BITS",
