@@ -14,12 +14,15 @@ import importlib
 # Every public name and the private module that defines it.
 _WHERE = {
     "._channels": ("GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott"),
-    "._fec": ("FEC_NAMES", "Convolutional", "ReedSolomon255", "make_code"),
+    "._fec": ("FEC_NAMES", "Convolutional", "NoCode", "ReedSolomon255", "fec_names", "make_code",
+               "register_fec", "unregister_fec"),
+    "._fec_base": ("Code", "DecodeStats"),
     "._receiver": ("CONCEAL_POLICIES", "conceal", "receive"),
     "._cli_budget": ("DEFAULT_FIDELITIES",),
     "._survey": ("SurveySettings", "expand_archive", "resolve_survey_bases"),
     "._survey_run": ("run_survey",),
-    "._simulate": ("CHANNEL_KINDS", "ChannelConfig", "ci95", "measured_ber_curve", "run_trial",
+    "._simulate": ("CHANNEL_KINDS", "ChannelConfig", "channel_kinds", "register_channel",
+                   "unregister_channel", "transmit_bits", "ci95", "measured_ber_curve", "run_trial",
                    "simulate", "sweep"),
     "._theory": ("ber_bpsk", "ber_qpsk_gray", "ber_rs_bounded_distance", "ber_theory",
                  "ebn0_for_ber_bpsk", "linear_to_db", "qfunc"),
@@ -28,9 +31,11 @@ _MODULE_OF = {name: mod for mod, names in _WHERE.items() for name in names}
 
 __all__ = [
     "GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott",
-    "FEC_NAMES", "Convolutional", "ReedSolomon255", "make_code",
+    "FEC_NAMES", "Convolutional", "NoCode", "ReedSolomon255", "fec_names", "make_code",
+    "register_fec", "unregister_fec", "Code", "DecodeStats",
     "CONCEAL_POLICIES", "conceal", "receive",
-    "CHANNEL_KINDS", "ChannelConfig", "ci95", "measured_ber_curve", "run_trial", "simulate",
+    "CHANNEL_KINDS", "ChannelConfig", "channel_kinds", "register_channel", "unregister_channel",
+    "transmit_bits", "ci95", "measured_ber_curve", "run_trial", "simulate",
     "sweep",
     "ber_bpsk", "ber_qpsk_gray", "ber_rs_bounded_distance", "ber_theory", "ebn0_for_ber_bpsk",
     "linear_to_db", "qfunc",

@@ -20,9 +20,9 @@ from codec import (
 from codec.cli.common import add_profile_options, fmt, resolve_profile, write_json
 
 from ._channels import MODULATIONS
-from ._fec import FEC_NAMES
+from ._fec import fec_names
 from ._receiver import CONCEAL_POLICIES
-from ._simulate import CHANNEL_KINDS, ChannelConfig, plot_sweep, simulate, zero_error_bound
+from ._simulate import ChannelConfig, channel_kinds, plot_sweep, simulate, zero_error_bound
 
 __all__ = ["register"]
 
@@ -38,13 +38,13 @@ def register(sub: argparse._SubParsersAction) -> None:
         "model and report what the receiver reconstructs (mean and 95 % interval over trials).")
     p.add_argument("input", metavar="INPUT")
     add_profile_options(p)
-    p.add_argument("--channel", choices=CHANNEL_KINDS, default="awgn")
+    p.add_argument("--channel", choices=channel_kinds(), default="awgn")
     p.add_argument("--ber", type=float, metavar="X",
                    help="bit error rate (bsc), or the good-state rate (burst; default 0)")
     p.add_argument("--ebn0", metavar="DB",
                    help="Eb/N0 per codec bit in dB for awgn, or a sweep START:STOP:STEP")
     p.add_argument("--modulation", choices=MODULATIONS, default="bpsk")
-    p.add_argument("--fec", choices=FEC_NAMES, default="none")
+    p.add_argument("--fec", choices=fec_names(), default="none")
     p.add_argument("--interleave", type=int, default=1, metavar="I",
                    help="RS(255,223) interleaving depth, 1-8 (default 1)")
     p.add_argument("--conceal", choices=CONCEAL_POLICIES, default="hold",

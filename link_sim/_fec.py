@@ -18,42 +18,15 @@ algorithm", IEEE Trans. IT-13, 1967.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Callable
 
 import numpy as np
 
-__all__ = ["FEC_NAMES", "Code", "NoCode", "Hamming74", "ReedSolomon255", "Convolutional",
-           "make_code", "GF_EXP", "GF_LOG", "rs_generator_roots"]
+from ._fec_base import Code, DecodeStats, as_u8
 
-FEC_NAMES = ("none", "hamming74", "rs255", "conv")
-
-
-@dataclass
-class DecodeStats:
-    """What a decoder saw: blocks decoded and blocks it could not correct."""
-
-    codewords: int = 0
-    codewords_failed: int = 0
-    extra: dict = field(default_factory=dict)
-
-
-class Code:
-    """Interface: ``encode(bytes) -> bits``, ``decode(received, n_bytes) -> (bytes, stats)``."""
-
-    name = "?"
-    soft = False  # whether decode wants matched-filter values instead of hard bits
-
-    def channel_bits(self, n_bytes: int) -> int:
-        raise NotImplementedError
-
-    @property
-    def rate(self) -> float:
-        """Information bits per channel bit of the code itself (no padding)."""
-        raise NotImplementedError
-
-
-def _as_u8(data) -> np.ndarray:
-    return np.frombuffer(bytes(data), np.uint8) if not isinstance(data, np.ndarray) else data
+__all__ = ["FEC_NAMES", "Code", "DecodeStats", "NoCode", "Hamming74", "ReedSolomon255",
+           "Convolutional", "make_code", "register_fec", "unregister_fec", "fec_names", "GF_EXP",
+           "GF_LOG", "rs_generator_roots"]
 
 
 class NoCode(Code):
@@ -66,7 +39,7 @@ class NoCode(Code):
         return 8 * n_bytes
 
     def encode(self, data) -> np.ndarray:
-        return np.unpackbits(_as_u8(data))
+        return np.unpackbits(as_u8(data))
 
     def decode(self, received: np.ndarray, n_bytes: int):
         return np.packbits(received[: 8 * n_bytes]), DecodeStats()
@@ -109,7 +82,7 @@ class Hamming74(Code):
         return fixed[:, _DATA_POS], pos > 0
 
     def encode(self, data) -> np.ndarray:
-        return self.encode_nibbles(np.unpackbits(_as_u8(data)).reshape(-1, 4)).ravel()
+        return self.encode_nibbles(np.unpackbits(as_u8(data)).reshape(-1, 4)).ravel()
 
     def decode(self, received: np.ndarray, n_bytes: int):
         words = received[: 14 * n_bytes].reshape(-1, 7)
@@ -345,7 +318,7 @@ class ReedSolomon255(Code):
         return words, failed
 
     def encode(self, data) -> np.ndarray:
-        data = _as_u8(data)
+        data = as_u8(data)
         nb, depth = self.blocks(data.size), self.depth
         buf = np.zeros(nb * self.k * depth, np.uint8)
         buf[: data.size] = data
@@ -466,7 +439,7 @@ class Convolutional(Code):
         return bits
 
     def encode(self, data) -> np.ndarray:
-        data = _as_u8(data)
+        data = as_u8(data)
         nb = self.blocks(data.size)
         buf = np.zeros(nb * self.block_bytes, np.uint8)
         buf[: data.size] = data
@@ -482,14 +455,60 @@ class Convolutional(Code):
         return np.packbits(u, axis=1).ravel()[:n_bytes], DecodeStats(nb, 0)
 
 
+#: The codes by name, each made from its interleaving depth.  A new code is one file
+#: (a :class:`Code` subclass, importing only ``link_sim._fec_base``) plus one line
+#: here, or one :func:`register_fec` call (DEVELOPERS.md, "Adding an FEC code").
+_FACTORIES: dict[str, Callable[[int], Code]] = {
+    "none": lambda interleave: NoCode(),
+    "hamming74": lambda interleave: Hamming74(),
+    "rs255": ReedSolomon255,
+    "conv": lambda interleave: Convolutional(),
+}
+
+#: The names of the built-in codes, in the order the command line lists them.
+FEC_NAMES = tuple(_FACTORIES)
+
+
+def register_fec(name: str, factory: Callable[[int], Code]) -> None:
+    """Offer a further FEC code to ``simulate``, ``budget`` and link files.
+
+    Parameters
+    ----------
+    name : str
+        The name users give (``--fec NAME``, ``fec = "NAME"``); must be new.
+    factory : callable
+        ``factory(interleave) -> Code``; codes without interleaving ignore it.
+
+    Examples
+    --------
+    >>> from link_sim import NoCode, fec_names, make_code, register_fec
+    >>> class Repeat3(NoCode):
+    ...     name, rate = "repeat3", 1 / 3
+    >>> register_fec("repeat3", lambda interleave: Repeat3())
+    >>> "repeat3" in fec_names(), make_code("repeat3").rate
+    (True, 0.3333333333333333)
+    >>> unregister_fec("repeat3")
+    """
+    if name in _FACTORIES:
+        raise ValueError(f"an FEC code called {name!r} is already registered")
+    _FACTORIES[name] = factory
+
+
+def unregister_fec(name: str) -> None:
+    """Withdraw a code added by :func:`register_fec` (the built-in ones stay)."""
+    if name in FEC_NAMES:
+        raise ValueError(f"the built-in FEC code {name!r} cannot be withdrawn")
+    _FACTORIES.pop(name, None)
+
+
+def fec_names() -> tuple[str, ...]:
+    """Every code name on offer: the built-in ones, then the registered ones."""
+    return tuple(_FACTORIES)
+
+
 def make_code(name: str, interleave: int = 1) -> Code:
-    """The code called ``name`` (one of :data:`FEC_NAMES`)."""
-    if name == "none":
-        return NoCode()
-    if name == "hamming74":
-        return Hamming74()
-    if name == "rs255":
-        return ReedSolomon255(interleave)
-    if name == "conv":
-        return Convolutional()
-    raise ValueError(f"unknown FEC {name!r}; use one of {FEC_NAMES}")
+    """The code called ``name`` (one of :func:`fec_names`)."""
+    factory = _FACTORIES.get(name)
+    if factory is None:
+        raise ValueError(f"unknown FEC {name!r}; use one of {', '.join(_FACTORIES)}")
+    return factory(interleave)

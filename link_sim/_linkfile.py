@@ -43,16 +43,16 @@ from pathlib import Path
 from typing import Annotated, Literal
 
 import annotated_types as at
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
 from codec import ProfileError, read_toml
 
 from ._channels import MODULATIONS
-from ._fec import FEC_NAMES
+from ._fec import fec_names
 from ._orbit import orbital_period_s
 
 __all__ = ["LinkFile", "OrbitSpec", "load_link", "link_from_dict", "SPEED_OF_LIGHT_M_S",
-           "MODULATIONS", "FEC_NAMES"]
+           "MODULATIONS"]
 
 #: Speed of light in vacuum, m/s (exact by definition of the metre, SI).
 SPEED_OF_LIGHT_M_S = 299_792_458.0
@@ -122,9 +122,17 @@ class LinkFile(BaseModel):
     packet_overhead_bits: float = Field(default=0.0, ge=0.0, le=1e6, allow_inf_nan=False)
     # The link simulator's own lists, so the budget offers exactly what it simulates.
     modulation: Literal[MODULATIONS] = "bpsk"
-    fec: Literal[FEC_NAMES] = "none"
+    fec: str = "none"  # one of link_sim.fec_names(), registered codes included
     target_ber: float = Field(default=1e-5, ge=1e-12, le=0.1, allow_inf_nan=False)
     required_margin_db: float = Field(default=3.0, ge=0.0, le=60.0, allow_inf_nan=False)
+
+    @field_validator("fec")
+    @classmethod
+    def _known_fec(cls, value: str) -> str:
+        if value not in fec_names():
+            names = ", ".join(repr(n) for n in fec_names())
+            raise ValueError(f"unknown FEC code {value!r}; use one of {names}")
+        return value
 
     @model_validator(mode="after")
     def _one_of_each(self) -> LinkFile:

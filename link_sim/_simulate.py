@@ -21,6 +21,7 @@ frames_dropped_crc + frames_erased``.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -35,11 +36,10 @@ from ._fec import make_code
 from ._receiver import CONCEALED, DELIVERED, LOST, receive
 from ._theory import ber_theory
 
-__all__ = ["ChannelConfig", "CHANNEL_KINDS", "transmit_bits", "run_trial", "simulate", "sweep",
+__all__ = ["ChannelConfig", "CHANNEL_KINDS", "channel_kinds", "register_channel",
+           "unregister_channel", "transmit_bits", "run_trial", "simulate", "sweep",
            "measured_ber_curve", "ci95", "zero_error_bound", "SweepSeries", "sweep_series",
            "sweep_figure", "plot_sweep"]
-
-CHANNEL_KINDS = ("bsc", "awgn", "burst", "erasure")
 
 
 @dataclass(frozen=True)
@@ -62,19 +62,74 @@ class ChannelConfig:
     loss_rate: float = 0.0
 
 
+#: How each channel acts on the bits on air: ``f(bits, cfg, rng, rate, soft)``; the
+#: functions themselves live in ``_channels.py``.  A new channel model is one function
+#: in its own file plus one line here or one :func:`register_channel` call
+#: (DEVELOPERS.md, "Adding a channel model").
+Transmit = Callable[[np.ndarray, "ChannelConfig", np.random.Generator, float, bool], np.ndarray]
+_CHANNELS: dict[str, Transmit] = {
+    "bsc": lambda bits, cfg, rng, rate, soft: bsc(bits, cfg.ber, rng),
+    "awgn": lambda bits, cfg, rng, rate, soft: awgn(bits, cfg.ebn0_db, rng, cfg.modulation,
+                                                    rate=rate, soft=soft),
+    "burst": lambda bits, cfg, rng, rate, soft: gilbert_elliott(
+        bits, GilbertElliott(cfg.burst_length_bits, cfg.bad_fraction, cfg.ber, cfg.ber_bad), rng),
+    # whole frames lost (cfg.loss_rate, applied to every channel), no bit errors
+    "erasure": lambda bits, cfg, rng, rate, soft: bits.copy(),
+}
+
+#: The names of the built-in channel models, in the order the command line lists them.
+CHANNEL_KINDS = tuple(_CHANNELS)
+
+
+def register_channel(name: str, transmit: Transmit) -> None:
+    """Offer a further channel model to ``simulate`` (``--channel NAME``).
+
+    Parameters
+    ----------
+    name : str
+        The new model's name.
+    transmit : callable
+        ``transmit(bits, cfg, rng, rate, soft) -> received``: ``bits`` are uint8 0/1,
+        ``cfg`` the :class:`ChannelConfig`, ``rng`` the trial's generator, ``rate`` the
+        FEC code rate (information bits per channel bit), ``soft`` whether the decoder
+        wants matched-filter values (float32, positive means 0) instead of hard bits.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from link_sim import ChannelConfig, channel_kinds, register_channel, transmit_bits
+    >>> register_channel("invert", lambda bits, cfg, rng, rate, soft: bits ^ 1)
+    >>> "invert" in channel_kinds()
+    True
+    >>> transmit_bits(np.array([0, 1, 1], np.uint8), ChannelConfig("invert"),
+    ...               np.random.default_rng(0), 1.0, False).tolist()
+    [1, 0, 0]
+    >>> unregister_channel("invert")
+    """
+    if name in _CHANNELS:
+        raise ValueError(f"a channel model called {name!r} is already registered")
+    _CHANNELS[name] = transmit
+
+
+def unregister_channel(name: str) -> None:
+    """Withdraw a model added by :func:`register_channel` (the built-in ones stay)."""
+    if name in CHANNEL_KINDS:
+        raise ValueError(f"the built-in channel model {name!r} cannot be withdrawn")
+    _CHANNELS.pop(name, None)
+
+
+def channel_kinds() -> tuple[str, ...]:
+    """Every channel model on offer: the built-in ones, then the registered ones."""
+    return tuple(_CHANNELS)
+
+
 def transmit_bits(bits: np.ndarray, cfg: ChannelConfig, rng: np.random.Generator,
                   rate: float, soft: bool) -> np.ndarray:
     """Pass channel bits through ``cfg``; soft values for AWGN when ``soft``."""
-    if cfg.kind == "bsc":
-        return bsc(bits, cfg.ber, rng)
-    if cfg.kind == "awgn":
-        return awgn(bits, cfg.ebn0_db, rng, cfg.modulation, rate=rate, soft=soft)
-    if cfg.kind == "burst":
-        model = GilbertElliott(cfg.burst_length_bits, cfg.bad_fraction, cfg.ber, cfg.ber_bad)
-        return gilbert_elliott(bits, model, rng)
-    if cfg.kind == "erasure":
-        return bits.copy()
-    raise ValueError(f"unknown channel {cfg.kind!r}")
+    transmit = _CHANNELS.get(cfg.kind)
+    if transmit is None:
+        raise ValueError(f"unknown channel {cfg.kind!r}; use one of {', '.join(_CHANNELS)}")
+    return transmit(bits, cfg, rng, rate, soft)
 
 
 def _hard(received: np.ndarray) -> np.ndarray:

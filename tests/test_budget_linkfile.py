@@ -99,8 +99,21 @@ def test_unreadable_files(tmp_path):
         load_link(_write(tmp_path, "frequency_hz = = 3"))
 
 
-def test_link_file_offers_what_the_simulator_simulates():
-    from link_sim import FEC_NAMES
+def test_link_file_offers_what_the_simulator_simulates(tmp_path):
+    from link_sim import NoCode, fec_names, register_fec, unregister_fec
     from link_sim._channels import MODULATIONS
-    assert LinkFile.model_fields["fec"].annotation.__args__ == FEC_NAMES
+
+    def with_fec(name):
+        return _write(tmp_path, GOOD.replace('fec = "none"', f'fec = "{name}"'))
+
+    for name in fec_names():
+        assert load_link(with_fec(name)).fec == name
+    with pytest.raises(ProfileError, match="unknown FEC code 'turbo'"):
+        load_link(with_fec("turbo"))
+    # a code registered later is offered too: one registry serves both
+    register_fec("repeat1", lambda interleave: NoCode())
+    try:
+        assert load_link(with_fec("repeat1")).fec == "repeat1"
+    finally:
+        unregister_fec("repeat1")
     assert LinkFile.model_fields["modulation"].annotation.__args__ == MODULATIONS
