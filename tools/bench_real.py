@@ -185,6 +185,17 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
     return int(met.sum()), int(met.size)
 
 
+def parse_stream(enc) -> dict:
+    """The fields of every frame of a layout-3 (or 4) stream (``parse_frames_v3``'s dict)."""
+    from codec.layouts.v3v4 import parse_frames_v3
+    from codec.stream.search import locate_frames
+
+    p = enc.profile
+    loc = locate_frames(enc.data)
+    return parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
+                           len(p.channels), p.reference == "ac", version=p.layout_version)
+
+
 def bit_split(enc) -> dict:
     """Where a layout-3 stream's bits go, per input sample: the parsed subframe fields.
 
@@ -194,13 +205,9 @@ def bit_split(enc) -> dict:
     """
     from codec.entropy.rangecoder import coefficient_cost_bits
     from codec.entropy.rice import exp_golomb_bits, zigzag
-    from codec.layouts.v3v4 import parse_frames_v3
-    from codec.stream.search import locate_frames
 
     p = enc.profile
-    loc = locate_frames(enc.data)
-    f = parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
-                        len(p.channels), p.reference == "ac", version=p.layout_version)
+    f = parse_stream(enc)
     lead = np.r_[True, f["frame"][1:] != f["frame"][:-1]]
     step = np.where(lead, 10, exp_golomb_bits(zigzag(np.diff(f["step_code"], prepend=0))))
     # the previous window of the same channel in the frame (mean and count changes)
@@ -279,13 +286,8 @@ def ideal_split(enc) -> dict:
     ``held_index`` and ``held_in_window``: ``index`` and ``in_window`` with
     the model counted on the other half of the windows (:func:`_held_out_bits`).
     """
-    from codec.layouts.v3v4 import parse_frames_v3
-    from codec.stream.search import locate_frames
-
     p = enc.profile
-    loc = locate_frames(enc.data)
-    f = parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
-                        len(p.channels), p.reference == "ac", version=p.layout_version)
+    f = parse_stream(enc)
     q, ch, n = f["q"], f["channel"], p.frame_length
     # the same channel's previous window in the same frame (-1: none)
     key = (f["frame"] * (n + 1) + f["window_offset"]) * len(p.channels) + ch
