@@ -196,6 +196,13 @@ def parse_stream(enc) -> dict:
                            len(p.channels), p.reference == "ac", version=p.layout_version)
 
 
+def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
+    """Bits of exp-Golomb order ``k`` of zigzag(v), as layout 3 sends its header integers."""
+    from codec.entropy.rice import exp_golomb_bits, zigzag
+
+    return exp_golomb_bits(zigzag(np.asarray(v)) >> k) + k
+
+
 def bit_split(enc) -> dict:
     """Where a layout-3 stream's bits go, per input sample: the parsed subframe fields.
 

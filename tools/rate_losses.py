@@ -173,10 +173,16 @@ def _frame_bits(cls, mag, coded, frame, nf) -> np.ndarray:
 
 def real_candidates() -> None:
     """The --real table."""
-    from bench_real import N_FRAME, bit_split, diff_zstd_bits, parse_stream, recordings
+    from bench_real import (
+        N_FRAME,
+        bit_split,
+        diff_zstd_bits,
+        parse_stream,
+        recordings,
+        signed_exp_golomb_bits,
+    )
 
     import codec
-    from codec.entropy.rice import exp_golomb_bits, zigzag
 
     print(f"real recordings, default profile (DCT, N = {N_FRAME}, frame scope, F = 0.99); "
           "estimated change in bits/sample of each candidate (ideal code lengths)")
@@ -210,9 +216,9 @@ def real_candidates() -> None:
         mean = 0.0
         if f["mean"] is not None:
             m = f["mean"]
-            sent = zigzag(np.where(f["mean_pred"][fr] & later, m - m[prev], m))
-            now = np.bincount(fr, exp_golomb_bits(sent), minlength=nf)
-            best = np.min([np.bincount(fr, exp_golomb_bits(sent >> k) + k, minlength=nf)
+            sent = np.where(f["mean_pred"][fr] & later, m - m[prev], m)
+            now = np.bincount(fr, signed_exp_golomb_bits(sent), minlength=nf)
+            best = np.min([np.bincount(fr, signed_exp_golomb_bits(sent, k), minlength=nf)
                            for k in range(16)], axis=0)
             mean = ((best + 4).sum() - now.sum()) / x.size
         total = chosen + step + mean
