@@ -291,18 +291,24 @@ def ideal_split(enc) -> dict:
     layout 3 does not have; ``side``: the means and step codes of each channel
     as changes from the previous window, at their empirical entropies;
     ``held_index`` and ``held_in_window``: ``index`` and ``in_window`` with
-    the model counted on the other half of the windows (:func:`_held_out_bits`).
+    the model counted on the other half of the windows (:func:`_held_out_bits`);
+    ``coder_j`` and ``index_j``: per coefficient index, layout 3's ideal code
+    length and the ``index`` oracle's.
     """
+    from codec.entropy.rangecoder import coefficient_cost_bits
+
     p = enc.profile
     f = parse_stream(enc)
     q, ch, n = f["q"], f["channel"], p.frame_length
     # the same channel's previous window in the same frame (-1: none)
-    key = (f["frame"] * (n + 1) + f["window_offset"]) * len(p.channels) + ch
-    order = {int(k): i for i, k in enumerate(key)}
-    prev = np.array([order.get(int(k) - len(p.channels), -1) if wo > 0 else -1
-                     for k, wo in zip(key, f["window_offset"])])
+    back = np.where(f["multi"][f["frame"]], len(p.channels), 1)
+    prev = np.where(f["window_offset"] > 0, np.arange(ch.size) - back, -1)
     out = dict.fromkeys(("index", "in_window", "prev_window", "side", "held_index",
                          "held_in_window"), 0.0)
+    upto = np.array([coefficient_cost_bits(q, np.minimum(f["count"], j), mean=f["mean"] is not None)
+                     .sum() for j in range(n + 1)])
+    out["coder_j"] = np.diff(upto)
+    out["index_j"] = np.zeros(n)
     for c in np.unique(ch):
         rows = np.flatnonzero(ch == c)
         qc = q[rows]
@@ -310,7 +316,7 @@ def ideal_split(enc) -> dict:
         for j in range(n):
             before = np.zeros(len(rows), np.int64) if j == 0 else np.minimum(
                 np.abs(qc[:, j - 1]), 3)
-            out["index"] += _entropy_bits(qc[:, j])
+            out["index_j"][j] += _entropy_bits(qc[:, j])
             out["in_window"] += _entropy_bits(qc[:, j], None if j == 0 else before)
             out["prev_window"] += _entropy_bits(qc[:, j], pc[:, j])
             out["held_index"] += _held_out_bits(qc[:, j], np.zeros(len(rows), np.int64))
@@ -318,6 +324,7 @@ def ideal_split(enc) -> dict:
         for field in ("mean", "step_code"):
             if f[field] is not None:
                 out["side"] += _entropy_bits(np.diff(f[field][rows], prepend=0))
+    out["index"] = out["index_j"].sum()
     return {k: v / enc.reconstruction.size for k, v in out.items()}
 
 
@@ -412,6 +419,16 @@ def print_ideal(recs: dict, fidelity: float) -> None:
               f"{prevw / b['zstd']:>6.3f}")
     print("ratios to zstd: coefwire; the better oracle coefficient figure + side + frame; "
           "the better held-out one + side + frame; the previous-window oracle + side + frame")
+    print()
+    edges = [0, 1, 4, 8, 16, 32, N_FRAME]
+    print("coefficient bits/sample by index band, layout 3 / per-index oracle")
+    print(f"{'recording':<14} " + " ".join(f"{f'j {a}-{b - 1}':>13}" for a, b in
+                                           zip(edges[:-1], edges[1:])))
+    for name, r in rows.items():
+        i = r["ideal"]
+        print(f"{name:<14} " + " ".join(
+            f"{i['coder_j'][a:b].sum():>6.3f}/{i['index_j'][a:b].sum():<6.3f}"
+            for a, b in zip(edges[:-1], edges[1:])))
     print()
     print("the baseline (bits/sample): zstd as benchmarked, order-0 entropy of its differences, "
           "step matched to the measured error, one step per budget block (keeps the promise), "
