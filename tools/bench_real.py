@@ -371,6 +371,8 @@ def baselines(x: np.ndarray, x_hat: np.ndarray, profile) -> dict:
         if not miss.any():
             break
         step = np.where(miss, step * 0.97, step)
+    else:
+        raise AssertionError("the promise-keeping baseline still misses a block budget")
     codes = np.diff(np.rint(x / step[g]).astype(np.int64), axis=0, prepend=0)
     side = 10 * budget.size
     out["promise"] = (len(zc.compress(smallest_int(codes.T.ravel()).tobytes())) * 8
