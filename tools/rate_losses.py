@@ -29,8 +29,11 @@ refitted, so no recording is fitting data):
 * ``inter``: the coefficient context above with the same channel's previous
   window in the frame (magnitudes at j - 1 .. j + 1, counted twice) beside
   the previous four of the window, layout 3's tables (its scale classes are
-  16 x a mean magnitude, whatever the magnitudes' source); ``chosen``: the
-  same with one frame-header bit choosing it per frame;
+  16 x a mean magnitude, whatever the magnitudes' source); ``coded``: the
+  same through the range coder (the lane bytes of the same integers with
+  these classes swapped in, against today's lane bytes: the ideal code
+  lengths are what the coder spends); ``chosen``: the same with one
+  frame-header bit choosing it per frame;
 * ``step``: one frame-header bit saying every subframe of a channel in the
   frame has the first one's step, sent once (frame scope allocates one step
   per budget block);
@@ -45,6 +48,7 @@ and the medians.
 
 from __future__ import annotations
 
+import functools
 import sys
 from pathlib import Path
 
@@ -171,6 +175,17 @@ def _frame_bits(cls, mag, coded, frame, nf) -> np.ndarray:
     return np.bincount(frame, per, minlength=nf)
 
 
+def _lane_bits(q: np.ndarray, count: np.ndarray, frame: np.ndarray, mean: bool,
+               classes=None) -> int:
+    """Range-coded bits of every frame's coefficient lane, optionally with other classes."""
+    from unittest import mock
+
+    nf = int(frame.max()) + 1
+    with mock.patch.object(R, "_contexts", classes or R._contexts):
+        cum, freq, shift, row = R.coefficient_ops(q, count, mean=mean)
+    return int(R.encode_lanes(cum, freq, shift, frame[row], nf)[1].sum()) * 8
+
+
 def real_candidates() -> None:
     """The --real table."""
     from bench_real import (
@@ -186,9 +201,10 @@ def real_candidates() -> None:
 
     print(f"real recordings, default profile (DCT, N = {N_FRAME}, frame scope, F = 0.99); "
           "estimated change in bits/sample of each candidate (ideal code lengths)")
-    print(f"{'recording':<14} {'bps':>6} {'ratio':>6} {'inter':>7} {'chosen':>7} {'step':>7} "
+    print(f"{'recording':<14} {'bps':>6} {'ratio':>6} {'inter':>7} {'coded':>7} {'chosen':>7} "
+          f"{'step':>7} "
           f"{'mean':>7} {'all':>7} {'ratio':>6}")
-    cols: dict[str, list[float]] = {"now": [], "inter": [], "step": [], "mean": [], "all": []}
+    cols: dict[str, list[float]] = {"now": [], "chosen": [], "step": [], "mean": [], "all": []}
     for name, (_kind, x, _names, _step) in recordings().items():
         enc = codec.encode(x, codec.Profile(fidelity=0.99, frame_length=N_FRAME))
         dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
@@ -204,6 +220,10 @@ def real_candidates() -> None:
                               prev_weight=2)
         d = _frame_bits(cls, mag, coded, fr, nf) - b0
         inter, chosen = d.sum() / x.size, (np.minimum(d, 0).sum() + nf) / x.size
+        args = (f["q"], f["count"], fr, f["mean"] is not None)
+        coded_bits = (_lane_bits(*args, classes=functools.partial(
+            _inter_contexts, half=1, prev=1, weight=1, place=wo, back=back, prev_weight=2))
+            - _lane_bits(*args)) / x.size
         # step: a frame whose channels keep one step sends each once, plus the flag bit
         sc = f["step_code"]
         prev = np.maximum(np.arange(sc.size) - back, 0)
@@ -222,10 +242,11 @@ def real_candidates() -> None:
                            for k in range(16)], axis=0)
             mean = ((best + 4).sum() - now.sum()) / x.size
         total = chosen + step + mean
-        for k, v in (("now", bps), ("inter", bps + chosen), ("step", bps + step),
+        for k, v in (("now", bps), ("chosen", bps + chosen), ("step", bps + step),
                      ("mean", bps + mean), ("all", bps + total)):
             cols[k].append(v / dz)
-        print(f"{name:<14} {bps:>6.3f} {bps / dz:>6.3f} {inter:>+7.3f} {chosen:>+7.3f} "
+        print(f"{name:<14} {bps:>6.3f} {bps / dz:>6.3f} {inter:>+7.3f} {coded_bits:>+7.3f} "
+              f"{chosen:>+7.3f} "
               f"{step:>+7.3f} {mean:>+7.3f} {total:>+7.3f} {(bps + total) / dz:>6.3f}"
               f"   (step fields now {step_bits / x.size:.3f})")
     print("median ratio to zstd: " + ", ".join(
