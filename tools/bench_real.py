@@ -34,7 +34,14 @@ coefwire's decoded output (step sqrt(12 MSE)), first-differenced, stored as
 the smallest integer type, zstd level 19.  Printed: bits/sample with every
 stream bit counted, the ratio to the baseline, and the medians.
 
-    python tools/bench_real.py [--fidelity 0.99] [--only NAME,...] [--split]
+    python tools/bench_real.py [--fidelity 0.99] [--only NAME,...] [--split] [--ideal]
+
+``--ideal`` instead prints, for the default profile in frame scope, what an
+oracle coder of the same quantized integers would spend (per coefficient
+index, given the previous coefficient, given the previous window; also with
+the model counted on held-out windows) and the baseline in four forms: as
+benchmarked, at an error bisected to match, keeping the per-block promise,
+and compressed frame by frame like coefwire's independent frames.
 """
 
 from __future__ import annotations
@@ -134,8 +141,12 @@ def diff_zstd_bits(x: np.ndarray, x_hat: np.ndarray) -> float:
     return len(zstandard.ZstdCompressor(level=19).compress(data)) * 8 / x.size
 
 
-def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
-    """Budget blocks that hold on the decoded samples, recomputed from the input alone."""
+def _block_budgets(x: np.ndarray, profile) -> tuple[np.ndarray, np.ndarray, int]:
+    """Each sample's budget block row, the budget per (block row, channel), the block rows.
+
+    A block is a window of a channel, or in frame scope the windows of a
+    channel in one frame; recomputed from the input alone.
+    """
     n = profile.frame_length
     s, ch = x.shape
     w = -(-s // n)
@@ -144,8 +155,6 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
     valid[-1] = n - pad
     mask = (np.arange(n) < valid[:, None])[:, :, None]
     xf = np.pad(x, ((0, pad), (0, 0))).reshape(w, n, ch)
-    ef = np.pad(x - x_hat, ((0, pad), (0, 0))).reshape(w, n, ch)
-    err = (ef**2).sum(axis=1)
     mean = xf.sum(axis=1) / valid[:, None]
     dev = np.where(mask, xf - mean[:, None, :], 0.0) if profile.reference == "ac" else xf
     ref = (dev**2).sum(axis=1)
@@ -154,7 +163,7 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
     group = (profile.windows_per_frame
              if profile.fidelity_scope == "frame" and profile.layout_version >= 3 else 1)
     g = np.arange(w) // group
-    ng = g.max() + 1
+    ng = int(g.max()) + 1
 
     def s_(v):  # per (group, channel)
         out = np.zeros((ng, ch))
@@ -164,8 +173,34 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
     budget = np.maximum.reduce([
         (1 - profile.fidelity) * s_(ref), s_(valid[:, None] * res**2 / 12 + 0 * ref),
         s_(valid[:, None] * (peak * 2.0**-40) ** 2), s_(np.full((w, ch), n * 2.0**-130))])
-    met = s_(err) <= budget * (1 + 1e-12)
+    return np.repeat(g, n)[:s], budget, ng
+
+
+def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
+    """Budget blocks that hold on the decoded samples, recomputed from the input alone."""
+    g, budget, ng = _block_budgets(x, profile)
+    err = np.zeros_like(budget)
+    np.add.at(err, g, (x - x_hat) ** 2)
+    met = err <= budget * (1 + 1e-12)
     return int(met.sum()), int(met.size)
+
+
+def parse_stream(enc) -> dict:
+    """The fields of every frame of a layout-3 (or 4) stream (``parse_frames_v3``'s dict)."""
+    from codec.layouts.v3v4 import parse_frames_v3
+    from codec.stream.search import locate_frames
+
+    p = enc.profile
+    loc = locate_frames(enc.data)
+    return parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
+                           len(p.channels), p.reference == "ac", version=p.layout_version)
+
+
+def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
+    """Bits of exp-Golomb order ``k`` of zigzag(v), as layout 3 sends its header integers."""
+    from codec.entropy.rice import exp_golomb_bits, zigzag
+
+    return exp_golomb_bits(zigzag(np.asarray(v)) >> k) + k
 
 
 def bit_split(enc) -> dict:
@@ -177,13 +212,9 @@ def bit_split(enc) -> dict:
     """
     from codec.entropy.rangecoder import coefficient_cost_bits
     from codec.entropy.rice import exp_golomb_bits, zigzag
-    from codec.layouts.v3v4 import parse_frames_v3
-    from codec.stream.search import locate_frames
 
     p = enc.profile
-    loc = locate_frames(enc.data)
-    f = parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
-                        len(p.channels), p.reference == "ac", version=p.layout_version)
+    f = parse_stream(enc)
     lead = np.r_[True, f["frame"][1:] != f["frame"][:-1]]
     step = np.where(lead, 10, exp_golomb_bits(zigzag(np.diff(f["step_code"], prepend=0))))
     # the previous window of the same channel in the frame (mean and count changes)
@@ -205,6 +236,216 @@ def bit_split(enc) -> dict:
     out = {"mean": mean, "step": step.sum(), "count": count, "coef": coef}
     out["frame"] = total - sum(out.values())
     return {k: float(v) / samples for k, v in out.items()}
+
+
+def _entropy_bits(v: np.ndarray, ctx: np.ndarray | None = None) -> float:
+    """Empirical entropy in bits of the values ``v`` (in total), given ``ctx`` when given.
+
+    An oracle's code length: the model is the values' own frequencies, free to
+    both ends; with few values per context it is optimistic by about
+    (K - 1) / (2 ln 2) bits per context of K distinct values.
+    """
+    if v.size == 0:
+        return 0.0
+    key = v if ctx is None else np.stack([ctx, v], axis=1)
+    if ctx is None:
+        _, c = np.unique(key, return_counts=True)
+        return float(-(c * np.log2(c / c.sum())).sum())
+    pairs, c = np.unique(key, axis=0, return_counts=True)
+    _, inv, cc = np.unique(pairs[:, 0], return_inverse=True, return_counts=True)
+    tot = np.bincount(inv.ravel(), weights=c)
+    return float(-(c * np.log2(c / tot[inv.ravel()])).sum())
+
+
+def _held_out_bits(v: np.ndarray, ctx: np.ndarray) -> float:
+    """Code length in bits of ``v`` given ``ctx`` under frequencies counted on the other half.
+
+    Rows alternate between two halves; each half is coded with the counts of
+    the other plus one half per symbol of the union alphabet in each context (the
+    Krichevsky-Trofimov estimator), so the model never saw the value it codes:
+    an honest, slightly pessimistic figure beside the oracle's optimistic one.
+    """
+    alphabet = np.unique(v)
+    sym = np.searchsorted(alphabet, v)
+    cat = np.unique(ctx, return_inverse=True)[1].ravel()
+    k, m = alphabet.size, int(cat.max(initial=0)) + 1
+    half = np.arange(v.size) % 2
+    bits = 0.0
+    for h in (0, 1):
+        tab = np.full((m, k), 0.5)
+        np.add.at(tab, (cat[half != h], sym[half != h]), 1.0)
+        prob = tab / tab.sum(axis=1, keepdims=True)
+        bits -= float(np.log2(prob[cat[half == h], sym[half == h]]).sum())
+    return bits
+
+
+def ideal_split(enc) -> dict:
+    """Oracle code lengths of the parsed layout-3 stream's own integers, bits/sample.
+
+    ``index``: every coefficient (all N, so no count field is needed) at the
+    empirical entropy of its (channel, index) over the whole recording;
+    ``in_window``: the same given the previous coefficient of the window
+    (magnitude clipped to 0..3); ``prev_window``: given the same coefficient of
+    the same channel's previous window in the same frame (clipped to -2..2;
+    a frame's first window is its own context) -- memory across windows, which
+    layout 3 does not have; ``side``: the means and step codes of each channel
+    as changes from the previous window, at their empirical entropies;
+    ``held_index`` and ``held_in_window``: ``index`` and ``in_window`` with
+    the model counted on the other half of the windows (:func:`_held_out_bits`);
+    ``coder_j`` and ``index_j``: per coefficient index, layout 3's ideal code
+    length and the ``index`` oracle's.
+    """
+    from codec.entropy.rangecoder import coefficient_cost_bits
+
+    p = enc.profile
+    f = parse_stream(enc)
+    q, ch, n = f["q"], f["channel"], p.frame_length
+    # the same channel's previous window in the same frame (-1: none)
+    back = np.where(f["multi"][f["frame"]], len(p.channels), 1)
+    prev = np.where(f["window_offset"] > 0, np.arange(ch.size) - back, -1)
+    out = dict.fromkeys(("index", "in_window", "prev_window", "side", "held_index",
+                         "held_in_window"), 0.0)
+    upto = np.array([coefficient_cost_bits(q, np.minimum(f["count"], j), mean=f["mean"] is not None)
+                     .sum() for j in range(n + 1)])
+    out["coder_j"] = np.diff(upto)
+    out["index_j"] = np.zeros(n)
+    for c in np.unique(ch):
+        rows = np.flatnonzero(ch == c)
+        qc = q[rows]
+        pc = np.where(prev[rows, None] >= 0, np.clip(q[prev[rows]], -2, 2), 3)
+        for j in range(n):
+            before = np.zeros(len(rows), np.int64) if j == 0 else np.minimum(
+                np.abs(qc[:, j - 1]), 3)
+            out["index_j"][j] += _entropy_bits(qc[:, j])
+            out["in_window"] += _entropy_bits(qc[:, j], None if j == 0 else before)
+            out["prev_window"] += _entropy_bits(qc[:, j], pc[:, j])
+            out["held_index"] += _held_out_bits(qc[:, j], np.zeros(len(rows), np.int64))
+            out["held_in_window"] += _held_out_bits(qc[:, j], before)
+        for field in ("mean", "step_code"):
+            if f[field] is not None:
+                out["side"] += _entropy_bits(np.diff(f[field][rows], prepend=0))
+    out["index"] = out["index_j"].sum()
+    return {k: v / enc.reconstruction.size for k, v in out.items()}
+
+
+def baselines(x: np.ndarray, x_hat: np.ndarray, profile) -> dict:
+    """Differenced zstd-19 in four forms, bits/sample, to judge the comparison.
+
+    ``zstd``: the benchmark's baseline (step sqrt(12 MSE) per channel);
+    ``h0``: the order-0 entropy of its differenced codes (what zstd gains by
+    matching earlier stretches shows as zstd < h0); ``matched``: the step
+    bisected until the baseline's measured error energy equals coefwire's
+    (a quantizer that rounds exact zeros to zero errs less than step**2 / 12);
+    ``promise``: one step per budget block (sqrt(12 budget / samples), shrunk
+    until the block's measured error meets its budget, 10 bits per block), so
+    the baseline keeps coefwire's promise; ``per_frame``: ``promise`` with
+    each frame's codes compressed on their own (no memory across frames, as
+    coefwire's frames; zstd without checksum and content size).
+    """
+    out = {"zstd": diff_zstd_bits(x, x_hat)}
+    h0, matched = 0.0, []
+    for c in range(x.shape[1]):
+        mse = float(np.mean((x[:, c] - x_hat[:, c]) ** 2))
+        step = math.sqrt(12.0 * mse) if mse > 0 else 1.0
+        d = np.diff(np.rint(x[:, c] / step).astype(np.int64), prepend=0)
+        h0 += _entropy_bits(d)
+        lo, hi = step, step
+        while mse > 0 and np.mean((x[:, c] - np.rint(x[:, c] / hi) * hi) ** 2) <= mse:
+            hi *= 1.25
+        for _ in range(40 if mse > 0 else 0):  # largest step whose error stays <= mse
+            mid = 0.5 * (lo + hi)
+            ok = np.mean((x[:, c] - np.rint(x[:, c] / mid) * mid) ** 2) <= mse
+            lo, hi = (mid, hi) if ok else (lo, mid)
+        matched.append(np.diff(np.rint(x[:, c] / lo).astype(np.int64), prepend=0))
+    out["h0"] = h0 / x.size
+    zc = zstandard.ZstdCompressor(level=19)
+    out["matched"] = len(zc.compress(smallest_int(np.concatenate(matched)).tobytes())) * 8 / x.size
+    g, budget, ng = _block_budgets(x, profile)
+    count = np.bincount(g, minlength=ng)[:, None]
+    step = np.sqrt(12.0 * budget / count)
+    for _ in range(60):  # shrink the step of every block that misses its budget
+        xq = np.rint(x / step[g]) * step[g]
+        err = np.zeros_like(budget)
+        np.add.at(err, g, (x - xq) ** 2)
+        miss = err > budget
+        if not miss.any():
+            break
+        step = np.where(miss, step * 0.97, step)
+    else:
+        raise AssertionError("the promise-keeping baseline still misses a block budget")
+    codes = np.diff(np.rint(x / step[g]).astype(np.int64), axis=0, prepend=0)
+    side = 10 * budget.size
+    out["promise"] = (len(zc.compress(smallest_int(codes.T.ravel()).tobytes())) * 8
+                      + side) / x.size
+    lean = zstandard.ZstdCompressor(level=19, write_checksum=False, write_content_size=False)
+    frames = sum(len(lean.compress(smallest_int(codes[g == k].T.ravel()).tobytes()))
+                 for k in range(ng))
+    out["per_frame"] = (frames * 8 + side) / x.size
+    return out
+
+
+def run_ideal(values, fidelity) -> dict:
+    """The default profile in frame scope: its bits, an oracle coder's, four baselines."""
+    p = codec.Profile(fidelity=fidelity, frame_length=N_FRAME)
+    enc = codec.encode(values, p)
+    dec = codec.decode(enc.data, enc.profile, samples=values.shape[0])
+    return {"bps": len(enc.data) * 8 / values.size, "split": bit_split(enc),
+            "ideal": ideal_split(enc), "base": baselines(values, dec.samples, enc.profile)}
+
+
+def print_ideal(recs: dict, fidelity: float) -> None:
+    """The --ideal tables."""
+    print(f"F = {fidelity}; default profile (DCT, N = {N_FRAME}, layout 3), frame scope; "
+          "bits/sample")
+    print("coefwire: total, coefficients, side (mean+step+count), frame (sync, header, CRC); "
+          "oracle: per index, given the previous coefficient, given the previous window, "
+          "side; held out: per index and given the previous coefficient, model counted on the "
+          "other half of the windows")
+    print(f"{'recording':<14} {'total':>6} {'coef':>6} {'side':>6} {'frame':>6} | "
+          f"{'index':>6} {'in-win':>6} {'prev-w':>6} {'side':>6} {'h-idx':>6} {'h-win':>6} | "
+          f"{'zstd':>6} "
+          f"{'ratio':>6} {'oracle':>6} {'held':>6} {'prev-w':>6}")
+    rows = {}
+    for name, (_kind, values, _names, _step) in recs.items():
+        r = rows[name] = run_ideal(values, fidelity)
+        sp, i, b = r["split"], r["ideal"], r["base"]
+        oracle = min(i["index"], i["in_window"]) + i["side"] + sp["frame"]
+        held = min(i["held_index"], i["held_in_window"]) + i["side"] + sp["frame"]
+        prevw = i["prev_window"] + i["side"] + sp["frame"]
+        print(f"{name:<14} {r['bps']:>6.3f} {sp['coef']:>6.3f} "
+              f"{sp['mean'] + sp['step'] + sp['count']:>6.3f} {sp['frame']:>6.3f} | "
+              f"{i['index']:>6.3f} {i['in_window']:>6.3f} {i['prev_window']:>6.3f} "
+              f"{i['side']:>6.3f} {i['held_index']:>6.3f} {i['held_in_window']:>6.3f} | "
+              f"{b['zstd']:>6.3f} {r['bps'] / b['zstd']:>6.3f} "
+              f"{oracle / b['zstd']:>6.3f} {held / b['zstd']:>6.3f} "
+              f"{prevw / b['zstd']:>6.3f}")
+    print("ratios to zstd: coefwire; the better oracle coefficient figure + side + frame; "
+          "the better held-out one + side + frame; the previous-window oracle + side + frame")
+    print()
+    edges = [0, 1, 4, 8, 16, 32, N_FRAME]
+    print("coefficient bits/sample by index band, layout 3 / per-index oracle")
+    print(f"{'recording':<14} " + " ".join(f"{f'j {a}-{b - 1}':>13}" for a, b in
+                                           zip(edges[:-1], edges[1:])))
+    for name, r in rows.items():
+        i = r["ideal"]
+        print(f"{name:<14} " + " ".join(
+            f"{i['coder_j'][a:b].sum():>6.3f}/{i['index_j'][a:b].sum():<6.3f}"
+            for a, b in zip(edges[:-1], edges[1:])))
+    print()
+    print("the baseline (bits/sample): zstd as benchmarked, order-0 entropy of its differences, "
+          "step matched to the measured error, one step per budget block (keeps the promise), "
+          "that compressed frame by frame; coefwire's ratio to each")
+    print(f"{'recording':<14} {'zstd':>6} {'h0':>6} {'match':>6} {'prom.':>6} {'frame':>6} | "
+          f"{'zstd':>6} {'match':>6} {'prom.':>6} {'frame':>6}")
+    med = {k: [] for k in ("zstd", "matched", "promise", "per_frame")}
+    for name, r in rows.items():
+        b = r["base"]
+        for k in med:
+            med[k].append(r["bps"] / b[k])
+        print(f"{name:<14} {b['zstd']:>6.3f} {b['h0']:>6.3f} {b['matched']:>6.3f} "
+              f"{b['promise']:>6.3f} {b['per_frame']:>6.3f} | "
+              + " ".join(f"{r['bps'] / b[k]:>6.3f}" for k in med))
+    print(f"{'median ratio':<49} | " + " ".join(f"{np.median(v):>6.3f}" for v in med.values()))
 
 
 def run(name, values, names, step_s, fidelity) -> dict:
@@ -233,10 +474,16 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--split", action="store_true",
                     help="also print where the bits go (frame scope): mean, step and count "
                     "fields, coefficients, frame header and CRC")
+    ap.add_argument("--ideal", action="store_true",
+                    help="instead: the default profile in frame scope against an oracle "
+                    "coder of the same integers and against four forms of the baseline")
     args = ap.parse_args(argv)
     recs = recordings()
     if args.only:
         recs = {k: v for k, v in recs.items() if k in args.only.split(",")}
+    if args.ideal:
+        print_ideal(recs, args.fidelity)
+        return 0
     t_all = time.perf_counter()
     print(f"F = {args.fidelity}; bits/sample (every stream bit) and ratio to differenced "
           "zstd-19 at the same error energy; blocks met on the decoded samples")

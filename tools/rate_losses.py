@@ -21,11 +21,34 @@ to a few bits per frame), coefficients only, in bits/sample:
 
 Evaluation seeds 7-9 (neither the rate benchmark's nor the fit's).
 
-    python tools/rate_losses.py
+``--real`` instead prints, on the real recordings of ``tools/bench_real.py``
+(default profile: DCT, N = 64, frame scope, F = 0.99), what candidate changes
+of layout 3 would save, estimated on the stream's own integers (no table is
+refitted, so no recording is fitting data):
+
+* ``inter``: the coefficient context above with the same channel's previous
+  window in the frame (magnitudes at j - 1 .. j + 1, counted twice) beside
+  the previous four of the window, layout 3's tables (its scale classes are
+  16 x a mean magnitude, whatever the magnitudes' source); ``coded``: the
+  same through the range coder (the lane bytes of the same integers with
+  these classes swapped in, against today's lane bytes: the ideal code
+  lengths are what the coder spends); ``chosen``: the same with one
+  frame-header bit choosing it per frame;
+* ``step``: one frame-header bit saying every subframe of a channel in the
+  frame has the first one's step, sent once (frame scope allocates one step
+  per budget block);
+* ``mean``: the mean fields sent as exp-Golomb of order k, k in a 4-bit
+  frame-header field chosen per frame;
+
+then the ratio to the benchmark's zstd baseline before and with all three,
+and the medians.
+
+    python tools/rate_losses.py [--real]
 """
 
 from __future__ import annotations
 
+import functools
 import sys
 from pathlib import Path
 
@@ -46,8 +69,15 @@ OFFSET = 0.42
 
 
 def _inter_contexts(mag: np.ndarray, windows: int = WINDOWS, half: int = 2,
-                    prev: int = 2, weight: int = 2) -> np.ndarray:
-    """Candidate classes: neighbours in the window plus the same band of earlier windows."""
+                    prev: int = 2, weight: int = 2, place: np.ndarray | None = None,
+                    back: np.ndarray | int = 1, prev_weight: int = 1) -> np.ndarray:
+    """Candidate classes: neighbours in the window plus the same band of earlier windows.
+
+    ``place``: each row's window number in its frame (default: rows cut into
+    frames of ``windows``); ``back``: rows between a row and the same
+    channel's previous window (1, or the channel count of a multi-channel
+    frame); the earlier windows' magnitudes count ``prev_weight`` times.
+    """
     ns, n = mag.shape
     c = np.zeros((ns, n + 1), np.int64)
     np.cumsum(mag, axis=1, out=c[:, 1:])
@@ -55,13 +85,13 @@ def _inter_contexts(mag: np.ndarray, windows: int = WINDOWS, half: int = 2,
     total = (c[:, j] - c[:, np.maximum(j - R.CONTEXT_WINDOW, 0)]) * weight
     count = np.broadcast_to(np.minimum(j, R.CONTEXT_WINDOW) * weight, total.shape).copy()
     a, b = np.maximum(j - half, 0), np.minimum(j + half, n - 1)
-    place = np.arange(ns) % windows
+    if place is None:
+        place = np.arange(ns) % windows
     for lag in range(1, prev + 1):
         has = (place >= lag)[:, None]
-        cp = np.zeros_like(c)
-        cp[lag:] = c[:-lag]
-        total += np.where(has, cp[:, b + 1] - cp[:, a], 0)
-        count += np.where(has, (b - a + 1)[None, :], 0)
+        cp = c[np.maximum(np.arange(ns) - lag * np.asarray(back), 0)]
+        total += np.where(has, (cp[:, b + 1] - cp[:, a]) * prev_weight, 0)
+        count += np.where(has, (b - a + 1)[None, :] * prev_weight, 0)
     cls = np.full((ns, n), -1, np.int64)
     cls[:, 1:] = R._classes(total, (total << 4) // count, R.band_class(j, n))
     return cls
@@ -132,7 +162,102 @@ def _bits(cls, mag, coded, cost, shift) -> float:
     return float((cost[cls, np.minimum(hi, R.MODEL_SYMBOLS)] + s + (mag > 0) + extra).sum())
 
 
+def _frame_bits(cls, mag, coded, frame, nf) -> np.ndarray:
+    """Coefficient bits of every frame (v3 tables), coefficient 0 left out."""
+    cost, shift = R._COST[:-1], R.SHIFT[:-1]
+    s = shift[np.maximum(cls, 0)]
+    hi = mag >> s
+    esc = hi >= R.MODEL_SYMBOLS
+    eb = R._bit_length(np.where(esc, hi - R.MODEL_SYMBOLS, 0))
+    extra = np.where(esc, R._COST[R.LEN_ROW, 0] + np.maximum(eb - 1, 0), 0)
+    bits = cost[np.maximum(cls, 0), np.minimum(hi, R.MODEL_SYMBOLS)] + s + (mag > 0) + extra
+    per = np.where(coded, bits, 0.0).sum(axis=1)
+    return np.bincount(frame, per, minlength=nf)
+
+
+def _lane_bits(q: np.ndarray, count: np.ndarray, frame: np.ndarray, mean: bool,
+               classes=None) -> int:
+    """Range-coded bits of every frame's coefficient lane, optionally with other classes."""
+    from unittest import mock
+
+    nf = int(frame.max()) + 1
+    with mock.patch.object(R, "_contexts", classes or R._contexts):
+        cum, freq, shift, row = R.coefficient_ops(q, count, mean=mean)
+    return int(R.encode_lanes(cum, freq, shift, frame[row], nf)[1].sum()) * 8
+
+
+def real_candidates() -> None:
+    """The --real table."""
+    from bench_real import (
+        N_FRAME,
+        bit_split,
+        diff_zstd_bits,
+        parse_stream,
+        recordings,
+        signed_exp_golomb_bits,
+    )
+
+    import codec
+
+    print(f"real recordings, default profile (DCT, N = {N_FRAME}, frame scope, F = 0.99); "
+          "estimated change in bits/sample of each candidate (ideal code lengths)")
+    print(f"{'recording':<14} {'bps':>6} {'ratio':>6} {'inter':>7} {'coded':>7} {'chosen':>7} "
+          f"{'step':>7} "
+          f"{'mean':>7} {'all':>7} {'ratio':>6}")
+    cols: dict[str, list[float]] = {"now": [], "chosen": [], "step": [], "mean": [], "all": []}
+    for name, (_kind, x, _names, _step) in recordings().items():
+        enc = codec.encode(x, codec.Profile(fidelity=0.99, frame_length=N_FRAME))
+        dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
+        dz = diff_zstd_bits(x, dec.samples)
+        bps = len(enc.data) * 8 / x.size
+        f = parse_stream(enc)
+        fr, wo = f["frame"], f["window_offset"]
+        nf = int(fr.max()) + 1
+        back = np.where(f["multi"][fr], x.shape[1], 1)
+        mag, coded = _coded(f["q"])
+        b0 = _frame_bits(R._contexts(mag), mag, coded, fr, nf)
+        cls = _inter_contexts(mag, half=1, prev=1, weight=1, place=wo, back=back,
+                              prev_weight=2)
+        d = _frame_bits(cls, mag, coded, fr, nf) - b0
+        inter, chosen = d.sum() / x.size, (np.minimum(d, 0).sum() + nf) / x.size
+        args = (f["q"], f["count"], fr, f["mean"] is not None)
+        coded_bits = (_lane_bits(*args, classes=functools.partial(
+            _inter_contexts, half=1, prev=1, weight=1, place=wo, back=back, prev_weight=2))
+            - _lane_bits(*args)) / x.size
+        # step: a frame whose channels keep one step sends each once, plus the flag bit
+        sc = f["step_code"]
+        prev = np.maximum(np.arange(sc.size) - back, 0)
+        later = wo > 0
+        same = np.bincount(fr, later & (sc != sc[prev]), minlength=nf) == 0
+        step_bits = bit_split(enc)["step"] * x.size
+        saved = np.bincount(fr, later, minlength=nf)[same].sum()  # 1-bit zero changes
+        step = (nf - saved) / x.size
+        # mean: the fields sent today, as exp-Golomb of order k chosen per frame
+        mean = 0.0
+        if f["mean"] is not None:
+            m = f["mean"]
+            sent = np.where(f["mean_pred"][fr] & later, m - m[prev], m)
+            now = np.bincount(fr, signed_exp_golomb_bits(sent), minlength=nf)
+            best = np.min([np.bincount(fr, signed_exp_golomb_bits(sent, k), minlength=nf)
+                           for k in range(16)], axis=0)
+            mean = ((best + 4).sum() - now.sum()) / x.size
+        total = chosen + step + mean
+        for k, v in (("now", bps), ("chosen", bps + chosen), ("step", bps + step),
+                     ("mean", bps + mean), ("all", bps + total)):
+            cols[k].append(v / dz)
+        print(f"{name:<14} {bps:>6.3f} {bps / dz:>6.3f} {inter:>+7.3f} {coded_bits:>+7.3f} "
+              f"{chosen:>+7.3f} "
+              f"{step:>+7.3f} {mean:>+7.3f} {total:>+7.3f} {(bps + total) / dz:>6.3f}"
+              f"   (step fields now {step_bits / x.size:.3f})")
+    print("median ratio to zstd: " + ", ".join(
+        f"{k} {np.median(v):.3f}" for k, v in cols.items()))
+    print("largest ratio:        " + ", ".join(f"{k} {np.max(v):.3f}" for k, v in cols.items()))
+
+
 def main() -> None:
+    if "--real" in sys.argv[1:]:
+        real_candidates()
+        return
     rhos, fids = (0.9, 0.95, 0.99), (0.99, 0.999)
     train = {"v3": ([], []), "inter": ([], [])}
     for i, rho in enumerate(rhos):
