@@ -10,7 +10,7 @@ from .._compare import ROW_KEYS, compare_bases
 from .._errors import InputError
 from .._io import atomic_output, read_samples
 from .._profile import default_profile, load_profile
-from .._report import pooled_label, units_of, with_unit
+from .._report import common_unit, pooled_label, units_of, with_unit
 from ._codec_cmds import _CAUTION
 from .common import check_distinct, fmt, json_ready, write_json
 
@@ -104,7 +104,7 @@ def _table(cmp, units: dict) -> list[str]:
     Errors carry the channel's unit; the pooled rows carry one only when every
     channel shares it, and are labelled pooled (:func:`codec.pooled_label`).
     """
-    one = _common_unit(units)
+    one = common_unit(units)
     head = (f"{'basis':<9} {'F':>6} {'bit/smp':>8} {'bit/frm':>8} {'p95':>7} {'ratio':>6} "
             f"{'saved%':>7} {'F min':>8} {'F mean':>8} {'SNR dB':>7} {'PRD %':>7} "
             f"{'max|err|':>14} {'enc ms':>7}")
@@ -136,12 +136,6 @@ def _table(cmp, units: dict) -> list[str]:
                    "(left out of F min / F mean)")
     out.append("(per-channel rows for every basis are in --json / --csv)")
     return out
-
-
-def _common_unit(units: dict) -> str | None:
-    """The unit every channel shares, else None (pooled errors of mixed units stay bare)."""
-    kinds = set(units.values())
-    return next(iter(kinds)) if len(kinds) == 1 else None
 
 
 def _line(r: dict, unit: str | None) -> str:

@@ -12,7 +12,7 @@ from .._framing import split_frames
 from .._io import read_samples
 from .._klt import TrainedBasis, note_toml, save_trained_basis, train_klt
 from .._profile import load_profile
-from .._report import pooled_label, with_unit
+from .._report import common_unit, pooled_label, with_unit
 from .common import check_distinct
 
 __all__ = ["register"]
@@ -115,8 +115,7 @@ def training_lines(values: np.ndarray, trained: TrainedBasis, units: dict) -> li
         u = units.get(m)
         lines.append(f"{m:<{width}} {u or '-':<{uw}} {count[i] // n:>7} "
                      f"{with_unit(float(ac_rms[i]), u):>16} {with_unit(float(err_rms[i]), u):>16}")
-    kinds = set(units.values())
-    one = next(iter(kinds)) if len(kinds) == 1 else None
+    one = common_unit(units)
     pooled = float(np.sqrt(c2[:, keep + 1:].sum() / (frames.shape[0] * n)))
     lines.append(f"{pooled_label(units)}: rms error {with_unit(pooled, one)}")
     return lines
