@@ -16,7 +16,7 @@ import math
 import numpy as np
 
 __all__ = ["error_figures", "stream_report", "scope_figures", "units_of", "with_unit",
-           "channel_table", "pooled_label"]
+           "channel_table", "pooled_label", "common_unit"]
 
 
 def _db(num: float, den: float) -> float | None:
@@ -157,6 +157,12 @@ def with_unit(value, unit: str | None, spec: str = ".4g", none: str = "n/a") -> 
         return none
     text = format(value, spec)
     return f"{text} {unit}" if unit else text
+
+
+def common_unit(units: dict) -> str | None:
+    """The unit every channel shares, else None (a pooled error over mixed units stays bare)."""
+    kinds = set(units.values())
+    return next(iter(kinds)) if len(kinds) == 1 else None
 
 
 def pooled_label(units: dict) -> str:

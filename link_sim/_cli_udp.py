@@ -12,12 +12,18 @@ import sys
 import threading
 from pathlib import Path
 
+import numpy as np
+
 from codec import (
+    DELIVERED,
     MAX_FILL_WINDOWS,
+    STATUS_NAMES,
     InputError,
     StreamDecoder,
     is_stdio,
     load_stream_note,
+    units_of,
+    with_unit,
     write_csv_block,
 )
 from codec.cli.common import check_paths, write_json
@@ -119,6 +125,7 @@ def _receive(args) -> int:
     decoder = StreamDecoder(profile, samples=note.samples if note else None,
                             max_fill=args.max_fill)
     info = sys.stderr if is_stdio(args.output) else sys.stdout
+    tally = ChannelTally(len(names))
     signals: list[str] = []
     with contextlib.ExitStack() as stack:
         if threading.current_thread() is threading.main_thread():
@@ -142,10 +149,13 @@ def _receive(args) -> int:
         def on_block(block) -> None:
             write_csv_block(sink, block.samples)
             sink.flush()
+            tally.add(block.samples, block.status)
 
         def on_finish(counts: dict) -> None:
             counts["channels"] = len(names)
             counts["events"] = decoder.events
+            counts["per_channel"] = tally.per_channel(names)
+            counts["units"] = units_of(profile)  # the range figures are in these units
             if sink is not None:
                 sink.flush()
             write_json(args.json, counts)
@@ -155,12 +165,60 @@ def _receive(args) -> int:
                                 on_finish=on_finish)
     print(f"{counts['datagrams']} datagrams, {counts['frames_ok'] + counts['gap_frames_ok']} "
           f"frames decoded in "
-          f"{counts['seconds']:.2f} s -> {counts['samples']} samples x {len(names)} channels: "
+          f"{counts['seconds']:.2f} s -> {counts['samples']} samples x {len(names)} channels; "
+          f"counted over all {len(names)} channels: "
           f"{counts['samples_delivered']} delivered, {counts['samples_lost']} lost, "
           f"{counts['samples_gap']} gap" + ("" if counts["end_known"] else
                                             "; the stream's end is not known")
           + f"; stopped: {counts['stopped']}", file=info)
+    print("\n".join(channel_count_lines(counts["per_channel"], counts["units"])), file=info)
     return 0
+
+
+class ChannelTally:
+    """Per channel: samples of each status and the range of the delivered values."""
+
+    def __init__(self, channels: int):
+        self.counts = np.zeros((len(STATUS_NAMES), channels), np.int64)
+        self.low = np.full(channels, np.inf)
+        self.high = np.full(channels, -np.inf)
+
+    def add(self, samples: np.ndarray, status: np.ndarray) -> None:
+        """Count one released block (samples x channels, with the decoder's status codes)."""
+        if not status.size:
+            return
+        codes = np.fromiter(STATUS_NAMES, np.int64)
+        self.counts += (status[None] == codes[:, None, None]).sum(axis=1)
+        got = status == DELIVERED
+        self.low = np.minimum(self.low, np.where(got, samples, np.inf).min(axis=0))
+        self.high = np.maximum(self.high, np.where(got, samples, -np.inf).max(axis=0))
+
+    def per_channel(self, names: list[str]) -> dict:
+        """The JSON ``per_channel`` map: counts per status, delivered min/max (None if none)."""
+        out = {}
+        for c, name in enumerate(names):
+            row = {f"samples_{v}": int(self.counts[i, c])
+                   for i, v in enumerate(STATUS_NAMES.values())}
+            seen = bool(np.isfinite(self.low[c]))
+            row["delivered_min"] = float(self.low[c]) if seen else None
+            row["delivered_max"] = float(self.high[c]) if seen else None
+            out[name] = row
+        return out
+
+
+def channel_count_lines(per_channel: dict, units: dict) -> list[str]:
+    """Per channel: unit, samples delivered, lost and gap, range of the delivered values."""
+    width = max([7] + [len(n) for n in per_channel])
+    uw = max([4] + [len(u or "-") for u in units.values()])
+    lines = [f"{'channel':<{width}} {'unit':<{uw}} {'delivered':>10} {'lost':>10} {'gap':>10} "
+             f"{'delivered min':>16} {'delivered max':>16}"]
+    for name, f in per_channel.items():
+        u = units.get(name)
+        lines.append(f"{name:<{width}} {u or '-':<{uw}} {f['samples_delivered']:>10} "
+                     f"{f['samples_lost']:>10} {f['samples_gap']:>10} "
+                     f"{with_unit(f['delivered_min'], u):>16} "
+                     f"{with_unit(f['delivered_max'], u):>16}")
+    return lines
 
 
 def _check_output(path: Path) -> None:

@@ -6,7 +6,7 @@ import hashlib
 
 import numpy as np
 from crcref import crc16_ibm3740_ref
-from realdata import basic_motions
+from realdata import motion
 
 import codec
 from codec.stream.search import locate_frames
@@ -40,11 +40,11 @@ def with_crc(frame_wo_crc: bytes, digest: bytes) -> bytes:
 
 
 def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int = 1, **enc):
-    """Encode the first ``samples`` rows of real accelerometer data (BasicMotions).
+    """Encode the first ``samples`` rows of real accelerometer counts (see realdata).
 
     One window per frame by default, so damage patterns hit single windows.
     """
-    x = basic_motions("train")[:samples, :channels]
+    x = motion("train")[:samples, :channels]
     return x, codec.encode(x, codec.Profile(frame_length=n, windows_per_frame=windows), **enc)
 
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from realdata import basic_motions
+from realdata import motion
 from streams import digest_of, keyed_crc
 
 import codec
@@ -25,7 +25,7 @@ N, SAMPLES, CHANNELS = 32, 640, 2  # 20 windows of 2 channels
 
 
 def _sender(windows_per_frame: int):
-    x = basic_motions("train")[:SAMPLES, :CHANNELS]
+    x = motion("train")[:SAMPLES, :CHANNELS]
     enc = codec.encode(x, codec.Profile(frame_length=N, windows_per_frame=windows_per_frame))
     loc = locate_frames(enc.data)
     frames = [enc.data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
@@ -91,14 +91,18 @@ def _link_case():
     o, n = int(starts[12]), int(lengths[12])
     digest = digest_of(enc.profile)
     # the first coefficient byte (the header ends before byte 10) whose change still
-    # decodes: a change the range decoder sees as impossible is refused, not delivered
+    # decodes and changes the samples: a change the range decoder sees as impossible is
+    # refused, not delivered, and a change in a bit the decoder never reads delivers the
+    # right samples (no error to count)
+    rows, c = _carried(12, 1)
     for b in range(10, n - 2):
         bad = bytearray(rx[o : o + n])
         bad[b] ^= 0x01
         # the CRC covers the profile digest (FRAME_LAYOUT.md, "Profile check"): rebuilt here
         bad[-2:] = keyed_crc(bytes(bad[:-2]), digest).to_bytes(2, "big")
-        if codec.decode(bytes(bad), enc.profile, samples=SAMPLES, strict=False).counts.get(
-                "frames_ok") == 1:
+        d = codec.decode(bytes(bad), enc.profile, samples=SAMPLES, strict=False)
+        if d.counts.get("frames_ok") == 1 and not np.array_equal(
+                d.samples[rows, c], enc.reconstruction[rows, c]):
             rx[o : o + n] = bad
             break
     else:

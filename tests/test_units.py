@@ -6,8 +6,14 @@ figures are recomputed here with plain NumPy from the README's definitions
 (SNR = 10 log10(sum x^2 / sum e^2), PRD = 100 sqrt(sum e^2 / sum x^2)).
 """
 
+import contextlib
+import io
 import json
+import queue
 import re
+import subprocess
+import sys
+import threading
 
 import numpy as np
 import pytest
@@ -136,3 +142,132 @@ def test_demo_prints_each_channel_with_its_unit(tmp_path, capsys):
     # every file the demo wrote is listed
     listed = out.split("outputs in ")[1].splitlines()[0].split(": ")[1].split(", ")
     assert sorted(listed) == sorted(p.name for p in tmp_path.iterdir())
+
+
+def _rows_after(out: str, head_start: list[str]) -> list[list[str]]:
+    """Rows of the table whose header line starts with ``head_start`` (up to a blank line)."""
+    lines = out.splitlines()
+    head = next(i for i, ln in enumerate(lines) if ln.split()[:len(head_start)] == head_start)
+    rows = []
+    for ln in lines[head + 1:]:
+        if not ln.strip() or ln.startswith(("(", "pooled")):
+            break
+        rows.append(ln.split())
+    return rows
+
+
+def test_compare_prints_errors_in_channel_units_and_labels_pooled_rows(pump, capsys):
+    x, d = pump
+    out_json = d / "c.json"
+    assert main(["compare", str(d / "pump.npy"), "-p", str(d / "pump.toml"), "--bases", "dct",
+                 "--fidelity", "0.99", "--json", str(out_json)]) == 0
+    out = capsys.readouterr().out
+    # pooled rows: labelled pooled; their max error mixes m/s² and °C, so it stays bare
+    assert "pooled over 4 channels of different units" in out
+    pooled = _rows_after(out, ["basis", "F"])
+    assert {r[0] for r in pooled} == {"identity", "dct"}
+    assert all(re.fullmatch(r"[0-9.e+-]+", r[11]) for r in pooled), pooled
+    # per-channel rows: a unit column, and the max error followed by the channel's unit
+    rows = _rows_after(out, ["F", "channel", "unit"])
+    assert [r[1] for r in rows] == ["ch0", "ch1", "ch2", "ch3"]
+    assert [r[2] for r in rows] == list(UNITS.values())
+    assert [r[-1] for r in rows] == list(UNITS.values())
+    rep = json.loads(out_json.read_text())
+    assert rep["units"] == dict(zip(["ch0", "ch1", "ch2", "ch3"], UNITS.values()))
+    # the printed error is the JSON row's (SI number as measured), to the 4 printed digits
+    want = {r["channel"]: r["max_abs_error"] for r in rep["rows"]
+            if r["winner"] and r["channel"] != "all"}
+    for r in rows:
+        assert float(r[-2]) == pytest.approx(want[r[1]], rel=5e-4), r
+
+
+def test_compare_pooled_error_carries_the_unit_all_channels_share(tmp_path, capsys):
+    rng = np.random.default_rng(12)
+    x = np.cumsum(rng.normal(size=(1024, 2)), axis=0)
+    np.save(tmp_path / "v.npy", x)
+    save_profile(Profile(frame_length=32, channels=(ChannelSpec(name="ch0", unit="m/s²"),
+                                                    ChannelSpec(name="ch1", unit="m/s²"))),
+                 tmp_path / "v.toml")
+    assert main(["compare", str(tmp_path / "v.npy"), "-p", str(tmp_path / "v.toml"),
+                 "--bases", "dct", "--fidelity", "0.95"]) == 0
+    out = capsys.readouterr().out
+    assert "pooled over 2 channels, all in m/s²:" in out
+    assert all(r[12] == "m/s²" for r in _rows_after(out, ["basis", "F"]))
+
+
+def test_train_prints_errors_in_channel_units_recomputed_from_the_basis_file(pump, capsys):
+    x, d = pump
+    basis = d / "k.cwbasis.npz"
+    assert main(["train", str(d / "pump.npy"), "-o", str(basis), "--frame-length", "16",
+                 "-p", str(d / "pump.toml")]) == 0
+    out = capsys.readouterr().out
+    keep = int(re.search(r"the first (\d+) others", out).group(1))
+    rows = _rows_after(out, ["channel", "unit", "frames"])
+    assert [r[0] for r in rows] == ["ch0", "ch1", "ch2", "ch3"]
+    assert [r[1] for r in rows] == list(UNITS.values())
+    assert [r[4] for r in rows] == list(UNITS.values())  # rms about the mean
+    assert [r[6] for r in rows] == list(UNITS.values())  # rms error
+    assert "pooled over 4 channels of different units" in out
+    # Recomputed with plain NumPy from the matrix in the file: project each channel's
+    # frames on the constant row and the next `keep` rows, rms of what is left.
+    m = np.load(basis)["matrix"][: keep + 1]
+    for c, r in enumerate(rows):
+        frames = x[: x.shape[0] // 16 * 16, c].reshape(-1, 16)
+        resid = frames - (frames @ m.T) @ m
+        assert float(r[5]) == pytest.approx(np.sqrt(np.mean(resid ** 2)), rel=5e-4), r
+        ac = frames - frames.mean(axis=1, keepdims=True)
+        assert float(r[3]) == pytest.approx(np.sqrt(np.mean(ac ** 2)), rel=5e-4), r
+    # a profile that lacks a trained column is refused in one sentence, exit 2
+    save_profile(Profile(channels=(ChannelSpec(name="other"),)), d / "other.toml")
+    capsys.readouterr()
+    assert main(["train", str(d / "pump.npy"), "-o", str(d / "y.cwbasis.npz"),
+                 "-p", str(d / "other.toml"), "--frame-length", "16"]) == 2
+    assert "no channel named ch0" in capsys.readouterr().err
+    assert not (d / "y.cwbasis.npz").exists()
+
+
+def test_receive_prints_counts_and_ranges_in_channel_units(pump, tmp_path):
+    # 'receive' in its own process on port 0 says which port it bound (on stderr), then
+    # 'send' moves the stream over loopback UDP; its summary and JSON are checked.
+    x, d = pump
+    stream = d / "s.cwire"
+    with contextlib.redirect_stdout(io.StringIO()):
+        assert main(["encode", str(d / "pump.npy"), "-p", str(d / "pump.toml"),
+                     "-o", str(stream)]) == 0
+    argv = [sys.executable, "-m", "codec.cli", "receive", "--udp", "127.0.0.1:0", "-p",
+            f"{stream}.profile.toml", "-o", str(d / "rx.csv"), "--json", str(d / "rx.json"),
+            "--duration", "60", "--idle", "30"]
+    with subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                          text=True, encoding="utf-8") as proc:
+        lines: queue.Queue = queue.Queue()
+        reader = threading.Thread(target=lambda: [lines.put(ln) for ln in proc.stdout])
+        reader.start()
+        try:
+            first = lines.get(timeout=120)  # generous: a loaded machine imports numpy slowly
+            assert first.startswith("listening on 127.0.0.1:"), first
+            with contextlib.redirect_stdout(io.StringIO()):
+                assert main(["send", str(stream), "--udp",
+                             f"127.0.0.1:{int(first.rsplit(':', 1)[1])}"]) == 0
+            assert proc.wait(timeout=120) == 0
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+            proc.wait()
+            reader.join()
+    out = "".join(lines.queue)
+    assert "counted over all 4 channels: 8192 delivered, 0 lost" in out
+    rows = _rows_after(out, ["channel", "unit", "delivered"])
+    assert [r[1] for r in rows] == list(UNITS.values())
+    assert [r[2] for r in rows] == ["2048"] * 4
+    assert [r[6] for r in rows] == list(UNITS.values())  # delivered min, with its unit
+    assert [r[8] for r in rows] == list(UNITS.values())  # delivered max, with its unit
+    rep = json.loads((d / "rx.json").read_text())
+    assert rep["units"] == dict(zip(["ch0", "ch1", "ch2", "ch3"], UNITS.values()))
+    # the range is that of the samples written (what the batch decoder gives, too)
+    got = np.loadtxt(d / "rx.csv", delimiter=",", skiprows=1)
+    for c, (name, f) in enumerate(rep["per_channel"].items()):
+        assert f["samples_delivered"] == x.shape[0]
+        assert f["delivered_min"] == pytest.approx(got[:, c].min(), abs=1e-3)
+        assert f["delivered_max"] == pytest.approx(got[:, c].max(), abs=1e-3)
+        # and within the profile's resolution-bounded coding error of the sent samples
+        assert f["delivered_max"] == pytest.approx(x[:, c].max(), abs=1.0), name

@@ -10,6 +10,7 @@ from .._compare import ROW_KEYS, compare_bases
 from .._errors import InputError
 from .._io import atomic_output, read_samples
 from .._profile import default_profile, load_profile
+from ..report import common_unit, pooled_label, units_of, with_unit
 from ._codec_cmds import _CAUTION
 from .common import check_distinct, fmt, json_ready, write_json
 
@@ -65,7 +66,8 @@ def _compare(args) -> int:
     cmp = compare_bases(table.values, profile, args.bases, _fidelities(args.fidelity),
                         args.train_fraction, names=table.names,
                         input_name=Path(args.input).name, progress=True)
-    lines = _table(cmp)
+    units = units_of(profile.bind(cmp.names))
+    lines = _table(cmp, units)
     print("\n".join(lines))
     report = {
         "input": str(args.input), "frame_length": cmp.frame_length,
@@ -74,6 +76,8 @@ def _compare(args) -> int:
         "scoring": "trained bases are fitted on the first train_samples samples; every basis "
                    "is scored on the remaining test_samples",
         "rows": cmp.rows,
+        # errors in the rows are in each channel's unit (SI numbers as measured)
+        "units": units,
     }
     if cmp.trained is not None:
         report["klt"] = cmp.trained.note.model_dump()
@@ -94,25 +98,38 @@ def _compare(args) -> int:
     return 1 if missed else 0
 
 
-def _table(cmp) -> list[str]:
+def _table(cmp, units: dict) -> list[str]:
+    """The printed comparison: pooled rows per basis, then each channel's fewest-bits basis.
+
+    Errors carry the channel's unit; the pooled rows carry one only when every
+    channel shares it, and are labelled pooled (:func:`codec.pooled_label`).
+    """
+    one = common_unit(units)
     head = (f"{'basis':<9} {'F':>6} {'bit/smp':>8} {'bit/frm':>8} {'p95':>7} {'ratio':>6} "
             f"{'saved%':>7} {'F min':>8} {'F mean':>8} {'SNR dB':>7} {'PRD %':>7} "
-            f"{'max|err|':>9} {'enc ms':>7}")
+            f"{'max|err|':>14} {'enc ms':>7}")
     out = [f"scored on the last {cmp.test_samples} samples (held out); trained bases fitted on "
            f"the first {cmp.train_samples}; N = {cmp.frame_length}; bits include every header "
            "and CRC; saved% is against the identity basis; * = fewest bits; F is held per "
            f"{cmp.rows[0]['fidelity_scope'] if cmp.rows else 'frame'} (budget scope)",
-           "", "all channels:", head]
+           "", f"{pooled_label(units)}:", head]
     for r in cmp.rows:
         if r["channel"] == "all":
-            out.append(_line(r))
-    out += ["", "fewest bits per channel:"]
+            out.append(_line(r, one))
+    out += ["", "fewest bits per channel (max error in the channel's unit):"]
+    width = max([7] + [len(n) for n in cmp.names])
+    uw = max([4] + [len(u or "-") for u in units.values()])
+    out.append(f"{'F':>6} {'channel':<{width}} {'unit':<{uw}} {'basis':<9} {'bit/smp':>8} "
+               f"{'saved%':>7} {'SNR dB':>7} {'PRD %':>7} {'max|err|':>14}")
     for f in cmp.fidelities:
         wins = [r for r in cmp.winners() if r["fidelity_target"] == f and r["channel"] != "all"]
         wins.sort(key=lambda r: cmp.names.index(r["channel"]))
-        out.append(f"  F = {f:g}: " + ", ".join(
-            f"{r['channel']} {r['basis']} ({r['bits_per_sample']:.2f} bit/smp, "
-            f"{r['bits_saved_percent']:.1f}% saved)" for r in wins))
+        for r in wins:
+            unit = units.get(r["channel"])
+            out.append(f"{f:>6g} {r['channel']:<{width}} {unit or '-':<{uw}} {r['basis']:<9} "
+                       f"{r['bits_per_sample']:>8.3f} {r['bits_saved_percent']:>7.1f} "
+                       f"{fmt(r['snr_db'], '.2f'):>7} {fmt(r['prd_percent'], '.3f'):>7} "
+                       f"{with_unit(r['max_abs_error'], unit):>14}")
     floor = sum(r["frames_at_floor"] for r in cmp.rows if r["channel"] == "all")
     if floor:
         out.append(f"{floor} frames were held to the sensor-resolution floor instead of F "
@@ -121,11 +138,11 @@ def _table(cmp) -> list[str]:
     return out
 
 
-def _line(r: dict) -> str:
+def _line(r: dict, unit: str | None) -> str:
     return (f"{r['basis']:<9} {r['fidelity_target']:>6g} {r['bits_per_sample']:>8.3f} "
             f"{r['bits_per_frame_mean']:>8.1f} {r['bits_per_frame_p95']:>7.0f} "
             f"{fmt(r['compression_ratio'], '.2f'):>6} {r['bits_saved_percent']:>7.1f} "
             f"{fmt(r['fidelity_min'], '.5f'):>8} {fmt(r['fidelity_mean'], '.5f'):>8} "
             f"{fmt(r['snr_db'], '.2f'):>7} "
-            f"{fmt(r['prd_percent'], '.3f'):>7} {r['max_abs_error']:>9.4g} "
+            f"{fmt(r['prd_percent'], '.3f'):>7} {with_unit(r['max_abs_error'], unit):>14} "
             f"{1000 * r['encode_seconds']:>7.1f}{' *' if r['winner'] else ''}")
