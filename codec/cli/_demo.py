@@ -14,8 +14,8 @@ from pathlib import Path
 from .._compare import compare_bases
 from .._io import SampleTable, csv_decimals, read_samples, write_samples
 from .._profile import load_profile
-from ..report import units_of
 from .._timecol import time_fields
+from ..report import units_of
 from ._codec_cmds import channel_figure_lines, roundtrip_report, write_stream
 from .common import fmt, write_json
 

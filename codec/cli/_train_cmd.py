@@ -8,11 +8,11 @@ from pathlib import Path
 import numpy as np
 
 from .._errors import InputError, ProfileError
-from ..transform.framing import split_frames
 from .._io import read_samples
-from ..transform.klt import TrainedBasis, note_toml, save_trained_basis, train_klt
 from .._profile import load_profile
 from ..report import common_unit, pooled_label, with_unit
+from ..transform.framing import split_frames
+from ..transform.klt import TrainedBasis, note_toml, save_trained_basis, train_klt
 from .common import check_distinct
 
 __all__ = ["register"]
