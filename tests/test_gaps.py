@@ -292,3 +292,41 @@ def _samples_of(enc, inner: bytes) -> int:
     from codec._codec import decode_frames, profile_basis
 
     return int(decode_frames([inner], enc.profile, profile_basis(enc.profile)).row_valid.sum())
+
+
+@pytest.mark.parametrize("layout, multi", [(1, False), (2, False), (2, True), (3, True),
+                                           (4, False), (4, True)])
+def test_mark_roundtrip_every_layout(layout, multi):
+    # Gaps of every shape (a run across a window edge, whole windows, a whole channel of
+    # one frame, the last sample) under every layout and frame packing: the decoder's NaN
+    # are exactly the input's, every other sample is the encoder's reconstruction.
+    x = basic_motions("train")[:700, :3].copy()
+    x[60:70, 0] = np.nan  # across the edge of windows 0 and 1 (N = 64)
+    x[128:320, 1] = np.nan  # three whole windows
+    x[400:403, 2] = np.nan
+    x[-1, :] = np.nan
+    prof = codec.Profile(layout_version=layout, multi_channel_frames=multi,
+                         windows_per_frame=4)
+    enc = codec.encode(x, prof, gaps="mark")
+    dec = codec.decode(enc.data, enc.profile, samples=700)
+    np.testing.assert_array_equal(dec.status == codec.GAP, np.isnan(x))
+    np.testing.assert_array_equal(dec.samples, enc.reconstruction)
+    assert dec.counts["samples_lost"] == 0
+
+
+def test_mark_an_all_empty_channel():
+    # A channel with no value at all under `mark`: filled with 0 for the coder, sent with
+    # no coefficients, and every one of its samples comes back as a gap.
+    x = basic_motions("train")[:300, :2].copy()
+    x[:, 1] = np.nan
+    enc = codec.encode(x, codec.Profile(frame_length=32), gaps="mark")
+    dec = codec.decode(enc.data, enc.profile, samples=300)
+    assert (dec.status[:, 1] == codec.GAP).all() and dec.delivered[:, 0].all()
+    assert (dec.frames["terms"][dec.frames["channel"] == 1] == 0).all()
+
+
+def test_a_gap_frame_too_long_for_its_length_field_is_an_input_error():
+    # The 16-bit length field (FRAME_LAYOUT.md) bounds a gap-mask frame at 65 535 bytes.
+    frame = b"\xe3\x5a" + bytes(70_000)
+    with pytest.raises(codec.InputError, match="fewer windows per frame"):
+        pack_gap_frame(frame, np.ones(4, bool), FrameKey(EXAMPLE_DIGEST))
