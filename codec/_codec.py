@@ -823,30 +823,38 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
                       np.zeros(p["frame"].size, np.int64), rows, window_offset, sub_valid))
 
     masks: dict[int, list] = {}
-    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames: one parse each
+    wrapped: list[tuple[int, int]] = []  # (gap-mask frame, bit where its runs start)
+    inners: list[bytes] = []
+    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames: split each, then one batch
         got = unwrap_gap_frame(frames[f])
         if isinstance(got, str):
             ok[f], verdict[f], detail[f] = False, "bad_header", got
             continue
-        inner, at = got
-        sub = decode_frames([inner], profile, basis)  # the inner frame's own checks
-        if sub.verdict[0] != "ok":
-            ok[f], verdict[f] = False, sub.verdict[0]
-            detail[f] = f"gap frame: {sub.detail[0] or sub.verdict[0]}"
-            continue
-        gap = read_gap_runs(frames[f], at, int(sub.row_valid.sum()))
-        if isinstance(gap, str):
-            ok[f], verdict[f], detail[f] = False, "bad_header", gap
-            continue
-        sequence[f], valid[f], modulus[f] = sub.sequence[0], sub.valid[0], sub.modulus[0]
-        # the runs index the inner frame's rows in order, each its valid samples
-        cuts = np.cumsum(sub.row_valid)[:-1]
-        masks[f] = [(int(ch), m, int(off)) for ch, m, off in
-                    zip(sub.row_channel, np.split(gap, cuts), sub.row_offset) if m.any()]
-        parts.append((np.full(sub.rows.shape[0], f), sub.row_channel, sub.row_flags, sub.rows,
-                      sub.row_offset, sub.row_valid))
-        for k in _HEAD_KEYS:
-            head[k][f] = sub.head[k][0]
+        wrapped.append((f, got[1]))
+        inners.append(got[0])
+    if inners:
+        sub = decode_frames(inners, profile, basis)  # the inner frames' own checks, at once
+        bounds = np.searchsorted(sub.row_frame, np.arange(len(inners) + 1)).tolist()
+        for j, (f, at) in enumerate(wrapped):
+            if sub.verdict[j] != "ok":
+                ok[f], verdict[f] = False, sub.verdict[j]
+                detail[f] = f"gap frame: {sub.detail[j] or sub.verdict[j]}"
+                continue
+            r = slice(bounds[j], bounds[j + 1])
+            gap = read_gap_runs(frames[f], at, int(sub.row_valid[r].sum()))
+            if isinstance(gap, str):
+                ok[f], verdict[f], detail[f] = False, "bad_header", gap
+                continue
+            sequence[f], valid[f], modulus[f] = sub.sequence[j], sub.valid[j], sub.modulus[j]
+            # the runs index the inner frame's rows in order, each its valid samples
+            cuts = np.cumsum(sub.row_valid[r])[:-1]
+            masks[f] = [(int(ch), m, int(off)) for ch, m, off in
+                        zip(sub.row_channel[r], np.split(gap, cuts), sub.row_offset[r])
+                        if m.any()]
+            parts.append((np.full(r.stop - r.start, f), sub.row_channel[r], sub.row_flags[r],
+                          sub.rows[r], sub.row_offset[r], sub.row_valid[r]))
+            for k in _HEAD_KEYS:
+                head[k][f] = sub.head[k][j]
 
     if parts:
         rf, rc, rfl, rr, ro, rv = (np.concatenate(c) for c in zip(*parts))

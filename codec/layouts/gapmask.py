@@ -48,6 +48,7 @@ from .v1v2 import GAP_KIND, SYNC, frame_extent
 __all__ = [
     "GAP_POLICIES",
     "GAP_FORMAT",
+    "MAX_GAP_FRAME_BYTES",
     "fill_gaps",
     "mask_runs",
     "pack_gap_frame",
