@@ -18,7 +18,13 @@ from ._profile import Profile, profile_digest, profile_id
 from .entropy.bits import MAX_FIELD_BITS
 from .entropy.rangecoder import coefficient_cost_bits
 from .entropy.rice import exp_golomb_bits, zigzag
-from .layouts.gapmask import GAP_POLICIES, fill_gaps, pack_gap_frame, parse_gap_frame
+from .layouts.gapmask import (
+    GAP_POLICIES,
+    fill_gaps,
+    pack_gap_frame,
+    read_gap_runs,
+    unwrap_gap_frame,
+)
 from .layouts.v1v2 import (
     GAP_KIND,
     LAYOUT_VERSION,
@@ -30,8 +36,6 @@ from .layouts.v1v2 import (
     FrameBatchV2,
     FrameKey,
     expected_length,
-    frame_crc_ok,
-    frame_extent,
     index_bits,
     pack_frames,
     pack_frames_v2,
@@ -238,10 +242,10 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     e_ref = reference_energy(frames, valid, profile.reference)
     budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak, n)
     # Budget blocks: the windows of one channel in one frame (frame scope), else None
-    # (every window its own budget, as before).  Gap-mask frames carry one window each.
+    # (every window its own budget, as before).  Gap-mask frames wrap whole frames.
     block = block_budget = None
     if (profile.fidelity_scope == "frame" and profile.layout_version >= 3
-            and profile.windows_per_frame > 1 and not (gaps == "mark" and missing is not None)):
+            and profile.windows_per_frame > 1):
         block = budget_blocks(channel, window + first_window, profile.windows_per_frame)
         block_budget = block_budgets(e_ref, profile.fidelity, resolution, valid, peak, n, block)
     mean = None
@@ -354,6 +358,11 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     if missing is not None and gaps == "mark":
         fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
         gap_rows = fmiss.any(axis=1)
+        # a window of nothing but gaps is never shown: its coefficients need not be sent
+        empty = (fmiss & mask).sum(axis=1) == valid
+        q[empty] = 0
+        if mean_int is not None:
+            mean_int[empty] = 0
     if profile.layout_version == 1:
         kept = q != 0
         batch = FrameBatch(
@@ -374,20 +383,13 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         row_frame = (np.unique(window, return_inverse=True)[1] if profile.multi_channel_frames
                      else np.arange(channel.size))
     else:
-        # gap-mask frames wrap the data frame of one window: windows with a gap travel
-        # one per frame, the runs between them keep sharing headers
-        groups = None if gap_rows is None else _gap_groups(
-            window, channel, gap_rows, profile.windows_per_frame, x.shape[1],
-            profile.multi_channel_frames)
         data, frame_bits, header_bits, row_frame = _pack_v3(
             profile, channel, window + first_window, valid, code, mean_int, q, n, trellis,
-            groups, key=frame_key(profile, basis))
+            key=frame_key(profile, basis))
     extra_bits = 0
     if gap_rows is not None:
-        data, dropped, extra_bits = _add_gap_frames(
-            data, row_frame, fmiss, gap_rows, channel, window + first_window, valid,
-            profile_id(profile), n, frame_key(profile, basis))
-        frame_bits = np.where(dropped, 0, frame_bits)
+        data, extra_bits = _add_gap_frames(data, row_frame, fmiss, gap_rows, valid,
+                                           frame_key(profile, basis))
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
@@ -417,47 +419,33 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
 
 
 def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_gap: np.ndarray,
-                    channel: np.ndarray, sequence: np.ndarray, valid: np.ndarray, pid: int,
-                    n: int, key: FrameKey) -> tuple[bytes, np.ndarray, int]:
+                    valid: np.ndarray, key: FrameKey) -> tuple[bytes, int]:
     """Wrap every data frame holding a gap in a gap-mask frame (``codec.layouts.gapmask``).
 
-    ``row_frame`` maps each row (one window of one channel) to its data frame
-    (several rows share a multi-channel frame).  A window whose rows are all
-    gap sends the masks alone.  Returns the new stream, which rows lost their
-    data frame, and the bits the gap-mask frames add.
+    ``row_frame`` maps each row (one window of one channel) to its data frame;
+    a frame carries its rows in row order (window by window, channel by
+    channel), which is the order of the samples its runs index.  Returns the
+    new stream and the bits the gap-mask frames add.
     """
     loc = locate_frames(data, key)  # our own clean stream: one entry per data frame
-    nframes = loc.offsets.size
-    full = (fmiss & (np.arange(n) < valid[:, None])).sum(axis=1) == valid
-    all_gap = np.ones(nframes, dtype=bool)
-    np.logical_and.at(all_gap, row_frame, full)
-    masks: list[list] = [[] for _ in range(nframes)]
-    for r in np.flatnonzero(has_gap).tolist():  # rows with gaps only
-        masks[row_frame[r]].append((int(channel[r]), fmiss[r]))
-    first = np.unique(row_frame, return_index=True)[1]  # each frame's first row
+    wrap = np.zeros(loc.offsets.size, dtype=bool)
+    wrap[row_frame[has_gap]] = True
     pieces: list[bytes] = []
     extra = 0
     mv = memoryview(data)
+    have = np.arange(fmiss.shape[1]) < valid[:, None]
+    by_frame = np.argsort(row_frame, kind="stable")  # each frame's rows, in row order
+    bounds = np.searchsorted(row_frame[by_frame], np.arange(wrap.size + 1)).tolist()
     for f, (o, ln) in enumerate(zip(loc.offsets.tolist(), loc.lengths.tolist())):
         frame = mv[o : o + ln]
-        if not masks[f]:
+        if not wrap[f]:
             pieces.append(frame)
             continue
-        r = first[f]
-        # the inner frame is signed with the inner key: found alone, it fails its CRC
-        inner = b"" if all_gap[f] else _resign(bytes(frame), key.inner())
-        g = pack_gap_frame(pid, int(sequence[r]), int(valid[r]), masks[f], inner, n, key)
+        rows = by_frame[bounds[f] : bounds[f + 1]]  # frames with gaps only: one step each
+        g = pack_gap_frame(bytes(frame), fmiss[rows][have[rows]], key)
         pieces.append(g)
-        extra += 8 * (len(g) - len(inner))
-    return b"".join(pieces), all_gap[row_frame], extra
-
-
-def _resign(frame: bytes, key: FrameKey) -> bytes:
-    """``frame`` with its CRC recomputed under ``key``."""
-    from .layouts.crc import crc16_ibm3740
-
-    crc = crc16_ibm3740(key.prefix(len(frame)) + frame[len(SYNC) : -2])
-    return frame[:-2] + crc.to_bytes(2, "big")
+        extra += 8 * (len(g) - ln)
+    return b"".join(pieces), extra
 
 
 def _v1_term_bits(batch: FrameBatch, n: int) -> int:
@@ -504,27 +492,6 @@ def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n, key
     bits[first] += overhead - (overhead // cnt) * cnt
     coef_bits = sub_bits - side_bits
     return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
-
-
-def _gap_groups(window: np.ndarray, channel: np.ndarray, gap_rows: np.ndarray, w: int,
-                channels: int, multi: bool) -> np.ndarray:
-    """Frame group of each row: a window with a gap alone, the runs between in groups of ``w``.
-
-    Per channel (each channel has its own frames), or per window when one frame
-    carries every channel.  Groups are numbered by their first window, then
-    channel, so frames stay in time order on the wire.
-    """
-    nwin = int(window.max()) + 1
-    cols = 1 if multi else channels
-    col = np.zeros_like(channel) if multi else channel
-    gap = np.zeros((nwin, cols), dtype=bool)
-    gap[window[gap_rows], col[gap_rows]] = True
-    start = gap | np.vstack([np.ones((1, cols), bool), gap[:-1]])  # at a gap, right after one
-    idx = np.arange(nwin)[:, None]
-    run_first = np.maximum.accumulate(np.where(start, idx, 0), axis=0)
-    chunk_start = run_first + (idx - run_first) // w * w  # first window of each row's group
-    key = chunk_start * cols + np.arange(cols)[None, :]
-    return np.unique(key, return_inverse=True)[1].reshape(nwin, cols)[window, col]
 
 
 def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, trellis=None,
@@ -702,9 +669,9 @@ class FrameRows:
     sequence range), ``valid`` and a few header fields in ``head`` for the
     frame table.  Per row (one window of one channel; a multi-channel frame
     has several): ``row_frame``, ``row_channel``, ``row_flags`` and the decoded
-    ``rows`` (NaN for refused frames).  ``masks`` holds the ``(channel, mask)``
-    pairs of each accepted gap-mask frame, by frame index; the rows of its
-    inner data frame, if any, belong to the same frame index.
+    ``rows`` (NaN for refused frames).  ``masks`` holds the ``(channel, mask,
+    window offset)`` of every row with gaps of each accepted gap-mask frame, by
+    frame index; the rows of its inner data frame belong to the same index.
     """
 
     kind: np.ndarray
@@ -734,8 +701,9 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
     before use: v1 terms <= N, widths <= 57 bits, valid in 1..N, term index < N
     and the length field equal to the length the fields imply, all before any
     payload field is read; v2 coefficient counts <= N and the coded contents
-    filling the frame exactly (checked by the v2 parser); gap masks by
-    :func:`codec.layouts.gapmask.parse_gap_frame`.
+    filling the frame exactly (checked by the v2 parser); gap-mask frames by
+    :func:`codec.layouts.gapmask.unwrap_gap_frame`, the inner frame's own
+    checks, then :func:`codec.layouts.gapmask.read_gap_runs`.
     """
     n = profile.frame_length
     channels = len(profile.channels)
@@ -758,7 +726,6 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
     valid = np.zeros(nf, np.int64)
     head = {k: np.zeros(nf, dtype=np.int64) for k in _HEAD_KEYS}
     pid = profile_id(profile)
-    key = frame_key(profile, basis)
 
     def refuse(idx: np.ndarray, bad: np.ndarray, key: str, words) -> None:
         for f in idx[bad & ok[idx]].tolist():  # only the refused frames, usually none
@@ -856,35 +823,38 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
                       np.zeros(p["frame"].size, np.int64), rows, window_offset, sub_valid))
 
     masks: dict[int, list] = {}
-    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames are rare: one parse each
-        parsed = parse_gap_frame(frames[f], n, channels)
-        if isinstance(parsed, str):
-            ok[f], verdict[f], detail[f] = False, "bad_header", parsed
+    wrapped: list[tuple[int, int]] = []  # (gap-mask frame, bit where its runs start)
+    inners: list[bytes] = []
+    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames: split each, then one batch
+        got = unwrap_gap_frame(frames[f])
+        if isinstance(got, str):
+            ok[f], verdict[f], detail[f] = False, "bad_header", got
             continue
-        gh, fmasks, inner = parsed
-        sequence[f], valid[f] = gh["sequence"], gh["valid"]
-        if gh["profile"] != pid:
-            ok[f], verdict[f] = False, "foreign_profile"
-            detail[f] = f"gap frame of profile {gh['profile']:#06x}"
-            continue
-        masks[f] = fmasks
-        if not inner:
-            continue
-        why = _inner_problem(inner, key.inner())
-        sub = None if why else decode_frames([inner], profile, basis)
-        if sub is not None and sub.verdict[0] != "ok":
-            why = sub.detail[0] or sub.verdict[0]
-        elif sub is not None and (sub.valid[0] != gh["valid"] or
-                                  (gh["sequence"] - sub.sequence[0]) % sub.modulus[0]):
-            why = "inner frame is not of the gap frame's window"
-        if why:
-            ok[f], verdict[f], detail[f] = False, "bad_header", f"gap frame: {why}"
-            del masks[f]
-            continue
-        parts.append((np.full(sub.rows.shape[0], f), sub.row_channel, sub.row_flags, sub.rows,
-                      sub.row_offset, sub.row_valid))
-        for k in _HEAD_KEYS:
-            head[k][f] = sub.head[k][0]
+        wrapped.append((f, got[1]))
+        inners.append(got[0])
+    if inners:
+        sub = decode_frames(inners, profile, basis)  # the inner frames' own checks, at once
+        bounds = np.searchsorted(sub.row_frame, np.arange(len(inners) + 1)).tolist()
+        for j, (f, at) in enumerate(wrapped):
+            if sub.verdict[j] != "ok":
+                ok[f], verdict[f] = False, sub.verdict[j]
+                detail[f] = f"gap frame: {sub.detail[j] or sub.verdict[j]}"
+                continue
+            r = slice(bounds[j], bounds[j + 1])
+            gap = read_gap_runs(frames[f], at, int(sub.row_valid[r].sum()))
+            if isinstance(gap, str):
+                ok[f], verdict[f], detail[f] = False, "bad_header", gap
+                continue
+            sequence[f], valid[f], modulus[f] = sub.sequence[j], sub.valid[j], sub.modulus[j]
+            # the runs index the inner frame's rows in order, each its valid samples
+            cuts = np.cumsum(sub.row_valid[r])[:-1]
+            masks[f] = [(int(ch), m, int(off)) for ch, m, off in
+                        zip(sub.row_channel[r], np.split(gap, cuts), sub.row_offset[r])
+                        if m.any()]
+            parts.append((np.full(r.stop - r.start, f), sub.row_channel[r], sub.row_flags[r],
+                          sub.rows[r], sub.row_offset[r], sub.row_valid[r]))
+            for k in _HEAD_KEYS:
+                head[k][f] = sub.head[k][j]
 
     if parts:
         rf, rc, rfl, rr, ro, rv = (np.concatenate(c) for c in zip(*parts))
@@ -896,17 +866,6 @@ def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameR
         rr = np.zeros((0, n))
     return FrameRows(kind, verdict, detail, crc, sequence, modulus, valid, head, rf, rc, rfl,
                      rr, masks, ro, rv)
-
-
-def _inner_problem(inner: bytes, key: FrameKey) -> str:
-    """Why the bytes inside a gap-mask frame are not one whole, CRC-valid data frame ('' if ok)."""
-    mv = memoryview(inner)
-    length = frame_extent(mv, 0)
-    if length is None or length != len(inner) or (inner[len(SYNC)] >> 4) == GAP_KIND:
-        return "inner bytes are not one data frame"
-    if not frame_crc_ok(mv, 0, length, key):
-        return "inner frame fails its CRC"
-    return ""
 
 
 def decode(data: bytes, profile: Profile, samples: int | None = None,

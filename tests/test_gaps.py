@@ -2,18 +2,22 @@
 
 from __future__ import annotations
 
-import hashlib
-
 import bitstring
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from realdata import motion
-from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
+from streams import EXAMPLE_DIGEST, assert_accounting, with_crc
 
 import codec
-from codec.layouts.gapmask import fill_gaps, pack_gap_frame, parse_gap_frame
+from codec.layouts.gapmask import (
+    fill_gaps,
+    mask_runs,
+    pack_gap_frame,
+    read_gap_runs,
+    unwrap_gap_frame,
+)
 from codec.layouts.v1v2 import FrameKey
 from codec.stream.search import locate_frames
 
@@ -38,8 +42,8 @@ def test_mark_reproduces_nans_exactly():
     assert np.array_equal(dec.samples, enc.reconstruction, equal_nan=True)
     assert dec.counts["samples_gap"] == np.isnan(x).sum()
     assert_accounting_gap(dec)
-    # The whole-gap frames send no data frame, only their masks: 28 data rows of 30.
-    assert dec.frames["window"].size == 10 * 3 - 2
+    # Every row travels (an all-gap window with no coefficients): 30 data rows of 30.
+    assert dec.frames["window"].size == 10 * 3
     assert dec.counts["frames_ok"] + dec.counts["gap_frames_ok"] == len(locate_frames(enc.data)
                                                                           .offsets)
 
@@ -67,7 +71,7 @@ def test_mark_roundtrip_any_nan_runs(runs, n):
     assert np.array_equal(np.isnan(d2.samples), np.isnan(x))
 
 
-@pytest.mark.parametrize("layout", [1, 2])
+@pytest.mark.parametrize("layout", [1, 2, 3])
 def test_gap_masks_and_data_travel_together(layout):
     x = _with_gaps(motion("train")[:300, :3])
     enc = codec.encode(x, codec.Profile(frame_length=32, layout_version=layout), gaps="mark")
@@ -107,79 +111,120 @@ def test_refuse_is_the_default():
         codec.encode(x, codec.Profile(), gaps="fill")
 
 
+def _example_mask() -> np.ndarray:
+    # P = 16 samples (two full windows of N = 8 of one channel); missing 1-2, 7-9 (across
+    # the window boundary) and 14: runs (1, 2), (7, 3), (14, 1).
+    mask = np.zeros(16, bool)
+    mask[[1, 2, 7, 8, 9, 14]] = True
+    return mask
+
+
+#: The worked example's stand-in inner frame: a version-3 envelope claiming 8 bytes
+#: (0x30 0x08: version 3, short length 8), profile byte 0xef, sequence 0x12, CRC 0xabcd.
+_EXAMPLE_INNER = bytes.fromhex("e35a3008ef12abcd")
+
+
 def test_gap_frame_layout_by_hand():
-    # N = 8 (index bits 3), window 70000 (sequence 70000 mod 65536 = 4464), valid 8,
-    # channel 2 missing positions 1-2 and 6: runs (1, 2) and (6, 1); inner frame 3 bytes.
-    mask = np.array([0, 1, 1, 0, 0, 0, 1, 0], bool)
-    inner = b"\xe3\x5a\x10"
-    got = pack_gap_frame(profile=0xBEEF, sequence=70000, valid=8, masks=[(2, mask)],
-                         inner=inner, n=8, key=FrameKey(EXAMPLE_DIGEST))
-    # Reference built field by field with bitstring from the table in codec/layouts/gapmask.py:
-    # kind 15, flags 0, length, profile, sequence, valid, masks 1, reserved 0; then
-    # channel 2, runs 2, (start, count - 1) = (1, 1), (6, 0); zero padding; inner; CRC.
-    mask_bits = 8 + 13 + 4 * 3
-    length = 2 + 10 + (mask_bits + 7) // 8 + len(inner) + 2
-    body = bitstring.pack("uint:4, uint:4, uint:16, uint:16, uint:16, uint:13, uint:9, uint:2,"
-                          "uint:8, uint:13, uint:3, uint:3, uint:3, uint:3, uint:7",
-                          15, 0, length, 0xBEEF, 4464, 8, 1, 0, 2, 2, 1, 1, 6, 0, 0
-                          ).tobytes() + inner
+    got = pack_gap_frame(_EXAMPLE_INNER, _example_mask(), FrameKey(EXAMPLE_DIGEST))
+    # Reference built field by field with bitstring from the table in FRAME_LAYOUT.md
+    # ("Gap-mask frame"): kind 15, format 1, length 14; the inner frame without its sync
+    # and CRC; runs - 1 = 2 and each count - 1 as bitstring's own Exp-Golomb ("ue"); each
+    # start in bit_length(16 - 1) = 4 bits; zero padding to a byte.
+    runs = bitstring.pack("ue, uint:4, ue, uint:4, ue, uint:4, ue", 2, 1, 1, 7, 2, 14, 0)
+    assert len(runs) == 22
+    runs += bitstring.Bits(bin="00")  # 22 bits: two zero bits of padding
+    length = 5 + (len(_EXAMPLE_INNER) - 4) + len(runs) // 8 + 2
+    body = bitstring.pack("uint:4, uint:4, uint:16", 15, 1, length).tobytes() \
+        + _EXAMPLE_INNER[2:-2] + runs.tobytes()
     # CRC-16/IBM-3740 over the implicit profile prefix (digest 00 01 ... 1f), rebuilt
     # from binascii and hashlib (streams.with_crc); bytes printed in FRAME_LAYOUT.md.
     want = with_crc(b"\xe3\x5a" + body, EXAMPLE_DIGEST)
-    assert got == want and length == 22
-    assert want.hex() == "e35af00016beef11700040040200113800e35a106e6f"
-    head, masks, back_inner = parse_gap_frame(got, 8, 3)
-    assert head["sequence"] == 4464 and back_inner == inner
-    assert masks[0][0] == 2 and np.array_equal(masks[0][1], mask)
+    assert got == want and length == 14
+    assert want.hex() == EXAMPLE_HEX
+    inner, at = unwrap_gap_frame(got)
+    assert inner == _EXAMPLE_INNER[:-2] + b"\0\0" and at == 8 * 9
+    assert np.array_equal(read_gap_runs(got, at, 16), _example_mask())
+
+
+EXAMPLE_HEX = "e35af1000e3008ef12629df4e99c"
+
+
+def _forge(runs: str, samples_inner: bytes = _EXAMPLE_INNER, nibble: int = 1,
+           extra: bytes = b"") -> bytes:
+    """A CRC-valid gap-mask frame with hand-written run bits (an insider's forgery)."""
+    bits = bitstring.Bits(bin=runs + "0" * (-len(runs) % 8))
+    length = 5 + len(samples_inner) - 4 + len(bits) // 8 + len(extra) + 2
+    body = bitstring.pack("uint:4, uint:4, uint:16", 15, nibble, length).tobytes() \
+        + samples_inner[2:-2] + bits.tobytes() + extra
+    return with_crc(b"\xe3\x5a" + body, EXAMPLE_DIGEST)
 
 
 def test_gap_frame_parser_bounds_every_count():
-    key = FrameKey(EXAMPLE_DIGEST)
-    good = pack_gap_frame(1, 0, 8, [(0, np.array([1, 0, 1, 0, 1, 0, 1, 0], bool))], b"", 8, key)
-    assert isinstance(parse_gap_frame(good, 8, 1), tuple)
-    assert isinstance(parse_gap_frame(good, 4, 1), str)  # valid 8 > N 4
-    assert isinstance(parse_gap_frame(good, 8, 0), str)  # more masks than channels
-    assert isinstance(parse_gap_frame(good[:-3], 8, 1), str)
-    # A forged frame whose CRC is right but whose runs overlap is refused too.
-    two = pack_gap_frame(1, 0, 8, [(0, np.array([1, 0, 0, 1, 0, 0, 0, 0], bool))], b"", 8, key)
-    bits = np.unpackbits(np.frombuffer(two, np.uint8)).copy()
-    start2 = 16 + 80 + 21 + 6  # second run's start field
-    bits[start2 : start2 + 3] = [0, 0, 0]  # 3 -> 0: overlaps the first run
-    body = np.packbits(bits).tobytes()[2:-2]
-    forged = with_crc(two[:2] + body, EXAMPLE_DIGEST)
-    assert parse_gap_frame(forged, 8, 1).startswith("gap frame runs overlap")
+    def verdict(frame, samples=16):
+        got = unwrap_gap_frame(frame)
+        return got if isinstance(got, str) else read_gap_runs(frame, got[1], samples)
+
+    # the control: one run (3, 2) of 16 samples, then a 1-bit run count
+    assert isinstance(verdict(_forge("1" "0011" "010")), np.ndarray)
+    past = "overlap, touch or pass"
+    bad = {  # forged run bits -> the words of the refusal
+        "1" "1111" "010": past,  # (15, 2): past the 16 samples
+        "010" "0011" "010" "0100" "1": past,  # (3, 2) then (4, 1): overlapping
+        "010" "0011" "010" "0101" "1": past,  # (3, 2) then (5, 1): touching
+        "010" "1000" "1" "0011" "1": past,  # (8, 1) then (3, 1): decreasing
+        "1" "0000" "0000011111": past,  # a count of 62 in 16 samples
+        "0001001" + "0000" "1" * 17: "claims 9 runs",  # more than 16 samples can hold
+        "0001000": "claims 8 runs",  # no bits left for them
+        "1" "0000" + "0" * 40: "run longer",  # an Exp-Golomb prefix that never ends
+        "1" "0011" "010" "1": "zero padding",  # padding not zero
+    }
+    for runs, words in bad.items():
+        assert words in verdict(_forge(runs)), runs
+    for frame, words in [
+            (_forge("1" "0011" "010", extra=b"\0"), "zero padding"),  # a byte past the runs
+            (_forge("1" "0011" "010", nibble=0), "format 0"),
+            (_forge(""), "not one data frame"),  # no runs at all
+            (_forge("1" "0011" "010", samples_inner=bytes.fromhex("e35af1000eabcd")),
+             "wraps a gap frame"),
+            (_forge("1" "0011" "010", samples_inner=bytes.fromhex("e35a3040ef12abcd")),
+             "not one data frame")]:  # the inner envelope claims 64 bytes
+        assert words in verdict(frame), words
+    # a frame made of nothing but its header is refused before anything is read
+    assert isinstance(unwrap_gap_frame(_forge("1")[:7]), str)
+    assert isinstance(verdict(_forge("1" "0011" "010"), samples=0), str)
 
 
-@pytest.mark.parametrize("inner", [False, True], ids=["masks-only", "wrapping-data"])
-def test_a_foreign_gap_frame_is_refused(inner):
+@pytest.mark.parametrize("layout", [1, 3])
+def test_a_foreign_gap_frame_is_refused(layout):
     # The sender's truth: 8 windows x 2 channels, one window per frame, frames in window-
     # major order (FRAME_LAYOUT.md), so frame 2 w + c carries window w of channel c.  The
-    # frame of window 3, channel 0 is replaced by a gap-mask frame (masks only, or wrapping
-    # that very data frame) whose profile field names another profile: the decoder must
-    # refuse it whole, so those 32 samples are lost, never marked as gaps nor delivered.
-    # The same gap frame under our own profile id is accepted (the control).
+    # frame of window 3, channel 0 is replaced by a gap-mask frame wrapping (a) that very
+    # data frame: accepted, its first 5 samples gaps (the control); (b) the same window's
+    # frame of a stream coded under another profile, signed with our key: the inner
+    # frame's profile field names that profile, so the decoder refuses it whole and the
+    # 32 samples are lost, never marked as gaps nor delivered.
     x = motion("train")[:256, :2]
-    enc = codec.encode(x, codec.Profile(frame_length=32, windows_per_frame=1))
-    frames = [enc.data[o : o + n] for o, n in zip(locate_frames(enc.data).offsets.tolist(),
-                                                  locate_frames(enc.data).lengths.tolist())]
-    assert len(frames) == 16
+    prof = codec.Profile(frame_length=32, windows_per_frame=1, layout_version=layout)
+    other = prof.model_copy(update={"fidelity": 0.5})
+    ours = codec.profile_id(prof.bind(["a", "b"]))
+    assert (ours ^ codec.profile_id(other.bind(["a", "b"]))) & 0xFF  # even the low bytes
     mask = np.zeros(32, bool)
-    mask[:32 if not inner else 5] = True
-    ours = codec.profile_id(enc.profile)
-    other = codec.profile_id(enc.profile.model_copy(update={"fidelity": 0.5}))
-    assert other != ours
+    mask[:5] = True
+    key = None
     rows = slice(96, 128)
-    # a wrapped data frame is signed with the inner key, SHA-256(digest || "gap-mask inner
-    # frame") (FRAME_LAYOUT.md, "Profile check"), so that found alone it fails its CRC
-    inner_digest = hashlib.sha256(digest_of(enc.profile) + b"gap-mask inner frame").digest()
-    wrapped = with_crc(frames[6][:-2], inner_digest) if inner else b""
-    for pid in (ours, other):
-        # our CRC key, the other profile's id in the header: the id check must refuse it
-        gap = pack_gap_frame(pid, 3, 32, [(0, mask)], wrapped, 32, codec.frame_key(enc.profile))
-        dec = codec.decode(b"".join(frames[:6] + [gap] + frames[7:]), enc.profile,
-                           samples=256)
+    for which in (prof, other):
+        enc = codec.encode(x, which)
+        loc = locate_frames(enc.data)
+        frames = [enc.data[o : o + n] for o, n in zip(loc.offsets.tolist(),
+                                                       loc.lengths.tolist())]
+        assert len(frames) == 16
+        if which is prof:
+            mine, key, profile, recon = frames, codec.frame_key(enc.profile), enc.profile, \
+                enc.reconstruction
+        gap = pack_gap_frame(frames[6], mask, key)
+        dec = codec.decode(b"".join(mine[:6] + [gap] + mine[7:]), profile, samples=256)
         want = np.full(x.shape, codec.DELIVERED, np.uint8)
-        if pid == ours:
+        if which is prof:
             want[rows, 0] = np.where(mask, codec.GAP, codec.DELIVERED)
             assert dec.counts["gap_frames_ok"] == 1
         else:
@@ -187,4 +232,101 @@ def test_a_foreign_gap_frame_is_refused(inner):
             assert dec.counts["frames_foreign_profile"] == 1 and dec.counts["gap_frames_ok"] == 0
         np.testing.assert_array_equal(dec.status, want)
         ok = want == codec.DELIVERED
-        np.testing.assert_array_equal(dec.samples[ok], enc.reconstruction[ok])
+        np.testing.assert_array_equal(dec.samples[ok], recon[ok])
+
+
+def _short_run_gaps(shape, fraction, rng) -> np.ndarray:
+    """Missing-sample mask: runs of 1 to 5 samples at random places until ``fraction``."""
+    miss = np.zeros(shape, bool)
+    while miss.sum() < fraction * miss.size:
+        length, ch = int(rng.integers(1, 6)), int(rng.integers(shape[1]))
+        at = int(rng.integers(0, shape[0] - length))
+        miss[at : at + length, ch] = True
+    return miss
+
+
+def test_marking_adds_only_wrappers_and_runs():
+    # 0.6 % of a real recording missing in short runs.  Marking must leave every data
+    # frame as the fill policy codes it (same grouping, same frame-scope budget), adding
+    # per frame with gaps only the gap-mask header (3 bytes) and its runs, counted here
+    # from the table in FRAME_LAYOUT.md with bitstring's Exp-Golomb ("ue"), less the inner
+    # frame's sync marker and CRC that the gap-mask frame does not repeat.
+    x = motion("train")[:2000, :3]
+    miss = _short_run_gaps(x.shape, 0.006, np.random.default_rng(3))
+    xg = np.where(miss, np.nan, x)
+    prof = codec.Profile()
+    fill = codec.encode(xg, prof, gaps="fill")
+    mark = codec.encode(xg, prof, gaps="mark")
+    key = codec.frame_key(mark.profile)
+    lf, lm = locate_frames(fill.data, key), locate_frames(mark.data, key)
+    assert lf.offsets.size == lm.offsets.size
+    extra = 0
+    wrapped = 0
+    for (fo, fn), (mo, mn) in zip(zip(lf.offsets.tolist(), lf.lengths.tolist()),
+                                  zip(lm.offsets.tolist(), lm.lengths.tolist())):
+        ff, mf = fill.data[fo : fo + fn], mark.data[mo : mo + mn]
+        if mf[2] >> 4 != 15:
+            assert mf == ff
+            continue
+        wrapped += 1
+        assert mf[5 : 5 + fn - 4] == ff[2:-2]  # the data frame, whole but sync and CRC
+        inner, at = unwrap_gap_frame(mf)
+        runs = read_gap_runs(mf, at, _samples_of(mark, inner))
+        assert 0 <= 8 * (mn - 2) - at - _runs_bits(runs) < 8  # runs, then padding only
+        extra += 8 * (mn - fn)
+    assert wrapped > 0 and mark.report["bits_total"] == 8 * len(mark.data)
+    assert extra == 8 * (len(mark.data) - len(fill.data))
+    dec = codec.decode(mark.data, mark.profile, samples=x.shape[0])
+    assert np.array_equal(dec.status == codec.GAP, miss)
+
+
+def _runs_bits(mask: np.ndarray) -> int:
+    start, count = mask_runs(mask)
+    fmt = ", ".join(["ue"] + [f"uint:{int(mask.size - 1).bit_length()}, ue"] * start.size)
+    vals = [start.size - 1] + [v for s, c in zip(start, count) for v in (int(s), int(c) - 1)]
+    return len(bitstring.pack(fmt, *vals))
+
+
+def _samples_of(enc, inner: bytes) -> int:
+    """Valid samples of every window the inner data frame carries."""
+    from codec._codec import decode_frames, profile_basis
+
+    return int(decode_frames([inner], enc.profile, profile_basis(enc.profile)).row_valid.sum())
+
+
+@pytest.mark.parametrize("layout, multi", [(1, False), (2, False), (2, True), (3, True),
+                                           (4, False), (4, True)])
+def test_mark_roundtrip_every_layout(layout, multi):
+    # Gaps of every shape (a run across a window edge, whole windows, a whole channel of
+    # one frame, the last sample) under every layout and frame packing: the decoder's NaN
+    # are exactly the input's, every other sample is the encoder's reconstruction.
+    x = motion("train")[:700, :3].copy()
+    x[60:70, 0] = np.nan  # across the edge of windows 0 and 1 (N = 64)
+    x[128:320, 1] = np.nan  # three whole windows
+    x[400:403, 2] = np.nan
+    x[-1, :] = np.nan
+    prof = codec.Profile(layout_version=layout, multi_channel_frames=multi,
+                         windows_per_frame=4)
+    enc = codec.encode(x, prof, gaps="mark")
+    dec = codec.decode(enc.data, enc.profile, samples=700)
+    np.testing.assert_array_equal(dec.status == codec.GAP, np.isnan(x))
+    np.testing.assert_array_equal(dec.samples, enc.reconstruction)
+    assert dec.counts["samples_lost"] == 0
+
+
+def test_mark_an_all_empty_channel():
+    # A channel with no value at all under `mark`: filled with 0 for the coder, sent with
+    # no coefficients, and every one of its samples comes back as a gap.
+    x = motion("train")[:300, :2].copy()
+    x[:, 1] = np.nan
+    enc = codec.encode(x, codec.Profile(frame_length=32), gaps="mark")
+    dec = codec.decode(enc.data, enc.profile, samples=300)
+    assert (dec.status[:, 1] == codec.GAP).all() and dec.delivered[:, 0].all()
+    assert (dec.frames["terms"][dec.frames["channel"] == 1] == 0).all()
+
+
+def test_a_gap_frame_too_long_for_its_length_field_is_an_input_error():
+    # The 16-bit length field (FRAME_LAYOUT.md) bounds a gap-mask frame at 65 535 bytes.
+    frame = b"\xe3\x5a" + bytes(70_000)
+    with pytest.raises(codec.InputError, match="fewer windows per frame"):
+        pack_gap_frame(frame, np.ones(4, bool), FrameKey(EXAMPLE_DIGEST))

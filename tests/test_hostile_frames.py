@@ -198,10 +198,12 @@ def test_foreign_gap_frame_is_refused():
     dec = codec.decode(spliced, prof, samples=256, strict=False)
     assert dec.counts["gap_frames_ok"] == 0 and dec.counts["frames_crc_failed"] == 1
     assert not dec.delivered[32:64, 1].any() and (dec.status == codec.GAP).sum() == 0
-    # (2) our CRC but another profile's 16-bit identifier in the header: the gap frame's
-    # own profile check refuses it (FRAME_LAYOUT.md: profile field at bit 40)
+    # (2) our CRC but another profile's identifier in the wrapped data frame's header: the
+    # inner frame's own profile check refuses the gap frame (FRAME_LAYOUT.md: the inner
+    # frame follows the 5-byte gap header without its sync marker; a version-3 frame's
+    # profile byte is its byte 4, so byte 5 + 4 - 2 = 7 of the gap frame)
     forged = bytearray(gap[:-2])
-    forged[5:7] = ((codec.profile_id(prof) + 1) % 65536).to_bytes(2, "big")
+    forged[7] = (codec.profile_id(prof) + 1) % 256
     forged = with_crc(bytes(forged), digest_of(prof))
     dec = codec.decode(enc.data[:o] + forged + enc.data[o + n :], prof, samples=256,
                        strict=False)
@@ -286,9 +288,7 @@ _v234 = st.tuples(
 _v1 = st.tuples(st.just(1), st.dictionaries(
     st.sampled_from([k for k, _, _ in HEADER_FIELDS if k not in ("version", "length")]),
     st.integers(0, 2**16 - 1)), st.binary(max_size=600), st.booleans())
-_gap = st.tuples(st.just(15), st.integers(0, 2**13 - 1), st.integers(0, 2**9 - 1),
-                 st.integers(0, 3), st.integers(0, 65535), st.binary(max_size=600),
-                 st.booleans())
+_gap = st.tuples(st.just(15), st.integers(0, 15), st.one_of(_v234, _v1), st.binary(max_size=40))
 
 
 def _draw_frame(spec) -> bytes:
@@ -305,12 +305,12 @@ def _draw_frame(spec) -> bytes:
         head["length"] = size
         bits = _bits(*[(head[k], w) for k, w, _ in HEADER_FIELDS])
         return with_crc(SYNC + _pack(bits, 15) + payload, HYP_DIGEST)
-    if spec[0] == 15:
-        _, valid, masks, reserved, pid, payload, ours = spec
-        size = 12 + len(payload) + 2
-        bits = _bits((15, 4), (0, 4), (size, 16), (HYP_PID if ours else pid, 16),
-                     (pid, 16), (valid, 13), (masks, 9), (reserved, 2))
-        return with_crc(SYNC + _pack(bits, 10) + payload, HYP_DIGEST)
+    if spec[0] == 15:  # a gap-mask frame (FRAME_LAYOUT.md): a drawn data frame and runs
+        _, fmt, inner, runs = spec
+        body = _draw_frame(inner)[len(SYNC) : -2] + runs
+        size = len(SYNC) + 3 + len(body) + 2
+        return with_crc(SYNC + _pack(_bits((15, 4), (fmt, 4), (size, 16)), 3) + body,
+                        HYP_DIGEST)
     version, longf, pid8, seq, windows, multi, channel, short, valid, payload, ours = spec
     size = 4 + 3 + len(payload) + 2 + (2 if longf else 0)
     if longf:
@@ -387,14 +387,14 @@ def test_fuzzer_exits_0_when_clean_and_1_on_any_finding(monkeypatch, capsys):
 
 def test_damaged_gap_frame_never_hands_out_its_inner_frame_as_data():
     # The inner data frame holds interpolated stand-ins at the gaps; when its gap-mask
-    # frame fails the CRC the search finds the inner frame's sync marker next.  Signed
-    # with the inner key (FRAME_LAYOUT.md), it fails its CRC on its own.
+    # frame fails the CRC the search resumes inside it.  The inner frame travels without
+    # its sync marker and CRC (FRAME_LAYOUT.md), so no part of it passes on its own.
     prof = codec.Profile(frame_length=32).bind(["a", "b"])
     enc = _gap_stream(prof)
     o, n = [(a, m) for a, m in frames_of(enc.data, enc.profile) if enc.data[a + 2] >> 4 == 15][0]
-    at = enc.data.index(SYNC, o + 2, o + n)  # the inner frame's sync marker
-    inner = enc.data[at : o + n - 2]
-    assert not crc_ok_reference(inner, digest_of(prof))  # not a frame of the profile alone
+    for at in range(o + 1, o + n - 4):  # every start inside: none is a frame of the profile
+        assert not any(crc_ok_reference(enc.data[at : b], digest_of(prof))
+                       for b in range(at + 8, o + n + 1))
     damaged = bytearray(enc.data)
     damaged[o + n - 1] ^= 0x01  # the gap frame's CRC
     dec = codec.decode(bytes(damaged), prof, samples=256, strict=False)

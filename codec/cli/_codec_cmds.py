@@ -681,7 +681,7 @@ def _inspect(args) -> int:
                        f"{bits:>7}  not checked (no profile: the CRC covers it; contents not read)")
             continue
         chans = fr.row_channel[fr.row_frame == i].tolist()
-        chans += [c for c, _ in fr.masks.get(i, ())]
+        chans += [c for c, *_ in fr.masks.get(i, ())]
         label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
         status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
         gap = version == GAP_KIND or fr.verdict[i] != "ok"

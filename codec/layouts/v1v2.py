@@ -73,7 +73,8 @@ LAYOUT_VERSION = 1
 SYNC = b"\xe3\x5a"
 #: Version nibble of the gap-mask frame kind (layout in ``gapmask.py``), valid beside any version.
 GAP_KIND = 15
-_GAP_MIN_BYTES = 14  # its fixed header (12 bytes with the sync marker) and CRC
+_GAP_MIN_BYTES = 12  # header (5 bytes with the sync marker), the smallest inner frame without
+#                     its sync and CRC (4), one byte of runs, CRC (gapmask.py)
 #: Appended to the profile digest for the key of a gap-mask frame's inner frame.
 INNER_KEY_LABEL = b"gap-mask inner frame"
 

@@ -173,7 +173,7 @@ class StreamDecoder:
         """Verdict and window of every frame row, in arrival order (plain integers, no arrays)."""
         fr = decode_frames([f for _, f in found], self.profile, self.basis)
         tr = self.tracker
-        seqs, mods, valids = fr.sequence.tolist(), fr.modulus.tolist(), fr.valid.tolist()
+        seqs, mods = fr.sequence.tolist(), fr.modulus.tolist()
         kinds, crcs = fr.kind.tolist(), fr.crc.tolist()
         row_ch = fr.row_channel.tolist()
         row_off, row_valid = fr.row_offset.tolist(), fr.row_valid.tolist()  # v3: several windows
@@ -186,7 +186,7 @@ class StreamDecoder:
             placed = False
             items = [(row_ch[r], 0, r, row_off[r], row_valid[r])
                      for r in range(first_row[i], first_row[i + 1])]
-            items += [(ch, 1, mask, 0, valids[i]) for ch, mask in fr.masks.get(i, ())]
+            items += [(ch, 1, mask, off, mask.size) for ch, mask, off in fr.masks.get(i, ())]
             for ch, kind, what, off, rvalid in items:  # data rows, then a gap frame's masks
                 window, where = tr.place((seqs[i] + off) % mods[i], ch, kind, crcs[i], mods[i])
                 if tr.last_cut:
