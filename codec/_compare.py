@@ -164,42 +164,68 @@ def compare_bases(
         on a terminal, a line every few seconds otherwise).
     """
     x = as_samples(values)
-    if names is None:
-        names = ([c.name for c in profile.channels] if len(profile.channels) == x.shape[1]
-                 else [f"ch{i}" for i in range(x.shape[1])])
-    profile = profile.bind(list(names))  # a profile for other channels is refused here
-    profile = profile.model_copy(update={"basis": "dct", "basis_file": None,
-                                         "basis_sha256": None})
+    names, profile = _candidate_profile(profile, names, x.shape[1])
     n = profile.frame_length
     fids = _check_fidelities(fidelities)
     names_b = resolve_bases(bases, n)
     if "identity" not in names_b:
         names_b = ["identity"] + names_b
+    split = _training_split(x.shape[0], n, train_fraction)
+    train, test = x[:split], x[split:]
+    trained = None
+    if "klt" in names_b:
+        if split == 0:
+            raise InputError("basis klt needs a training slice; give --train-fraction > 0")
+        trained = train_klt(train, n, names, input_name=input_name)
+    jobs = [(b, f) for b in names_b for f in fids]
+    measured, recon = _encode_all(test, profile, jobs, trained, progress)
+    rows = _rows(test, profile, names_b, fids, measured, recon)
+    return Comparison(rows, split, test.shape[0], names_b, fids, list(names), trained, test,
+                      recon, n)
+
+
+def _candidate_profile(profile: Profile, names: list[str] | None, channels: int
+                       ) -> tuple[list[str], Profile]:
+    """Channel names and the profile bound to them, its basis reset to ``dct``."""
+    if names is None:
+        names = ([c.name for c in profile.channels] if len(profile.channels) == channels
+                 else [f"ch{i}" for i in range(channels)])
+    profile = profile.bind(list(names))  # a profile for other channels is refused here
+    return names, profile.model_copy(update={"basis": "dct", "basis_file": None,
+                                             "basis_sha256": None})
+
+
+def _training_split(samples: int, n: int, train_fraction: float) -> int:
+    """Samples of the training slice: whole frames only, leaving at least one frame to score."""
     if not 0.0 <= train_fraction < 1.0 or not math.isfinite(train_fraction):
         raise InputError(f"train fraction {train_fraction} is outside [0, 1); give e.g. 0.5")
-    split = int(x.shape[0] * train_fraction)
+    split = int(samples * train_fraction)
     split -= split % n  # whole frames only, so training frames and scored frames never overlap
-    train, test = x[:split], x[split:]
-    if test.shape[0] < n:
+    if samples - split < n:
         raise InputError(
-            f"only {test.shape[0]} samples are left to score after the training slice; "
+            f"only {samples - split} samples are left to score after the training slice; "
             f"give more data or a smaller --train-fraction")
-    trained = None
-    jobs: list[tuple[str, float]] = [(b, f) for b in names_b for f in fids]
+    return split
+
+
+def _encode_all(test: np.ndarray, profile: Profile, jobs: list[tuple[str, float]],
+                trained: TrainedBasis | None, progress: bool) -> tuple[dict, dict]:
+    """Encode and decode ``test`` once per (basis, fidelity) job.
+
+    Returns ``(basis, fidelity) -> (EncodeResult, encode seconds)`` and
+    ``(basis, fidelity) -> decoded samples``.
+    """
     recon: dict = {}
     measured: dict = {}
     with tempfile.TemporaryDirectory(prefix="coefwire-compare-") as tmp:
-        if "klt" in names_b:
-            if split == 0:
-                raise InputError("basis klt needs a training slice; give --train-fraction > 0")
-            trained = train_klt(train, n, names, input_name=input_name)
+        klt: dict = {}
+        if trained is not None:  # profiles name a trained basis by its file
             path = Path(tmp) / "klt.cwbasis.npz"
             save_trained_basis(trained, path)
+            klt = {"basis_file": str(path), "basis_sha256": trained.note.sha256}
         bar = _progress(len(jobs), progress)
         for b, f in jobs:
-            changes = {"basis": b, "fidelity": f}
-            if b == "klt":
-                changes |= {"basis_file": str(path), "basis_sha256": trained.note.sha256}
+            changes = {"basis": b, "fidelity": f} | (klt if b == "klt" else {})
             prof = Profile.model_validate({**profile.model_dump(), **changes})
             t0 = time.perf_counter()
             enc = encode(test, prof)
@@ -209,9 +235,7 @@ def compare_bases(
             measured[(b, f)] = (enc, seconds)
             bar.update(1)
         bar.close()
-    rows = _rows(test, profile, names_b, fids, measured, recon)
-    return Comparison(rows, split, test.shape[0], names_b, fids, list(names), trained, test,
-                      recon, n)
+    return measured, recon
 
 
 def _check_fidelities(fidelities) -> list[float]:
