@@ -18,7 +18,7 @@ applies the duplicate / out-of-order policy, written down here once:
 
 * The *head* is the highest window accepted so far.  A frame's window is the
   one nearest the head whose number is congruent to its sequence number modulo
-  the field's range M (65 536 in layout v1, 256 in layout v2; serial-number
+  the field's range M (65 536 in layout 1, 256 in layouts 2 to 4; serial-number
   arithmetic in the manner of RFC 1982), so the counter may wrap any number
   of times as long as frames are less than M/2 windows from the head.
 * A frame up to ``reorder`` windows behind the head is placed where it belongs
@@ -123,7 +123,8 @@ class FrameScanner:
 
     def __init__(self, max_frame: int | None = None, *, key: FrameKey | None = None) -> None:
         #: Longest frame accepted; a candidate claiming more is treated as not a frame, so
-        #: the buffer never waits for more than this (layout v2's long form can claim 2^27).
+        #: the buffer never waits for more than this (the long form of layouts 2 to 4 can claim
+        #: 2^27).
         self.max_frame = max_frame
         self.key = key
         self._buf = bytearray()
@@ -336,7 +337,7 @@ class SequenceTracker:
         """Window of one frame (row) and the verdict: ``ok`` or why it is dropped.
 
         ``modulus`` is the range of the frame's sequence field (65 536 in layout
-        v1 and gap-mask frames, 256 in layout v2: there a frame more than 128
+        1 and gap-mask frames, 256 in layouts 2 to 4: there a frame more than 128
         windows away from the head is ambiguous).
         """
         self.last_cut = 0
