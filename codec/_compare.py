@@ -67,6 +67,12 @@ class Comparison:
         The held-out samples (samples x channels).
     reconstructions : dict
         ``(basis, fidelity) -> decoded held-out samples``.
+    frame_length : int
+        Samples per frame (N).
+
+    Examples
+    --------
+    See :func:`compare_bases`, which makes one.
     """
 
     rows: list[dict]
@@ -118,6 +124,34 @@ def energy_compaction(frames: np.ndarray, basis, adaptive: bool = True) -> np.nd
     ``adaptive=True`` keeps each frame's k largest terms (what the encoder
     does); ``False`` keeps the k basis rows with the largest mean energy over
     all frames (the compaction measure of Ahmed, Natarajan & Rao, 1974).
+
+    Parameters
+    ----------
+    frames : ndarray, shape (frames, n)
+        One frame per row.
+    basis : Basis
+        The basis to measure.
+    adaptive : bool
+        Per-frame largest terms (True) or fixed rows by mean energy (False).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        Fraction of the total energy in the first k terms, k = 1..n; the last
+        entry is 1 (Parseval's relation, the basis being orthonormal).
+
+    Examples
+    --------
+    A frame that is one basis vector has all its energy in one term:
+
+    >>> import numpy as np
+    >>> from codec import as_basis
+    >>> dct = as_basis("dct", 8)
+    >>> energy_compaction(5.0 * dct.matrix[3:4], dct).round(12).tolist()
+    [1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0]
+    >>> ec = energy_compaction(np.random.default_rng(0).standard_normal((100, 8)), dct)
+    >>> bool(np.all(np.diff(ec) >= 0)), bool(np.isclose(ec[-1], 1.0))
+    (True, True)
     """
     c2 = basis.analyze(frames) ** 2
     total = c2.sum()
@@ -162,6 +196,38 @@ def compare_bases(
     progress : bool
         Report progress on standard error (``codec._progress``: after 2 s, a bar
         on a terminal, a line every few seconds otherwise).
+
+    Returns
+    -------
+    Comparison
+        One row per channel (and ``all``) x basis x target, scored on the
+        held-out samples, with the winner per channel and target marked.
+
+    Raises
+    ------
+    InputError
+        For an unknown basis, a target outside (0, 1], a train fraction outside
+        [0, 1), too few samples left to score, or ``klt`` with nothing to train on.
+
+    Examples
+    --------
+    On a first-order Markov (AR(1)) source with correlation 0.98 the DCT
+    compacts the energy far better than the identity basis (Ahmed, Natarajan &
+    Rao, 1974), so it needs fewer bits at the same fidelity; every frame still
+    meets the target, measured on the decoded samples:
+
+    >>> import numpy as np, scipy.signal
+    >>> from codec import default_profile
+    >>> e = np.random.default_rng(2).standard_normal(2048)
+    >>> x = scipy.signal.lfilter([1.0], [1.0, -0.98], e)[:, None]
+    >>> p = default_profile().model_copy(update={"frame_length": 32})
+    >>> cmp = compare_bases(x, p, bases="dct", fidelities=[0.99])
+    >>> cmp.bases, cmp.train_samples, cmp.test_samples  # identity is always scored
+    (['identity', 'dct'], 1024, 1024)
+    >>> [(r["channel"], r["basis"]) for r in cmp.winners()]
+    [('ch0', 'dct'), ('all', 'dct')]
+    >>> all(r["fidelity_min"] >= 0.99 and r["frames_below_target"] == 0 for r in cmp.rows)
+    True
     """
     x = as_samples(values)
     names, profile = _candidate_profile(profile, names, x.shape[1])

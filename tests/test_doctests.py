@@ -32,8 +32,6 @@ NOT_YET = {
         "encode", "decode", "DecodeResult", "EncodeResult", "as_samples", "reconstruct",
         "frame_key", "error_figures", "channel_table", "pooled_label", "units_of", "with_unit",
         # to do
-        "Comparison", "compare_bases", "energy_compaction", "TrainedBasis",
-        "load_trained_basis", "save_trained_basis", "train_klt", 
         "SampleTable", "atomic_output", "read_samples", "ChannelSpec", "Profile",
         "default_profile", "load_profile", "profile_id", "read_toml", "save_profile",
         "StreamDecoder", "StreamEncoder", "is_stdio", "write_csv_block", "StreamNote",
