@@ -72,7 +72,14 @@ class Comparison:
 
     Examples
     --------
-    See :func:`compare_bases`, which makes one.
+    Made by :func:`compare_bases`; its rows hold the keys of :data:`ROW_KEYS`:
+
+    >>> import numpy as np
+    >>> from codec import default_profile
+    >>> x = np.cumsum(np.random.default_rng(0).standard_normal((512, 1)), axis=0)
+    >>> cmp = compare_bases(x, default_profile(), bases="identity", fidelities=[0.95])
+    >>> len(cmp.rows), set(cmp.rows[0]) == set(ROW_KEYS), cmp.frame_length
+    (2, True, 64)
     """
 
     rows: list[dict]
