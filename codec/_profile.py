@@ -92,6 +92,35 @@ class ChannelSpec(BaseModel):
     ``resolution`` is in the channel's engineering units (e.g. the sensor's
     LSB): the error budget of a frame is never below N * resolution**2 / 12,
     the energy of the sensor's own quantization noise.
+
+    Parameters
+    ----------
+    name : str
+        Column name, 1 to 64 characters.
+    resolution : float
+        Sensor resolution (LSB) in engineering units; 0: none known.
+    raw_bits_per_sample : int
+        Bits the raw sensor value takes (1-64), the baseline of compression ratios.
+    sample_rate_hz : float, optional
+        Samples per second, for time axes and rates.
+    valid_min, valid_max : float, optional
+        Plausible range; decoded values outside are flagged.
+    max_error : float, optional
+        Peak-error limit in engineering units.
+    unit : str, optional
+        Engineering unit printed beside figures.
+
+    Examples
+    --------
+    >>> c = ChannelSpec(name="cell_temp", resolution=0.0625, unit="K")
+    >>> c.raw_bits_per_sample, c.unit
+    (16, 'K')
+    >>> import pydantic
+    >>> try:
+    ...     ChannelSpec(name="cell_temp", resolution=-1.0)
+    ... except pydantic.ValidationError as e:
+    ...     print(e.errors()[0]["loc"], e.errors()[0]["type"])
+    ('resolution',) greater_than_equal
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -117,6 +146,42 @@ class Profile(BaseModel):
 
     With no ``channels`` the profile applies to every input column with the
     channel defaults; :meth:`bind` makes the channel list explicit.
+
+    Parameters
+    ----------
+    description : str
+        Free text for people; not part of the identifier.
+    frame_length : int
+        Samples per frame N, 2 to 4096.
+    basis : str
+        A registered basis name (:func:`codec.basis_names`).
+    fidelity : float
+        Fraction of each frame's energy (about its mean with reference ``ac``)
+        the decoded frame keeps, 0 to 1.
+    reference : {"ac", "total"}
+        Energy the fidelity is a fraction of.
+    layout_version : {1, 2, 3, 4}
+        Frame layout the encoder writes.
+    multi_channel_frames : bool
+        Layouts 2 to 4: one frame carries all channels of a time window.
+    windows_per_frame : int
+        Layouts 3 and 4: time windows per frame, 1 to 16.
+    fidelity_scope : {"frame", "window"}
+        What one fidelity budget covers.
+    channels : tuple of ChannelSpec
+        The channels, in column order (empty: every column, defaults).
+    basis_file, basis_sha256 : str, optional
+        A trained basis (``basis = "klt"``): its file and the SHA-256 of its matrix.
+
+    Examples
+    --------
+    >>> p = Profile(frame_length=32, fidelity=0.95).bind(["x", "y"])
+    >>> [c.name for c in p.channels], p.basis
+    (['x', 'y'], 'dct')
+    >>> p.bind(["x", "z"])
+    Traceback (most recent call last):
+    ...
+    codec._errors.ProfileError: the profile's channels (x, y) do not match the input's ...
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -200,12 +265,48 @@ class Profile(BaseModel):
 
 
 def default_profile() -> Profile:
-    """The built-in profile: DCT, N = 64, F = 0.99, mean-removed reference."""
+    """The built-in profile: DCT, N = 64, F = 0.99, mean-removed reference.
+
+    Returns
+    -------
+    Profile
+        ``Profile()`` with every default.
+
+    Examples
+    --------
+    >>> p = default_profile()
+    >>> p.basis, p.frame_length, p.fidelity, p.reference, p.layout_version
+    ('dct', 64, 0.99, 'ac', 3)
+    """
     return Profile()
 
 
 def profile_id(profile: Profile) -> int:
-    """16-bit identifier of the profile's canonical form (SHA-256, first two bytes)."""
+    """16-bit identifier of the profile's canonical form (SHA-256, first two bytes).
+
+    Parameters
+    ----------
+    profile : Profile
+        The profile.
+
+    Returns
+    -------
+    int
+        0 to 65535; every frame carries it (or its low byte).
+
+    Examples
+    --------
+    Settings that frames describe themselves, and text for people, leave the
+    identifier alone; settings both ends must share change it:
+
+    >>> p = default_profile()
+    >>> profile_id(p) == profile_id(p.model_copy(update={"description": "spare"}))
+    True
+    >>> profile_id(p) == profile_id(p.model_copy(update={"layout_version": 1}))
+    True
+    >>> profile_id(p) == profile_id(p.model_copy(update={"fidelity": 0.95}))
+    False
+    """
     # Settings a frame describes itself (layout version, multi-channel frames)
     # or that only steer the encoder (peak-error limits) stay out of the hash,
     # so profiles written before they existed keep their identifier.  The basis
@@ -248,7 +349,38 @@ def profile_digest(profile: Profile, fingerprint: str) -> bytes:
 
 
 def load_profile(path: str | Path) -> Profile:
-    """Read and validate a TOML profile, naming the file and key on any error."""
+    """Read and validate a TOML profile, naming the file and key on any error.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; a relative ``basis_file`` in it is relative to the file.
+
+    Returns
+    -------
+    Profile
+        The validated profile (a ``[stream]`` table, if any, is ignored).
+
+    Raises
+    ------
+    ProfileError
+        Naming the file and the key, for unreadable TOML, unknown keys or
+        impossible values.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     path = pathlib.Path(d) / "p.toml"
+    ...     _ = path.write_text('frame_length = 32\\nfidelity = 1.5\\n')
+    ...     try:
+    ...         load_profile(path)
+    ...     except ProfileError as e:
+    ...         print(e.message)
+    key 'fidelity': Input should be less than or equal to 1 (got 1.5)
+
+    See :func:`save_profile` for a round trip.
+    """
     path = Path(path)
     data = read_toml(path)
     data.pop("stream", None)  # the note encode writes beside a stream; not part of a profile
@@ -266,6 +398,24 @@ class StreamNote(BaseModel):
     They are not part of the profile (and not in its identifier): how many
     samples went in, so a decoder knows the stream's true end, and the time
     column of the input when it was evenly spaced.
+
+    Parameters
+    ----------
+    samples : int
+        Samples per channel that went into the encoder.
+    time_name, time_start, time_step : optional
+        The input's time column: its name, and its start and step when evenly spaced.
+    time_decimals, time_start_ticks, time_step_ticks, time_ticks, time_float64 : optional
+        The time column kept exactly (see ``codec/_timecol.py``).
+    stuffing : {"slip", "cobs"}, optional
+        Byte stuffing of the stream's frames.
+    basis_fingerprint : str, optional
+        :func:`codec.basis_fingerprint` of the basis the encoding machine built.
+
+    Examples
+    --------
+    >>> StreamNote(samples=1000, stuffing="cobs").model_dump(exclude_none=True)
+    {'samples': 1000, 'stuffing': 'cobs'}
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -354,8 +504,33 @@ def note_path(stream: str | Path) -> Path:
 def load_stream_note(path: str | Path) -> tuple[Profile, StreamNote | None]:
     """The profile and stream note recorded beside a stream.
 
-    Raises :class:`ProfileError` when the note records a basis fingerprint that
-    differs from the basis this machine builds for the profile.
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file written beside the stream (``STREAM.profile.toml``).
+
+    Returns
+    -------
+    (Profile, StreamNote or None)
+        The profile, and the ``[stream]`` note when the file has one.
+
+    Raises
+    ------
+    ProfileError
+        For a bad profile or note, or when the note records a basis
+        fingerprint that differs from the basis this machine builds.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     path = pathlib.Path(d) / "run.cw.profile.toml"
+    ...     save_stream_note(default_profile(), StreamNote(samples=640), path)
+    ...     profile, note = load_stream_note(path)
+    ...     save_profile(profile, path)  # a plain profile has no note
+    ...     plain = load_stream_note(path)
+    >>> profile == default_profile(), note.samples, plain[1]
+    (True, 640, None)
     """
     profile = load_profile(path)
     data = read_toml(path)
@@ -387,7 +562,25 @@ def _profile_dict(profile: Profile) -> dict:
 
 
 def save_profile(profile: Profile, path: str | Path) -> None:
-    """Write ``profile`` as TOML (None values omitted)."""
+    """Write ``profile`` as TOML (None values omitted).
+
+    Parameters
+    ----------
+    profile : Profile
+        The profile.
+    path : str or Path
+        The file to write.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> p = Profile(frame_length=16, channels=(ChannelSpec(name="v", resolution=0.5),))
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     save_profile(p, pathlib.Path(d) / "p.toml")
+    ...     back = load_profile(pathlib.Path(d) / "p.toml")
+    >>> back == p
+    True
+    """
     Path(path).write_text(tomli_w.dumps(_profile_dict(profile)), encoding="utf-8")
 
 

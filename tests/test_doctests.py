@@ -32,10 +32,10 @@ NOT_YET = {
         "encode", "decode", "DecodeResult", "EncodeResult", "as_samples", "reconstruct",
         "frame_key", "error_figures", "channel_table", "pooled_label", "units_of", "with_unit",
         # to do
-        "SampleTable", "atomic_output", "read_samples", "ChannelSpec", "Profile",
-        "default_profile", "load_profile", "profile_id", "read_toml", "save_profile",
-        "StreamDecoder", "StreamEncoder", "is_stdio", "write_csv_block", "StreamNote",
-        "load_stream_note", "Progress", "Located", "max_frame_bytes", "Unstuffer", "stuff",
+        "SampleTable", "atomic_output", "read_samples", 
+        "read_toml", 
+        "StreamDecoder", "StreamEncoder", "is_stdio", "write_csv_block", 
+        "Progress", "Located", "max_frame_bytes", "Unstuffer", "stuff",
     },
     "link_sim": {
         "GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott", "Convolutional",
