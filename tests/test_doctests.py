@@ -32,8 +32,7 @@ NOT_YET = {
         "encode", "decode", "DecodeResult", "EncodeResult", "as_samples", "reconstruct",
         "frame_key", "error_figures", "channel_table", "pooled_label", "units_of", "with_unit",
         # to do
-        "StreamDecoder", "StreamEncoder", 
-        "max_frame_bytes", "Unstuffer", "stuff",
+        
     },
     "link_sim": {
         "GilbertElliott", "awgn", "bsc", "erase_frames", "gilbert_elliott", "Convolutional",
