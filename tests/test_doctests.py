@@ -34,8 +34,7 @@ NOT_YET = {
         # to do
     },
     "link_sim": {
-        "ChannelConfig", "ci95",
-        "measured_ber_curve", "run_trial", "simulate", "sweep", 
+        
         "SurveySettings", "expand_archive", "resolve_survey_bases", "run_survey",
     },
 }
