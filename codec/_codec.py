@@ -15,6 +15,7 @@ import numpy as np
 
 from ._errors import FrameError, InputError, ProfileError
 from ._profile import Profile, profile_digest, profile_id
+from ._status import DELIVERED
 from .entropy.bits import MAX_FIELD_BITS
 from .entropy.rangecoder import coefficient_cost_bits
 from .entropy.rice import exp_golomb_bits, zigzag
@@ -62,7 +63,7 @@ from .quantize.select import (
 from .quantize.steps import code_for_step, step_from_code
 from .quantize.trellis import dequantize_levels
 from .report import scope_figures, stream_report
-from .stream.search import DELIVERED, locate_frames
+from .stream.search import locate_frames
 from .transform.bases import Basis, basis_fingerprint
 from .transform.framing import merge_frames, split_frames
 from .transform.klt import profile_basis
@@ -166,7 +167,7 @@ class DecodeResult:
     frames: dict
     crc_failures: list[int] = field(default_factory=list)
     skipped_bytes: int = 0
-    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec.stream.search``).
+    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec._status``).
     status: np.ndarray | None = None
     #: What happened to frames that did not make it (capped list of dicts).
     events: list = field(default_factory=list)

@@ -31,8 +31,9 @@ import numpy as np
 from .._codec import _bind, decode_frames, encode, frame_key
 from .._errors import ProfileError
 from .._profile import Profile
+from .._status import DELIVERED, GAP, LOST, STATUS_NAMES
 from ..layouts.gapmask import GAP_POLICIES
-from .search import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
+from .search import FrameScanner, SequenceTracker
 
 __all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "MAX_FILL_WINDOWS",
            "max_frame_bytes"]

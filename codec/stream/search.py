@@ -47,8 +47,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .._status import CONCEALED, DELIVERED, FIRST_FREE_STATUS, GAP, LOST, STATUS_NAMES
-
 # HEADER_BYTES: the envelope rule answers from at most this many bytes after the
 # sync marker, so a streaming scanner that waits for them decides as a whole-stream one.
 from ..layouts.crc import crc16_prefix_states
@@ -59,16 +57,7 @@ __all__ = [
     "FrameScanner",
     "locate_frames",
     "SequenceTracker",
-    "LOST",
-    "DELIVERED",
-    "GAP",
-    "CONCEALED",
-    "FIRST_FREE_STATUS",
-    "STATUS_NAMES",
 ]
-
-# Sample status codes (uint8), one per sample position and channel: defined once in
-# codec._status and re-exported here for the modules that read them from this one.
 
 #: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
 MAX_LISTED = 100_000
