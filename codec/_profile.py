@@ -60,6 +60,8 @@ MAX_CHANNELS = 256
 
 #: Characters a channel name may have.
 MAX_NAME_CHARS = 64
+#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
+MAX_WINDOWS_PER_FRAME = 16
 
 
 def check_channel_names(names: list[str], where: str = "input") -> None:
@@ -199,11 +201,12 @@ class Profile(BaseModel):
     multi_channel_frames: bool = False
     #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
-    windows_per_frame: int = Field(default=16, ge=1, le=16)
+    windows_per_frame: int = Field(default=16, ge=1, le=MAX_WINDOWS_PER_FRAME)
     #: What one fidelity budget covers: "window" (each window of each channel on its
     #: own) or "frame" (the windows of one channel that travel in one frame share one
     #: budget; layouts 3 and 4 with several windows per frame).  Only the encoder
-    #: reads it: the decoder and the profile identifier do not depend on it.
+    #: reads it and the profile identifier leaves it out, but the CRC key
+    #: (:func:`profile_digest`) holds it: a decoder needs the encoder's value.
     fidelity_scope: Literal["window", "frame"] = "frame"
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
     #: A trained basis (basis = "klt"): its .cwbasis.npz file and the SHA-256 of its matrix.
@@ -307,43 +310,47 @@ def profile_id(profile: Profile) -> int:
     >>> profile_id(p) == profile_id(p.model_copy(update={"fidelity": 0.95}))
     False
     """
-    # Settings a frame describes itself (layout version, multi-channel frames)
-    # or that only steer the encoder (peak-error limits) stay out of the hash,
-    # so profiles written before they existed keep their identifier.  The basis
-    # file's path may differ between the two ends; its hash may not.
+    # The unit is a label for people and the budget scope steers only the encoder:
+    # profiles that add them keep their identifier.
+    blob = _canonical(profile, ("fidelity_scope",), ("max_error", "unit"))
+    return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
+
+
+def _canonical(profile: Profile, exclude: tuple[str, ...] = (),
+               channel_exclude: tuple[str, ...] = ("max_error",)) -> bytes:
+    """The canonical JSON of ``profile`` that :func:`profile_id` and :func:`profile_digest` hash.
+
+    Settings a frame describes itself (layout version, multi-channel frames,
+    windows per frame) or that only steer the encoder (peak-error limits) stay
+    out, so profiles written before they existed keep their hash; so do the
+    description and the basis file's path, which may differ between the two
+    ends (the basis's hash may not).  ``exclude`` and ``channel_exclude`` name
+    further top-level and per-channel keys to leave out.
+    """
     canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
-                                        "multi_channel_frames", "windows_per_frame",
-                                        "fidelity_scope"})
+                                        "multi_channel_frames", "windows_per_frame", *exclude})
     for ch in canon["channels"]:
-        ch.pop("max_error", None)
-        ch.pop("unit", None)  # a label for people; profiles that add one keep their identifier
+        for key in channel_exclude:
+            ch.pop(key, None)
     if canon["basis_sha256"] is None:
-        del canon["basis_sha256"]  # profiles without a trained basis keep their identifier
+        del canon["basis_sha256"]  # profiles without a trained basis keep their hash
     else:
         canon["basis_sha256"] = canon["basis_sha256"].lower()
-    blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
-    return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
+    return json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
 
 
 def profile_digest(profile: Profile, fingerprint: str) -> bytes:
     """32-byte digest of everything both ends must share: the profile and its basis.
 
-    SHA-256 of the canonical form :func:`profile_id` hashes (the same settings
-    left out) followed by the basis fingerprint
+    SHA-256 of the canonical form :func:`profile_id` hashes, except that the
+    budget scope and the channels' units stay in (so a decoder must be given
+    them as the encoder had them), followed by the basis fingerprint
     (:func:`codec.transform.bases.basis_fingerprint` of the matrix the profile builds),
     so two ends whose bases differ by more than rounding get different
     digests.  Frames carry it implicitly in their CRC (``FRAME_LAYOUT.md``,
     "Profile check"), never on the wire.
     """
-    canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
-                                        "multi_channel_frames", "windows_per_frame"})
-    for ch in canon["channels"]:
-        ch.pop("max_error", None)
-    if canon["basis_sha256"] is None:
-        del canon["basis_sha256"]
-    else:
-        canon["basis_sha256"] = canon["basis_sha256"].lower()
-    blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
+    blob = _canonical(profile)
     return hashlib.sha256(b"coefwire profile digest\0" + blob + b"\0"
                           + fingerprint.lower().encode()).digest()
 
@@ -443,8 +450,6 @@ class StreamNote(BaseModel):
 #: No frame of any layout is shorter than this many bytes (sync marker, header and
 #: CRC; the shortest example in FRAME_LAYOUT.md has 12).
 MIN_FRAME_BYTES = 8
-#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
-MAX_WINDOWS_PER_FRAME = 16
 
 
 def note_sample_limit(stream_bytes: int, frame_length: int) -> int:
