@@ -73,7 +73,17 @@ def preceding_sums(mag: np.ndarray, window: int) -> np.ndarray:
 
 
 def zigzag(v: np.ndarray) -> np.ndarray:
-    """Map signed integers to non-negative ones: 0, -1, 1, -2, ... -> 0, 1, 2, 3, ..."""
+    """Map signed integers to non-negative ones: 0, -1, 1, -2, ... -> 0, 1, 2, 3, ...
+
+    The "ZigZag" mapping of the Protocol Buffers encoding (signed varints).
+
+    Examples
+    --------
+    >>> zigzag(np.array([0, -1, 1, -2, 2, -3])).tolist()
+    [0, 1, 2, 3, 4, 5]
+    >>> unzigzag(zigzag(np.array([-7, 7]))).tolist()
+    [-7, 7]
+    """
     v = np.asarray(v, dtype=np.int64)
     return np.where(v < 0, -2 * v - 1, 2 * v)
 
@@ -85,7 +95,15 @@ def unzigzag(u: np.ndarray) -> np.ndarray:
 
 
 def exp_golomb_bits(v: np.ndarray) -> np.ndarray:
-    """Length in bits of the order-0 exponential-Golomb codeword of each ``v`` >= 0."""
+    """Length in bits of the order-0 exponential-Golomb codeword of each ``v`` >= 0.
+
+    Examples
+    --------
+    ITU-T H.264 table 9-2: codeNum 0 is "1", 1-2 take 3 bits, 3-6 take 5, 7-14 take 7:
+
+    >>> exp_golomb_bits(np.array([0, 1, 2, 3, 6, 7, 14])).tolist()
+    [1, 3, 3, 5, 5, 7, 7]
+    """
     return 2 * bit_length(np.asarray(v, dtype=np.int64) + 1) - 1
 
 
@@ -110,7 +128,16 @@ def rice_escape_fields(
 
 
 def rice_escape_bits(mag: np.ndarray, k: np.ndarray) -> np.ndarray:
-    """Length in bits of each :func:`rice_escape_fields` codeword."""
+    """Length in bits of each :func:`rice_escape_fields` codeword.
+
+    Examples
+    --------
+    Rice code with k = 2: 9 is "00" "1" "01" (5 bits); a quotient of 32 or
+    more escapes to 32 + 1 + 53 bits:
+
+    >>> rice_escape_bits(np.array([9, 200]), np.array([2, 2])).tolist()
+    [5, 86]
+    """
     q = np.asarray(mag, dtype=np.int64) >> k
     return np.where(q >= RICE_ESCAPE, RICE_ESCAPE + 1 + ESCAPE_BITS, q + 1 + k)
 
