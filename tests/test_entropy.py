@@ -161,6 +161,11 @@ def test_pack_fields_matches_plain_python(fields):
     assert packed.tobytes() == bytes_of(bits_of(v, w)).tobytes()
 
 
+def test_pack_fields_refuses_fields_over_64_bits():
+    with pytest.raises(ValueError):
+        pack_fields(np.array([1, 1]), np.array([3, 65]))
+
+
 @settings(max_examples=80, deadline=None)
 @given(st.binary(min_size=1, max_size=40), st.data())
 def test_reader_matches_plain_python(data, draw):

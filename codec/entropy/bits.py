@@ -103,6 +103,8 @@ def pack_fields(values: np.ndarray, widths: np.ndarray) -> np.ndarray:
     total = int(widths.sum())
     if total == 0:
         return np.zeros(0, dtype=np.uint8)
+    if widths.max() > 64:
+        raise ValueError("field wider than 64 bits")  # our bug: layouts split longer codes
     end = np.cumsum(widths)
     start = end - widths
     word = start >> 6
