@@ -15,6 +15,7 @@ import numpy as np
 
 from ._errors import FrameError, InputError, ProfileError
 from ._profile import Profile, profile_digest, profile_id
+from ._status import DELIVERED
 from .entropy.bits import MAX_FIELD_BITS
 from .entropy.rangecoder import coefficient_cost_bits
 from .entropy.rice import exp_golomb_bits, zigzag
@@ -66,7 +67,7 @@ from .quantize.select import (
 from .quantize.steps import code_for_step, step_from_code
 from .quantize.trellis import dequantize_levels
 from .report import scope_figures, stream_report
-from .stream.search import DELIVERED, locate_frames
+from .stream.search import locate_frames
 from .transform.bases import Basis, basis_fingerprint
 from .transform.framing import merge_frames, split_frames
 from .transform.klt import profile_basis
@@ -98,6 +99,20 @@ class EncodeResult:
         ``block_error_energy``, ``block_fidelity``, ``block_met``, ``block_floor``.
     report : dict
         The JSON report (see :func:`codec.report.stream_report`).
+
+    Examples
+    --------
+    Every budget block meets its target, and the reconstruction is what the
+    decoder returns, bit for bit:
+
+    >>> import numpy as np, codec
+    >>> x = np.cumsum(np.random.default_rng(0).standard_normal((1024, 2)), axis=0)
+    >>> enc = codec.encode(x, codec.default_profile())
+    >>> bool(enc.frames["block_met"].all()), [c.name for c in enc.profile.channels]
+    (True, ['ch0', 'ch1'])
+    >>> dec = codec.decode(enc.data, enc.profile, samples=1024)
+    >>> bool(np.array_equal(dec.samples, enc.reconstruction))
+    True
     """
 
     data: bytes
@@ -114,6 +129,41 @@ class DecodeResult:
     ``samples`` holds NaN where no frame delivered data; ``delivered`` is the
     matching boolean mask and ``status`` the per-sample account (delivered,
     lost, gap).
+
+    Attributes
+    ----------
+    samples : ndarray, shape (samples, channels)
+        Decoded samples, NaN where lost.
+    delivered : ndarray of bool
+        Where a frame delivered data.
+    frames : dict
+        Per accepted frame: its header fields and place in the output.
+    crc_failures : list of int
+        Offsets of frame candidates whose CRC failed.
+    skipped_bytes : int
+        Bytes that belong to no accepted frame.
+    status : ndarray of uint8
+        Status code per sample and channel (:data:`codec.STATUS_NAMES`).
+    events : list of dict
+        What happened to frames that did not make it.
+    counts : dict
+        Frame and sample counts.
+    end_known : bool
+        Whether the stream's end is certain.
+
+    Examples
+    --------
+    A stream cut short loses the samples of its missing frame, and says so:
+
+    >>> import numpy as np, codec
+    >>> x = np.cumsum(np.random.default_rng(0).standard_normal((2048, 1)), axis=0)
+    >>> enc = codec.encode(x, codec.default_profile())
+    >>> first = codec.locate_frames(enc.data, codec.frame_key(enc.profile)).lengths[0]
+    >>> dec = codec.decode(enc.data[:first], enc.profile, samples=2048)
+    >>> dec.counts["samples_delivered"], dec.counts["samples_lost"]
+    (1024, 1024)
+    >>> bool(np.isnan(dec.samples[1024:]).all()), dec.end_known
+    (True, True)
     """
 
     samples: np.ndarray
@@ -121,7 +171,7 @@ class DecodeResult:
     frames: dict
     crc_failures: list[int] = field(default_factory=list)
     skipped_bytes: int = 0
-    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec.stream.search``).
+    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec._status``).
     status: np.ndarray | None = None
     #: What happened to frames that did not make it (capped list of dicts).
     events: list = field(default_factory=list)
@@ -135,6 +185,34 @@ def as_samples(samples, where: str = "input", allow_gaps: bool = False) -> np.nd
     """Validate and convert samples to a C-contiguous float64 (samples x channels) array.
 
     NaN and infinite samples are refused unless ``allow_gaps`` (a gap policy handles them).
+
+    Parameters
+    ----------
+    samples : array_like
+        1-D (one channel) or 2-D (samples x channels) numbers.
+    where : str
+        Where the samples came from, for messages.
+    allow_gaps : bool
+        Accept NaN and infinite samples.
+
+    Returns
+    -------
+    ndarray of float64, shape (samples, channels)
+        C-contiguous.
+
+    Raises
+    ------
+    InputError
+        For non-numeric, empty, 3-D or (without ``allow_gaps``) non-finite samples.
+
+    Examples
+    --------
+    >>> as_samples([1, 2, 3]).shape
+    (3, 1)
+    >>> as_samples([[1.0], [float("nan")]])
+    Traceback (most recent call last):
+    ...
+    codec._errors.InputError: input: sample 1 of channel 0 is nan (1 non-finite values ...
     """
     try:
         x = np.asarray(samples, dtype=np.float64)
@@ -163,6 +241,34 @@ def reconstruct(q: np.ndarray, mean_int: np.ndarray | None, code: np.ndarray,
 
     ``trellis`` (a bool, or one per row): rows of levels of dependent
     quantization (layout 4).
+
+    Parameters
+    ----------
+    q : ndarray of int, shape (frames, n)
+        Quantized coefficients (or trellis levels).
+    mean_int : ndarray of int, optional
+        Integer means of the ``ac`` reference, one per frame.
+    code : ndarray of int
+        Step code per frame (step 2**((code - 512) / 8)).
+    basis : Basis
+        The basis.
+    trellis : bool or ndarray of bool
+        Rows of dependent-quantization levels.
+
+    Returns
+    -------
+    ndarray, shape (frames, n)
+        The frames.
+
+    Examples
+    --------
+    Coefficient 0 of the DCT is the constant row 1/sqrt(N): a code of 2 at step
+    1 (code 512) gives 2 / sqrt(4) = 1 in every sample:
+
+    >>> import numpy as np
+    >>> from codec import as_basis
+    >>> reconstruct(np.array([[2, 0, 0, 0]]), None, np.array([512]), as_basis("dct", 4))
+    array([[1., 1., 1., 1.]])
     """
     step = step_from_code(code)
     if np.any(trellis):
@@ -205,6 +311,28 @@ def frame_key(profile: Profile, basis: Basis | None = None) -> FrameKey:
     ``basis`` is the profile's basis when already built (else it is built, a
     trained one loaded and hash-checked).  Every frame search and every packer
     takes this key; frames made under another profile fail their CRC.
+
+    Parameters
+    ----------
+    profile : Profile
+        The stream's profile.
+    basis : Basis, optional
+        Its basis, when already built.
+
+    Returns
+    -------
+    FrameKey
+        The CRC start values for frames of this profile.
+
+    Examples
+    --------
+    >>> import numpy as np, codec
+    >>> enc = codec.encode(np.zeros((64, 1)), codec.default_profile())
+    >>> other = enc.profile.model_copy(update={"fidelity": 0.9})
+    >>> len(codec.locate_frames(enc.data, frame_key(enc.profile)).frames)
+    1
+    >>> len(codec.locate_frames(enc.data, frame_key(other)).frames)
+    0
     """
     if basis is None:
         from .transform.klt import profile_basis as _pb

@@ -30,7 +30,30 @@ _TIME_NAMES = ("time", "t")
 
 @dataclass
 class SampleTable:
-    """Samples with their channel names and optional time column."""
+    """Samples with their channel names and optional time column.
+
+    Attributes
+    ----------
+    values : ndarray, shape (samples, channels)
+        float64 samples; NaN marks a gap where gaps are allowed.
+    names : list of str
+        Channel names, one per column.
+    time : ndarray, optional
+        The time column, carried through unchanged.
+    time_name : str
+        Its header name.
+    decimals : list of int or None, optional
+        Decimals each column is written with in CSV.
+    time_decimals : int, optional
+        Decimals of the time column.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = SampleTable(np.zeros((3, 2)), ["a", "b"])
+    >>> t.values.shape, t.names, t.time is None
+    ((3, 2), ['a', 'b'], True)
+    """
 
     values: np.ndarray
     names: list[str]
@@ -70,6 +93,39 @@ def read_samples(path: str | Path, allow_gaps: bool = False) -> SampleTable:
 
     NaN samples (``nan`` in CSV) are refused unless ``allow_gaps`` (a gap policy
     will handle them).  ``-`` reads CSV from standard input.
+
+    Parameters
+    ----------
+    path : str or Path
+        A ``.csv`` file (header row of names, optional first column ``time`` or
+        ``t``), a ``.npy`` file (2-D float array), or ``-``.
+    allow_gaps : bool
+        Accept NaN samples.
+
+    Returns
+    -------
+    SampleTable
+        The samples, names and time column.
+
+    Raises
+    ------
+    InputError
+        Naming the file, line and column of a bad value.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     path = pathlib.Path(d) / "s.csv"
+    ...     _ = path.write_text("time,a,b\\n0,1.5,2\\n1,nan,3\\n")
+    ...     try:
+    ...         read_samples(path)
+    ...     except InputError as e:
+    ...         print(e.message[:36])
+    ...     table = read_samples(path, allow_gaps=True)
+    line 3, column 'a': value is nan, a
+    >>> table.names, table.time.tolist(), table.values[:, 1].tolist()
+    (['a', 'b'], [0.0, 1.0], [2.0, 3.0])
     """
     if is_stdio(path):
         return _read_csv_text(sys.stdin.read(), "standard input", allow_gaps)
@@ -241,7 +297,43 @@ def write_samples(path: str | Path, table: SampleTable, tmp: Path | None = None)
 
 @contextlib.contextmanager
 def atomic_output(path: str | Path) -> Iterator[Path]:
-    """Yield a temporary path beside ``path``; rename it into place on success only."""
+    """Yield a temporary path beside ``path``; rename it into place on success only.
+
+    Parameters
+    ----------
+    path : str or Path
+        The output file.
+
+    Yields
+    ------
+    Path
+        A temporary file in the same folder; it replaces ``path`` when the
+        block ends normally and is removed when the block raises.
+
+    Raises
+    ------
+    InputError
+        When the folder does not exist or cannot be written, or ``path`` is a
+        folder or not a regular file.
+
+    Examples
+    --------
+    A failed write leaves the old file as it was and no partial file behind:
+
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     out = pathlib.Path(d) / "out.txt"
+    ...     with atomic_output(out) as tmp:
+    ...         _ = tmp.write_text("first")
+    ...     try:
+    ...         with atomic_output(out) as tmp:
+    ...             _ = tmp.write_text("half")
+    ...             raise RuntimeError("interrupted")
+    ...     except RuntimeError:
+    ...         pass
+    ...     print(out.read_text(), sorted(p.name for p in pathlib.Path(d).iterdir()))
+    first ['out.txt']
+    """
     path = Path(path)
     directory = path.parent if str(path.parent) else Path(".")
     if not directory.is_dir():
@@ -280,7 +372,22 @@ STDIO = "-"
 
 
 def is_stdio(path) -> bool:
-    """Whether ``path`` names standard input or output (``-``)."""
+    """Whether ``path`` names standard input or output (``-``).
+
+    Parameters
+    ----------
+    path : str or Path
+        A command-line path.
+
+    Returns
+    -------
+    bool
+
+    Examples
+    --------
+    >>> is_stdio("-"), is_stdio("data.csv")
+    (True, False)
+    """
     return str(path) == STDIO
 
 
@@ -368,6 +475,28 @@ def write_csv_block(stream, values: np.ndarray, time: np.ndarray | None = None,
     """Append rows to a text stream as CSV (NaN written as ``nan``), e.g. standard output.
 
     ``decimals`` per column and ``time_decimals`` as in :class:`SampleTable`.
+
+    Parameters
+    ----------
+    stream : text stream
+        Where the rows go.
+    values : ndarray, shape (rows, channels)
+        The samples.
+    time : ndarray, optional
+        A time column written first.
+    decimals : list of int or None, optional
+        Decimals per column (None: full precision, 17 significant digits).
+    time_decimals : int, optional
+        Decimals of the time column.
+
+    Examples
+    --------
+    >>> import io, numpy as np
+    >>> out = io.StringIO()
+    >>> write_csv_block(out, np.array([[1.26, np.nan]]), np.array([0.5]), decimals=[1, None],
+    ...                 time_decimals=2)
+    >>> out.getvalue()
+    '0.50,1.3,nan\\n'
     """
     cols = values if time is None else np.column_stack([time, values])
     fmt = _formats(decimals, values.shape[1])

@@ -74,81 +74,89 @@ def plot_comparison(cmp: Comparison, path: str | Path, profile=None,
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    bases = cmp.bases
-    style = series_styles(bases)
-    line_only = {b: {k: v for k, v in st.items() if k not in ("marker", "markevery")}
-                 for b, st in style.items()}
-    units = [c.unit for c in profile.channels] if profile is not None and profile.channels \
-        else [None] * len(cmp.names)
+    style = series_styles(cmp.bases)
     label = profile_name or (profile.description if profile is not None else "") or \
         "built-in default profile"
-    n = cmp.frame_length
     cols = 5
-    grid_rows = -(-len(bases) // cols)
+    grid_rows = -(-len(cmp.bases) // cols)
     fig = plt.figure(figsize=(16, 5.5 + 2.3 * grid_rows), layout="constrained")
     top, bottom = fig.subfigures(2, 1, height_ratios=[5.5, 2.3 * grid_rows])
     ax_rate, ax_comp = top.subplots(1, 2)
-
-    overall = [r for r in cmp.rows if r["channel"] == "all"]
-    for b in bases:
-        rs = [r for r in overall if r["basis"] == b]
-        ax_rate.plot([r["fidelity_target"] for r in rs], [r["bits_per_sample"] for r in rs],
-                     label=b, **{**style[b], "markevery": None})
-    ax_rate.set_xlabel("fidelity target F (fraction of frame energy kept)")
-    ax_rate.set_ylabel("bits per sample (all stream bits, pooled over channels)")
-    ax_rate.set_title(f"Rate vs fidelity, all channels, held-out {cmp.test_samples} samples")
-    ax_rate.grid(alpha=0.3)
-    ax_rate.legend(fontsize=7, ncol=2 if len(bases) <= 12 else 3)
-
-    test_frames, valid, _, _ = split_frames(cmp.test, n)
-    full = test_frames[valid == n]
-    full = full - full.mean(axis=1, keepdims=True)
-    k = np.arange(1, n + 1)
-    for b in bases:
-        basis = _basis(cmp, b)
-        ax_comp.plot(k, 100 * energy_compaction(full, basis), label=b, **style[b])
-    ax_comp.set_xscale("log", base=2)
-    ax_comp.set_xlabel("terms kept per frame (largest first)")
-    ax_comp.set_ylabel("energy retained (% of frame energy about its mean)")
-    ax_comp.set_title("Energy compaction on held-out frames")
-    ax_comp.grid(alpha=0.3, which="both")
-    ax_comp.legend(fontsize=7, ncol=2 if len(bases) <= 12 else 3)
-
-    ch, win = chosen_frame(cmp)
-    name = cmp.names[ch]
-    rate = None
-    if profile is not None and profile.channels:
-        rate = profile.channels[ch].sample_rate_hz
-    idx = np.arange(win * n, win * n + n)
-    pos = cmp.train_samples + idx  # position in the whole input
-    t = pos / rate if rate else pos
-    unit = "time from the start of the input (s)" if rate else "sample index in the input"
-    f = cmp.fidelities[0]
+    _plot_rate(ax_rate, cmp, style)
+    _plot_compaction(ax_comp, cmp, style)
     axes = np.atleast_1d(bottom.subplots(grid_rows, cols, sharex=True, sharey=True)).ravel()
-    original = cmp.test[idx, ch]
-    for ax, b in zip(axes, bases):
-        rec = cmp.reconstructions[(b, f)][idx, ch]
-        ax.plot(t, original, color="0.55", lw=2.4, ls="-", label="original")
-        ax.plot(t, rec, label="reconstruction", **{**line_only[b], "lw": 1.1})
-        ax.plot(t, original - rec, color="crimson", lw=0.9, ls=":", label="error")
-        row = next(r for r in cmp.rows if r["channel"] == name and r["basis"] == b
-                   and r["fidelity_target"] == f)
-        ax.set_title(f"{b}: {row['bits_per_sample']:.2f} bit/sample", fontsize=9)
-        ax.grid(alpha=0.3)
-    for ax in axes[len(bases):]:
-        ax.set_visible(False)
-    axes[0].legend(fontsize=7)
-    bottom.supxlabel(unit)
-    bottom.supylabel(f"{name} ({units[ch] or 'no unit in the profile'})")
-    bottom.suptitle(f"One held-out frame (channel {name}, window {win}) at F = {f:g}: "
-                    "original, reconstruction and error per basis", fontsize=11)
-    fig.suptitle(f"Basis comparison, {label} (N = {n}; trained bases fitted on the first "
-                 f"{cmp.train_samples} samples, every basis scored on the other "
+    _plot_frame(bottom, axes, cmp, style, profile)
+    fig.suptitle(f"Basis comparison, {label} (N = {cmp.frame_length}; trained bases fitted on "
+                 f"the first {cmp.train_samples} samples, every basis scored on the other "
                  f"{cmp.test_samples})", fontsize=12)
     path = Path(path)
     with atomic_output(path) as tmp:
         fig.savefig(tmp, format="png", dpi=90)
     plt.close(fig)
+
+
+def _plot_rate(ax, cmp: Comparison, style: dict) -> None:
+    """Bits per sample against the fidelity target, all channels pooled, one line per basis."""
+    overall = [r for r in cmp.rows if r["channel"] == "all"]
+    for b in cmp.bases:
+        rs = [r for r in overall if r["basis"] == b]
+        ax.plot([r["fidelity_target"] for r in rs], [r["bits_per_sample"] for r in rs],
+                label=b, **{**style[b], "markevery": None})
+    ax.set_xlabel("fidelity target F (fraction of frame energy kept)")
+    ax.set_ylabel("bits per sample (all stream bits, pooled over channels)")
+    ax.set_title(f"Rate vs fidelity, all channels, held-out {cmp.test_samples} samples")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=7, ncol=2 if len(cmp.bases) <= 12 else 3)
+
+
+def _plot_compaction(ax, cmp: Comparison, style: dict) -> None:
+    """Energy retained against terms kept on the held-out full frames, one line per basis."""
+    n = cmp.frame_length
+    test_frames, valid, _, _ = split_frames(cmp.test, n)
+    full = test_frames[valid == n]
+    full = full - full.mean(axis=1, keepdims=True)
+    k = np.arange(1, n + 1)
+    for b in cmp.bases:
+        ax.plot(k, 100 * energy_compaction(full, _basis(cmp, b)), label=b, **style[b])
+    ax.set_xscale("log", base=2)
+    ax.set_xlabel("terms kept per frame (largest first)")
+    ax.set_ylabel("energy retained (% of frame energy about its mean)")
+    ax.set_title("Energy compaction on held-out frames")
+    ax.grid(alpha=0.3, which="both")
+    ax.legend(fontsize=7, ncol=2 if len(cmp.bases) <= 12 else 3)
+
+
+def _plot_frame(sub, axes, cmp: Comparison, style: dict, profile) -> None:
+    """The chosen held-out frame at the lowest target: one panel per basis in ``axes``."""
+    n = cmp.frame_length
+    ch, win = chosen_frame(cmp)
+    name = cmp.names[ch]
+    rate = unit = None
+    if profile is not None and profile.channels:
+        rate = profile.channels[ch].sample_rate_hz
+        unit = profile.channels[ch].unit
+    idx = np.arange(win * n, win * n + n)
+    pos = cmp.train_samples + idx  # position in the whole input
+    t = pos / rate if rate else pos
+    f = cmp.fidelities[0]
+    original = cmp.test[idx, ch]
+    for ax, b in zip(axes, cmp.bases):
+        rec = cmp.reconstructions[(b, f)][idx, ch]
+        line = {k: v for k, v in style[b].items() if k not in ("marker", "markevery")}
+        ax.plot(t, original, color="0.55", lw=2.4, ls="-", label="original")
+        ax.plot(t, rec, label="reconstruction", **{**line, "lw": 1.1})
+        ax.plot(t, original - rec, color="crimson", lw=0.9, ls=":", label="error")
+        row = next(r for r in cmp.rows if r["channel"] == name and r["basis"] == b
+                   and r["fidelity_target"] == f)
+        ax.set_title(f"{b}: {row['bits_per_sample']:.2f} bit/sample", fontsize=9)
+        ax.grid(alpha=0.3)
+    for ax in axes[len(cmp.bases):]:
+        ax.set_visible(False)
+    axes[0].legend(fontsize=7)
+    sub.supxlabel("time from the start of the input (s)" if rate else "sample index in the input")
+    sub.supylabel(f"{name} ({unit or 'no unit in the profile'})")
+    sub.suptitle(f"One held-out frame (channel {name}, window {win}) at F = {f:g}: "
+                 "original, reconstruction and error per basis", fontsize=11)
 
 
 def _basis(cmp: Comparison, name: str):

@@ -60,6 +60,8 @@ MAX_CHANNELS = 256
 
 #: Characters a channel name may have.
 MAX_NAME_CHARS = 64
+#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
+MAX_WINDOWS_PER_FRAME = 16
 
 
 def check_channel_names(names: list[str], where: str = "input") -> None:
@@ -92,6 +94,35 @@ class ChannelSpec(BaseModel):
     ``resolution`` is in the channel's engineering units (e.g. the sensor's
     LSB): the error budget of a frame is never below N * resolution**2 / 12,
     the energy of the sensor's own quantization noise.
+
+    Parameters
+    ----------
+    name : str
+        Column name, 1 to 64 characters.
+    resolution : float
+        Sensor resolution (LSB) in engineering units; 0: none known.
+    raw_bits_per_sample : int
+        Bits the raw sensor value takes (1-64), the baseline of compression ratios.
+    sample_rate_hz : float, optional
+        Samples per second, for time axes and rates.
+    valid_min, valid_max : float, optional
+        Plausible range; decoded values outside are flagged.
+    max_error : float, optional
+        Peak-error limit in engineering units.
+    unit : str, optional
+        Engineering unit printed beside figures.
+
+    Examples
+    --------
+    >>> c = ChannelSpec(name="cell_temp", resolution=0.0625, unit="K")
+    >>> c.raw_bits_per_sample, c.unit
+    (16, 'K')
+    >>> import pydantic
+    >>> try:
+    ...     ChannelSpec(name="cell_temp", resolution=-1.0)
+    ... except pydantic.ValidationError as e:
+    ...     print(e.errors()[0]["loc"], e.errors()[0]["type"])
+    ('resolution',) greater_than_equal
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -117,6 +148,42 @@ class Profile(BaseModel):
 
     With no ``channels`` the profile applies to every input column with the
     channel defaults; :meth:`bind` makes the channel list explicit.
+
+    Parameters
+    ----------
+    description : str
+        Free text for people; not part of the identifier.
+    frame_length : int
+        Samples per frame N, 2 to 4096.
+    basis : str
+        A registered basis name (:func:`codec.basis_names`).
+    fidelity : float
+        Fraction of each frame's energy (about its mean with reference ``ac``)
+        the decoded frame keeps, 0 to 1.
+    reference : {"ac", "total"}
+        Energy the fidelity is a fraction of.
+    layout_version : {1, 2, 3, 4}
+        Frame layout the encoder writes.
+    multi_channel_frames : bool
+        Layouts 2 to 4: one frame carries all channels of a time window.
+    windows_per_frame : int
+        Layouts 3 and 4: time windows per frame, 1 to 16.
+    fidelity_scope : {"frame", "window"}
+        What one fidelity budget covers.
+    channels : tuple of ChannelSpec
+        The channels, in column order (empty: every column, defaults).
+    basis_file, basis_sha256 : str, optional
+        A trained basis (``basis = "klt"``): its file and the SHA-256 of its matrix.
+
+    Examples
+    --------
+    >>> p = Profile(frame_length=32, fidelity=0.95).bind(["x", "y"])
+    >>> [c.name for c in p.channels], p.basis
+    (['x', 'y'], 'dct')
+    >>> p.bind(["x", "z"])
+    Traceback (most recent call last):
+    ...
+    codec._errors.ProfileError: the profile's channels (x, y) do not match the input's ...
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -134,11 +201,12 @@ class Profile(BaseModel):
     multi_channel_frames: bool = False
     #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
-    windows_per_frame: int = Field(default=16, ge=1, le=16)
+    windows_per_frame: int = Field(default=16, ge=1, le=MAX_WINDOWS_PER_FRAME)
     #: What one fidelity budget covers: "window" (each window of each channel on its
     #: own) or "frame" (the windows of one channel that travel in one frame share one
     #: budget; layouts 3 and 4 with several windows per frame).  Only the encoder
-    #: reads it: the decoder and the profile identifier do not depend on it.
+    #: reads it and the profile identifier leaves it out, but the CRC key
+    #: (:func:`profile_digest`) holds it: a decoder needs the encoder's value.
     fidelity_scope: Literal["window", "frame"] = "frame"
     channels: tuple[ChannelSpec, ...] = Field(default=(), max_length=MAX_CHANNELS)
     #: A trained basis (basis = "klt"): its .cwbasis.npz file and the SHA-256 of its matrix.
@@ -200,55 +268,126 @@ class Profile(BaseModel):
 
 
 def default_profile() -> Profile:
-    """The built-in profile: DCT, N = 64, F = 0.99, mean-removed reference."""
+    """The built-in profile: DCT, N = 64, F = 0.99, mean-removed reference.
+
+    Returns
+    -------
+    Profile
+        ``Profile()`` with every default.
+
+    Examples
+    --------
+    >>> p = default_profile()
+    >>> p.basis, p.frame_length, p.fidelity, p.reference, p.layout_version
+    ('dct', 64, 0.99, 'ac', 3)
+    """
     return Profile()
 
 
 def profile_id(profile: Profile) -> int:
-    """16-bit identifier of the profile's canonical form (SHA-256, first two bytes)."""
-    # Settings a frame describes itself (layout version, multi-channel frames)
-    # or that only steer the encoder (peak-error limits) stay out of the hash,
-    # so profiles written before they existed keep their identifier.  The basis
-    # file's path may differ between the two ends; its hash may not.
+    """16-bit identifier of the profile's canonical form (SHA-256, first two bytes).
+
+    Parameters
+    ----------
+    profile : Profile
+        The profile.
+
+    Returns
+    -------
+    int
+        0 to 65535; every frame carries it (or its low byte).
+
+    Examples
+    --------
+    Settings that frames describe themselves, and text for people, leave the
+    identifier alone; settings both ends must share change it:
+
+    >>> p = default_profile()
+    >>> profile_id(p) == profile_id(p.model_copy(update={"description": "spare"}))
+    True
+    >>> profile_id(p) == profile_id(p.model_copy(update={"layout_version": 1}))
+    True
+    >>> profile_id(p) == profile_id(p.model_copy(update={"fidelity": 0.95}))
+    False
+    """
+    # The unit is a label for people and the budget scope steers only the encoder:
+    # profiles that add them keep their identifier.
+    blob = _canonical(profile, ("fidelity_scope",), ("max_error", "unit"))
+    return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
+
+
+def _canonical(profile: Profile, exclude: tuple[str, ...] = (),
+               channel_exclude: tuple[str, ...] = ("max_error",)) -> bytes:
+    """The canonical JSON of ``profile`` that :func:`profile_id` and :func:`profile_digest` hash.
+
+    Settings a frame describes itself (layout version, multi-channel frames,
+    windows per frame) or that only steer the encoder (peak-error limits) stay
+    out, so profiles written before they existed keep their hash; so do the
+    description and the basis file's path, which may differ between the two
+    ends (the basis's hash may not).  ``exclude`` and ``channel_exclude`` name
+    further top-level and per-channel keys to leave out.
+    """
     canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
-                                        "multi_channel_frames", "windows_per_frame",
-                                        "fidelity_scope"})
+                                        "multi_channel_frames", "windows_per_frame", *exclude})
     for ch in canon["channels"]:
-        ch.pop("max_error", None)
-        ch.pop("unit", None)  # a label for people; profiles that add one keep their identifier
+        for key in channel_exclude:
+            ch.pop(key, None)
     if canon["basis_sha256"] is None:
-        del canon["basis_sha256"]  # profiles without a trained basis keep their identifier
+        del canon["basis_sha256"]  # profiles without a trained basis keep their hash
     else:
         canon["basis_sha256"] = canon["basis_sha256"].lower()
-    blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
-    return int.from_bytes(hashlib.sha256(blob).digest()[:2], "big")
+    return json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
 
 
 def profile_digest(profile: Profile, fingerprint: str) -> bytes:
     """32-byte digest of everything both ends must share: the profile and its basis.
 
-    SHA-256 of the canonical form :func:`profile_id` hashes (the same settings
-    left out) followed by the basis fingerprint
+    SHA-256 of the canonical form :func:`profile_id` hashes, except that the
+    budget scope and the channels' units stay in (so a decoder must be given
+    them as the encoder had them), followed by the basis fingerprint
     (:func:`codec.transform.bases.basis_fingerprint` of the matrix the profile builds),
     so two ends whose bases differ by more than rounding get different
     digests.  Frames carry it implicitly in their CRC (``FRAME_LAYOUT.md``,
     "Profile check"), never on the wire.
     """
-    canon = profile.model_dump(exclude={"description", "basis_file", "layout_version",
-                                        "multi_channel_frames", "windows_per_frame"})
-    for ch in canon["channels"]:
-        ch.pop("max_error", None)
-    if canon["basis_sha256"] is None:
-        del canon["basis_sha256"]
-    else:
-        canon["basis_sha256"] = canon["basis_sha256"].lower()
-    blob = json.dumps(canon, sort_keys=True, separators=(",", ":")).encode()
+    blob = _canonical(profile)
     return hashlib.sha256(b"coefwire profile digest\0" + blob + b"\0"
                           + fingerprint.lower().encode()).digest()
 
 
 def load_profile(path: str | Path) -> Profile:
-    """Read and validate a TOML profile, naming the file and key on any error."""
+    """Read and validate a TOML profile, naming the file and key on any error.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; a relative ``basis_file`` in it is relative to the file.
+
+    Returns
+    -------
+    Profile
+        The validated profile (a ``[stream]`` table, if any, is ignored).
+
+    Raises
+    ------
+    ProfileError
+        Naming the file and the key, for unreadable TOML, unknown keys or
+        impossible values.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     path = pathlib.Path(d) / "p.toml"
+    ...     _ = path.write_text('frame_length = 32\\nfidelity = 1.5\\n')
+    ...     try:
+    ...         load_profile(path)
+    ...     except ProfileError as e:
+    ...         print(e.message)
+    key 'fidelity': Input should be less than or equal to 1 (got 1.5)
+
+    See :func:`save_profile` for a round trip.
+    """
     path = Path(path)
     data = read_toml(path)
     data.pop("stream", None)  # the note encode writes beside a stream; not part of a profile
@@ -266,6 +405,24 @@ class StreamNote(BaseModel):
     They are not part of the profile (and not in its identifier): how many
     samples went in, so a decoder knows the stream's true end, and the time
     column of the input when it was evenly spaced.
+
+    Parameters
+    ----------
+    samples : int
+        Samples per channel that went into the encoder.
+    time_name, time_start, time_step : optional
+        The input's time column: its name, and its start and step when evenly spaced.
+    time_decimals, time_start_ticks, time_step_ticks, time_ticks, time_float64 : optional
+        The time column kept exactly (see ``codec/_timecol.py``).
+    stuffing : {"slip", "cobs"}, optional
+        Byte stuffing of the stream's frames.
+    basis_fingerprint : str, optional
+        :func:`codec.basis_fingerprint` of the basis the encoding machine built.
+
+    Examples
+    --------
+    >>> StreamNote(samples=1000, stuffing="cobs").model_dump(exclude_none=True)
+    {'samples': 1000, 'stuffing': 'cobs'}
     """
 
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -293,8 +450,6 @@ class StreamNote(BaseModel):
 #: No frame of any layout is shorter than this many bytes (sync marker, header and
 #: CRC; the shortest example in FRAME_LAYOUT.md has 12).
 MIN_FRAME_BYTES = 8
-#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
-MAX_WINDOWS_PER_FRAME = 16
 
 
 def note_sample_limit(stream_bytes: int, frame_length: int) -> int:
@@ -354,8 +509,33 @@ def note_path(stream: str | Path) -> Path:
 def load_stream_note(path: str | Path) -> tuple[Profile, StreamNote | None]:
     """The profile and stream note recorded beside a stream.
 
-    Raises :class:`ProfileError` when the note records a basis fingerprint that
-    differs from the basis this machine builds for the profile.
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file written beside the stream (``STREAM.profile.toml``).
+
+    Returns
+    -------
+    (Profile, StreamNote or None)
+        The profile, and the ``[stream]`` note when the file has one.
+
+    Raises
+    ------
+    ProfileError
+        For a bad profile or note, or when the note records a basis
+        fingerprint that differs from the basis this machine builds.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     path = pathlib.Path(d) / "run.cw.profile.toml"
+    ...     save_stream_note(default_profile(), StreamNote(samples=640), path)
+    ...     profile, note = load_stream_note(path)
+    ...     save_profile(profile, path)  # a plain profile has no note
+    ...     plain = load_stream_note(path)
+    >>> profile == default_profile(), note.samples, plain[1]
+    (True, 640, None)
     """
     profile = load_profile(path)
     data = read_toml(path)
@@ -387,7 +567,25 @@ def _profile_dict(profile: Profile) -> dict:
 
 
 def save_profile(profile: Profile, path: str | Path) -> None:
-    """Write ``profile`` as TOML (None values omitted)."""
+    """Write ``profile`` as TOML (None values omitted).
+
+    Parameters
+    ----------
+    profile : Profile
+        The profile.
+    path : str or Path
+        The file to write.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> p = Profile(frame_length=16, channels=(ChannelSpec(name="v", resolution=0.5),))
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     save_profile(p, pathlib.Path(d) / "p.toml")
+    ...     back = load_profile(pathlib.Path(d) / "p.toml")
+    >>> back == p
+    True
+    """
     Path(path).write_text(tomli_w.dumps(_profile_dict(profile)), encoding="utf-8")
 
 

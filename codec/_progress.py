@@ -45,6 +45,20 @@ class Progress:
         Silence before the first report; seconds between plain-text lines.
     stream : file, optional
         Where to report (default: standard error at each report).
+
+    Examples
+    --------
+    Not a terminal, so one plain line per report (no delay and no interval here):
+
+    >>> import io
+    >>> set_quiet(False)  # what the command line's --quiet switches on
+    >>> out = io.StringIO()
+    >>> with Progress(2, "testing", "case", delay_s=0.0, every_s=0.0, stream=out) as bar:
+    ...     bar.update()
+    ...     bar.update()
+    >>> print(out.getvalue().replace(" 0 s", " T s"), end="")
+    testing:  50 % 1/2 cases, T s
+    testing: 100 % 2/2 cases, T s
     """
 
     def __init__(self, total: int, what: str, unit: str = "step", delay_s: float = 2.0,

@@ -105,6 +105,39 @@ def read_toml(path: str | Path, what: str = "profile") -> dict:
     TOML only: nothing in the file is executed and it cannot include other files.
     Files over :data:`MAX_TOML_BYTES` or nested over :data:`MAX_TOML_DEPTH`
     levels are refused before parsing.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file.
+    what : str
+        What the file is, for messages ("profile", "link file").
+
+    Returns
+    -------
+    dict
+        The parsed tables.
+
+    Raises
+    ------
+    ProfileError
+        Naming the file, when it is missing, unreadable, too large or too
+        deeply nested, or not valid TOML (TOML 1.0, parsed by ``tomllib``).
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     path = pathlib.Path(d) / "p.toml"
+    ...     _ = path.write_text("frame_length = 32\\n[[channels]]\\nname = 'x'\\n")
+    ...     print(read_toml(path))
+    ...     _ = path.write_text("frame_length = \\n")
+    ...     try:
+    ...         read_toml(path)
+    ...     except ProfileError as e:
+    ...         print(e.message[:20])
+    {'frame_length': 32, 'channels': [{'name': 'x'}]}
+    not valid TOML (Inva
     """
     path = Path(path)
     try:

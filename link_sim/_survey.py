@@ -79,6 +79,25 @@ class SurveySettings:
 
     ``profile`` is the profile as a plain dict (``Profile.model_dump()``), so
     the settings pickle small and hash the same everywhere.
+
+    Parameters
+    ----------
+    profile : dict
+        ``Profile.model_dump()`` of the profile every file is coded with.
+    bases : tuple of str
+        Bases to score (:func:`resolve_survey_bases`).
+    fidelities : tuple of float
+        Fidelity targets.
+    group_by : str, optional
+        The file-name pattern the archive was grouped by.
+
+    Examples
+    --------
+    >>> import codec
+    >>> s = SurveySettings(codec.default_profile().model_dump(), ("identity", "dct"), (0.99,))
+    >>> t = SurveySettings(codec.default_profile().model_dump(), ("identity", "dct"), (0.95,))
+    >>> len(s.fingerprint()), s.fingerprint() == t.fingerprint()
+    (64, False)
     """
 
     profile: dict
@@ -170,6 +189,33 @@ def expand_archive(items: list[str], group_by: str | None) -> list[ArchiveFile]:
 
     Without a pattern every file belongs to the group ``archive`` and its period
     is its name without suffix.
+
+    Parameters
+    ----------
+    items : list of str
+        Files, folders (searched recursively) or glob patterns.
+    group_by : str, optional
+        A file-name pattern such as ``{station}_{date}.csv``.
+
+    Returns
+    -------
+    list of ArchiveFile
+        Path, group and period of every ``.csv``, ``.npy`` or ``.parquet`` file.
+
+    Raises
+    ------
+    InputError
+        For a pattern that matches nothing, a missing file or an empty archive.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     for name in ("north_2026-01-02.csv", "north_2026-01-01.csv", "south_2026-01-01.csv"):
+    ...         _ = (pathlib.Path(d) / name).write_text("v\\n1\\n")
+    ...     items = expand_archive([d], "{station}_{date}.csv")
+    >>> [(i.group, i.period) for i in items]
+    [('north', '2026-01-01'), ('north', '2026-01-02'), ('south', '2026-01-01')]
     """
     pattern = GroupPattern(group_by) if group_by else None
     paths: list[str] = []
@@ -249,6 +295,30 @@ def resolve_survey_bases(spec: str, frame_length: int) -> tuple[str, ...]:
 
     A survey scores fixed bases only: a trained basis (klt) would be fitted on
     each file separately, which is not a profile one can ship.
+
+    Parameters
+    ----------
+    spec : str
+        ``"all"`` or comma-separated names.
+    frame_length : int
+        Frame length; ``all`` skips bases that cannot use it.
+
+    Returns
+    -------
+    tuple of str
+        The names, ``identity`` first.
+
+    Raises
+    ------
+    InputError
+        For an unknown or unfit name, or ``klt``.
+
+    Examples
+    --------
+    >>> resolve_survey_bases("dct, haar", 32)
+    ('identity', 'dct', 'haar')
+    >>> "klt" in resolve_survey_bases("all", 32), "db10" in resolve_survey_bases("all", 32)
+    (False, False)
     """
     if spec.strip() == "all":
         names = []

@@ -172,6 +172,33 @@ def run_survey(items: list[ArchiveFile], out: Path, settings: SurveySettings, *,
         No progress output.
     say : callable
         Where messages go (default: standard error).
+
+    Returns
+    -------
+    RunStats
+        Files in the archive, computed now, kept from before, failed.
+
+    Examples
+    --------
+    Two files in this process (``workers=1``); a resumed run recomputes nothing:
+
+    >>> import numpy as np, pathlib, tempfile, codec
+    >>> from link_sim import expand_archive, resolve_survey_bases
+    >>> p = codec.Profile(frame_length=32,
+    ...                   channels=(codec.ChannelSpec(name="v", sample_rate_hz=10.0),))
+    >>> settings = SurveySettings(p.model_dump(), resolve_survey_bases("dct", 32), (0.99,))
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     for name in ("north_2026-01-01.csv", "south_2026-01-01.csv"):
+    ...         x = np.cumsum(np.random.default_rng(0).standard_normal(256))
+    ...         t = np.arange(256) / 10.0
+    ...         np.savetxt(pathlib.Path(d) / name, np.column_stack([t, x]), delimiter=",",
+    ...                    header="time,v", comments="")
+    ...     items = expand_archive([str(pathlib.Path(d) / "*.csv")], "{station}_{date}.csv")
+    ...     out = pathlib.Path(d) / "survey"
+    ...     first = run_survey(items, out, settings, workers=1, quiet=True)
+    ...     again = run_survey(items, out, settings, resume=True, quiet=True)
+    >>> first.files, first.computed, first.failed, again.computed, again.skipped
+    (2, 2, 0, 0, 2)
     """
     say = say or (lambda text: print(text, file=sys.stderr, flush=True))
     fp = settings.fingerprint()

@@ -34,6 +34,7 @@ from .._profile import (
     save_stream_note,
 )
 from .._progress import busy
+from .._status import STATUS_NAMES
 from .._timecol import describe_time, time_fields, time_values
 from ..layouts.gapmask import GAP_POLICIES
 from ..layouts.v1v2 import GAP_KIND
@@ -41,7 +42,7 @@ from ..quantize.select import check_blocks, check_magnitude
 from ..quantize.steps import step_from_code
 from ..report import channel_table, error_figures, pooled_label, units_of, with_unit
 from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
-from ..stream.search import STATUS_NAMES, locate_frames
+from ..stream.search import locate_frames
 from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from ..transform.bases import basis_names
 from ..transform.framing import split_frames

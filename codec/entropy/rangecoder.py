@@ -45,6 +45,7 @@ import math
 import numpy as np
 
 from ..quantize.trellis import TRANSITIONS, quantizer_ids
+from .bits import bit_length as _bit_length
 from .rice import preceding_sums
 
 __all__ = [
@@ -559,15 +560,6 @@ _FLAT = CUM.ravel()
 # cost in bits of each (class, symbol): -log2(freq / TOTAL)
 with np.errstate(divide="ignore"):
     _COST = TOTAL_BITS - np.log2(np.diff(CUM, axis=1).astype(np.float64))
-
-
-def _bit_length(x: np.ndarray) -> np.ndarray:
-    x = np.asarray(x, dtype=np.int64)
-    out = np.frexp(x.astype(np.float64))[1].astype(np.int64)
-    big = x >= (1 << 52)
-    if big.any():
-        out[big] = [int(v).bit_length() for v in x[big]]
-    return out
 
 
 def context_class(total: np.ndarray, count: np.ndarray, j: np.ndarray, n: int) -> np.ndarray:

@@ -568,7 +568,7 @@ def coefficient_items(q: np.ndarray, k_init: np.ndarray, last: np.ndarray) -> li
 
 def initial_parameter(mag0: np.ndarray) -> np.ndarray:
     """``k_init`` the encoder sends: the Rice parameter that codes coefficient 0 shortest."""
-    from ..entropy.rice import bit_length as _bit_length
+    from ..entropy.bits import bit_length as _bit_length
 
     return np.clip(_bit_length(mag0) - 1, 0, (1 << K_INIT_BITS) - 1)
 
@@ -620,8 +620,6 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int, *, key: FrameKe
     Returns the bytes, each frame's byte length, each subframe's payload bits
     and, of those, its side-information bits (step, count, k_init).
     """
-    from ..entropy.rice import pack_bits
-
     q = batch.q
     ns = q.shape[0]
     vb = index_bits(n)
@@ -679,7 +677,7 @@ def pack_frames_v2(batch: FrameBatchV2, profile_id: int, n: int, *, key: FrameKe
             (multi, 1), (np.where(multi, 0, batch.channel), np.where(multi, 0, 8)),
             (short, 1), (np.where(short, batch.valid - 1, 0), np.where(short, vb, 0))]
     write_frame_heads(val, wid, first, lastrow, head, body_bytes * 8 - bits)
-    body = pack_bits(val.ravel(), wid.ravel())
+    body = pack_fields(val.ravel(), wid.ravel())
 
     out = wrap_frames(body, body_bytes, key)
     return out.tobytes(), length, sub_bits, side_bits
@@ -745,7 +743,8 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
     count in ``lb`` bits; layout 4 adds a fifth slot, the quantizer bit
     (``quantizer``: 1 = dependent quantization).
     """
-    from ..entropy.rice import bit_length, zigzag
+    from ..entropy.bits import bit_length
+    from ..entropy.rice import zigzag
 
     dz = zigzag(np.diff(step_code, prepend=0)) + 1
     val[:, col] = np.where(lead, step_code, dz)
@@ -779,20 +778,20 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     4's ``quantizer`` bit) at ``rows``; returns the bit positions after them
     and which frames hold an impossible value (refused by the decoder).
     """
-    from ..entropy.rice import unzigzag
+    from ..entropy.rice import read_exp_golomb, unzigzag
 
     bad = np.zeros(pp.size, dtype=bool)
     if s == 0:
         step[rows] = r.read(pp, STEP_BITS)
         pp = pp + STEP_BITS
     else:
-        v, used = r.exp_golomb(pp)
+        v, used = read_exp_golomb(r, pp)
         code = step[rows - 1] + unzigzag(v)
         bad |= (code < 0) | (code >= (1 << STEP_BITS))
         step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
         pp = pp + used
     if mean is not None:
-        v, used = r.exp_golomb(pp)
+        v, used = read_exp_golomb(r, pp)
         mean[rows] = unzigzag(v) + (0 if mean_pred is None
                                     else np.where(mean_pred, mean[prev], 0))
         pp = pp + used
@@ -800,7 +799,7 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     width = np.full(pp.size, lb)
     ci = np.flatnonzero(count_pred) if count_pred is not None else np.zeros(0, np.int64)
     if ci.size:
-        v, width[ci] = r.exp_golomb(pp[ci])
+        v, width[ci] = read_exp_golomb(r, pp[ci])
         c[ci] = count[prev[ci]] + unzigzag(v)
     bad |= (c < 0) | (c > n)
     count[rows] = np.clip(c, 0, n)
@@ -843,7 +842,7 @@ def parse_frames_v2(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     ``consumed_ok`` is False for a frame whose contents do not fill its length
     exactly (to the byte), which the decoder refuses.
     """
-    from ..entropy.rice import BitReader
+    from ..entropy.bits import BitReader
 
     r = BitReader(data)
     nf = offsets.size
@@ -903,8 +902,8 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
     codeword of up to 57 bits; longer codewords and escapes take the general
     path.  Returns ``(q, end positions, malformed)``.
     """
-    from ..entropy.rice import bit_length as _bit_length
-    from ..entropy.rice import rice_k_from_context
+    from ..entropy.bits import bit_length as _bit_length
+    from ..entropy.rice import read_exp_golomb, read_rice_escape, rice_k_from_context
 
     m = pos.size
     w1 = n + 1
@@ -916,7 +915,6 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
     p, cnt, jf, k0 = pos.copy(), count.copy(), np.zeros(m, np.int64), k_init
     # the last CONTEXT_WINDOW magnitudes of each subframe, most recent first
     hist = np.zeros((CONTEXT_WINDOW, m), dtype=np.int64)
-    words = r._words
     limit = r.size_bits
     while True:
         act = jf < cnt
@@ -937,7 +935,7 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
         run = 0
         if runm.any():
             ri = np.flatnonzero(runm)
-            v, used = r.exp_golomb(p[ri])
+            v, used = read_exp_golomb(r, p[ri])
             run = np.zeros(rows.size, np.int64)
             run[ri] = v
             p2 = p.copy()
@@ -945,7 +943,7 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
             k = k.copy()
             k[ri] = 0
         pc = np.minimum(p2, limit)
-        w = words[pc >> 3] << (pc & 7).astype(np.uint64)
+        w = r.peek(pc)
         qq = 33 - _bit_length((w >> np.uint64(31)).astype(np.int64))
         ku = k.astype(np.uint64)
         low = ((w << (qq + 1).astype(np.uint64)) >> np.uint64(1)) >> (63 - ku)
@@ -955,7 +953,7 @@ def _read_coefficients(r, pos: np.ndarray, count: np.ndarray, k_init: np.ndarray
         slow = act & ((qq >= 32) | (qq + k + 2 > 57))
         if slow.any():
             sl = np.flatnonzero(slow)
-            mv, uv = r.rice_escape(p2[sl], k[sl])
+            mv, uv = read_rice_escape(r, p2[sl], k[sl])
             bad[rows[sl[mv < 0]]] = True
             mv = np.maximum(mv, 0)
             mg[sl] = mv

@@ -32,8 +32,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..entropy.bits import BitReader, pack_fields
 from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
-from ..entropy.rice import BitReader, exp_golomb_bits, pack_bits, zigzag
+from ..entropy.rice import exp_golomb_bits, zigzag
 from .v1v2 import (
     CRC_BYTES,
     LONG_LENGTH_BITS,
@@ -186,7 +187,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
             (mean_pred & mean_flag, mean_flag.astype(np.int64)),
             (count_pred & several, several.astype(np.int64))]
     write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
-    heads = pack_bits(val.ravel(), wid.ravel())
+    heads = pack_fields(val.ravel(), wid.ravel())
 
     # frame = sync | header bytes | lane bytes | crc
     body_bytes = head_bytes + lane_len

@@ -18,7 +18,7 @@ applies the duplicate / out-of-order policy, written down here once:
 
 * The *head* is the highest window accepted so far.  A frame's window is the
   one nearest the head whose number is congruent to its sequence number modulo
-  the field's range M (65 536 in layout v1, 256 in layout v2; serial-number
+  the field's range M (65 536 in layout 1, 256 in layouts 2 to 4; serial-number
   arithmetic in the manner of RFC 1982), so the counter may wrap any number
   of times as long as frames are less than M/2 windows from the head.
 * A frame up to ``reorder`` windows behind the head is placed where it belongs
@@ -47,8 +47,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .._status import CONCEALED, DELIVERED, FIRST_FREE_STATUS, GAP, LOST, STATUS_NAMES
-
 # HEADER_BYTES: the envelope rule answers from at most this many bytes after the
 # sync marker, so a streaming scanner that waits for them decides as a whole-stream one.
 from ..layouts.crc import crc16_prefix_states
@@ -59,16 +57,7 @@ __all__ = [
     "FrameScanner",
     "locate_frames",
     "SequenceTracker",
-    "LOST",
-    "DELIVERED",
-    "GAP",
-    "CONCEALED",
-    "FIRST_FREE_STATUS",
-    "STATUS_NAMES",
 ]
-
-# Sample status codes (uint8), one per sample position and channel: defined once in
-# codec._status and re-exported here for the modules that read them from this one.
 
 #: CRC-failure offsets listed by a scanner (later ones are only counted: bounded memory).
 MAX_LISTED = 100_000
@@ -91,6 +80,19 @@ class Located:
         Bytes that belong to no accepted frame.
     frames : list of bytes
         The accepted frames themselves, in stream order.
+
+    Examples
+    --------
+    Made by :func:`locate_frames`; a damaged frame is passed over and counted:
+
+    >>> import numpy as np, codec
+    >>> enc = codec.encode(np.zeros((2048, 1)), codec.default_profile())  # two frames
+    >>> frames = codec.locate_frames(enc.data, codec.frame_key(enc.profile)).frames
+    >>> bad = bytearray(frames[0])
+    >>> bad[-1] ^= 1  # one bit of the CRC
+    >>> loc = codec.locate_frames(bytes(bad) + frames[1], codec.frame_key(enc.profile))
+    >>> len(loc.frames), loc.crc_failures, loc.skipped_bytes == len(bad)
+    (1, [0], True)
     """
 
     offsets: np.ndarray
@@ -123,7 +125,8 @@ class FrameScanner:
 
     def __init__(self, max_frame: int | None = None, *, key: FrameKey | None = None) -> None:
         #: Longest frame accepted; a candidate claiming more is treated as not a frame, so
-        #: the buffer never waits for more than this (layout v2's long form can claim 2^27).
+        #: the buffer never waits for more than this (the long form of layouts 2 to 4 can claim
+        #: 2^27).
         self.max_frame = max_frame
         self.key = key
         self._buf = bytearray()
@@ -336,7 +339,7 @@ class SequenceTracker:
         """Window of one frame (row) and the verdict: ``ok`` or why it is dropped.
 
         ``modulus`` is the range of the frame's sequence field (65 536 in layout
-        v1 and gap-mask frames, 256 in layout v2: there a frame more than 128
+        1 and gap-mask frames, 256 in layouts 2 to 4: there a frame more than 128
         windows away from the head is ambiguous).
         """
         self.last_cut = 0

@@ -82,7 +82,35 @@ def cobs_decode(packet: bytes) -> bytes | None:
 
 
 def stuff(frames: list[bytes], kind: str) -> bytes:
-    """Each frame as one packet of ``kind`` (``slip`` or ``cobs``), back to back."""
+    """Each frame as one packet of ``kind`` (``slip`` or ``cobs``), back to back.
+
+    Parameters
+    ----------
+    frames : list of bytes
+        The frames, one packet each.
+    kind : {"slip", "cobs"}
+        The stuffing.
+
+    Returns
+    -------
+    bytes
+        The stuffed stream.
+
+    Examples
+    --------
+    SLIP (RFC 1055): END before and after the packet, END inside becomes ESC
+    ESC_END and ESC becomes ESC ESC_ESC:
+
+    >>> stuff([bytes([0xC0, 0x01, 0xDB])], "slip").hex(" ")
+    'c0 db dc 01 db dd c0'
+
+    COBS (Cheshire & Baker 1999: each code byte is the distance to the next
+    zero, which it replaces; hand computed from that definition): 11 22 00 33
+    becomes 03 11 22 02 33, then the 00 delimiter:
+
+    >>> stuff([bytes([0x11, 0x22, 0x00, 0x33])], "cobs").hex(" ")
+    '03 11 22 02 33 00'
+    """
     enc = {"slip": slip_encode, "cobs": cobs_encode}[kind]
     return b"".join(enc(f) for f in frames)
 
@@ -92,6 +120,20 @@ class Unstuffer:
 
     ``bad_packets`` counts packets with an invalid escape or COBS code chain,
     ``overlong`` those longer than :data:`MAX_PACKET` (dropped).
+
+    Parameters
+    ----------
+    kind : {"slip", "cobs"}
+        The stuffing.
+
+    Examples
+    --------
+    >>> u = Unstuffer("cobs")
+    >>> stream = stuff([b"\\x11\\x22\\x00\\x33", b"ab"], "cobs")
+    >>> u.feed(stream[:3]), u.feed(stream[3:]), u.close()
+    ([], [b'\\x11"\\x003', b'ab'], [])
+    >>> u.packets, u.bad_packets
+    (2, 0)
     """
 
     def __init__(self, kind: str):

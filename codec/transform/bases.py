@@ -60,6 +60,21 @@ class Basis:
         The number written in frame headers (0-255).
     matrix : ndarray, shape (n, n)
         Rows are the basis vectors; read-only.
+
+    Examples
+    --------
+    The orthonormal DCT-II of 8 points is an orthonormal matrix, and its
+    analysis is SciPy's ``dct(x, norm="ortho")`` (the reference implementation):
+
+    >>> import numpy as np, scipy.fft
+    >>> b = as_basis("dct", 8)
+    >>> bool(np.allclose(b.matrix @ b.matrix.T, np.eye(8), atol=1e-15))
+    True
+    >>> x = np.arange(16.0).reshape(2, 8)
+    >>> bool(np.allclose(b.analyze(x), scipy.fft.dct(x, norm="ortho", axis=1)))
+    True
+    >>> bool(np.allclose(b.synthesize(b.analyze(x)), x))
+    True
     """
 
     name: str
@@ -117,6 +132,25 @@ def register_basis(
     check : callable, optional
         ``check(n)`` returns None when ``n`` is allowed, else the reason
         (a sentence fragment such as "needs a power of two").
+
+    Raises
+    ------
+    ValueError
+        If the name is registered already, or the code is taken or outside 0-255.
+
+    Examples
+    --------
+    A name or a header code can be registered once only:
+
+    >>> import numpy as np
+    >>> register_basis("dct", 200, np.eye)
+    Traceback (most recent call last):
+    ...
+    ValueError: basis 'dct' is registered already
+    >>> register_basis("my_dct", as_basis("dct", 8).code, np.eye)
+    Traceback (most recent call last):
+    ...
+    ValueError: basis code 1 is taken or outside 0-255
     """
     if name in _kinds():  # the built-in plugins first, so their names and codes stay theirs
         raise ValueError(f"basis {name!r} is registered already")
@@ -126,7 +160,21 @@ def register_basis(
 
 
 def basis_names() -> list[str]:
-    """Names of every registered basis, in code order."""
+    """Names of every registered basis, in code order.
+
+    Returns
+    -------
+    list of str
+        The built-in bases, the wavelet bases and ``klt`` (trained), then any
+        registered by other modules.
+
+    Examples
+    --------
+    >>> basis_names()[:5]
+    ['identity', 'dct', 'legendre', 'haar', 'walsh']
+    >>> {"db4", "sym6", "klt"} <= set(basis_names())
+    True
+    """
     kinds = _kinds()
     return sorted(kinds, key=lambda k: kinds[k].code)
 
@@ -134,8 +182,39 @@ def basis_names() -> list[str]:
 def as_basis(basis: str | Basis, n: int) -> Basis:
     """Return the basis called ``basis`` for frames of ``n`` samples.
 
-    A :class:`Basis` passes through after its length is checked.  Unknown
-    names and lengths a basis does not allow raise :class:`InputError`.
+    Parameters
+    ----------
+    basis : str or Basis
+        A registered name (:func:`basis_names`), or a :class:`Basis`, which
+        passes through after its length is checked.
+    n : int
+        Frame length, 2 to :data:`MAX_FRAME_LENGTH`.
+
+    Returns
+    -------
+    Basis
+        The basis; built once per (name, n) and cached.
+
+    Raises
+    ------
+    InputError
+        For an unknown name or a length the basis does not allow.
+
+    Examples
+    --------
+    The Haar basis of 8 points: its first row is the constant 1/sqrt(8), its
+    last rows are the finest differences (Haar 1910):
+
+    >>> import numpy as np
+    >>> h = as_basis("haar", 8)
+    >>> bool(np.allclose(h.matrix[0], 1 / np.sqrt(8)))
+    True
+    >>> bool(np.allclose(h.matrix @ h.matrix.T, np.eye(8)))
+    True
+    >>> as_basis("haar", 12)
+    Traceback (most recent call last):
+    ...
+    codec._errors.InputError: basis 'haar' cannot use frame length 12: it needs a power of two; ...
     """
     if isinstance(basis, Basis):
         if basis.n != n:
@@ -162,7 +241,30 @@ def as_basis(basis: str | Basis, n: int) -> Basis:
 
 
 def basis_from_code(code: int, n: int) -> Basis:
-    """The registered basis whose header code is ``code``."""
+    """The registered basis whose header code is ``code``.
+
+    Parameters
+    ----------
+    code : int
+        The basis code of a frame header (0-255).
+    n : int
+        Frame length.
+
+    Returns
+    -------
+    Basis
+        As :func:`as_basis` returns it.
+
+    Raises
+    ------
+    InputError
+        When no registered basis has this code.
+
+    Examples
+    --------
+    >>> basis_from_code(as_basis("walsh", 16).code, 16).name
+    'walsh'
+    """
     for name, kind in _kinds().items():
         if kind.code == code:
             return as_basis(name, n)
@@ -181,6 +283,27 @@ def basis_fingerprint(matrix: np.ndarray) -> str:
 
     Two ends that build the same basis get the same fingerprint; a basis that
     differs by more than rounding gets another one.
+
+    Parameters
+    ----------
+    matrix : array_like, shape (n, n)
+        The basis matrix.
+
+    Returns
+    -------
+    str
+        64 hexadecimal digits.
+
+    Examples
+    --------
+    A change far below 2**-32 keeps the fingerprint; another basis changes it:
+
+    >>> import numpy as np
+    >>> m = as_basis("dct", 8).matrix
+    >>> basis_fingerprint(m) == basis_fingerprint(m + 1e-14)
+    True
+    >>> basis_fingerprint(m) == basis_fingerprint(as_basis("legendre", 8).matrix)
+    False
     """
     q = np.rint(np.asarray(matrix, dtype=np.float64) * 2.0**32).astype("<i8")
     return hashlib.sha256(q.tobytes()).hexdigest()
