@@ -30,7 +30,21 @@ __all__ = ["FEC_NAMES", "Code", "DecodeStats", "NoCode", "Hamming74", "ReedSolom
 
 
 class NoCode(Code):
-    """Uncoded: the bytes go on air as they are."""
+    """Uncoded: the bytes go on air as they are.
+
+    Attributes
+    ----------
+    name, rate, soft
+        ``"none"``, 1.0 and False (see :class:`Code`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> code = NoCode()
+    >>> bits = code.encode(b"\\x0f")
+    >>> bits.tolist(), code.decode(bits, 1)[0].tobytes()
+    ([0, 0, 0, 0, 1, 1, 1, 1], b'\\x0f')
+    """
 
     name = "none"
     rate = 1.0
@@ -544,14 +558,38 @@ def register_fec(name: str, factory: Callable[[int], Code]) -> None:
 
 
 def unregister_fec(name: str) -> None:
-    """Withdraw a code added by :func:`register_fec` (the built-in ones stay)."""
+    """Withdraw a code added by :func:`register_fec` (the built-in ones stay).
+
+    Parameters
+    ----------
+    name : str
+        The registered name; an unknown name is ignored.
+
+    Examples
+    --------
+    >>> unregister_fec("conv")
+    Traceback (most recent call last):
+    ...
+    ValueError: the built-in FEC code 'conv' cannot be withdrawn
+    """
     if name in FEC_NAMES:
         raise ValueError(f"the built-in FEC code {name!r} cannot be withdrawn")
     _FACTORIES.pop(name, None)
 
 
 def fec_names() -> tuple[str, ...]:
-    """Every code name on offer: the built-in ones, then the registered ones."""
+    """Every code name on offer: the built-in ones, then the registered ones.
+
+    Returns
+    -------
+    tuple of str
+        In the order the command line lists them.
+
+    Examples
+    --------
+    >>> fec_names()[:4]
+    ('none', 'hamming74', 'rs255', 'conv')
+    """
     return tuple(_FACTORIES)
 
 

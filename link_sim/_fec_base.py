@@ -17,7 +17,22 @@ __all__ = ["Code", "DecodeStats", "as_u8"]
 
 @dataclass
 class DecodeStats:
-    """What a decoder saw: blocks decoded and blocks it could not correct."""
+    """What a decoder saw: blocks decoded and blocks it could not correct.
+
+    Attributes
+    ----------
+    codewords : int
+        Blocks (codewords) the decoder worked on.
+    codewords_failed : int
+        Blocks it found uncorrectable (it passes their bytes on as received).
+    extra : dict
+        Code-specific counts, e.g. corrected symbols.
+
+    Examples
+    --------
+    >>> DecodeStats(4, 1).codewords_failed
+    1
+    """
 
     codewords: int = 0
     codewords_failed: int = 0
@@ -25,7 +40,24 @@ class DecodeStats:
 
 
 class Code:
-    """Interface: ``encode(bytes) -> bits``, ``decode(received, n_bytes) -> (bytes, stats)``."""
+    """Interface of an FEC code: ``encode(bytes) -> bits``, ``decode(received, n_bytes)``.
+
+    Attributes
+    ----------
+    name : str
+        The name users give (``--fec``, ``fec =`` in link files).
+    rate : float
+        Information bits per channel bit of the code itself (no padding).
+    soft : bool
+        Whether :meth:`decode` wants matched-filter values instead of hard bits.
+
+    Examples
+    --------
+    >>> from link_sim import make_code
+    >>> code = make_code("hamming74")
+    >>> isinstance(code, Code), code.channel_bits(4)  # 32 bits in blocks of 4 -> 56 on air
+    (True, 56)
+    """
 
     name = "?"
     soft = False  # whether decode wants matched-filter values instead of hard bits

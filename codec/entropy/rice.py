@@ -39,7 +39,9 @@ from .bits import BitReader, bit_length
 
 __all__ = [
     "exp_golomb_bits",
+    "exp_golomb_fields",
     "read_exp_golomb",
+    "read_unary",
     "rice_escape_fields",
     "rice_escape_bits",
     "read_rice_escape",
@@ -107,6 +109,30 @@ def exp_golomb_bits(v: np.ndarray) -> np.ndarray:
     return 2 * bit_length(np.asarray(v, dtype=np.int64) + 1) - 1
 
 
+def exp_golomb_fields(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Order-0 exponential-Golomb codewords of each ``v`` >= 0 as (value, width) items.
+
+    Two items per value (prefix zeros, then ``v + 1`` in binary), interleaved, so
+    values up to 2**53 never need a field wider than 64 bits.
+
+    Examples
+    --------
+    ITU-T H.264 table 9-2: codeNum 3 is "00100".
+
+    >>> values, widths = exp_golomb_fields(np.array([3]))
+    >>> values.tolist(), widths.tolist()
+    ([0, 4], [2, 3])
+    """
+    w = np.asarray(v, dtype=np.int64) + 1
+    nb = bit_length(w)
+    values = np.zeros(2 * w.size, dtype=np.uint64)
+    widths = np.zeros(2 * w.size, dtype=np.int64)
+    widths[0::2] = nb - 1
+    values[1::2] = w.astype(np.uint64)
+    widths[1::2] = nb
+    return values, widths
+
+
 def rice_escape_fields(
     mag: np.ndarray, k: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -163,8 +189,15 @@ def rice_k_from_context(total: np.ndarray, count: np.ndarray) -> np.ndarray:
     return bit_length(r)
 
 
-def _read_unary(r: BitReader, pos: np.ndarray, limit: int) -> np.ndarray:
-    """Zeros before the next 1 bit at each position (``limit + 1``: none within limit)."""
+def read_unary(r: BitReader, pos: np.ndarray, limit: int) -> np.ndarray:
+    """Zeros before the next 1 bit at each position (``limit + 1``: none within limit).
+
+    Examples
+    --------
+    >>> r = BitReader(bytes([0b00010000, 0]))
+    >>> read_unary(r, np.array([0, 4]), 8).tolist()
+    [3, 9]
+    """
     t = r.read(pos, limit + 1)
     return limit + 1 - bit_length(t)
 
@@ -176,7 +209,7 @@ def read_rice_escape(r: BitReader, pos: np.ndarray, k: np.ndarray
     Returns (magnitudes, bits consumed); a run of more than
     :data:`RICE_ESCAPE` zeros is no codeword and reads as magnitude -1.
     """
-    q = _read_unary(r, pos, RICE_ESCAPE)
+    q = read_unary(r, pos, RICE_ESCAPE)
     esc = q == RICE_ESCAPE
     bad = q > RICE_ESCAPE
     lw = np.where(esc, ESCAPE_BITS, k)
@@ -187,6 +220,6 @@ def read_rice_escape(r: BitReader, pos: np.ndarray, k: np.ndarray
 
 def read_exp_golomb(r: BitReader, pos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Read order-0 exp-Golomb codewords at bit offsets ``pos``: (values, bits consumed)."""
-    z = _read_unary(r, pos, _MAX_UNARY)
+    z = read_unary(r, pos, _MAX_UNARY)
     w = r.read(pos + z, z + 1)
     return w - 1, 2 * z + 1

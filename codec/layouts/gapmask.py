@@ -40,8 +40,8 @@ from __future__ import annotations
 import numpy as np
 
 from .._errors import InputError
-from ..entropy.bits import pack_fields
-from ..entropy.rice import BitReader, exp_golomb_fields
+from ..entropy.bits import BitReader, pack_fields
+from ..entropy.rice import exp_golomb_fields, read_unary
 from .crc import crc16_ibm3740
 from .v1v2 import GAP_KIND, SYNC, frame_extent
 
@@ -174,7 +174,7 @@ def read_gap_runs(frame: bytes, bit: int, samples: int) -> np.ndarray | str:
     sb = int(samples - 1).bit_length()
     cap = int(samples).bit_length()  # an EG0 prefix longer than this codes a count > samples
     rd = BitReader(frame)
-    z = int(rd.unary(np.array([bit]), cap)[0])
+    z = int(read_unary(rd, np.array([bit]), cap)[0])
     if z > cap or bit + 2 * z + 1 > limit:
         return "gap frame claims more runs than its samples allow"
     runs = int(rd.read(np.array([bit + z]), z + 1)[0])  # runs - 1 + 1
@@ -186,7 +186,7 @@ def read_gap_runs(frame: bytes, bit: int, samples: int) -> np.ndarray | str:
     for i in range(runs):  # bounded above by the bits left; each run reads two fields
         start[i] = rd.read(np.array([bit]), sb)[0]
         bit += sb
-        z = int(rd.unary(np.array([bit]), cap)[0])
+        z = int(read_unary(rd, np.array([bit]), cap)[0])
         if z > cap or bit + 2 * z + 1 > limit:
             return "gap frame run longer than its samples"
         count[i] = rd.read(np.array([bit + z]), z + 1)[0]
