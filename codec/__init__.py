@@ -21,8 +21,8 @@ import importlib
 _WHERE = {
     ".transform.bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
                 "register_basis"),
-    "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "frame_key",
-                "reconstruct"),
+    "._codec": ("EncodeResult", "as_samples", "encode", "frame_key", "reconstruct"),
+    ".stream.decode": ("DecodeResult", "decode"),
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
     ".layouts.crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
     "._errors": ("CoefwireError", "FrameError", "InputError", "ProfileError"),

@@ -52,7 +52,8 @@ from .._status import CONCEALED, DELIVERED, FIRST_FREE_STATUS, GAP, LOST, STATUS
 # HEADER_BYTES: the envelope rule answers from at most this many bytes after the
 # sync marker, so a streaming scanner that waits for them decides as a whole-stream one.
 from ..layouts.crc import crc16_prefix_states
-from ..layouts.v1v2 import HEADER_BYTES, SYNC, FrameKey, frame_extents, frames_crc_ok
+from ..layouts.envelope import EXTENT_BYTES as HEADER_BYTES
+from ..layouts.envelope import SYNC, FrameKey, frame_extents, frames_crc_ok
 
 __all__ = [
     "Located",
