@@ -46,10 +46,9 @@ ALLOWED_PRIVATE = {
 }
 
 #: Module-level import cycles that exist today, each as the sorted tuple of its
-#: modules.  None: ``codec._codec`` and ``codec.stream.live`` do import each other,
-#: but ``_codec.decode`` imports ``StreamDecoder`` inside the function, so the
-#: cycle never runs at import time and this graph (module level only) leaves it
-#: out; issue 14 item 2 removes it.
+#: modules.  None: the encoder (``codec._codec``) imports nothing of the decoder;
+#: whole-stream ``decode`` lives in ``codec.stream.decode``, on top of
+#: ``codec.stream.live`` and ``codec.stream.frames`` (issue 14 item 2).
 KNOWN_CYCLES: set[tuple[str, ...]] = set()
 
 PACKAGES = ("codec", "link_sim")

@@ -6,9 +6,9 @@ from hypothesis import strategies as st
 from strategies import v1_frames
 from streams import EXAMPLE_DIGEST, keyed_crc
 
-from codec.layouts.v1v2 import (
+from codec.layouts.envelope import FrameKey
+from codec.layouts.v1 import (
     FrameBatch,
-    FrameKey,
     pack_frame_reference,
     pack_frames,
     parse_headers,
