@@ -23,7 +23,7 @@ from ..transform.bases import Basis
 __all__ = ["FrameRows", "decode_frames"]
 
 
-@dataclass
+@dataclass(frozen=True)
 class FrameRows:
     """CRC-valid frames interpreted under a profile (the decode half's per-frame step).
 
