@@ -213,6 +213,8 @@ class Layout(Protocol):
 
 _LAYOUTS: dict[int, Layout] = {}
 _BUILTIN = (".v1", ".v2", ".v3", ".v4")
+#: Versions of the built-in layouts: refused to other modules even before those load.
+_RESERVED = range(1, 5)
 _state = {"loaded": False, "rules": None}
 _KINDS = {"fixed16": 1, "flagged": 2}
 
@@ -227,14 +229,16 @@ def _builtins() -> None:
 def register_layout(layout: Layout) -> Layout:
     """Add ``layout`` under its version number; returns it.
 
-    Raises ValueError for a version outside 1..14, one already taken, or an
-    unknown length rule.
+    Raises ValueError for a version outside 1..14, one already taken or
+    belonging to a built-in layout, or an unknown length rule.
     """
     if not isinstance(layout, Layout):
         raise TypeError(f"{layout!r} does not have every member of the Layout protocol")
     v = int(layout.version)
     if not 1 <= v <= 14:
         raise ValueError(f"layout version {v} is outside 1..14 (15 is the gap-mask frame)")
+    if v in _RESERVED and not type(layout).__module__.startswith(f"{__package__}."):
+        raise ValueError(f"layout version {v} belongs to a built-in layout; choose another")
     if v in _LAYOUTS and _LAYOUTS[v] is not layout:
         raise ValueError(f"layout version {v} is already registered")
     from .envelope import EXTENT_BYTES
