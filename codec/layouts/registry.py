@@ -17,6 +17,7 @@ from __future__ import annotations
 import importlib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import Protocol, runtime_checkable
 
 import numpy as np
@@ -143,6 +144,9 @@ class ParsedFrames:
     row_count: np.ndarray
     row_trellis: np.ndarray
     q: np.ndarray
+
+    def __post_init__(self):
+        object.__setattr__(self, "header", MappingProxyType(dict(self.header)))  # read-only
 
 
 class Verdicts:
