@@ -21,10 +21,12 @@ import importlib
 _WHERE = {
     ".transform.bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
                 "register_basis"),
-    "._codec": ("DecodeResult", "EncodeResult", "as_samples", "decode", "encode", "frame_key",
-                "reconstruct"),
+    "._codec": ("EncodeResult", "as_samples", "encode", "frame_key", "reconstruct"),
+    ".stream.decode": ("DecodeResult", "decode"),
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
     ".layouts.crc": ("crc16_ibm3740", "crc32_iso_hdlc"),
+    ".layouts.registry": ("Layout", "LengthField", "CodedFrames", "PackedFrames", "ParseContext",
+                          "ParsedFrames", "register_layout", "unregister_layout", "layout_for"),
     "._errors": ("CoefwireError", "FrameError", "InputError", "ProfileError"),
     "._io": ("SampleTable", "atomic_output", "read_samples", "is_stdio", "write_csv_block"),
     ".transform.klt": ("TrainedBasis", "load_trained_basis", "save_trained_basis", "train_klt"),
@@ -60,6 +62,9 @@ __all__ = [
     "is_stdio", "write_csv_block", "StreamNote", "load_stream_note", "Progress",
     "channel_table", "pooled_label", "units_of", "with_unit", "Located", "locate_frames",
     "max_frame_bytes", "Unstuffer", "stuff",
+    # frame layouts as registered units (issue 14, item 1)
+    "Layout", "LengthField", "CodedFrames", "PackedFrames", "ParseContext", "ParsedFrames",
+    "register_layout", "unregister_layout", "layout_for",
 ]
 
 

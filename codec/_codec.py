@@ -1,57 +1,27 @@
-"""Encoder and decoder: samples -> frames -> coefficients -> terms -> bytes, and back.
+"""The encoder: samples -> windows -> coefficients -> codes -> frames, on all windows at once.
 
-Each stage lives in its own module (framing, bases, selection, quantization,
-layout, stream search); this module only wires them together, on all frames at
-once.
+Each stage lives in its own module (transform, quantize, entropy, layouts);
+this module wires them together.  The frame layout is a registered
+:class:`codec.layouts.registry.Layout` looked up by the profile's version
+number: the encoder asks it how to choose codes and how to pack them, and
+never branches on the number itself.  Decoding lives in :mod:`codec.stream`
+(:mod:`codec.stream.frames` per frame, :mod:`codec.stream.decode` whole streams).
 """
 
 from __future__ import annotations
 
 import functools
-from dataclasses import dataclass, field
-from functools import partial
+from dataclasses import dataclass
 
 import numpy as np
 
-from ._errors import FrameError, InputError, ProfileError
+from ._errors import InputError, ProfileError
 from ._profile import Profile, profile_digest, profile_id
-from ._status import DELIVERED
-from .entropy.bits import MAX_FIELD_BITS
 from .entropy.rangecoder import coefficient_cost_bits
 from .entropy.rice import exp_golomb_bits, zigzag
-from .layouts.gapmask import (
-    GAP_POLICIES,
-    fill_gaps,
-    pack_gap_frame,
-    read_gap_runs,
-    unwrap_gap_frame,
-)
-from .layouts.v1v2 import (
-    GAP_KIND,
-    LAYOUT_VERSION,
-    LAYOUT_VERSION_2,
-    PROFILE_BITS_V2,
-    SEQUENCE_BITS_V2,
-    SYNC,
-    FrameBatch,
-    FrameBatchV2,
-    FrameKey,
-    expected_length,
-    index_bits,
-    pack_frames,
-    pack_frames_v2,
-    parse_frames_v2,
-    parse_headers,
-    parse_payloads,
-    payload_bits_v2,
-)
-from .layouts.v3v4 import (
-    LAYOUT_VERSION_3,
-    LAYOUT_VERSION_4,
-    FrameBatchV3,
-    pack_frames_v3,
-    parse_frames_v3,
-)
+from .layouts.envelope import FrameKey
+from .layouts.gapmask import GAP_POLICIES, fill_gaps, pack_gap_frame
+from .layouts.registry import CodedFrames, layout_for
 from .quantize.select import (
     _MARGIN,
     block_budgets,
@@ -72,9 +42,7 @@ from .transform.bases import Basis, basis_fingerprint
 from .transform.framing import merge_frames, split_frames
 from .transform.klt import profile_basis
 
-__all__ = ["EncodeResult", "DecodeResult", "FrameRows", "encode", "decode", "decode_frames",
-           "check_some_frame", "frame_key",
-           "as_samples", "reconstruct"]
+__all__ = ["EncodeResult", "encode", "frame_key", "as_samples", "reconstruct"]
 
 
 @dataclass
@@ -120,65 +88,6 @@ class EncodeResult:
     reconstruction: np.ndarray
     frames: dict
     report: dict
-
-
-@dataclass
-class DecodeResult:
-    """Decoded samples and an account of every frame.
-
-    ``samples`` holds NaN where no frame delivered data; ``delivered`` is the
-    matching boolean mask and ``status`` the per-sample account (delivered,
-    lost, gap).
-
-    Attributes
-    ----------
-    samples : ndarray, shape (samples, channels)
-        Decoded samples, NaN where lost.
-    delivered : ndarray of bool
-        Where a frame delivered data.
-    frames : dict
-        Per accepted frame: its header fields and place in the output.
-    crc_failures : list of int
-        Offsets of frame candidates whose CRC failed.
-    skipped_bytes : int
-        Bytes that belong to no accepted frame.
-    status : ndarray of uint8
-        Status code per sample and channel (:data:`codec.STATUS_NAMES`).
-    events : list of dict
-        What happened to frames that did not make it.
-    counts : dict
-        Frame and sample counts.
-    end_known : bool
-        Whether the stream's end is certain.
-
-    Examples
-    --------
-    A stream cut short loses the samples of its missing frame, and says so:
-
-    >>> import numpy as np, codec
-    >>> x = np.cumsum(np.random.default_rng(0).standard_normal((2048, 1)), axis=0)
-    >>> enc = codec.encode(x, codec.default_profile())
-    >>> first = codec.locate_frames(enc.data, codec.frame_key(enc.profile)).lengths[0]
-    >>> dec = codec.decode(enc.data[:first], enc.profile, samples=2048)
-    >>> dec.counts["samples_delivered"], dec.counts["samples_lost"]
-    (1024, 1024)
-    >>> bool(np.isnan(dec.samples[1024:]).all()), dec.end_known
-    (True, True)
-    """
-
-    samples: np.ndarray
-    delivered: np.ndarray
-    frames: dict
-    crc_failures: list[int] = field(default_factory=list)
-    skipped_bytes: int = 0
-    #: Per sample and channel: LOST 0, DELIVERED 1, GAP 2 (codes in ``codec._status``).
-    status: np.ndarray | None = None
-    #: What happened to frames that did not make it (capped list of dicts).
-    events: list = field(default_factory=list)
-    #: Frame and sample counts; samples_delivered + samples_lost + samples_gap = samples.
-    counts: dict = field(default_factory=dict)
-    #: Whether the stream's end is certain (stream note, or a short last frame received).
-    end_known: bool = False
 
 
 def as_samples(samples, where: str = "input", allow_gaps: bool = False) -> np.ndarray:
@@ -342,134 +251,89 @@ def frame_key(profile: Profile, basis: Basis | None = None) -> FrameKey:
 
 
 def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 0) -> EncodeResult:
-    """Code ``samples`` (samples x channels) under ``profile``; every frame meets its budget.
+    """Code ``samples`` under ``profile``; every budget block meets its fidelity budget.
 
     The target is checked on the reconstruction the decoder will produce, and
     any frame that misses it is re-quantized with a finer step until it holds.
-    ``gaps`` is the policy for NaN samples (``codec.layouts.gapmask``: refuse, fill,
-    mark); ``first_window`` numbers the first time window (the streaming
-    encoder codes a live stream block by block).
+    The frame layout (``profile.layout_version``, a registered
+    :class:`codec.layouts.registry.Layout`) chooses the codes and packs them.
+
+    Parameters
+    ----------
+    samples : array_like
+        Samples x channels (a 1-D array is one channel); finite numbers unless
+        ``gaps`` allows NaN.
+    profile : Profile
+        The coding profile; an unbound one is bound to ``ch0``, ``ch1``, ...
+    gaps : {"refuse", "fill", "mark"}
+        Policy for NaN samples (:mod:`codec.layouts.gapmask`): refuse them,
+        fill them by interpolation, or fill and mark them in gap-mask frames.
+    first_window : int
+        Number of the first time window (the streaming encoder codes a live
+        stream block by block).
+
+    Returns
+    -------
+    EncodeResult
+        The bytes, the bound profile, the reconstruction a decoder will
+        produce, per-frame figures and the JSON report.
+
+    Raises
+    ------
+    InputError
+        Samples that are not a non-empty numeric 2-D array, NaN under the
+        ``refuse`` policy, or a peak-error limit no step can meet.
+    ProfileError
+        A bound profile whose channel count differs from the input's.
+
+    Examples
+    --------
+    >>> import numpy as np, codec
+    >>> x = np.sin(np.arange(256) / 9.0)[:, None]
+    >>> enc = codec.encode(x, codec.Profile(frame_length=64, fidelity=0.99))
+    >>> enc.report["fidelity_min"] >= 0.99
+    True
+    >>> bool(np.allclose(codec.decode(enc.data, enc.profile).samples, enc.reconstruction))
+    True
     """
-    if gaps not in GAP_POLICIES:
-        raise InputError(f"unknown gap policy {gaps!r}; choose one of {', '.join(GAP_POLICIES)}")
-    if gaps == "refuse":
-        x = as_samples(samples)
-        missing = None
-    else:
-        x, missing = fill_gaps(as_samples(samples, allow_gaps=True), empty=gaps == "mark")
-        if not missing.any():
-            missing = None
+    x, missing = _gap_input(samples, gaps)
     profile = _bind(profile, x.shape[1])
     check_magnitude(x, [c.name for c in profile.channels])
-    n = profile.frame_length
+    layout = layout_for(profile.layout_version)
     basis = profile_basis(profile)  # loads and hash-checks a trained basis
-    frames, valid, channel, window = split_frames(x, n)
-    mask = np.arange(n) < valid[:, None]
-    resolution = np.array([c.resolution for c in profile.channels])[channel]
-    peak = np.abs(np.where(mask, frames, 0.0)).max(axis=1)
-    e_ref = reference_energy(frames, valid, profile.reference)
-    budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak, n)
-    # Budget blocks: the windows of one channel in one frame (frame scope), else None
-    # (every window its own budget, as before).  Gap-mask frames wrap whole frames.
-    block = block_budget = None
-    if (profile.fidelity_scope == "frame" and profile.layout_version >= 3
-            and profile.windows_per_frame > 1):
-        block = budget_blocks(channel, window + first_window, profile.windows_per_frame)
-        block_budget = block_budgets(e_ref, profile.fidelity, resolution, valid, peak, n, block)
-    mean = None
-    if profile.reference == "ac":
-        mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
-    cx = basis.analyze(frames)
-    dc = basis.analyze(np.ones(n))
-    trellis = None  # layout 4: per frame, whether dependent quantization codes it
-    if profile.layout_version == 1:
-        offset = np.full(cx.shape[0], 0.5)
-        code = choose_steps(cx, mean, dc, budget)
-    elif block is not None:  # one step per budget block (layouts 3 and 4)
-        code = choose_block_steps(cx, mean, dc, block, block_budget, RD_OFFSET_V3)
-        offset = np.full(code.size, RD_OFFSET_V3)
-    else:
-        code, offset = _rate_fidelity_choice(cx, mean, dc, budget, n, profile.layout_version)
-
-    slack_budget = budget if profile.layout_version >= 3 else None
-    if block is not None:
-        slack_budget = block_budget
-    q, mean_int, _ = code_frame(cx, mean, dc, code, offset, slack_budget, block=block)
-    if profile.layout_version == LAYOUT_VERSION_4:
-        if block is None:
-            q, mean_int, code, trellis = _quantizer_choice(cx, mean, dc, budget, q, mean_int,
-                                                           code)
-        else:
-            q, mean_int, code, trellis = _block_quantizer_choice(
-                cx, mean, dc, block, block_budget, q, mean_int, code)
-    recon = reconstruct(q, mean_int, code, basis, trellis)
-    err = _valid_error(frames, recon, mask)
-    limit = _peak_limits(profile, channel)
-    peak_mode = bool(np.isfinite(limit).any())
-
-    def step_drop(rows: np.ndarray) -> np.ndarray:
-        """Eighth-octave step codes by which each frame's step must shrink (0: it passes)."""
-        if block is not None:
-            return block_drop(rows)
-        drop = (err[rows] > budget[rows] * _MARGIN).astype(np.int64)
-        if peak_mode:
-            pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
-            over = pk > limit[rows]
-            # a uniform quantizer's error scales with its step
-            with np.errstate(over="ignore"):
-                ratio = np.minimum(pk / limit[rows], 2.0**1000)
-            est = np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(np.int64)
-            drop = np.maximum(drop, np.where(over, np.maximum(est, 1), 0))
-        return drop
-
-    def block_drop(rows: np.ndarray) -> np.ndarray:
-        """``step_drop`` for budget blocks: every row of a block moves with its block.
-
-        ``rows`` holds whole blocks (all rows at first, then the rows of blocks
-        that failed); the blocks' errors are summed over all their rows.
-        """
-        over = block_sums(err, block, block_budget.size) > block_budget * _MARGIN
-        dropb = over.astype(np.int64)
-        if peak_mode:
-            pk = _valid_max_error(frames[rows], recon[rows], mask[rows])
-            with np.errstate(over="ignore"):
-                ratio = np.minimum(pk / limit[rows], 2.0**1000)
-            est = np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(np.int64)
-            np.maximum.at(dropb, block[rows], np.where(pk > limit[rows], np.maximum(est, 1), 0))
-        return dropb[block[rows]]
-
-    # finest step: keeps every integer code below 2**52 (exact in float64)
-    scale = np.abs(cx).max(axis=1)
-    if mean is not None:
-        scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
-    finest = np.minimum(code_for_step(np.maximum(scale, 1e-300) * 2.0**-52), code)
-    rows = np.arange(code.size)
-    drop = step_drop(rows)
-    while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
-        bad, d = rows[drop > 0], drop[drop > 0]
-        if (code[bad] <= finest[bad]).any():
-            if peak_mode:
-                raise InputError("the peak-error limit is finer than any quantizer step can "
-                                 "meet at this signal's magnitude; raise max_error", "profile")
-            raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
-        code[bad] = np.maximum(code[bad] - d, finest[bad])
-        tb = None if trellis is None else trellis[bad]
-        qb, mb = _requantize(cx[bad], None if mean is None else mean[bad], dc, code[bad],
-                             offset[bad], tb)
-        q[bad] = qb
+    w = _windows(x, profile, layout, basis, first_window, frame_scope=True)
+    q, mean_int, code, offset, trellis = _choose(w, layout)
+    recon, err = _closed_loop(w, basis, q, mean_int, code, offset, trellis)
+    n = profile.frame_length
+    fmiss = gap_rows = None
+    if missing is not None and gaps == "mark":
+        fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
+        gap_rows = fmiss.any(axis=1)
+        # a window of nothing but gaps is never shown: its coefficients need not be sent
+        empty = (fmiss & (np.arange(n) < w.valid[:, None])).sum(axis=1) == w.valid
+        q[empty] = 0
         if mean_int is not None:
-            mean_int[bad] = mb
-        recon[bad] = reconstruct(qb, mb, code[bad], basis, tb)
-        err[bad] = _valid_error(frames[bad], recon[bad], mask[bad])
-        rows = bad
-        drop = step_drop(rows)
-        if not (drop > 0).any():
-            # Synthesize all frames in one call, as the decoder does: BLAS may round a
-            # subset differently from the whole batch, so the check is redone on this.
-            recon = reconstruct(q, mean_int, code, basis, trellis)
-            err = _valid_error(frames, recon, mask)
-            rows = np.arange(code.size)
-            drop = step_drop(rows)
+            mean_int[empty] = 0
+    key = frame_key(profile, basis)
+    packed = layout.pack(CodedFrames(
+        channel=w.channel, sequence=w.window + first_window, valid=w.valid, step_code=code,
+        mean=mean_int, q=q, profile_id=profile_id(profile), n=n,
+        channels=len(profile.channels), basis_code=basis.code,
+        multi=profile.multi_channel_frames, windows_per_frame=layout.windows_per_frame(profile),
+        trellis=trellis), key)
+    data, frame_bits, extra_bits = packed.data, packed.row_bits, 0
+    if gap_rows is not None:
+        data, extra_bits = _add_gap_frames(data, packed.row_frame, fmiss, gap_rows, w.valid,
+                                           key)
+    return _encode_result(x, profile, w, q, code, trellis, recon, err, data, frame_bits,
+                          packed.header_bits, packed.row_frame, extra_bits, gaps, missing)
+
+
+def _encode_result(x, profile, w, q, code, trellis, recon, err, data, frame_bits, header_bits,
+                   row_frame, extra_bits, gaps, missing) -> EncodeResult:
+    """Per-frame figures, budget-block figures and the report of a coded stream."""
+    channel, window, block, block_budget = w.channel, w.window, w.block, w.block_budget
+    budget, e_ref, frames, mask = w.budget, w.e_ref, w.frames, w.mask
     fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
     floor = budget > (1.0 - profile.fidelity) * e_ref
     if block is None:  # every window is its own budget block
@@ -482,42 +346,6 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     block_met = block_err <= block_budget
     block_floor = block_budget > (1.0 - profile.fidelity) * block_ref
     x_hat, _ = merge_frames(recon, channel, window, x.shape[0], x.shape[1])
-    fmiss = gap_rows = None
-    if missing is not None and gaps == "mark":
-        fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
-        gap_rows = fmiss.any(axis=1)
-        # a window of nothing but gaps is never shown: its coefficients need not be sent
-        empty = (fmiss & mask).sum(axis=1) == valid
-        q[empty] = 0
-        if mean_int is not None:
-            mean_int[empty] = 0
-    if profile.layout_version == 1:
-        kept = q != 0
-        batch = FrameBatch(
-            channel=channel, sequence=window + first_window,
-            basis=np.full(channel.size, basis.code),
-            step_code=code, valid=valid, has_mean=mean_int is not None,
-            mean=mean_int if mean_int is not None else np.zeros(channel.size, np.int64),
-            terms=kept.sum(axis=1), term_index=np.nonzero(kept)[1], term_value=q[kept],
-        )
-        data, lengths = pack_frames(batch, profile_id(profile), n, key=frame_key(profile, basis))
-        frame_bits = lengths * 8
-        header_bits = int(frame_bits.sum()) - int(_v1_term_bits(batch, n))
-        row_frame = np.arange(channel.size)
-    elif profile.layout_version == 2:
-        data, frame_bits, header_bits = _pack_v2(profile, channel, window + first_window,
-                                                 valid, code, mean_int, q, n,
-                                                 frame_key(profile, basis))
-        row_frame = (np.unique(window, return_inverse=True)[1] if profile.multi_channel_frames
-                     else np.arange(channel.size))
-    else:
-        data, frame_bits, header_bits, row_frame = _pack_v3(
-            profile, channel, window + first_window, valid, code, mean_int, q, n, trellis,
-            key=frame_key(profile, basis))
-    extra_bits = 0
-    if gap_rows is not None:
-        data, extra_bits = _add_gap_frames(data, row_frame, fmiss, gap_rows, valid,
-                                           frame_key(profile, basis))
     info = {
         "channel": channel, "window": window, "bits": frame_bits, "terms": (q != 0).sum(axis=1),
         "step_code": code, "error_energy": err, "budget": budget,
@@ -574,101 +402,6 @@ def _add_gap_frames(data: bytes, row_frame: np.ndarray, fmiss: np.ndarray, has_g
         pieces.append(g)
         extra += 8 * (len(g) - ln)
     return b"".join(pieces), extra
-
-
-def _v1_term_bits(batch: FrameBatch, n: int) -> int:
-    """Bits of the v1 payload that carry terms and the mean (the rest is header)."""
-    from .entropy.bits import signed_width
-
-    terms = batch.terms.astype(np.int64)
-    vw = np.zeros(terms.size, np.int64)
-    if batch.term_value.size:
-        starts = np.cumsum(terms) - terms
-        nz = terms > 0
-        vw[nz] = np.maximum.reduceat(signed_width(batch.term_value[:, None]), starts[nz])
-    mw = signed_width(batch.mean[:, None]) if batch.has_mean else np.zeros(terms.size, np.int64)
-    return int((mw + terms * (index_bits(n) + vw)).sum())
-
-
-def _pack_v2(profile: Profile, channel, window, valid, code, mean_int, q, n, key):
-    """Layout v2 frames; returns (bytes, bits per subframe, header bits of the stream)."""
-    multi = profile.multi_channel_frames
-    rows = channel.size
-    if multi:
-        frame = window.copy()
-        first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
-    else:
-        frame = np.arange(rows)
-        first = frame
-    pid = profile_id(profile)
-    parts = []
-    bounds = np.r_[first, rows]
-    for a in range(0, first.size, _PACK_BLOCK):  # blocks of frames: temporaries stay cached
-        b = min(a + _PACK_BLOCK, first.size)
-        r0, r1 = bounds[a], bounds[b]
-        fs = first[a:b]
-        batch = FrameBatchV2(
-            multi=np.full(b - a, multi), channel=channel[fs], sequence=window[fs],
-            valid=valid[fs], frame=frame[r0:r1] - frame[r0], step_code=code[r0:r1],
-            mean=None if mean_int is None else mean_int[r0:r1], q=q[r0:r1])
-        parts.append(pack_frames_v2(batch, pid, n, key=key))
-    data = b"".join(p[0] for p in parts)
-    lengths, sub_bits, side_bits = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
-    cnt = np.bincount(frame, minlength=first.size)
-    overhead = lengths * 8 - np.add.reduceat(sub_bits, first)
-    bits = sub_bits + (overhead // cnt)[frame]
-    bits[first] += overhead - (overhead // cnt) * cnt
-    coef_bits = sub_bits - side_bits
-    return data, bits, int(lengths.sum() * 8 - coef_bits.sum())
-
-
-def _pack_v3(profile: Profile, channel, window, valid, code, mean_int, q, n, trellis=None,
-             groups=None, *, key: FrameKey):
-    """Layout v3 frames: (bytes, bits per row, header bits of the stream, frame of each row).
-
-    Header bits are everything but the range-coded coefficient bytes.  ``groups``
-    (optional) gives each row's frame group of consecutive windows; by default
-    windows go ``windows_per_frame`` at a time.
-    """
-    multi = profile.multi_channel_frames
-    w = profile.windows_per_frame
-    channels = len(profile.channels)
-    group = window // w if groups is None else groups
-    if multi:
-        order = np.arange(channel.size)  # rows are window-major, channel-minor already
-        frame = group
-    else:
-        order = np.lexsort((window, channel, group))
-        frame = group[order] * channels + channel[order]
-    frame = np.unique(frame, return_inverse=True)[1]
-    first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
-    lastrow = np.r_[first[1:] - 1, frame.size - 1]
-    fo = order[first]
-    pid = profile_id(profile)
-    nwin = window[order[lastrow]] - window[fo] + 1
-    parts = []
-    bounds = np.r_[first, frame.size]
-    for a in range(0, first.size, _PACK_BLOCK):  # blocks of frames: temporaries stay cached
-        b = min(a + _PACK_BLOCK, first.size)
-        r0, r1 = bounds[a], bounds[b]
-        rows = order[r0:r1]
-        batch = FrameBatchV3(
-            multi=np.full(b - a, multi), channel=channel[fo[a:b]], sequence=window[fo[a:b]],
-            windows=nwin[a:b], valid=valid[order[lastrow[a:b]]],
-            frame=frame[r0:r1] - frame[r0], step_code=code[rows],
-            mean=None if mean_int is None else mean_int[rows], q=q[rows],
-            quantizer=None if trellis is None else trellis[rows])
-        parts.append(pack_frames_v3(batch, pid, n, channels, profile.layout_version, key=key))
-    data = b"".join(p[0] for p in parts)
-    lengths, sub_bits, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 2, 3))
-    cnt = np.bincount(frame, minlength=first.size)
-    bits_sorted = np.repeat(lengths * 8 // cnt, cnt)
-    bits_sorted[first] += lengths * 8 - (lengths * 8 // cnt) * cnt
-    bits = np.empty_like(bits_sorted)
-    bits[order] = bits_sorted
-    row_frame = np.empty_like(frame)
-    row_frame[order] = frame
-    return data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8), row_frame
 
 
 def _requantize(cx, mean, dc, code, offset, trellis):
@@ -732,45 +465,163 @@ def _mean_bits(mean_int):
     return 0 if mean_int is None else exp_golomb_bits(zigzag(mean_int))
 
 
-#: Rounding offsets the encoder tries per frame (0.5: nearest; smaller: wider dead zone).
-RD_OFFSETS = (0.5, 0.36)
-#: Layout 3: the one rounding offset (a slightly widened dead zone).
-RD_OFFSET_V3 = 0.42
-_RD_BLOCK = 4096
-_PACK_BLOCK = 4096
+def _gap_input(samples, gaps: str) -> tuple[np.ndarray, np.ndarray | None]:
+    """Samples as a float array and the mask of their gaps (None without any), by policy."""
+    if gaps not in GAP_POLICIES:
+        raise InputError(f"unknown gap policy {gaps!r}; choose one of {', '.join(GAP_POLICIES)}")
+    if gaps == "refuse":
+        return as_samples(samples), None
+    x, missing = fill_gaps(as_samples(samples, allow_gaps=True), empty=gaps == "mark")
+    return x, (missing if missing.any() else None)
 
 
-def _rate_fidelity_choice(cx, mean, dc, budget, n, version=2):
-    """Per frame, the (step code, rounding offset) pair that meets the budget in fewest bits.
+@dataclass(frozen=True)
+class _Windows:
+    """The input cut into windows (rows), their budgets and their transform coefficients.
 
-    For each candidate offset the largest step that meets the budget is found,
-    and the exact v2 payload size of the result is counted; the cheaper wins.
+    ``block`` / ``block_budget``: the budget block of each row and each
+    block's budget when several windows share one (frame scope), else None.
     """
-    nf = cx.shape[0]
-    if nf > _RD_BLOCK:  # frames are independent: work block by block so temporaries stay cached
-        parts = [_rate_fidelity_choice(cx[a : a + _RD_BLOCK],
-                                       None if mean is None else mean[a : a + _RD_BLOCK],
-                                       dc, budget[a : a + _RD_BLOCK], n, version)
-                 for a in range(0, nf, _RD_BLOCK)]
-        return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
-    if version >= 3:
-        # With the rest of each budget spent by zeroing +-1 codes (spend_slack), one
-        # rounding offset does as well as trying two: measured in FRAME_LAYOUT.md.
-        code = choose_steps(cx, mean, dc, budget, RD_OFFSET_V3)
-        return code, np.full(code.size, RD_OFFSET_V3)
-    best_code = best_off = best_bits = None
-    for off in RD_OFFSETS:
-        code = choose_steps(cx, mean, dc, budget, off, hint=best_code)
-        q, mean_int, _ = code_frame(cx, mean, dc, code, off)
-        bits = payload_bits_v2(q, mean_int, n)
-        if best_bits is None:
-            best_code, best_off, best_bits = code, np.full(code.size, off), bits
-            continue
-        better = bits < best_bits
-        best_code = np.where(better, code, best_code)
-        best_off = np.where(better, off, best_off)
-        best_bits = np.where(better, bits, best_bits)
-    return best_code, best_off
+
+    frames: np.ndarray
+    valid: np.ndarray
+    channel: np.ndarray
+    window: np.ndarray
+    mask: np.ndarray
+    e_ref: np.ndarray
+    budget: np.ndarray
+    block: np.ndarray | None
+    block_budget: np.ndarray | None
+    mean: np.ndarray | None
+    cx: np.ndarray
+    dc: np.ndarray
+    limit: np.ndarray
+
+
+def _windows(x: np.ndarray, profile: Profile, layout, basis: Basis, first_window: int,
+             frame_scope: bool) -> _Windows:
+    """Cut ``x`` into windows and give each its budget (and budget block, in frame scope)."""
+    n = profile.frame_length
+    frames, valid, channel, window = split_frames(x, n)
+    mask = np.arange(n) < valid[:, None]
+    resolution = np.array([c.resolution for c in profile.channels])[channel]
+    peak = np.abs(np.where(mask, frames, 0.0)).max(axis=1)
+    e_ref = reference_energy(frames, valid, profile.reference)
+    budget = frame_budgets(e_ref, profile.fidelity, resolution, valid, peak, n)
+    # Budget blocks: the windows of one channel in one frame (frame scope), else None
+    # (every window its own budget).  Gap-mask frames carry one window each.
+    block = block_budget = None
+    per_frame = layout.windows_per_frame(profile)
+    if (profile.fidelity_scope == "frame" and layout.supports_frame_scope and per_frame > 1
+            and frame_scope):
+        block = budget_blocks(channel, window + first_window, per_frame)
+        block_budget = block_budgets(e_ref, profile.fidelity, resolution, valid, peak, n, block)
+    mean = None
+    if profile.reference == "ac":
+        mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
+    return _Windows(frames, valid, channel, window, mask, e_ref, budget, block, block_budget,
+                    mean, basis.analyze(frames), basis.analyze(np.ones(n)),
+                    _peak_limits(profile, channel))
+
+
+def _choose(w: _Windows, layout):
+    """Step codes, rounding offsets and codes as the layout chooses them (before the closed loop).
+
+    Returns ``(q, mean_int, code, offset, trellis)``; ``trellis`` is None
+    unless the layout may carry levels of dependent quantization.
+    """
+    cx, mean, dc = w.cx, w.mean, w.dc
+    if w.block is not None:  # one step per budget block
+        off = layout.block_offset()
+        code = choose_block_steps(cx, mean, dc, w.block, w.block_budget, off)
+        offset = np.full(code.size, off)
+        slack = w.block_budget
+    else:
+        code, offset = layout.choose_codes(cx, mean, dc, w.budget, w.frames.shape[1])
+        slack = w.budget
+    q, mean_int, _ = code_frame(cx, mean, dc, code, offset,
+                                slack if layout.spends_slack else None, block=w.block)
+    trellis = None  # per frame, whether dependent quantization codes it
+    if layout.has_trellis:
+        if w.block is None:
+            q, mean_int, code, trellis = _quantizer_choice(cx, mean, dc, w.budget, q, mean_int,
+                                                           code)
+        else:
+            q, mean_int, code, trellis = _block_quantizer_choice(
+                cx, mean, dc, w.block, w.block_budget, q, mean_int, code)
+    return q, mean_int, code, offset, trellis
+
+
+def _step_drop(w: _Windows, rows: np.ndarray, err: np.ndarray, recon: np.ndarray,
+               peak_mode: bool) -> np.ndarray:
+    """Eighth-octave step codes by which each row's step must shrink (0: it passes).
+
+    ``rows`` holds whole budget blocks (all rows at first, then the rows of
+    blocks that failed); every row of a block moves with its block, judged on
+    the block's errors summed over all its rows.
+    """
+    est = over = None
+    if peak_mode:
+        pk = _valid_max_error(w.frames[rows], recon[rows], w.mask[rows])
+        over = pk > w.limit[rows]
+        # a uniform quantizer's error scales with its step
+        with np.errstate(over="ignore"):
+            ratio = np.minimum(pk / w.limit[rows], 2.0**1000)
+        est = np.where(over, np.maximum(np.ceil(8.0 * np.log2(np.maximum(ratio, 1.0))).astype(
+            np.int64), 1), 0)
+    if w.block is None:
+        drop = (err[rows] > w.budget[rows] * _MARGIN).astype(np.int64)
+        return drop if est is None else np.maximum(drop, est)
+    nb = w.block_budget.size
+    dropb = (block_sums(err, w.block, nb) > w.block_budget * _MARGIN).astype(np.int64)
+    if est is not None:
+        np.maximum.at(dropb, w.block[rows], est)
+    return dropb[w.block[rows]]
+
+
+def _closed_loop(w: _Windows, basis: Basis, q, mean_int, code, offset, trellis):
+    """Re-quantize rows with finer steps until every budget holds on the decoder's output.
+
+    Updates ``q``, ``mean_int`` and ``code`` in place; returns the
+    reconstruction and each row's error energy.
+    """
+    cx, mean, dc = w.cx, w.mean, w.dc
+    recon = reconstruct(q, mean_int, code, basis, trellis)
+    err = _valid_error(w.frames, recon, w.mask)
+    peak_mode = bool(np.isfinite(w.limit).any())
+    # finest step: keeps every integer code below 2**52 (exact in float64)
+    scale = np.abs(cx).max(axis=1)
+    if mean is not None:
+        scale = np.maximum(scale, np.abs(mean) * np.sqrt(w.frames.shape[1]))
+    finest = np.minimum(code_for_step(np.maximum(scale, 1e-300) * 2.0**-52), code)
+    rows = np.arange(code.size)
+    drop = _step_drop(w, rows, err, recon, peak_mode)
+    while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
+        bad, d = rows[drop > 0], drop[drop > 0]
+        if (code[bad] <= finest[bad]).any():
+            if peak_mode:
+                raise InputError("the peak-error limit is finer than any quantizer step can "
+                                 "meet at this signal's magnitude; raise max_error", "profile")
+            raise RuntimeError("no quantizer step meets the budget")  # our bug: floor is feasible
+        code[bad] = np.maximum(code[bad] - d, finest[bad])
+        tb = None if trellis is None else trellis[bad]
+        qb, mb = _requantize(cx[bad], None if mean is None else mean[bad], dc, code[bad],
+                             offset[bad], tb)
+        q[bad] = qb
+        if mean_int is not None:
+            mean_int[bad] = mb
+        recon[bad] = reconstruct(qb, mb, code[bad], basis, tb)
+        err[bad] = _valid_error(w.frames[bad], recon[bad], w.mask[bad])
+        rows = bad
+        drop = _step_drop(w, rows, err, recon, peak_mode)
+        if not (drop > 0).any():
+            # Synthesize all frames in one call, as the decoder does: BLAS may round a
+            # subset differently from the whole batch, so the check is redone on this.
+            recon = reconstruct(q, mean_int, code, basis, trellis)
+            err = _valid_error(w.frames, recon, w.mask)
+            rows = np.arange(code.size)
+            drop = _step_drop(w, rows, err, recon, peak_mode)
+    return recon, err
 
 
 def _peak_limits(profile: Profile, channel: np.ndarray) -> np.ndarray:
@@ -787,266 +638,3 @@ def _valid_error(frames: np.ndarray, recon: np.ndarray, mask: np.ndarray) -> np.
     return np.einsum("ij,ij->i", e, e)
 
 
-@dataclass
-class FrameRows:
-    """CRC-valid frames interpreted under a profile (the decode half's per-frame step).
-
-    Per frame, in arrival order: ``kind`` (0 data, 1 gap mask), ``verdict``
-    (``"ok"`` or a short key saying why the frame is refused; ``detail`` says
-    it in words), ``crc``, ``sequence`` and its ``modulus`` (the layout's
-    sequence range), ``valid`` and a few header fields in ``head`` for the
-    frame table.  Per row (one window of one channel; a multi-channel frame
-    has several): ``row_frame``, ``row_channel``, ``row_flags`` and the decoded
-    ``rows`` (NaN for refused frames).  ``masks`` holds the ``(channel, mask,
-    window offset)`` of every row with gaps of each accepted gap-mask frame, by
-    frame index; the rows of its inner data frame belong to the same index.
-    """
-
-    kind: np.ndarray
-    verdict: list
-    detail: list
-    crc: np.ndarray
-    sequence: np.ndarray
-    modulus: np.ndarray
-    valid: np.ndarray
-    head: dict
-    row_frame: np.ndarray
-    row_channel: np.ndarray
-    row_flags: np.ndarray
-    rows: np.ndarray
-    masks: dict
-    row_offset: np.ndarray = None  # window of each row minus its frame's window (v3: 0..15)
-    row_valid: np.ndarray = None  # real samples of each row's window
-
-
-_HEAD_KEYS = ("basis", "terms", "step_code")
-
-
-def decode_frames(frames: list[bytes], profile: Profile, basis: Basis) -> FrameRows:
-    """Interpret CRC-valid frames; a foreign or impossible frame becomes a verdict, never an error.
-
-    Every length and count read from the wire is checked against the profile
-    before use: v1 terms <= N, widths <= 57 bits, valid in 1..N, term index < N
-    and the length field equal to the length the fields imply, all before any
-    payload field is read; v2 coefficient counts <= N and the coded contents
-    filling the frame exactly (checked by the v2 parser); gap-mask frames by
-    :func:`codec.layouts.gapmask.unwrap_gap_frame`, the inner frame's own
-    checks, then :func:`codec.layouts.gapmask.read_gap_runs`.
-    """
-    n = profile.frame_length
-    channels = len(profile.channels)
-    nf = len(frames)
-    lengths = np.fromiter((len(f) for f in frames), dtype=np.int64, count=nf)
-    offsets = np.cumsum(lengths) - lengths
-    joined = b"".join(frames)
-    buf = np.frombuffer(joined, dtype=np.uint8)
-    version = (buf[offsets + len(SYNC)] >> 4).astype(np.int64)
-    crc = (buf[offsets + lengths - 2].astype(np.int64) << 8) | buf[offsets + lengths - 1]
-    kind = np.where(version == GAP_KIND, 1, 0)
-    verdict = ["ok"] * nf
-    detail = [""] * nf
-    ok = np.ones(nf, dtype=bool)  # mirror of verdict == "ok", for whole-array selection
-    sequence = np.zeros(nf, np.int64)
-    modulus = np.where((version == LAYOUT_VERSION_2) | (version == LAYOUT_VERSION_3)
-                       | (version == LAYOUT_VERSION_4),
-                       1 << SEQUENCE_BITS_V2, 65536)
-    # A gap-mask frame's rows and masks are keyed by its own 16-bit sequence number.
-    valid = np.zeros(nf, np.int64)
-    head = {k: np.zeros(nf, dtype=np.int64) for k in _HEAD_KEYS}
-    pid = profile_id(profile)
-
-    def refuse(idx: np.ndarray, bad: np.ndarray, key: str, words) -> None:
-        for f in idx[bad & ok[idx]].tolist():  # only the refused frames, usually none
-            ok[f] = False
-            verdict[f] = key
-            detail[f] = words(f) if callable(words) else words
-
-    # Rows: one per v1 / gap frame, one per subframe of a v2 frame (filled below).
-    parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
-
-    v1 = np.flatnonzero(version == LAYOUT_VERSION)
-    if v1.size:
-        h = parse_headers(buf, offsets[v1])
-        sequence[v1], valid[v1] = h["sequence"], h["valid"]
-        for k in _HEAD_KEYS:
-            head[k][v1] = h[k]
-        refuse(v1, h["profile"] != pid, "foreign_profile",
-               lambda f: f"made under another profile (id {int(h['profile'][v1 == f][0]):#06x}, "
-                         f"not {pid:#06x})")
-        refuse(v1, h["flags"] != 0, "bad_header", "reserved flags set")
-        refuse(v1, h["channel"] >= channels, "bad_header",
-               f"channel not in the profile ({channels} channels)")
-        refuse(v1, h["basis"] != basis.code, "bad_header",
-               f"basis code differs from the profile's {basis.name!r}")
-        refuse(v1, h["terms"] > n, "bad_header", f"claims more terms than the {n} of a frame")
-        refuse(v1, (h["value_width"] > MAX_FIELD_BITS) | (h["mean_width"] > MAX_FIELD_BITS),
-               "bad_header", f"a field width exceeds {MAX_FIELD_BITS} bits")
-        refuse(v1, (h["valid"] < 1) | (h["valid"] > n), "bad_header",
-               f"valid samples outside 1..{n}")
-        refuse(v1, (h["mean_width"] > 0) != (profile.reference == "ac"), "bad_header",
-               "mean field does not match the profile's reference")
-        # Only now, with terms and widths bounded, is the implied length safe to compute.
-        sane = ok[v1]
-        implied = np.where(sane, expected_length({k: np.where(sane, v, 0) for k, v in h.items()},
-                                                 n), h["length"])
-        refuse(v1, implied != h["length"], "bad_header", "length field does not match contents")
-        rows = np.full((v1.size, n), np.nan)
-        good = ok[v1]
-        if good.any():
-            gh = {k: v[good] for k, v in h.items()}
-            mean, index, value = parse_payloads(buf, offsets[v1[good]], gh, n)
-            owner = np.repeat(np.arange(int(good.sum())), gh["terms"])
-            badidx = np.zeros(int(good.sum()), dtype=bool)
-            badidx[owner[index >= n]] = True
-            refuse(v1[good], badidx, "bad_header",
-                   f"a term index is not below the frame length {n}")
-            q = np.zeros((int(good.sum()), n), dtype=np.int64)
-            ok_t = ~badidx[owner]
-            q[owner[ok_t], index[ok_t]] = value[ok_t]
-            mean_int = (np.where(gh["mean_width"] > 0, mean, 0) if profile.reference == "ac"
-                        else None)
-            recon = reconstruct(q, mean_int, gh["step_code"], basis)
-            recon[badidx] = np.nan
-            rows[good] = recon
-        parts.append((v1, np.minimum(h["channel"], 255), h["flags"], rows,
-                      np.zeros(v1.size, np.int64), h["valid"]))
-
-    # Layouts 2 to 4 share their header checks; 3 and 4 may carry several windows per frame.
-    for number, parse in ((LAYOUT_VERSION_2, parse_frames_v2), (LAYOUT_VERSION_3, parse_frames_v3),
-                          (LAYOUT_VERSION_4, partial(parse_frames_v3, version=LAYOUT_VERSION_4))):
-        vi = np.flatnonzero(version == number)
-        if not vi.size:
-            continue
-        # The profile byte sits at byte 4 (11-bit length) or 6 (27-bit length): checked
-        # before the parser reads or allocates anything for the frame.
-        pid8 = pid & ((1 << PROFILE_BITS_V2) - 1)
-        pbyte = buf[offsets[vi] + np.where(buf[offsets[vi] + len(SYNC)] & 0x08, 6, 4)]
-        refuse(vi, pbyte != pid8, "foreign_profile",
-               lambda f, pb=pbyte, vi=vi, pid8=pid8: f"made under another profile (id byte "
-               f"{int(pb[vi == f][0]):#04x}, not {pid8:#04x})")
-        vi = vi[ok[vi]]
-        if not vi.size:
-            continue
-        p = parse(joined, offsets[vi], lengths[vi], n, channels, profile.reference == "ac")
-        sequence[vi], valid[vi] = p["sequence"], p["valid"]
-        head["basis"][vi] = basis.code
-        np.add.at(head["terms"], vi[p["frame"]], (p["q"] != 0).sum(axis=1))
-        # A frame of several windows has one step each: inspect shows the coarsest.
-        np.maximum.at(head["step_code"], vi[p["frame"]], p["step_code"])
-        refuse(vi, p["valid"] > n, "bad_header", f"valid samples outside 1..{n}")
-        bad_ch = np.zeros(vi.size, dtype=bool)
-        np.logical_or.at(bad_ch, p["frame"], p["channel"] >= channels)
-        refuse(vi, bad_ch, "bad_header", f"channel not in the profile ({channels} channels)")
-        refuse(vi, ~p["consumed_ok"], "bad_header",
-               "contents do not fill the length field exactly")
-        good = ok[vi][p["frame"]]
-        rows = np.full((p["q"].shape[0], n), np.nan)
-        if good.any():
-            rows[good] = reconstruct(p["q"][good], None if p["mean"] is None else p["mean"][good],
-                                     p["step_code"][good], basis,
-                                     None if p.get("trellis") is None else p["trellis"][good])
-        window_offset = p.get("window_offset", np.zeros(p["frame"].size, np.int64))
-        sub_valid = p.get("sub_valid", p["valid"][p["frame"]])
-        parts.append((vi[p["frame"]], np.minimum(p["channel"], 255),
-                      np.zeros(p["frame"].size, np.int64), rows, window_offset, sub_valid))
-
-    masks: dict[int, list] = {}
-    wrapped: list[tuple[int, int]] = []  # (gap-mask frame, bit where its runs start)
-    inners: list[bytes] = []
-    for f in np.flatnonzero(kind == 1).tolist():  # gap-mask frames: split each, then one batch
-        got = unwrap_gap_frame(frames[f])
-        if isinstance(got, str):
-            ok[f], verdict[f], detail[f] = False, "bad_header", got
-            continue
-        wrapped.append((f, got[1]))
-        inners.append(got[0])
-    if inners:
-        sub = decode_frames(inners, profile, basis)  # the inner frames' own checks, at once
-        bounds = np.searchsorted(sub.row_frame, np.arange(len(inners) + 1)).tolist()
-        for j, (f, at) in enumerate(wrapped):
-            if sub.verdict[j] != "ok":
-                ok[f], verdict[f] = False, sub.verdict[j]
-                detail[f] = f"gap frame: {sub.detail[j] or sub.verdict[j]}"
-                continue
-            r = slice(bounds[j], bounds[j + 1])
-            gap = read_gap_runs(frames[f], at, int(sub.row_valid[r].sum()))
-            if isinstance(gap, str):
-                ok[f], verdict[f], detail[f] = False, "bad_header", gap
-                continue
-            sequence[f], valid[f], modulus[f] = sub.sequence[j], sub.valid[j], sub.modulus[j]
-            # the runs index the inner frame's rows in order, each its valid samples
-            cuts = np.cumsum(sub.row_valid[r])[:-1]
-            masks[f] = [(int(ch), m, int(off)) for ch, m, off in
-                        zip(sub.row_channel[r], np.split(gap, cuts), sub.row_offset[r])
-                        if m.any()]
-            parts.append((np.full(r.stop - r.start, f), sub.row_channel[r], sub.row_flags[r],
-                          sub.rows[r], sub.row_offset[r], sub.row_valid[r]))
-            for k in _HEAD_KEYS:
-                head[k][f] = sub.head[k][j]
-
-    if parts:
-        rf, rc, rfl, rr, ro, rv = (np.concatenate(c) for c in zip(*parts))
-        order = np.argsort(rf, kind="stable")  # rows in frame order
-        rf, rc, rfl, rr, ro, rv = rf[order], rc[order], rfl[order], rr[order], ro[order], \
-            rv[order]
-    else:
-        rf = rc = rfl = ro = rv = np.zeros(0, np.int64)
-        rr = np.zeros((0, n))
-    return FrameRows(kind, verdict, detail, crc, sequence, modulus, valid, head, rf, rc, rfl,
-                     rr, masks, ro, rv)
-
-
-def decode(data: bytes, profile: Profile, samples: int | None = None,
-           reorder: int = 16, strict: bool = True, max_fill: int | None = None
-           ) -> DecodeResult:
-    """Decode a whole stream made under ``profile`` (bound: one channel spec per column).
-
-    The same machine as the streaming decoder (:class:`codec.stream.live.StreamDecoder`)
-    fed the whole stream at once, so both give identical results.  Frames whose
-    CRC fails never reach the output; foreign, damaged, duplicated or late
-    frames become events in the result, not errors.  ``samples`` (the stream
-    note's count) fixes the output length; without it the stream runs to the
-    last frame received, and ``end_known`` says whether that end is certain;
-    then a sequence jump adds at most ``max_fill`` lost windows (default
-    ``codec.stream.live.MAX_FILL_WINDOWS``) and the rest is a ``discontinuity``
-    event.
-
-    Raises :class:`ProfileError` when the profile lists no channels and, when
-    ``strict``, :class:`FrameError` when not one frame was accepted (saying
-    why: no frame at all, or frames of another profile).  With ``strict``
-    False such a stream gives an all-lost result and its counts.
-    """
-    from .stream.live import StreamDecoder  # the streaming module builds on this one
-
-    dec = StreamDecoder(profile, samples=samples, reorder=reorder, keep_frames=True,
-                        max_fill=max_fill)
-    blocks = dec.feed(data) + dec.close()
-    if strict:
-        check_some_frame(dec.counts(), dec.events)
-    channels = len(profile.channels)
-    values = np.concatenate([b.samples for b in blocks]) if blocks else np.zeros((0, channels))
-    status = (np.concatenate([b.status for b in blocks]) if blocks
-              else np.zeros((0, channels), np.uint8))
-    return DecodeResult(values, status == DELIVERED, dec.frame_table(), dec.scanner.crc_failures,
-                        dec.scanner.skipped_bytes, status, dec.events, dec.counts(),
-                        dec.end_known)
-
-
-def check_some_frame(counts: dict, events: list) -> None:
-    """Raise :class:`FrameError` saying why, when a stream delivered no frame at all."""
-    if counts.get("frames_ok", 0) or counts.get("gap_frames_ok", 0):
-        return
-    foreign = [e for e in events if e["event"] == "foreign_profile"]
-    if foreign:
-        raise FrameError(
-            f"{counts.get('frames_foreign_profile', 0)} frames passed their CRC but were "
-            f"{foreign[0].get('detail', 'made under another profile')}; decode with the profile "
-            "the stream was encoded with", f"frame at byte {foreign[0]['offset']}")
-    refused = [e for e in events if e["event"] == "bad_header"]
-    if refused:
-        raise FrameError(f"every CRC-valid frame was refused ({refused[0].get('detail')}); the "
-                         "stream does not match this profile", f"frame at byte "
-                         f"{refused[0]['offset']}")
-    raise FrameError("no frame with a valid sync marker and CRC was found (frames made under "
-                     "another profile fail their CRC too); give a coefwire stream and the "
-                     "profile it was encoded with")

@@ -24,11 +24,12 @@ from pathlib import Path
 
 import numpy as np
 
-from ._codec import as_samples, decode, encode
+from ._codec import as_samples, encode
 from ._errors import InputError
 from ._profile import Profile
 from .quantize.select import check_blocks
 from .report import error_figures
+from .stream.decode import decode
 from .transform.bases import as_basis, basis_names
 from .transform.framing import split_frames
 from .transform.klt import TrainedBasis, save_trained_basis, train_klt

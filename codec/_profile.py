@@ -195,8 +195,9 @@ class Profile(BaseModel):
     fidelity: float = Field(default=0.99, ge=0.0, le=1.0)
     reference: Literal["total", "ac"] = "ac"
     #: Frame layout the encoder writes (the decoder reads every version); 4 is 3 with
-    #: dependent (trellis-coded) quantization.
-    layout_version: Literal[1, 2, 3, 4] = 3
+    #: dependent (trellis-coded) quantization.  Any registered layout
+    #: (``codec.layouts.registry.register_layout``); built in: 1 to 4.
+    layout_version: int = 3
     #: Layouts 2 to 4: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
     #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
@@ -228,6 +229,17 @@ class Profile(BaseModel):
     def _known_basis(cls, value: str) -> str:
         if value not in basis_names():
             raise ValueError(f"unknown basis {value!r}; choose one of: {', '.join(basis_names())}")
+        return value
+
+    @field_validator("layout_version")
+    @classmethod
+    def _known_layout(cls, value: int) -> int:
+        from .layouts.registry import layouts
+
+        known = [lay.version for lay in layouts()]
+        if value not in known:
+            raise ValueError(f"unknown frame layout {value}; choose one of: "
+                             f"{', '.join(map(str, known))}")
         return value
 
     @field_validator("channels")

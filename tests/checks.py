@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 from verify import assert_budgets
 
-__all__ = ["assert_meets_target", "assert_roundtrip", "assert_png_is_a_picture"]
+__all__ = ["assert_meets_target", "assert_roundtrip", "assert_png_is_a_picture",
+           "registered_layouts"]
 
 
 def assert_meets_target(x, x_hat, profile, scope: str | None = None):
@@ -18,8 +19,28 @@ def assert_meets_target(x, x_hat, profile, scope: str | None = None):
     return assert_budgets(np.asarray(x, float), x_hat, profile, scope)
 
 
-def assert_roundtrip(profile, samples):
-    """decode(encode(x)) meets the target on every budget block, and re-encoding is stable."""
+def registered_layouts() -> list[int]:
+    """Version numbers of every layout registered now (built-in ones and any a test added)."""
+    from codec.layouts.registry import layouts
+
+    return [lay.version for lay in layouts()]
+
+
+def assert_roundtrip(profile, samples, layouts=None):
+    """decode(encode(x)) meets the target on every budget block, and re-encoding is stable,
+    under every registered layout (or the versions in ``layouts``).
+
+    Returns ``(enc, dec)`` of the profile's own layout (of the last one checked
+    when that is not among them).
+    """
+    results = {}
+    for version in registered_layouts() if layouts is None else layouts:
+        results[version] = _roundtrip_one(
+            profile.model_copy(update={"layout_version": version}), samples)
+    return results.get(profile.layout_version, results[version])
+
+
+def _roundtrip_one(profile, samples):
     import codec
 
     enc = codec.encode(samples, profile)

@@ -11,6 +11,7 @@ from realdata import motion
 from streams import EXAMPLE_DIGEST, assert_accounting, with_crc
 
 import codec
+from codec.layouts.envelope import FrameKey
 from codec.layouts.gapmask import (
     fill_gaps,
     mask_runs,
@@ -18,7 +19,6 @@ from codec.layouts.gapmask import (
     read_gap_runs,
     unwrap_gap_frame,
 )
-from codec.layouts.v1v2 import FrameKey
 from codec.stream.search import locate_frames
 
 
@@ -289,7 +289,8 @@ def _runs_bits(mask: np.ndarray) -> int:
 
 def _samples_of(enc, inner: bytes) -> int:
     """Valid samples of every window the inner data frame carries."""
-    from codec._codec import decode_frames, profile_basis
+    from codec.stream.frames import decode_frames
+    from codec.transform.klt import profile_basis
 
     return int(decode_frames([inner], enc.profile, profile_basis(enc.profile)).row_valid.sum())
 

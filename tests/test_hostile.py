@@ -22,7 +22,8 @@ from streams import assert_accounting, crc_ok_reference, digest_of, frames_of, r
 import codec
 from codec import CoefwireError
 from codec.cli import main
-from codec.layouts.v1v2 import HEADER_FIELDS, SYNC
+from codec.layouts.envelope import SYNC
+from codec.layouts.v1 import HEADER_FIELDS
 
 X, ENC = real_stream(400, 2, n=32)
 CLEAN = codec.decode(ENC.data, ENC.profile, samples=400)
@@ -231,8 +232,8 @@ def test_cli_decode_reports_on_damaged_streams(tmp_path, damage):
 def test_frame_interpreter_never_raises_on_crc_valid_garbage(version):
     # Past the CRC gate an adversary controls every byte: build frames with a right
     # envelope, random contents and a correct CRC, and hand them to the interpreter.
-    from codec._codec import decode_frames
-    from codec.layouts.v1v2 import frame_extent
+    from codec.layouts.envelope import frame_extent
+    from codec.stream.frames import decode_frames
 
     rng = np.random.default_rng(version)
     basis = codec.as_basis(ENC.profile.basis, ENC.profile.frame_length)

@@ -24,7 +24,8 @@ from streams import assert_accounting, crc_ok_reference, digest_of, frames_of, w
 
 import codec
 from codec.cli import main
-from codec.layouts.v1v2 import HEADER_FIELDS, SYNC
+from codec.layouts.envelope import SYNC
+from codec.layouts.v1 import HEADER_FIELDS
 
 
 def _bits(*fields: tuple[int, int]) -> str:

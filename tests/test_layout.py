@@ -3,11 +3,12 @@
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from strategies import v1_frames
 from streams import EXAMPLE_DIGEST, keyed_crc
 
-from codec.layouts.v1v2 import (
+from codec.layouts.envelope import FrameKey
+from codec.layouts.v1 import (
     FrameBatch,
-    FrameKey,
     pack_frame_reference,
     pack_frames,
     parse_headers,
@@ -53,15 +54,8 @@ def test_hand_computed_frame_vectorized():
     assert mean.tolist() == [100] and index.tolist() == [0, 3] and value.tolist() == [5, -2]
 
 
-frame = st.integers(0, 12).flatmap(lambda t: st.tuples(
-    st.integers(0, 255), st.integers(0, 2**20), st.integers(0, 1023), st.integers(1, 16),
-    st.integers(-(2**40), 2**40),
-    st.lists(st.integers(0, 15), min_size=t, max_size=t, unique=True),
-    st.lists(st.integers(-(2**45), 2**45), min_size=t, max_size=t)))
-
-
 @settings(max_examples=60, deadline=None)
-@given(st.lists(frame, min_size=1, max_size=6), st.booleans())
+@given(st.lists(v1_frames, min_size=1, max_size=6), st.booleans())
 def test_vectorized_packer_agrees_with_bitstring(frames, has_mean):
     n = 16
     batch = _batch(

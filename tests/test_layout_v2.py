@@ -9,14 +9,8 @@ from streams import EXAMPLE_DIGEST, assert_accounting, digest_of, with_crc
 
 import codec
 from codec import FrameError
-from codec.layouts.v1v2 import (
-    FrameBatchV2,
-    FrameKey,
-    frame_crc_ok,
-    frame_extent,
-    pack_frames_v2,
-    parse_frames_v2,
-)
+from codec.layouts.envelope import FrameKey, frame_crc_ok, frame_extent
+from codec.layouts.v2 import FrameBatchV2, pack_frames_v2, parse_frames_v2
 from codec.stream.search import locate_frames
 
 
@@ -75,10 +69,10 @@ def test_hand_computed_frame_parses_back():
     mv = memoryview(data)
     assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13, KEY)
     p = parse_frames_v2(data, np.array([0]), np.array([13]), 8, 4, False)
-    assert p["consumed_ok"].all()
-    assert p["profile"][0] == 0xCD and p["sequence"][0] == 5 and p["channel"][0] == 1
-    assert p["step_code"][0] == 512 and p["valid"][0] == 8
-    assert p["q"][0].tolist() == [3, -1, 0, 0, 0, 0, 0, 0]
+    assert p.verdict == ("ok",)
+    assert p.header["profile"][0] == 0xCD and p.sequence[0] == 5 and p.row_channel[0] == 1
+    assert p.row_step[0] == 512 and p.valid[0] == 8
+    assert p.q[0].tolist() == [3, -1, 0, 0, 0, 0, 0, 0]
 
 
 def _signal(n=3000, c=3, seed=0):
@@ -225,7 +219,7 @@ def test_a_forged_copy_of_a_real_frame_is_accepted():
 @pytest.mark.parametrize("fidelity", [0.5, 0.95, 0.9999])
 def test_rate_estimate_is_the_packed_size(fidelity):
     # the encoder's rate-fidelity choice counts bits with payload_bits_v2; it must be exact
-    from codec.layouts.v1v2 import payload_bits_v2
+    from codec.layouts.v2 import payload_bits_v2
 
     x = _signal(c=1)
     x[500] += 1e6  # a spike forces escapes

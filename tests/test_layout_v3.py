@@ -8,8 +8,8 @@ from realdata import motion
 from streams import EXAMPLE_DIGEST, keyed_crc, with_crc
 
 import codec
-from codec.layouts.v1v2 import FrameKey, frame_crc_ok, frame_extent
-from codec.layouts.v3v4 import FrameBatchV3, pack_frames_v3, parse_frames_v3
+from codec.layouts.envelope import FrameKey, frame_crc_ok, frame_extent
+from codec.layouts.v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
 from codec.stream.search import locate_frames
 
 # FRAME_LAYOUT.md, "Version 3 worked example": N = 8, reference total, two
@@ -43,10 +43,10 @@ def test_worked_example_packs_to_the_documented_bytes():
     mv = memoryview(data)
     assert frame_extent(mv, 0) == 13 and frame_crc_ok(mv, 0, 13, KEY)
     p = parse_frames_v3(data, np.array([0]), np.array([13]), 8, 2, False)
-    assert p["consumed_ok"].all()
-    assert p["channel"].tolist() == [1] and p["sequence"].tolist() == [5]
-    assert p["step_code"].tolist() == [512] and p["count"].tolist() == [2]
-    assert p["q"].tolist() == [[3, -1, 0, 0, 0, 0, 0, 0]]
+    assert p.verdict == ("ok",)
+    assert p.row_channel.tolist() == [1] and p.sequence.tolist() == [5]
+    assert p.row_step.tolist() == [512] and p.row_count.tolist() == [2]
+    assert p.q.tolist() == [[3, -1, 0, 0, 0, 0, 0, 0]]
 
 
 # FRAME_LAYOUT.md, "Version 3 worked example with two windows": as above but
@@ -78,10 +78,10 @@ def test_two_window_example_sends_mean_and_count_as_changes():
     data, length, _, lane = pack_frames_v3(batch, 0xABCD, 8, 2, key=KEY)
     assert data == want and length.tolist() == [15] and lane.tolist() == [1]
     p = parse_frames_v3(data, np.array([0]), np.array([15]), 8, 2, True)
-    assert p["consumed_ok"].all()
-    assert p["mean_pred"].tolist() == [True] and p["count_pred"].tolist() == [True]
-    assert p["mean"].tolist() == [100, 103] and p["count"].tolist() == [0, 1]
-    assert p["q"].tolist() == q.tolist()
+    assert p.verdict == ("ok",)
+    assert p.header["mean_change"].tolist() == [1] and p.header["count_change"].tolist() == [1]
+    assert p.row_mean.tolist() == [100, 103] and p.row_count.tolist() == [0, 1]
+    assert p.q.tolist() == q.tolist()
 
 
 def test_means_near_zero_go_whole():
@@ -93,8 +93,8 @@ def test_means_near_zero_go_whole():
         step_code=np.array([512, 512]), mean=np.array([1, -1]), q=q)
     data, *_ = pack_frames_v3(batch, 0xABCD, 8, 1, key=KEY)
     p = parse_frames_v3(data, np.array([0]), np.array([len(data)]), 8, 1, True)
-    assert p["consumed_ok"].all() and p["mean_pred"].tolist() == [False]
-    assert p["mean"].tolist() == [1, -1] and p["count"].tolist() == [0, 0]
+    assert p.verdict == ("ok",) and (p.header["mean_change"] > 0).tolist() == [False]
+    assert p.row_mean.tolist() == [1, -1] and p.row_count.tolist() == [0, 0]
 
 
 def test_multi_channel_changes_follow_each_channel():
@@ -113,9 +113,9 @@ def test_multi_channel_changes_follow_each_channel():
     # count changes +1, 0, +1 (3, 1, 3 bits); counted by hand from the exp-Golomb rule
     assert sub_bits[3:].tolist() == [1 + 5 + 3, 1 + 5 + 1, 1 + 5 + 3]
     p = parse_frames_v3(data, np.array([0]), length, 8, 3, True)
-    assert p["consumed_ok"].all() and p["mean_pred"].tolist() == [True]
-    assert p["mean"].tolist() == mean.tolist() and p["q"].tolist() == q.tolist()
-    assert p["count"].tolist() == [0, 0, 0, 1, 0, 1]
+    assert p.verdict == ("ok",) and (p.header["mean_change"] > 0).tolist() == [True]
+    assert p.row_mean.tolist() == mean.tolist() and p.q.tolist() == q.tolist()
+    assert p.row_count.tolist() == [0, 0, 0, 1, 0, 1]
 
 
 def _signal(n=3000, c=3, seed=0):
@@ -172,7 +172,7 @@ def test_a_frame_whose_coefficient_bytes_do_not_match_is_refused():
     body[3] += 1  # length 13 -> 14
     frame = with_crc(bytes(body), EXAMPLE_DIGEST)
     p = parse_frames_v3(frame, np.array([0]), np.array([14]), 8, 2, False)
-    assert not p["consumed_ok"].any()
+    assert p.verdict != ("ok",)
 
 
 def test_v2_then_v3_frames_decode_frame_by_frame():

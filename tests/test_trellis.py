@@ -12,8 +12,8 @@ from hypothesis import strategies as st
 from streams import EXAMPLE_DIGEST, with_crc
 
 import codec
-from codec.layouts.v1v2 import FrameKey, frame_crc_ok, frame_extent
-from codec.layouts.v3v4 import FrameBatchV3, pack_frames_v3, parse_frames_v3
+from codec.layouts.envelope import FrameKey, frame_crc_ok, frame_extent
+from codec.layouts.v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
 from codec.quantize.trellis import TRANSITIONS, dequantize_levels, quantizer_ids, trellis_quantize
 
 
@@ -84,9 +84,9 @@ def test_worked_example_packs_to_the_documented_bytes():
     assert data == want and length.tolist() == [12] and lane.tolist() == [1]
     assert frame_extent(memoryview(data), 0) == 12 and frame_crc_ok(memoryview(data), 0, 12, key)
     p = parse_frames_v3(data, np.array([0]), np.array([12]), 8, 2, False, version=4)
-    assert p["consumed_ok"].all() and p["trellis"].tolist() == [True]
-    assert p["q"].tolist() == [[3, 0, 0, 0, 0, 0, 0, 0]]
-    assert dequantize_levels(p["q"])[0, 0] == 6.0  # Q0: 2k, where layout 3 reads 3
+    assert list(p.verdict) == ["ok"] and p.row_trellis.tolist() == [True]
+    assert p.q.tolist() == [[3, 0, 0, 0, 0, 0, 0, 0]]
+    assert dequantize_levels(p.q)[0, 0] == 6.0  # Q0: 2k, where layout 3 reads 3
 
 
 def _ar1(rho, n, seed):
@@ -128,8 +128,8 @@ def test_v4_saves_bits_at_high_fidelity_and_uses_both_quantizers():
                        codec.Profile(frame_length=256, fidelity=0.99, layout_version=4,
                                      fidelity_scope="window"))
     p = parse_frames_v3(enc.data, *_frames(enc.data), 256, 1, True, version=4)
-    assert 0 < p["trellis"].sum() < p["trellis"].size  # the per-frame choice is real
-    assert enc.report["frames_trellis"] == p["trellis"].sum()
+    assert 0 < p.row_trellis.sum() < p.row_trellis.size  # the per-frame choice is real
+    assert enc.report["frames_trellis"] == p.row_trellis.sum()
     assert enc.report["layout_version"] == 4
 
 

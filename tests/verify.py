@@ -121,7 +121,12 @@ def budget_blocks(x, x_hat, profile, scope: str | None = None) -> Blocks:
     channel = np.tile(np.arange(chans), nwin).reshape(nwin, chans)
     span = np.ones(err.shape, np.int64)
     if scope == "frame":
-        per = profile.windows_per_frame if profile.layout_version >= 3 else 1
+        # the windows one budget covers: the layout's declaration (a fact of the frame
+        # layout, like N), not anything the encoder computed
+        import codec
+
+        lay = codec.layout_for(profile.layout_version)
+        per = lay.windows_per_frame(profile) if lay.supports_frame_scope else 1
         group = np.arange(nwin) // per
         starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
 

@@ -188,13 +188,17 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
 
 def parse_stream(enc) -> dict:
     """The fields of every frame of a layout-3 (or 4) stream (``parse_frames_v3``'s dict)."""
-    from codec.layouts.v3v4 import parse_frames_v3
-    from codec.stream.search import locate_frames
+    from codec.layouts.v3 import parse_frames_v3
 
     p = enc.profile
-    loc = locate_frames(enc.data)
-    return parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
-                           len(p.channels), p.reference == "ac", version=p.layout_version)
+    loc = codec.locate_frames(enc.data)
+    f = parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
+                        len(p.channels), p.reference == "ac", version=p.layout_version)
+    h = f.header
+    return {"frame": f.row_frame, "channel": f.row_channel, "step_code": f.row_step,
+            "mean": f.row_mean, "count": f.row_count, "q": f.q, "window_offset": f.row_offset,
+            "sub_valid": f.row_valid, "windows": h["windows_minus_1"] + 1, "multi": h["multi"] > 0,
+            "mean_pred": h["mean_change"] > 0, "count_pred": h["count_change"] > 0}
 
 
 def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:

@@ -53,7 +53,7 @@ else:
 
 import fuzz_mutations as fm  # noqa: E402  (profiles, keyed CRC, forgery helpers)
 
-from codec.layouts.v1v2 import frame_extents  # noqa: E402
+from codec.layouts.envelope import frame_extents  # noqa: E402
 
 _CASES: list = []
 

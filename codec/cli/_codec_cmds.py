@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._codec import check_some_frame, decode, decode_frames, encode, frame_key
+from .._codec import encode, frame_key
 from .._errors import FrameError, InputError
 from .._io import (
     CsvBlockReader,
@@ -36,11 +36,13 @@ from .._profile import (
 from .._progress import busy
 from .._status import STATUS_NAMES
 from .._timecol import describe_time, time_fields, time_values
+from ..layouts.envelope import GAP_KIND
 from ..layouts.gapmask import GAP_POLICIES
-from ..layouts.v1v2 import GAP_KIND
 from ..quantize.select import check_blocks, check_magnitude
 from ..quantize.steps import step_from_code
 from ..report import channel_table, error_figures, pooled_label, units_of, with_unit
+from ..stream.decode import check_some_frame, decode
+from ..stream.frames import decode_frames
 from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
 from ..stream.search import locate_frames
 from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff

@@ -43,7 +43,7 @@ from .._errors import InputError
 from ..entropy.bits import BitReader, pack_fields
 from ..entropy.rice import exp_golomb_fields, read_unary
 from .crc import crc16_ibm3740
-from .v1v2 import GAP_KIND, SYNC, frame_extent
+from .envelope import GAP_KIND, SYNC, frame_extent
 
 __all__ = [
     "GAP_POLICIES",
@@ -107,7 +107,7 @@ def pack_gap_frame(frame: bytes, missing: np.ndarray, key) -> bytes:
     ``frame`` is one complete data frame (sync to CRC) of any layout version;
     ``missing`` has one entry per sample it carries, subframe by subframe in
     the frame's order, each subframe's valid samples only.  ``key``
-    (:class:`codec.layouts.v1v2.FrameKey`) is the profile's share of the CRC.
+    (:class:`codec.layouts.envelope.FrameKey`) is the profile's share of the CRC.
     Raises :class:`InputError` when the result would not fit the 16-bit length.
     """
     start, count = mask_runs(np.asarray(missing, dtype=bool))

@@ -28,11 +28,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._codec import _bind, decode_frames, encode, frame_key
+from .._codec import _bind, encode, frame_key
 from .._errors import ProfileError
 from .._profile import Profile
 from .._status import DELIVERED, GAP, LOST, STATUS_NAMES
 from ..layouts.gapmask import GAP_POLICIES
+from ..layouts.registry import layout_for
+from .frames import decode_frames
 from .search import FrameScanner, SequenceTracker
 
 __all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "MAX_FILL_WINDOWS",
@@ -57,11 +59,12 @@ class Block:
 
 
 def max_frame_bytes(profile: Profile) -> int:
-    """A bound on the bytes of any frame under ``profile`` (every layout version).
+    """A bound on the bytes of any frame under ``profile``.
 
-    Generous: 16 bytes per coefficient of every channel and window a frame
-    may carry (a coefficient never takes 128 bits in any layout), plus
-    headers.  A candidate claiming more is not a frame of this profile, so a
+    The bound of the profile's layout
+    (:meth:`codec.layouts.registry.Layout.max_frame_bytes`: generous, 16 bytes
+    per coefficient of every channel and window a frame may carry, plus
+    headers).  A candidate claiming more is not a frame of this profile, so a
     receiver never buffers more than this.
 
     Parameters
@@ -86,8 +89,7 @@ def max_frame_bytes(profile: Profile) -> int:
     >>> max_frame_bytes(p), bool(loc.lengths.max() < max_frame_bytes(p))
     (33344, True)
     """
-    windows = profile.windows_per_frame if profile.layout_version >= 3 else 1
-    return 64 + windows * max(1, len(profile.channels)) * (16 * profile.frame_length + 16)
+    return layout_for(profile.layout_version).max_frame_bytes(profile)
 
 
 class StreamDecoder:
@@ -399,8 +401,9 @@ class StreamEncoder:
         self.n = profile.frame_length
         # Frame scope: the windows of one frame share a budget, so whole frames are
         # coded at once (what encode does with the whole input); else whole windows.
-        self.unit = self.n * (profile.windows_per_frame
-                              if profile.fidelity_scope == "frame" and profile.layout_version >= 3
+        layout = layout_for(profile.layout_version)
+        self.unit = self.n * (layout.windows_per_frame(profile)
+                              if profile.fidelity_scope == "frame" and layout.supports_frame_scope
                               else 1)
         self.gaps = gaps
         self._pending = np.zeros((0, channels))

@@ -2,8 +2,8 @@
 
 A receiver sees bytes, not frames.  :class:`FrameScanner` walks the stream: at
 each position it expects a sync marker, asks the layout's envelope rule
-(:func:`codec.layouts.v1v2.frame_extent`) how long the frame claims to be and checks
-its CRC under the profile's key (:func:`codec.layouts.v1v2.frame_crc_ok`).  A frame
+(:func:`codec.layouts.envelope.frame_extent`) how long the frame claims to be and checks
+its CRC under the profile's key (:func:`codec.layouts.envelope.frame_crc_ok`).  A frame
 that passes is accepted and the walk jumps over it; otherwise the walk searches
 forward from the byte after the failed candidate, so garbage, a truncated
 frame, a bit slip or a false sync marker inside payload bytes costs only that
@@ -50,7 +50,8 @@ import numpy as np
 # HEADER_BYTES: the envelope rule answers from at most this many bytes after the
 # sync marker, so a streaming scanner that waits for them decides as a whole-stream one.
 from ..layouts.crc import crc16_prefix_states
-from ..layouts.v1v2 import HEADER_BYTES, SYNC, FrameKey, frame_extents, frames_crc_ok
+from ..layouts.envelope import EXTENT_BYTES as HEADER_BYTES
+from ..layouts.envelope import SYNC, FrameKey, frame_extents, frames_crc_ok
 
 __all__ = [
     "Located",
@@ -110,7 +111,7 @@ class FrameScanner:
     candidate still waiting for bytes is then a failure, exactly as a
     truncated frame at the end of a whole stream).  ``crc_failures`` and
     ``skipped_bytes`` accumulate as in :class:`Located`.  ``key`` is the
-    profile's share of every CRC (:class:`codec.layouts.v1v2.FrameKey`): frames of
+    profile's share of every CRC (:class:`codec.layouts.envelope.FrameKey`): frames of
     another profile fail like damaged ones.  Without a key no CRC can be
     checked: the scanner then only splits a stream as its envelopes claim
     (for a sender's own freshly written stream: sending, byte stuffing,
@@ -118,7 +119,7 @@ class FrameScanner:
 
     The work is linear in the bytes fed: every candidate in the buffer is
     judged at once (envelope rule and CRC from prefix CRC states,
-    :func:`codec.layouts.v1v2.frames_crc_ok`, at the same cost whatever length it
+    :func:`codec.layouts.envelope.frames_crc_ok`, at the same cost whatever length it
     claims), and the walk then moves frame by frame, jumping over failed
     candidates.
     """

@@ -1,0 +1,411 @@
+"""Frame layout version 3: several windows per frame, range-coded coefficients (the default).
+
+Written down bit by bit in ``FRAME_LAYOUT.md`` ("Version 3").  A frame::
+
+    sync(16) | version(4)=3 long(1) length(11 or 27) profile(8) sequence(8)
+    windows-1(4) multi(1) [channel(cb) if multi = 0] short(1) [valid-1(ib) if short]
+    [mean_change(1) if windows > 1 and reference ac] [count_change(1) if windows > 1]
+    | per subframe: step(10, or exp-Golomb of the zigzag change) [mean: exp-Golomb
+      of zigzag, reference ac] count(bit_length(N)) [quantizer(1), version 4]
+    | zero padding to a byte | range-coded coefficients of every subframe | crc(16)
+
+Subframes come window by window (the ``windows`` consecutive windows from
+``sequence``), and inside a window channel by channel (every channel of the
+profile when multi = 1, else the one ``channel``).  ``short`` marks that the
+frame's last window is a short last window.  ``cb = bit_length(channels - 1)``.
+With ``mean_change`` (``count_change``) set, every subframe after a
+channel's first one in the frame sends its mean (count) as the exp-Golomb
+code of the zigzag change from that channel's previous window in the frame.
+The coefficients are one range-coded lane (:mod:`codec.entropy.rangecoder`) running from
+the first byte after the padding to the CRC; bytes past its end read as zero.
+
+Layout 4 (:mod:`codec.layouts.v4`) is this layout with a quantizer bit per
+subframe; the routines here take it as the ``quantizer_bit`` switch.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..entropy.bits import BitReader, pack_fields
+from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
+from ..entropy.rice import exp_golomb_bits, zigzag
+from ..quantize.select import choose_steps
+from .envelope import CRC_BYTES, SYNC, FrameKey, wrap_frames
+from .fields import header_bits, header_slots, read_header
+from .registry import (
+    CodedFrames,
+    LengthField,
+    PackedFrames,
+    ParseContext,
+    ParsedFrames,
+    Verdicts,
+    register_layout,
+)
+from .subframes import (
+    count_bits,
+    length_width,
+    parse_checked,
+    parsed_frames,
+    read_subheaders,
+    refuse_contents,
+    size_length_fields,
+    subframes_fit,
+    write_frame_heads,
+    write_subheaders,
+)
+from .v1 import index_bits, max_frame_bytes_for
+from .v2 import PACK_BLOCK
+
+__all__ = [
+    "LAYOUT_VERSION_3",
+    "HEADER_FIELDS_V3",
+    "FrameBatchV3",
+    "Layout3",
+    "LAYOUT_3",
+    "RD_OFFSET_V3",
+    "pack_frames_v3",
+    "parse_frames_v3",
+    "channel_bits",
+]
+
+LAYOUT_VERSION_3 = 3
+WINDOW_BITS = 4
+#: Smallest possible v3 frame: sync, 4 header bytes, CRC.
+MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
+#: The one rounding offset (a slightly widened dead zone).  With the rest of each budget
+#: spent by zeroing +-1 codes (spend_slack), one offset does as well as trying two:
+#: measured in FRAME_LAYOUT.md.
+RD_OFFSET_V3 = 0.42
+
+
+def channel_bits(channels: int) -> int:
+    """Bits of the channel field of a single-channel frame."""
+    return int(max(channels, 1) - 1).bit_length()
+
+
+def _several(h, ctx):
+    return h["windows_minus_1"] > 0
+
+
+#: (field, bits, meaning) of the frame header after the sync marker (layouts 3 and 4);
+#: ``bits`` may be a function of the fields before it (:mod:`codec.layouts.fields`).
+HEADER_FIELDS_V3 = (
+    ("version", 4, "frame layout version (3 or 4)"),
+    ("long", 1, "0: the length field has 11 bits; 1: 27 bits"),
+    ("length", length_width, "bytes in the whole frame, sync marker to CRC"),
+    ("profile", 8, "low byte of the 16-bit profile identifier"),
+    ("sequence", 8, "index, modulo 256, of the frame's first window"),
+    ("windows_minus_1", WINDOW_BITS, "the frame carries 1..16 consecutive windows"),
+    ("multi", 1, "1: every channel of the profile in each window; 0: one channel"),
+    ("channel", lambda h, c: np.where(h["multi"], 0, channel_bits(c.channels)),
+     "channel index (when multi = 0)"),
+    ("short", 1, "1: the frame's last window is a short last window"),
+    ("valid_minus_1", lambda h, c: np.where(h["short"], index_bits(c.n), 0),
+     "real samples in that window minus one (when short = 1)"),
+    ("mean_change", lambda h, c: _several(h, c) & c.has_mean,
+     "1: later windows send their mean as a change (when windows > 1, reference ac)"),
+    ("count_change", _several, "1: later windows send their count as a change (windows > 1)"),
+)
+
+
+@dataclass(frozen=True)
+class FrameBatchV3:
+    """Frames of layouts 3 and 4 as parallel arrays.
+
+    Per frame: ``multi``, ``channel`` (when not multi), ``sequence`` (first
+    window), ``windows`` (1..16), ``valid`` (real samples of the last window).
+    Per subframe (rows of ``q``, grouped by frame in order): ``frame``,
+    ``step_code``, ``mean`` (or None), and for layout 4 ``quantizer`` (1 where
+    the levels are of dependent quantization).
+    """
+
+    multi: np.ndarray
+    channel: np.ndarray
+    sequence: np.ndarray
+    windows: np.ndarray
+    valid: np.ndarray
+    frame: np.ndarray
+    step_code: np.ndarray
+    mean: np.ndarray | None
+    q: np.ndarray
+    quantizer: np.ndarray | None = None
+
+    def __len__(self) -> int:
+        return int(self.multi.size)
+
+
+def _counts(q: np.ndarray) -> np.ndarray:
+    nz = q != 0
+    return np.where(nz.any(axis=1), q.shape[1] - np.argmax(nz[:, ::-1], axis=1), 0)
+
+
+def _predictions(mean: np.ndarray | None, count: np.ndarray, prev: np.ndarray,
+                 has_prev: np.ndarray, owner: np.ndarray, nf: int, lb: int
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray]:
+    """Per frame, whether mean and count go as changes from the previous window.
+
+    A frame sends its later windows' means (and, separately, counts) as
+    changes from the same channel's previous window in the frame when that
+    codes the frame's fields in fewer bits; measured on real recordings the
+    mean of a slow signal moves little from one window to the next, while the
+    mean of a signal centred on zero is cheaper sent whole.  Returns the two
+    per-frame flags, the mean fields to send (None without means) and the
+    zigzag of each count's change.
+    """
+    def per_frame(bits):
+        return np.bincount(owner, bits, minlength=nf)
+
+    cz = zigzag(count - count[prev])
+    count_pred = per_frame(np.where(has_prev, exp_golomb_bits(cz), lb)) < per_frame(
+        np.full(count.size, lb))
+    if mean is None:
+        return np.zeros(nf, bool), count_pred, None, cz
+    delta = np.where(has_prev, mean - mean[prev], mean)
+    mean_pred = per_frame(exp_golomb_bits(zigzag(delta))) < per_frame(
+        exp_golomb_bits(zigzag(mean)))
+    return mean_pred, count_pred, np.where(mean_pred[owner], delta, mean), cz
+
+
+def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None):
+    """Slots of every subframe header, the frame-header slots left free in each frame's first row.
+
+    Returns ``(val, wid, first, lastrow, sub_bits, mean_pred, count_pred)``.
+    """
+    nf, ns = len(batch), batch.q.shape[0]
+    count = _counts(batch.q)
+    first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
+    lastrow = np.r_[first[1:] - 1, ns - 1]
+    nh, nsub = len(HEADER_FIELDS_V3), 4 if quant is None else 5
+    val = np.zeros((ns, nh + nsub + 1), dtype=np.uint64)
+    wid = np.zeros((ns, nh + nsub + 1), dtype=np.int64)
+    lead = np.zeros(ns, dtype=bool)
+    lead[first] = True
+    # later windows of a channel in a frame may send mean and count as changes
+    # from that channel's previous window in the frame (flags in the frame header)
+    owner = np.repeat(np.arange(nf), np.diff(np.r_[first, ns]))
+    per_win = np.where(batch.multi.astype(bool), channels, 1)[owner]
+    has_prev = np.arange(ns) - first[owner] >= per_win
+    prev = np.where(has_prev, np.arange(ns) - per_win, 0)
+    mean_pred, count_pred, mean_sent, count_delta = _predictions(
+        batch.mean, count, prev, has_prev, owner, nf, count_bits(n))
+    write_subheaders(val, wid, nh, lead, batch.step_code, mean_sent, count, count_bits(n),
+                     quant)
+    cp = count_pred[owner] & has_prev
+    val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
+    wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
+    return val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred
+
+
+def _join_bodies(heads: np.ndarray, head_bytes: np.ndarray, lanes: np.ndarray,
+                 lane_len: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Frame bodies: each frame's header bytes then its lane bytes; returns (body, body_bytes)."""
+    body_bytes = head_bytes + lane_len
+    bstart = np.cumsum(body_bytes) - body_bytes
+    body = np.empty(int(body_bytes.sum()), dtype=np.uint8)
+    hstart = np.cumsum(head_bytes) - head_bytes
+    body[np.repeat(bstart - hstart, head_bytes) + np.arange(heads.size)] = heads
+    lstart = np.cumsum(lane_len) - lane_len
+    body[np.repeat(bstart + head_bytes - lstart, lane_len) + np.arange(lanes.size)] = lanes
+    return body, body_bytes
+
+
+def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
+                   version: int = LAYOUT_VERSION_3, *, key: FrameKey
+                   ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
+    """Pack every frame of ``batch`` in layout 3, or in layout 4 (``version`` 4: a quantizer
+    bit per subframe, 1 where the rows of ``batch.q`` are levels of dependent quantization).
+
+    Returns the bytes, each frame's byte length, each subframe's header bits
+    (step, mean, count) and each frame's range-coded bytes.
+    """
+    nf, ns = len(batch), batch.q.shape[0]
+    quant = None
+    if version != LAYOUT_VERSION_3:  # layout 4 (codec.layouts.v4)
+        quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
+                 else batch.quantizer.astype(bool))
+    cum, freq, shift, row = coefficient_ops(batch.q, _counts(batch.q), trellis=quant,
+                                            mean=batch.mean is not None)
+    lanes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
+    val, wid, first, lastrow, sub_bits, mean_pred, count_pred = _subframe_slots(
+        batch, n, channels, quant)
+    ctx = ParseContext(n, channels, batch.mean is not None)
+    fields = {"version": version, "profile": profile_id & 0xFF,
+              "sequence": batch.sequence % 256, "windows_minus_1": batch.windows - 1,
+              "multi": batch.multi.astype(bool), "channel": batch.channel,
+              "short": batch.valid < n, "valid_minus_1": batch.valid - 1,
+              "mean_change": mean_pred, "count_change": count_pred}
+    head_bits = header_bits(HEADER_FIELDS_V3, fields, ctx, nf, skip=("length",))
+    payload = np.add.reduceat(sub_bits, first)
+    long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len)
+    head = header_slots(HEADER_FIELDS_V3, {**fields, "long": long, "length": length}, ctx, nf)
+    write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
+    heads = pack_fields(val.ravel(), wid.ravel())
+    # frame = sync | header bytes | lane bytes | crc
+    out = wrap_frames(*_join_bodies(heads, head_bytes, lanes, lane_len), key)
+    if out.size != int(length.sum()):
+        raise RuntimeError("v3 frames differ from their length fields")  # our bug
+    return out.tobytes(), length, sub_bits, lane_len
+
+
+def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n):
+    """Every subframe header of every frame; returns (step, mean, count, quant, end pos, bad)."""
+    ns = int(cnt.sum())
+    sstart = np.cumsum(cnt) - cnt
+    step = np.zeros(ns, np.int64)
+    mean = np.zeros(ns, np.int64) if has_mean else None
+    count = np.zeros(ns, np.int64)
+    quant = np.zeros(ns, np.int64) if quantizer_bit else None
+    mean_pred, count_pred = h["mean_change"] > 0, h["count_change"] > 0
+    bad_any = np.zeros(cnt.size, dtype=bool)
+    for s in range(int(cnt.max(initial=0))):
+        fr = np.flatnonzero(cnt > s)
+        rows = sstart[fr] + s
+        pw = per_win[fr]
+        later = s >= pw
+        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, count_bits(n), n,
+                                      quant, later & mean_pred[fr], later & count_pred[fr],
+                                      np.where(later, rows - pw, rows))
+        bad_any[fr] |= bad
+    return step, mean, count, quant, p, bad_any
+
+
+def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
+                    channels: int, has_mean: bool, version: int = LAYOUT_VERSION_3
+                    ) -> ParsedFrames:
+    """Parse CRC-checked v3 (or, with ``version`` 4, v4) frames at ``offsets``.
+
+    Rows are subframes, window by window (``row_offset``: window number
+    relative to the frame's ``sequence``); ``header`` holds the frame-header
+    fields of :data:`HEADER_FIELDS_V3` (``mean_change`` / ``count_change``:
+    whether later windows send their mean / count as a change).  A frame whose
+    contents do not match its length, or whose fields are impossible under
+    the profile, is refused in the verdicts; the profile byte is not checked
+    here (:meth:`Layout3.parse` does it first).
+    """
+    ctx = ParseContext(n, channels, has_mean)
+    r = BitReader(data)
+    offsets = offsets.astype(np.int64)
+    h, p = read_header(r, offsets * 8 + 8 * len(SYNC), HEADER_FIELDS_V3, ctx)
+    windows, multi = h["windows_minus_1"] + 1, h["multi"] > 0
+    valid = np.where(h["short"] > 0, h["valid_minus_1"] + 1, n)
+    per_win = np.where(multi, channels, 1)
+    cnt = windows * per_win
+    # Before anything is allocated: a frame whose header claims more subframes than its
+    # own bytes can hold (each subframe header takes at least min_subframe_bits) is
+    # refused and gets no rows, so the work and memory per frame follow its length.
+    fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
+                         version != LAYOUT_VERSION_3, h["count_change"] > 0)
+    cnt = np.where(fits, cnt, 0)
+    owner = np.repeat(np.arange(offsets.size), cnt)
+    slot = np.arange(owner.size) - (np.cumsum(cnt) - cnt)[owner]
+    woff = slot // per_win[owner]
+    sub_channel = np.where(multi[owner], slot % per_win[owner], h["channel"][owner])
+    step, mean, count, quant, p, bad = _read_subheaders_all(
+        r, p, cnt, per_win, h, has_mean, version != LAYOUT_VERSION_3, n)
+    start = offsets + (p - offsets * 8 + 7) // 8
+    end = offsets + lengths - CRC_BYTES
+    ok = fits & ~bad & (start <= end) & (h["length"] == lengths)
+    start = np.minimum(start, end)
+    buf = np.frombuffer(data, dtype=np.uint8)
+    trellis = np.zeros(owner.size, bool) if quant is None else quant.astype(bool)
+    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n,
+                                        trellis=None if quant is None else trellis,
+                                        mean=has_mean)
+    # the lane must be used: no byte past what the decoder read, and no trailing zero byte
+    lane_len = end - start
+    last = buf[np.maximum(end - 1, 0)]
+    ok &= ~bad & (lane_len <= reads + 1) & ((lane_len == 0) | (last != 0))
+    v = Verdicts(offsets.size)
+    refuse_contents(v, valid, owner, sub_channel, ok, ctx)
+    sub_valid = np.where(woff == windows[owner] - 1, valid[owner], n)
+    return parsed_frames(v, h, valid, owner, sub_channel, woff, sub_valid, step, mean, count,
+                         trellis, q)
+
+
+def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
+    """Frames of layout ``version`` (3 or 4): windows go ``windows_per_frame`` at a time.
+
+    Header bits are everything but the range-coded bytes."""
+    w = c.windows_per_frame
+    group = c.sequence // w
+    if c.multi:
+        order = np.arange(c.channel.size)  # rows are window-major, channel-minor already
+        frame = group
+    else:
+        order = np.lexsort((c.sequence, c.channel, group))
+        frame = group[order] * c.channels + c.channel[order]
+    frame = np.unique(frame, return_inverse=True)[1]
+    first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
+    lastrow = np.r_[first[1:] - 1, frame.size - 1]
+    fo = order[first]
+    nwin = c.sequence[order[lastrow]] - c.sequence[fo] + 1
+    parts = []
+    bounds = np.r_[first, frame.size]
+    for a in range(0, first.size, PACK_BLOCK):  # blocks of frames: temporaries stay cached
+        b = min(a + PACK_BLOCK, first.size)
+        r0, r1 = bounds[a], bounds[b]
+        rows = order[r0:r1]
+        batch = FrameBatchV3(
+            multi=np.full(b - a, c.multi), channel=c.channel[fo[a:b]],
+            sequence=c.sequence[fo[a:b]], windows=nwin[a:b], valid=c.valid[order[lastrow[a:b]]],
+            frame=frame[r0:r1] - frame[r0], step_code=c.step_code[rows],
+            mean=None if c.mean is None else c.mean[rows], q=c.q[rows],
+            quantizer=None if c.trellis is None else c.trellis[rows])
+        parts.append(pack_frames_v3(batch, c.profile_id, c.n, c.channels, version, key=key))
+    data = b"".join(p[0] for p in parts)
+    lengths, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 3))
+    cnt = np.bincount(frame, minlength=first.size)
+    bits_sorted = np.repeat(lengths * 8 // cnt, cnt)
+    bits_sorted[first] += lengths * 8 - (lengths * 8 // cnt) * cnt
+    bits = np.empty_like(bits_sorted)
+    bits[order] = bits_sorted
+    row_frame = np.empty_like(frame)
+    row_frame[order] = frame
+    return PackedFrames(data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8), row_frame)
+
+
+class Layout3:
+    """Layout 3 (the default): up to 16 windows per frame under one header, range-coded.
+
+    One budget may cover every window of a channel in a frame (frame scope).
+    ``version`` and ``trellis`` make the same routines serve layout 4
+    (:mod:`codec.layouts.v4`), which composes one of these.
+    """
+
+    sequence_bits = 8
+    length_field = LengthField("flagged", MIN_V3_BYTES)
+    supports_frame_scope = True
+    spends_slack = True
+
+    def __init__(self, version: int = LAYOUT_VERSION_3, trellis: bool = False):
+        self.version = version
+        self.has_trellis = trellis
+
+    def windows_per_frame(self, profile) -> int:
+        return profile.windows_per_frame
+
+    def max_frame_bytes(self, profile) -> int:
+        return max_frame_bytes_for(profile, profile.windows_per_frame)
+
+    def choose_codes(self, cx, mean, dc, budget, n):
+        code = choose_steps(cx, mean, dc, budget, RD_OFFSET_V3)
+        return code, np.full(code.size, RD_OFFSET_V3)
+
+    def block_offset(self) -> float:
+        return RD_OFFSET_V3
+
+    def pack(self, coded: CodedFrames, key: FrameKey) -> PackedFrames:
+        return _pack_v3(coded, key, self.version)
+
+    def parse(self, data: bytes, offsets: np.ndarray, lengths: np.ndarray,
+              ctx: ParseContext) -> ParsedFrames:
+        return parse_checked(
+            lambda d, o, ln, c: parse_frames_v3(d, o, ln, c.n, c.channels, c.has_mean,
+                                                self.version),
+            data, offsets, lengths, ctx)
+
+
+LAYOUT_3 = register_layout(Layout3())
