@@ -75,7 +75,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--gaps", choices=GAP_POLICIES, default="refuse",
                    help="NaN samples: refuse (default), fill by linear interpolation, or mark "
                    "them so the receiver reproduces them as NaN")
-    p.set_defaults(handler=_quiet_broken_pipe(_encode))
+    p.set_defaults(handler=_encode)
 
     p = sub.add_parser("decode", help="decode a stream back into samples",
                        description="Decode STREAM into OUTPUT (.csv or .npy). Without -p the "
@@ -94,7 +94,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="with the stream's end unknown, the most lost windows one sequence jump "
                    f"may add to the output; the rest is cut as a discontinuity (default "
                    f"{MAX_FILL_WINDOWS})")
-    p.set_defaults(handler=_quiet_broken_pipe(_decode))
+    p.set_defaults(handler=_decode)
 
     p = sub.add_parser("roundtrip", help="encode, decode and check every frame meets the target",
                        description="Exit 0 when every frame meets the target, 1 when any "
@@ -143,18 +143,6 @@ def _stream_profile(args) -> tuple[Profile, StreamNote | None]:
         raise InputError(f"no profile given and none recorded at {note}; pass -p PROFILE",
                          args.stream)
     return load_stream_note(note)
-
-
-def _quiet_broken_pipe(handler):
-    """A reader that closes the pipe early (``| head``) ends the command quietly."""
-    def run(args) -> int:
-        try:
-            return handler(args)
-        except BrokenPipeError:
-            with contextlib.suppress(OSError):
-                os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-            return 0
-    return run
 
 
 def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: str = "refuse",
