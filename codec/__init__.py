@@ -31,7 +31,8 @@ _WHERE = {
     "._profile": ("ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id",
                   "read_toml", "save_profile", "StreamNote", "load_stream_note"),
     "._progress": ("Progress",),
-    ".report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit"),
+    ".report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit",
+                "DecoderCounts", "receive_report"),
     "._status": ("CONCEALED", "DELIVERED", "FIRST_FREE_STATUS", "GAP", "LOST", "STATUS_CODES",
                  "STATUS_NAMES"),
     ".stream.search": ("Located", "locate_frames"),
@@ -60,6 +61,8 @@ __all__ = [
     "is_stdio", "write_csv_block", "StreamNote", "load_stream_note", "Progress",
     "channel_table", "pooled_label", "units_of", "with_unit", "Located", "locate_frames",
     "max_frame_bytes", "Unstuffer", "stuff",
+    # the decoder's counts and the receive report (issue 14: typed results, one report module)
+    "DecoderCounts", "receive_report",
 ]
 
 

@@ -18,12 +18,14 @@ from codec import (
     StreamDecoder,
     is_stdio,
     load_stream_note,
+    receive_report,
     write_csv_block,
 )
 from codec.cli.common import check_paths, write_json
 
 from ._udp import (
     SEND_COUNTED,
+    UdpReception,
     parse_endpoint,
     receive_frames,
     send_frames,
@@ -143,23 +145,23 @@ def _receive(args) -> int:
             write_csv_block(sink, block.samples)
             sink.flush()
 
-        def on_finish(counts: dict) -> None:
-            counts["channels"] = len(names)
-            counts["events"] = decoder.events
+        def on_finish(got: UdpReception) -> None:
             if sink is not None:
                 sink.flush()
-            write_json(args.json, counts)
+            write_json(args.json, receive_report(got.counts, len(names), decoder.events,
+                                                 got.datagrams, got.seconds, got.stopped))
 
-        counts = receive_frames(decoder, host, port, on_block, args.duration, args.idle,
+        got = receive_frames(decoder, host, port, on_block, args.duration, args.idle,
                                 ready=ready, stop=lambda: signals[0] if signals else None,
                                 on_finish=on_finish)
-    print(f"{counts['datagrams']} datagrams, {counts['frames_ok'] + counts['gap_frames_ok']} "
+    counts = got.counts
+    print(f"{got.datagrams} datagrams, {counts.frames_ok + counts.gap_frames_ok} "
           f"frames decoded in "
-          f"{counts['seconds']:.2f} s -> {counts['samples']} samples x {len(names)} channels: "
-          f"{counts['samples_delivered']} delivered, {counts['samples_lost']} lost, "
-          f"{counts['samples_gap']} gap" + ("" if counts["end_known"] else
-                                            "; the stream's end is not known")
-          + f"; stopped: {counts['stopped']}", file=info)
+          f"{got.seconds:.2f} s -> {counts.samples} samples x {len(names)} channels: "
+          f"{counts.samples_delivered} delivered, {counts.samples_lost} lost, "
+          f"{counts.samples_gap} gap" + ("" if counts.end_known else
+                                         "; the stream's end is not known")
+          + f"; stopped: {got.stopped}", file=info)
     return 0
 
 

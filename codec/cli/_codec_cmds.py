@@ -37,14 +37,22 @@ from .._progress import busy
 from .._timecol import describe_time, time_fields, time_values
 from ..layouts.gapmask import GAP_POLICIES
 from ..layouts.v1v2 import GAP_KIND
-from ..quantize.select import check_blocks, check_magnitude
+from ..quantize.select import check_magnitude
 from ..quantize.steps import step_from_code
-from ..report import channel_table, error_figures, pooled_label, units_of, with_unit
+from ..report import (
+    StatusTally,
+    channel_table,
+    encode_command_report,
+    pooled_label,
+    roundtrip_figures,
+    time_column_report,
+    with_unit,
+)
+from ..report import decode_report as report_of_decode
 from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
-from ..stream.search import STATUS_NAMES, locate_frames
+from ..stream.search import locate_frames
 from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from ..transform.bases import basis_names
-from ..transform.framing import split_frames
 from ..transform.klt import profile_basis
 from .common import (
     add_profile_options,
@@ -178,25 +186,6 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: s
     return result
 
 
-def per_frame_table(frames: dict, fidelity: np.ndarray | None = None,
-                    block_fidelity: np.ndarray | None = None) -> dict:
-    """The per-frame part of a JSON report, one list per column (compact for long streams).
-
-    ``budget_block`` numbers the budget each frame is held to (frame scope: shared
-    by the windows of one channel in one frame) and ``block_fidelity`` is that
-    budget block's fidelity, the figure the target applies to.
-    """
-    block = frames["block"]
-    bfid = frames["block_fidelity"] if block_fidelity is None else block_fidelity
-    return {
-        "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
-        "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
-        "fidelity": frames["fidelity"] if fidelity is None else fidelity,
-        "at_floor": frames["floor"], "met": frames["met"],
-        "budget_block": block, "block_fidelity": bfid[block],
-    }
-
-
 def _encode(args) -> int:
     if is_stdio(args.input):
         return _encode_live(args)
@@ -209,14 +198,9 @@ def _encode(args) -> int:
     stuffing = args.stuffing or "none"
     with busy(f"encoding {table.values.shape[0]} samples x {table.values.shape[1]} channels"):
         tf = time_fields(table.time) if table.time is not None else {}
-        kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
-                                       ("regular", "time_start_ticks")) if key in tf), None)
-        time_column = {"name": table.time_name if tf else None, "kept": kept,
-                       "resolution": 10.0 ** -tf["time_decimals"] if "time_decimals" in tf
-                       else None}
+        time_column = time_column_report(table.time_name, tf)
         result = write_stream(args.output, table, profile, args.gaps, stuffing, args.json,
-                              lambda r: {**r.report, "time_column": time_column,
-                                         "per_frame": per_frame_table(r.frames)})
+                              lambda r: encode_command_report(r, time_column))
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
@@ -484,12 +468,10 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     if live:
         sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
-    tally = np.zeros((len(STATUS_NAMES), len(names)), dtype=np.int64)  # status x channel
+    tally = StatusTally(len(names))
 
     def take(new) -> None:
-        for b in new:
-            for code in STATUS_NAMES:
-                tally[code] += (b.status == code).sum(axis=0)
+        tally.add(new)
         if live:
             for b in new:
                 time = time_values(note, b.start, len(b.samples)) if timed else None
@@ -516,20 +498,11 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
         for packet in unstuff.close():
             take(dec.feed(packet))
     take(dec.close())
-    report = dec.counts()
-    report["channels"] = len(names)
-    report["bits_total"] = 8 * report["bytes_in"]
-    if unstuff is not None:
-        report["stuffing"] = stuffing
-        report["packets_bad"] = unstuff.bad_packets
-        report["packets_overlong"] = unstuff.overlong
-    report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
-    report["per_channel"] = {n: {f"samples_{STATUS_NAMES[k]}": int(tally[k, c])
-                                 for k in STATUS_NAMES} for c, n in enumerate(names)}
-    report["units"] = units_of(profile)
-    report["events"] = dec.events
-    report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
-                               "samples_concealed = samples x channels")
+    report = report_of_decode(
+        dec.counts(), profile, tally, dec.events,
+        stuffing=None if unstuff is None else stuffing,
+        packets_bad=0 if unstuff is None else unstuff.bad_packets,
+        packets_overlong=0 if unstuff is None else unstuff.overlong)
     if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
         kind = detect_stuffing(bytes(head), frame_key(profile))
         if kind is not None:
@@ -549,44 +522,8 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
     dec = decode(enc.data, enc.profile, samples=values.shape[0])
     if dec.samples.shape != values.shape or not dec.delivered.all():
         raise RuntimeError("a clean round trip lost samples")  # our bug
-    n = enc.profile.frame_length
-    info = enc.frames
-    # Error energy of every (window, channel) frame over its real samples only.
-    e, valid, _, _ = split_frames(values - dec.samples, n)
-    e = np.where(np.arange(n) < valid[:, None], e, 0.0)
-    err_rows = np.einsum("ij,ij->i", e, e)  # window-major rows: window * channels + channel
-    err = err_rows[info["window"] * values.shape[1] + info["channel"]]
-    e_ref = info["reference_energy"]
-    fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
-    # judged per budget block (window scope: per window; frame scope: the windows of
-    # one channel in one frame together)
-    blk = check_blocks(err, info["block"], info["block_budget"], info["block_reference_energy"])
-    met = blk.met[info["block"]]
-    report = dict(enc.report)
-    # every frame (one window of one channel) carries its budget block's fidelity, as in
-    # the encoder's report: the mean is over frames, the minimum over blocks alike
-    row_fid = blk.fidelity[info["block"]]
-    row_floor = info["block_floor"][info["block"]]
-    judged = row_fid[~row_floor]
-    report.update({
-        "fidelity_min": float(judged.min()) if judged.size else None,
-        "fidelity_mean": float(judged.mean()) if judged.size else None,
-        "frames_below_target": int((~met).sum()),
-        "blocks_below_target": int((~blk.met).sum()),
-        "decoded_check": f"error energy per budget block ({enc.profile.fidelity_scope} scope) "
-                         "recomputed from the decoded samples",
-    })
-    report.update(error_figures(values, dec.samples))
-    per = {}
-    for c, (name, figs) in enumerate(report["per_channel"].items()):
-        mine = (info["channel"] == c) & ~row_floor
-        per[name] = {**figs, **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1]),
-                     "fidelity_min": float(row_fid[mine].min()) if mine.any() else None,
-                     "fidelity_mean": float(row_fid[mine].mean()) if mine.any() else None,
-                     "frames_below_target": int((~met[info["channel"] == c]).sum())}
-    report["per_channel"] = per
-    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)
-    return report, bool(met.all()), dec
+    report, ok = roundtrip_figures(values, enc, dec)
+    return report, ok, dec
 
 
 def _roundtrip(args) -> int:

@@ -32,6 +32,7 @@ from .._codec import _bind, decode_frames, encode, frame_key
 from .._errors import ProfileError
 from .._profile import Profile
 from ..layouts.gapmask import GAP_POLICIES
+from ..report import DecoderCounts
 from .search import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
 
 __all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "MAX_FILL_WINDOWS",
@@ -288,19 +289,14 @@ class StreamDecoder:
             self.events.append({"event": "discontinuity", "offset": int(offset),
                                 "window": int(window), "windows_cut": int(cut)})
 
-    def counts(self) -> dict:
+    def counts(self) -> DecoderCounts:
         """Frame and sample counts so far (samples only for released windows)."""
-        c = {"frames_ok": 0, "gap_frames_ok": 0, **self._frame_counts}
-        c["frames_crc_failed"] = self.scanner.crc_failure_count
-        c["bytes_in"] = self.scanner.bytes_in
-        c["bytes_skipped"] = self.scanner.skipped_bytes
-        c["samples"] = self._emitted
-        c.update({f"samples_{k}": v for k, v in self._sample_counts.items()})
-        c["end_known"] = self.end_known
-        c["discontinuities"] = self._jumps
-        c["windows_cut"] = self._cut
-        c["events_listed"] = len(self.events)
-        return c
+        return DecoderCounts(
+            **self._frame_counts, frames_crc_failed=self.scanner.crc_failure_count,
+            bytes_in=self.scanner.bytes_in, bytes_skipped=self.scanner.skipped_bytes,
+            samples=self._emitted, **{f"samples_{k}": v for k, v in self._sample_counts.items()},
+            end_known=self.end_known, discontinuities=self._jumps, windows_cut=self._cut,
+            events_listed=len(self.events))
 
     def frame_table(self) -> dict:
         """Accepted data frames as arrays (only with ``keep_frames``)."""
