@@ -45,7 +45,27 @@ def _db(num: float, den: float) -> float | None:
 
 
 def error_figures(x: np.ndarray, x_hat: np.ndarray) -> dict:
-    """SNR, PRD and peak error of ``x_hat`` against ``x`` (same shape, finite)."""
+    """SNR, PRD and peak error of ``x_hat`` against ``x``.
+
+    Parameters
+    ----------
+    x, x_hat : ndarray
+        Signal and its reconstruction, same shape, finite.
+
+    Returns
+    -------
+    dict
+        ``snr_db``, ``snr_ac_db`` (None when the reconstruction is exact),
+        ``prd_percent``, ``prdn_percent`` (None when the signal has no
+        energy but the error has), ``max_abs_error`` and ``error_energy``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> f = error_figures(np.array([3.0, 4.0]), np.array([3.0, 3.0]))
+    >>> round(f["snr_db"], 4), round(f["prd_percent"], 1), f["max_abs_error"]
+    (13.9794, 20.0, 1.0)
+    """
     e = x - x_hat
     err = float(np.einsum("i,i->", e.ravel(), e.ravel()))
     sig = float(np.einsum("i,i->", x.ravel(), x.ravel()))
@@ -73,7 +93,7 @@ def stream_report(
     extra_bits: int = 0,
     header_bits: int | None = None,
 ) -> dict:
-    """The JSON report of ``encode`` and ``roundtrip``.
+    """The figures of the encode and roundtrip reports, for the stream and per channel.
 
     Parameters
     ----------
@@ -95,36 +115,21 @@ def stream_report(
         Bits of the stream that carry no coefficient (sync markers, headers,
         side information, padding, CRCs); reported per input sample as
         ``header_bits_per_sample``.
+
+    Returns
+    -------
+    dict
+        The stream's figures (bits, ratio, fidelity, SNR, PRD, peak error),
+        ``channels``, ``reference``, ``basis``, ``frame_length``, the same
+        figures per channel in ``per_channel`` and the ``units`` map.
     """
-    samples, channels = x.shape
     raw = np.array([c.raw_bits_per_sample for c in profile.channels], dtype=np.float64)
     bits_total = int(frame_bits.sum()) + int(extra_bits)
     if frame_floor is None:
         frame_floor = np.zeros(frame_bits.size, dtype=bool)
-
-    def figures(xs, xh, bits, raw_bits, fid, met, floor, nframes):
-        count = xs.size
-        judged = fid[~floor]
-        out = {
-            "frames": int(nframes),
-            "samples": int(xs.shape[0]),
-            "bits_total": int(bits),
-            "bits_per_sample": bits / count if count else 0.0,
-            "bits_per_frame_mean": bits / nframes if nframes else 0.0,
-            "raw_bits_per_sample": float(raw_bits),
-            "compression_ratio": (raw_bits * count / bits) if bits else None,
-            "fidelity_target": profile.fidelity,
-            "fidelity_min": float(judged.min()) if judged.size else None,
-            "fidelity_mean": float(judged.mean()) if judged.size else None,
-            "frames_below_target": int((~met).sum()),
-            "frames_at_floor": int(floor.sum()),
-        }
-        out.update(error_figures(xs, xh))
-        return out
-
-    report = figures(x, x_hat, bits_total, raw.mean(), frame_fidelity, frame_met, frame_floor,
-                     frame_bits.size)
-    report["channels"] = channels
+    report = _figures(x, x_hat, profile, bits_total, raw.mean(), frame_fidelity, frame_met,
+                      frame_floor, frame_bits.size)
+    report["channels"] = x.shape[1]
     if header_bits is not None:
         report["header_bits_per_sample"] = (header_bits + int(extra_bits)) / x.size
     report["reference"] = profile.reference
@@ -133,25 +138,62 @@ def stream_report(
     per = {}
     for c, spec in enumerate(profile.channels):
         sel = frame_channel == c
-        per[spec.name] = figures(
-            x[:, c : c + 1], x_hat[:, c : c + 1], int(frame_bits[sel].sum()),
-            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()),
-        )
+        per[spec.name] = _figures(
+            x[:, c : c + 1], x_hat[:, c : c + 1], profile, int(frame_bits[sel].sum()),
+            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()))
     report["per_channel"] = per
     report["units"] = units_of(profile)
     return report
+
+
+def _figures(xs, xh, profile, bits, raw_bits, fid, met, floor, nframes) -> dict:
+    """Bits, fidelity and error figures of one set of frames (a channel, or every channel)."""
+    count = xs.size
+    judged = fid[~floor]
+    out = {
+        "frames": int(nframes),
+        "samples": int(xs.shape[0]),
+        "bits_total": int(bits),
+        "bits_per_sample": bits / count if count else 0.0,
+        "bits_per_frame_mean": bits / nframes if nframes else 0.0,
+        "raw_bits_per_sample": float(raw_bits),
+        "compression_ratio": (raw_bits * count / bits) if bits else None,
+        "fidelity_target": profile.fidelity,
+        "fidelity_min": float(judged.min()) if judged.size else None,
+        "fidelity_mean": float(judged.mean()) if judged.size else None,
+        "frames_below_target": int((~met).sum()),
+        "frames_at_floor": int(floor.sum()),
+    }
+    out.update(error_figures(xs, xh))
+    return out
 
 
 def scope_figures(profile, block: np.ndarray, block_met: np.ndarray, block_floor: np.ndarray,
                   window_fidelity: np.ndarray, window_floor: np.ndarray) -> dict:
     """Report keys that say which budget scope holds and how the blocks fared.
 
-    ``fidelity_scope`` is the profile's; ``budget_blocks`` counts the budgets
-    the stream was held to (one per window of each channel in window scope;
-    one per channel per frame in frame scope), ``blocks_below_target`` those
-    missed.  ``fidelity_min``/``fidelity_mean`` of the report are over budget
-    blocks; ``window_fidelity_min`` is the lowest single-window fidelity, which
-    in frame scope may lie below the target (a quiet window next to a loud one).
+    Parameters
+    ----------
+    profile : Profile
+        The bound profile (its ``fidelity_scope``).
+    block : ndarray
+        Budget block of every frame (unused; kept for callers).
+    block_met, block_floor : ndarray of bool
+        Per budget block: whether it met its budget, whether it is held to the
+        resolution floor.
+    window_fidelity, window_floor : ndarray
+        Per frame (one window of one channel): its own fidelity and floor flag.
+
+    Returns
+    -------
+    dict
+        ``fidelity_scope`` (the profile's); ``budget_blocks``, the budgets the
+        stream was held to (one per window of each channel in window scope,
+        one per channel per frame in frame scope); ``blocks_below_target``,
+        those missed; ``blocks_at_floor``; ``window_fidelity_min``, the lowest
+        single-window fidelity, which in frame scope may lie below the target
+        (a quiet window next to a loud one).  The report's ``fidelity_min`` and
+        ``fidelity_mean`` are over budget blocks.
     """
     judged = window_fidelity[~window_floor]
     return {
@@ -164,12 +206,44 @@ def scope_figures(profile, block: np.ndarray, block_met: np.ndarray, block_floor
 
 
 def units_of(profile) -> dict:
-    """``{channel name: unit or None}``: the JSON ``units`` map (numbers stay as measured)."""
+    """The JSON ``units`` map (numbers in the reports stay as measured).
+
+    Parameters
+    ----------
+    profile : Profile
+        A bound profile.
+
+    Returns
+    -------
+    dict
+        ``{channel name: unit or None}``.
+    """
     return {c.name: c.unit for c in profile.channels}
 
 
 def with_unit(value, unit: str | None, spec: str = ".4g", none: str = "n/a") -> str:
-    """``value`` formatted, followed by its unit when the channel has one."""
+    """``value`` formatted, followed by its unit when the channel has one.
+
+    Parameters
+    ----------
+    value : float or None
+        The number (None prints as ``none``).
+    unit : str or None
+        The channel's unit.
+    spec : str
+        Format specification of the number.
+    none : str
+        Text for a missing value.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> with_unit(0.0123, "K"), with_unit(2.5, None), with_unit(None, "K")
+    ('0.0123 K', '2.5', 'n/a')
+    """
     if value is None:
         return none
     text = format(value, spec)
@@ -177,7 +251,19 @@ def with_unit(value, unit: str | None, spec: str = ".4g", none: str = "n/a") -> 
 
 
 def pooled_label(units: dict) -> str:
-    """How to name figures pooled over every channel (a warning when their units differ)."""
+    """How to name figures pooled over every channel (a warning when their units differ).
+
+    Parameters
+    ----------
+    units : dict
+        The report's ``units`` map.
+
+    Returns
+    -------
+    str
+        ``all samples`` for one channel, else a label saying whether the
+        pooled figures mix units.
+    """
     kinds = {u for u in units.values()}
     if len(units) <= 1:
         return "all samples"
@@ -194,8 +280,20 @@ def channel_table(per_channel: dict, units: dict, fidelity_key: str = "fidelity_
                   fidelity_head: str = "fidelity min") -> list[str]:
     """One line per channel: bits/sample, SNR, PRD, max error (with unit), fidelity min.
 
-    ``per_channel`` is the report's ``per_channel`` map; channels with no unit
-    show ``-`` in the unit column and bare numbers.
+    Parameters
+    ----------
+    per_channel : dict
+        The report's ``per_channel`` map.
+    units : dict
+        The report's ``units`` map; channels with no unit show ``-`` in the
+        unit column and bare numbers.
+    fidelity_key, fidelity_head : str
+        Which fidelity figure the last column shows, and its heading.
+
+    Returns
+    -------
+    list of str
+        A heading line and one line per channel.
     """
     width = max([7] + [len(n) for n in per_channel])
     uw = max([4] + [len(u or "-") for u in units.values()])
