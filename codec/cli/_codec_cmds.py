@@ -40,7 +40,6 @@ from ..layouts.v1v2 import GAP_KIND
 from ..quantize.select import check_magnitude
 from ..quantize.steps import step_from_code
 from ..report import (
-    StatusTally,
     channel_table,
     encode_command_report,
     pooled_label,
@@ -48,7 +47,7 @@ from ..report import (
     time_column_report,
     with_unit,
 )
-from ..report import decode_report as report_of_decode
+from ..stream.chunks import ChunkDecoder
 from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
 from ..stream.search import locate_frames
 from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
@@ -458,9 +457,7 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     the first bytes unstuff into more frames) raises :class:`InputError`
     naming the stuffing; ``where`` names the stream in that message.
     """
-    dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder,
-                        max_fill=max_fill)
-    unstuff = Unstuffer(stuffing) if stuffing != "none" else None
+    run = ChunkDecoder(profile, note.samples if note else None, reorder, max_fill, stuffing)
     live = output is not None and is_stdio(output)
     blocks: list = []
     names = [c.name for c in profile.channels]
@@ -468,47 +465,24 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     if live:
         sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
-    tally = StatusTally(len(names))
-
     def take(new) -> None:
-        tally.add(new)
-        if live:
-            for b in new:
-                time = time_values(note, b.start, len(b.samples)) if timed else None
-                write_csv_block(sys.stdout, b.samples, time, _decimals(profile),
-                                note.time_decimals if note else None)
-            sys.stdout.flush()
-        else:
+        if not live:
             blocks.extend(new)
+            return
+        for b in new:
+            time = time_values(note, b.start, len(b.samples)) if timed else None
+            write_csv_block(sys.stdout, b.samples, time, _decimals(profile),
+                            note.time_decimals if note else None)
+        sys.stdout.flush()
 
-    head = bytearray()  # the stream's first bytes, to name a stuffing nobody asked to undo
-    got = 0
     for chunk in chunks:
-        got += len(chunk)
-        if len(head) < SNIFF_BYTES:
-            head += chunk[: SNIFF_BYTES - len(head)]
-        if unstuff is None:
-            take(dec.feed(chunk))
-        else:
-            for packet in unstuff.feed(chunk):
-                take(dec.feed(packet))
+        take(run.feed(chunk))
     # closing fills every sample up to the note's count: not beyond what the bytes carry
-    check_note_fits(note, got, profile, "stream note")
-    if unstuff is not None:
-        for packet in unstuff.close():
-            take(dec.feed(packet))
-    take(dec.close())
-    report = report_of_decode(
-        dec.counts(), profile, tally, dec.events,
-        stuffing=None if unstuff is None else stuffing,
-        packets_bad=0 if unstuff is None else unstuff.bad_packets,
-        packets_overlong=0 if unstuff is None else unstuff.overlong)
-    if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
-        kind = detect_stuffing(bytes(head), frame_key(profile))
-        if kind is not None:
-            raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain "
-                             f"frames; decode with --stuffing {kind}", where)
-    return report, blocks, dec
+    check_note_fits(note, run.bytes_read, profile, "stream note")
+    take(run.close())
+    report = run.report()
+    run.check_stuffing(where)
+    return report, blocks, run.decoder
 
 
 def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
