@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._codec import check_some_frame, decode, decode_frames, encode, frame_key
+from .._codec import check_some_frame, decode, encode, frame_key
 from .._errors import FrameError, InputError
 from .._io import (
     CsvBlockReader,
@@ -36,9 +36,7 @@ from .._profile import (
 from .._progress import busy
 from .._timecol import describe_time, time_fields, time_values
 from ..layouts.gapmask import GAP_POLICIES
-from ..layouts.v1v2 import GAP_KIND
 from ..quantize.select import check_magnitude
-from ..quantize.steps import step_from_code
 from ..report import (
     channel_table,
     encode_command_report,
@@ -48,11 +46,11 @@ from ..report import (
     with_unit,
 )
 from ..stream.chunks import ChunkDecoder
+from ..stream.listing import list_frames
 from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
 from ..stream.search import locate_frames
 from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from ..transform.bases import basis_names
-from ..transform.klt import profile_basis
 from .common import (
     add_profile_options,
     check_paths,
@@ -521,20 +519,8 @@ def _roundtrip(args) -> int:
     return 0 if ok else 1
 
 
-def _basis_code(name: str) -> int | None:
-    """The header code of a registered basis (None for one that cannot be built alone)."""
-    from ..transform.bases import _kinds
-
-    kind = _kinds().get(name)
-    return None if kind is None else kind.code
-
-
 def _inspect(args) -> int:
-    """List every frame: where, which version/kind, which window and channels, and verdict.
-
-    Goes through the same per-frame interpreter as the decoder, so it reads
-    every layout version and gap-mask frames, and a damaged frame is a line.
-    """
+    """List every frame: where, which version/kind, which window and channels, and verdict."""
     data = _read_stream(args.stream)
     profile = note = None
     if note_path(args.stream).is_file():
@@ -545,52 +531,37 @@ def _inspect(args) -> int:
     if stuffing != "none":
         u = Unstuffer(stuffing)
         data = b"".join(u.feed(data) + u.close())
-    # The CRC covers the profile (FRAME_LAYOUT.md, "Profile check"): without one, frames
-    # are only split as their envelopes claim.
-    loc = locate_frames(data, frame_key(profile) if profile and profile.channels else None)
+    listing = list_frames(data, profile)
+    checked = profile is not None and bool(profile.channels)
     if stuffing == "none" and (kind := detect_stuffing(
-            data[:SNIFF_BYTES], frame_key(profile) if profile and profile.channels else None)):
+            data[:SNIFF_BYTES], frame_key(profile) if checked else None)):
         raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
                          f"inspect with --stuffing {kind}", args.stream)
+    loc = listing.located
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a coefwire stream?", args.stream)
-    fr = None
-    if profile is not None and profile.channels:
-        fr = decode_frames(loc.frames, profile, profile_basis(profile))
-    names = [c.name for c in profile.channels] if profile and profile.channels else None
-    rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
-    rows += [(int(o), None) for o in loc.crc_failures]
-    rows.sort()
-    codes = {as_code: name for name in basis_names()
-             if (as_code := _basis_code(name)) is not None}
-    units = [c.unit for c in profile.channels] if profile and profile.channels else []
+    names = [c.name for c in profile.channels] if checked else []
+    units = [c.unit for c in profile.channels] if checked else []
     out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'basis':<8} {'terms':>5} "
            f"{'step':>14} {'bits':>7}  status"]
-    for off, i in rows:
-        if i is None:
-            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>14} "
+    for ln in listing.lines:
+        if ln.bits is None:
+            out.append(f"{ln.offset:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>14} "
                        f"{'-':>7}  CRC FAILED")
-            continue
-        version = loc.frames[i][2] >> 4
-        kind = "gap" if version == GAP_KIND else f"v{version}"
-        bits = 8 * len(loc.frames[i])
-        if fr is None:
-            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>14} "
-                       f"{bits:>7}  not checked (no profile: the CRC covers it; contents not read)")
-            continue
-        chans = fr.row_channel[fr.row_frame == i].tolist()
-        chans += [c for c, _ in fr.masks.get(i, ())]
-        label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
-        status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
-        gap = version == GAP_KIND or fr.verdict[i] != "ok"
-        basis = "-" if gap else codes.get(int(fr.head["basis"][i]), str(fr.head["basis"][i]))
-        step = "-" if gap else format(float(step_from_code(fr.head["step_code"][i])), ".4g")
-        one = sorted(set(chans))
-        if not gap and len(one) == 1 and one[0] < len(units) and units[one[0]]:
-            step += f" {units[one[0]]}"  # a step is in the channel's units (orthonormal basis)
-        out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
-                   f"{basis:<8} {int(fr.head['terms'][i]):>5} {step:>14} {bits:>7}  {status}")
+        elif ln.sequence is None:
+            out.append(f"{ln.offset:>9} {ln.kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} "
+                       f"{'?':>14} {ln.bits:>7}  not checked (no profile: the CRC covers it; "
+                       "contents not read)")
+        else:
+            label = ",".join(names[c] if c < len(names) else str(c) for c in ln.channels)
+            step = "-" if ln.step is None else format(ln.step, ".4g")
+            one = ln.channels[0] if len(ln.channels) == 1 else None
+            if ln.step is not None and one is not None and one < len(units) and units[one]:
+                step += f" {units[one]}"  # a step is in the channel's units (orthonormal basis)
+            out.append(f"{ln.offset:>9} {ln.kind:<6} {ln.sequence:>6} {label[:20] or '-':<20} "
+                       f"{ln.basis or '-':<8} {ln.terms:>5} {step:>14} {ln.bits:>7}  "
+                       f"{ln.status}")
     out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
                f"{loc.skipped_bytes} bytes outside frames"
                + (f" ({stuffing.upper()}-stuffed stream: offsets in the unstuffed frames)"
