@@ -28,8 +28,8 @@ from ._status import STATUS_NAMES
 
 __all__ = ["error_figures", "stream_report", "scope_figures", "units_of", "with_unit",
            "channel_table", "pooled_label", "EncodeTally", "encode_report", "per_frame_table",
-           "time_column_report", "encode_command_report", "DecoderCounts", "StatusTally",
-           "decode_report", "receive_report", "roundtrip_figures", "REFUSALS"]
+           "time_column_report", "encode_command_report", "DecoderCounts", "FrameEvent",
+           "StatusTally", "decode_report", "receive_report", "roundtrip_figures", "REFUSALS"]
 
 #: Why the decoder refuses a CRC-valid frame: each is counted as ``frames_<why>``.
 REFUSALS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
@@ -521,6 +521,43 @@ class DecoderCounts(Mapping):
 _COUNT_KEYS = tuple(f.name for f in fields(DecoderCounts))
 
 
+@dataclass(frozen=True, eq=False)
+class FrameEvent(Mapping):
+    """What happened to a frame that did not make it into the output: one entry of ``events``.
+
+    ``event`` is a reason of :data:`REFUSALS` or ``discontinuity``; ``offset``
+    the frame's byte offset in the stream (unstuffed); ``window`` and
+    ``channel`` where a misplaced frame would have gone; ``detail`` why its
+    header was refused, in words; ``windows_cut`` the lost windows a
+    discontinuity left out.  Reads as a mapping of the fields that apply (the
+    JSON object), so each event lists only its own keys.
+    """
+
+    event: str
+    offset: int
+    window: int | None = None
+    channel: int | None = None
+    detail: str | None = None
+    windows_cut: int | None = None
+
+    def _present(self) -> list[str]:
+        return [k for k in _EVENT_FIELDS if getattr(self, k) not in (None, "")]
+
+    def __getitem__(self, key: str):
+        if key not in self._present():
+            raise KeyError(key)
+        return getattr(self, key)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._present())
+
+    def __len__(self) -> int:
+        return len(self._present())
+
+
+_EVENT_FIELDS = tuple(f.name for f in fields(FrameEvent))
+
+
 class StatusTally:
     """Samples of each status per channel, summed over the decoder's released blocks."""
 
@@ -552,7 +589,7 @@ def decode_report(counts: DecoderCounts, profile, tally: StatusTally, events: li
         The bound profile the stream was decoded with.
     tally : StatusTally
         Samples of each status per channel.
-    events : list of dict
+    events : list of FrameEvent
         The decoder's event list (capped).
     stuffing : str, optional
         The SLIP or COBS stuffing undone before decoding, with
@@ -576,7 +613,7 @@ def decode_report(counts: DecoderCounts, profile, tally: StatusTally, events: li
     report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
     report["per_channel"] = tally.per_channel(names)
     report["units"] = units_of(profile)
-    report["events"] = list(events)
+    report["events"] = [dict(e) for e in events]
     report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
                                "samples_concealed = samples x channels")
     return report
@@ -592,7 +629,7 @@ def receive_report(counts: DecoderCounts, channels: int, events: list, datagrams
         The decoder's counts after it was closed.
     channels : int
         Channels of the stream.
-    events : list of dict
+    events : list of FrameEvent
         The decoder's event list (capped).
     datagrams, seconds, stopped
         Datagrams read, seconds listened, and why the receiver stopped
@@ -606,7 +643,7 @@ def receive_report(counts: DecoderCounts, channels: int, events: list, datagrams
         ``channels`` and ``events``.
     """
     return {**counts, "datagrams": int(datagrams), "seconds": float(seconds),
-            "stopped": stopped, "channels": int(channels), "events": list(events)}
+            "stopped": stopped, "channels": int(channels), "events": [dict(e) for e in events]}
 
 
 # ---- roundtrip ---------------------------------------------------------------------------------

@@ -30,6 +30,7 @@ from pathlib import Path
 
 import pytest
 
+import codec
 from codec.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -243,6 +244,22 @@ def test_decode_keys(demo, tmp_path):
     assert _run(["decode", str(demo / "s.cw"), "-o", str(tmp_path / "d.csv"),
                  "--json", str(out)]) == 0
     assert_keys(_json(out), DECODE)
+
+
+def test_decode_event_keys(demo, tmp_path):
+    # A frame sent twice: the second copy is refused as a duplicate and listed as an event
+    # (each event lists only the keys that apply to it; a duplicate names its place).
+    data = (demo / "s.cw").read_bytes()
+    first = codec.locate_frames(data)
+    dup = tmp_path / "dup.cw"
+    dup.write_bytes(data + data[: int(first.lengths[0])])
+    (tmp_path / "dup.cw.profile.toml").write_bytes((demo / "s.cw.profile.toml").read_bytes())
+    out = tmp_path / "d.json"
+    assert _run(["decode", str(dup), "-o", str(tmp_path / "d.csv"), "--json", str(out)]) == 0
+    report = _json(out)
+    assert report["frames_duplicate"] >= 1  # one per window the copy carries
+    assert_keys(report, DECODE + ["events[].event", "events[].offset", "events[].window",
+                                  "events[].channel"])
 
 
 def test_roundtrip_keys(demo, tmp_path):

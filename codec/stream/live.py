@@ -32,7 +32,7 @@ from .._codec import _bind, decode_frames, encode, frame_key
 from .._errors import ProfileError
 from .._profile import Profile
 from ..layouts.gapmask import GAP_POLICIES
-from ..report import DecoderCounts
+from ..report import DecoderCounts, FrameEvent
 from .search import DELIVERED, GAP, LOST, STATUS_NAMES, FrameScanner, SequenceTracker
 
 __all__ = ["Block", "StreamDecoder", "StreamEncoder", "MAX_EVENTS", "MAX_FILL_WINDOWS",
@@ -116,7 +116,7 @@ class StreamDecoder:
         self._pending: list[tuple[np.ndarray, ...]] = []
         self._masks: dict[tuple[int, int], np.ndarray] = {}  # (window, channel) -> gap mask
         self._next = 0  # first window not yet emitted
-        self.events: list[dict] = []
+        self.events: list[FrameEvent] = []
         self._frame_counts: dict[str, int] = {}
         self._sample_counts = dict.fromkeys(STATUS_NAMES.values(), 0)
         self._emitted = 0
@@ -278,16 +278,15 @@ class StreamDecoder:
     def _event(self, kind: str, offset: int, **info) -> None:
         self._count(f"frames_{kind}")
         if len(self.events) < MAX_EVENTS:
-            self.events.append({"event": kind, "offset": int(offset),
-                                **{k: v for k, v in info.items() if v not in (None, "")}})
+            self.events.append(FrameEvent(kind, int(offset), **info))
 
     def _discontinuity(self, offset: int, window: int, cut: int) -> None:
         """A jump with the end unknown: ``cut`` windows left out before ``window``."""
         self._jumps += 1
         self._cut += cut
         if len(self.events) < MAX_EVENTS:
-            self.events.append({"event": "discontinuity", "offset": int(offset),
-                                "window": int(window), "windows_cut": int(cut)})
+            self.events.append(FrameEvent("discontinuity", int(offset), window=int(window),
+                                          windows_cut=int(cut)))
 
     def counts(self) -> DecoderCounts:
         """Frame and sample counts so far (samples only for released windows)."""
