@@ -49,7 +49,7 @@ SEND_COUNTED = ("bits counted: the coefwire frames as sent, sync marker to CRC (
                 "at the link rate (the last frame's own time on the link included)")
 
 
-@dataclass
+@dataclass(frozen=True)
 class SendStats:
     """What :func:`send_frames` sent: frames, bytes and the seconds the stream took.
 

@@ -47,7 +47,7 @@ MAX_EVENTS = 1000
 MAX_FILL_WINDOWS = 256
 
 
-@dataclass
+@dataclass(frozen=True)
 class Block:
     """Decoded samples ``[start, start + len)`` of the stream, with their status codes."""
 
