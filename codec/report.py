@@ -29,7 +29,8 @@ from ._status import STATUS_NAMES
 __all__ = ["error_figures", "stream_report", "scope_figures", "units_of", "with_unit",
            "channel_table", "pooled_label", "EncodeTally", "encode_report", "per_frame_table",
            "time_column_report", "encode_command_report", "DecoderCounts", "FrameEvent",
-           "StatusTally", "decode_report", "receive_report", "roundtrip_figures", "REFUSALS"]
+           "StatusTally", "decode_report", "receive_report", "roundtrip_figures", "REFUSALS",
+           "pack_report", "pack_command_report"]
 
 #: Why the decoder refuses a CRC-valid frame: each is counted as ``frames_<why>``.
 REFUSALS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
@@ -711,3 +712,74 @@ def _fidelity_figures(fid: np.ndarray, floor: np.ndarray, met: np.ndarray) -> di
     return {"fidelity_min": float(judged.min()) if judged.size else None,
             "fidelity_mean": float(judged.mean()) if judged.size else None,
             "frames_below_target": int((~met).sum())}
+
+
+# ---- pack --------------------------------------------------------------------------------------
+
+def pack_report(data: bytes, pack: bytes, samples: int, dictionary: bytes | None) -> dict:
+    """Bits of a pack against per-frame coding of the same stream, per input sample.
+
+    Parameters
+    ----------
+    data : bytes
+        The stream as frames.
+    pack : bytes
+        Its pack (``codec.stream.packs.make_pack``).
+    samples : int
+        Input samples the stream carries (samples x channels).
+    dictionary : bytes or None
+        The zstd dictionary both ends hold (its size is reported, not counted).
+
+    Returns
+    -------
+    dict
+        ``per_frame_bits``, ``pack_bits``, ``bits_saved``, ``saved_percent``,
+        the two per sample, ``dictionary_bytes``, ``verdict`` (in words, also
+        when the pack costs more) and ``frames``.
+    """
+    from .stream.search import locate_frames
+
+    per_frame = 8 * len(data)
+    packed = 8 * len(pack)
+    saved = per_frame - packed
+    return {
+        "per_frame_bits": per_frame,
+        "pack_bits": packed,
+        "bits_saved": saved,
+        "saved_percent": 100.0 * saved / per_frame if per_frame else 0.0,
+        "per_frame_bits_per_sample": per_frame / samples,
+        "pack_bits_per_sample": packed / samples,
+        "dictionary_bytes": len(dictionary) if dictionary else 0,
+        "verdict": ("the pack saves bits" if saved > 0 else
+                    "the pack saves nothing: send the frames as they are"),
+        "frames": int(np.size(locate_frames(data).offsets)),
+    }
+
+
+def pack_command_report(base: dict, samples: int, channels: int,
+                        dictionary_sha256: str | None, zstd_dictionary_id: int,
+                        written: bool) -> dict:
+    """The JSON the ``pack`` command writes: :func:`pack_report` and where the pack stands.
+
+    Parameters
+    ----------
+    base : dict
+        :func:`pack_report` of the stream and its pack.
+    samples, channels : int
+        Samples per channel (the stream note's) and channels.
+    dictionary_sha256 : str or None
+        SHA-256 (hex) of the dictionary file, None without one.
+    zstd_dictionary_id : int
+        The dictionary id the pack's zstd frame names (0: none).
+    written : bool
+        Whether the pack was written (``--only-if-smaller`` may skip it).
+
+    Returns
+    -------
+    dict
+        ``base`` plus ``samples``, ``channels``, ``dictionary_sha256``,
+        ``zstd_dictionary_id`` and ``pack_written``.
+    """
+    return {**base, "samples": int(samples), "channels": int(channels),
+            "dictionary_sha256": dictionary_sha256,
+            "zstd_dictionary_id": int(zstd_dictionary_id), "pack_written": bool(written)}
