@@ -246,6 +246,16 @@ def test_decode_keys(demo, tmp_path):
     assert_keys(_json(out), DECODE)
 
 
+def test_stuffed_decode_keys(demo, tmp_path):
+    # a SLIP-stuffed stream adds what the unstuffer counted
+    stuffed = tmp_path / "slip.cw"
+    assert _run(["encode", str(demo / "in.csv"), "-o", str(stuffed), "-p", str(demo / "p.toml"),
+                 "--stuffing", "slip"]) == 0
+    out = tmp_path / "d.json"
+    assert _run(["decode", str(stuffed), "-o", str(tmp_path / "d.csv"), "--json", str(out)]) == 0
+    assert_keys(_json(out), DECODE + ["stuffing", "packets_bad", "packets_overlong"])
+
+
 def test_decode_event_keys(demo, tmp_path):
     # A frame sent twice: the second copy is refused as a duplicate and listed as an event
     # (each event lists only the keys that apply to it; a duplicate names its place).
