@@ -87,10 +87,7 @@ def _send(args) -> int:
         raise InputError("no frame with a valid sync marker and CRC; is this a coefwire stream?",
                          args.stream)
     stats = send_frames(frames, host, port, args.rate_bps)
-    report = {"frames": stats.frames, "bits": 8 * stats.bytes, "seconds": stats.seconds,
-              "rate_bps": stats.rate_bps, "average_bps": stats.average_bps,
-              "rate_error_percent": stats.rate_error_percent, "counted": SEND_COUNTED}
-    write_json(args.json, report)
+    write_json(args.json, stats.report())
     line = (f"{stats.frames} frames ({8 * stats.bytes} bits) sent to {host}:{port} in "
             f"{stats.seconds:.3f} s: average {stats.average_bps:.0f} bit/s")
     if stats.rate_bps:

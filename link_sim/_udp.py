@@ -73,6 +73,12 @@ class SendStats:
             return None
         return 100.0 * (self.average_bps - self.rate_bps) / self.rate_bps
 
+    def report(self) -> dict:
+        """The JSON report of ``coefwire send``: what was sent, how fast, and what is counted."""
+        return {"frames": self.frames, "bits": 8 * self.bytes, "seconds": self.seconds,
+                "rate_bps": self.rate_bps, "average_bps": self.average_bps,
+                "rate_error_percent": self.rate_error_percent, "counted": SEND_COUNTED}
+
 
 def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | None = None,
                 clock: Callable[[], float] = time.monotonic,
