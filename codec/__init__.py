@@ -33,7 +33,8 @@ _WHERE = {
     "._profile": ("ChannelSpec", "Profile", "default_profile", "load_profile", "profile_id",
                   "read_toml", "save_profile", "StreamNote", "load_stream_note"),
     "._progress": ("Progress",),
-    ".report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit"),
+    ".report": ("error_figures", "channel_table", "pooled_label", "units_of", "with_unit",
+                "DecoderCounts", "receive_report"),
     "._status": ("CONCEALED", "DELIVERED", "FIRST_FREE_STATUS", "GAP", "LOST", "STATUS_CODES",
                  "STATUS_NAMES"),
     ".stream.search": ("Located", "locate_frames"),
@@ -65,6 +66,8 @@ __all__ = [
     # frame layouts as registered units (issue 14, item 1)
     "Layout", "LengthField", "CodedFrames", "PackedFrames", "ParseContext", "ParsedFrames",
     "register_layout", "unregister_layout", "layout_for",
+    # the decoder's counts and the receive report (issue 14: typed results, one report module)
+    "DecoderCounts", "receive_report",
 ]
 
 

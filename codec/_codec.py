@@ -36,7 +36,7 @@ from .quantize.select import (
 )
 from .quantize.steps import code_for_step, step_from_code
 from .quantize.trellis import dequantize_levels
-from .report import scope_figures, stream_report
+from .report import EncodeTally, encode_report
 from .stream.search import locate_frames
 from .transform.bases import Basis, basis_fingerprint
 from .transform.framing import merge_frames, split_frames
@@ -358,17 +358,14 @@ def _encode_result(x, profile, w, q, code, trellis, recon, err, data, frame_bits
         "block_floor": block_floor,
     }
     # The report judges every row by its budget block (in window scope: by itself).
-    report = stream_report(x, x_hat, profile, frame_bits, channel, block_fid[block],
-                           block_met[block], block_floor[block],
-                           extra_bits=extra_bits, header_bits=header_bits)
-    report.update(scope_figures(profile, block, block_met, block_floor, fidelity, floor))
-    # `frames` counts coded frames (one window of one channel); layouts 2 and 3 can carry
-    # several of them under one header, so the frames actually sent are counted apart.
-    report["frames_on_wire"] = int(np.unique(row_frame).size)
-    report["layout_version"] = profile.layout_version
-    report["frames_trellis"] = 0 if trellis is None else int(trellis.sum())
-    report["gap_policy"] = gaps
-    report["samples_gap"] = 0 if missing is None else int(missing.sum())
+    report = encode_report(x, x_hat, profile, EncodeTally(
+        frame_bits=frame_bits, frame_channel=channel, frame_block=block,
+        window_fidelity=fidelity, window_floor=floor, block_fidelity=block_fid,
+        block_met=block_met, block_floor=block_floor,
+        frames_on_wire=int(np.unique(row_frame).size),
+        frames_trellis=0 if trellis is None else int(trellis.sum()), gap_policy=gaps,
+        samples_gap=0 if missing is None else int(missing.sum()),
+        extra_bits=extra_bits, header_bits=header_bits))
     if missing is not None and gaps == "mark":
         x_hat = np.where(missing, np.nan, x_hat)  # what the receiver reproduces
     return EncodeResult(data, profile, x_hat, info, report)

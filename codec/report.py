@@ -1,6 +1,13 @@
-"""Figures of merit for a coded stream: bits, fidelity, SNR, PRD, peak error.
+"""Every JSON key of the codec's reports, built here and nowhere else.
 
-Definitions (written out in the README):
+The reports of ``encode``, ``decode``, ``roundtrip`` and ``receive`` are a
+contract users' scripts rely on (keys are added, never renamed or dropped;
+``tests/test_report_keys.py`` holds the golden key list of every command).
+Callers hand in typed values (the encoder's :class:`EncodeTally`, the
+decoder's :class:`DecoderCounts`, the existing result objects) and get back
+the report as a plain dict ready for JSON.
+
+Figures of merit (definitions written out in the README):
 
 * SNR  = 10 log10( sum x^2 / sum (x - x_hat)^2 )  dB
 * PRD  = 100 sqrt( sum (x - x_hat)^2 / sum x^2 )  %
@@ -12,11 +19,23 @@ Definitions (written out in the README):
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, fields
 
 import numpy as np
 
+from ._status import STATUS_NAMES
+
 __all__ = ["error_figures", "stream_report", "scope_figures", "units_of", "with_unit",
-           "channel_table", "pooled_label", "common_unit"]
+           "channel_table", "pooled_label", "common_unit", "EncodeTally", "encode_report",
+           "per_frame_table",
+           "time_column_report", "encode_command_report", "DecoderCounts", "FrameEvent",
+           "StatusTally", "decode_report", "receive_report", "roundtrip_figures", "REFUSALS",
+           "pack_report", "pack_command_report"]
+
+#: Why the decoder refuses a CRC-valid frame: each is counted as ``frames_<why>``.
+REFUSALS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
+            "before_start")
 
 
 def _db(num: float, den: float) -> float | None:
@@ -81,7 +100,7 @@ def stream_report(
     extra_bits: int = 0,
     header_bits: int | None = None,
 ) -> dict:
-    """The JSON report of ``encode`` and ``roundtrip``.
+    """The figures of the encode and roundtrip reports, for the stream and per channel.
 
     Parameters
     ----------
@@ -103,36 +122,21 @@ def stream_report(
         Bits of the stream that carry no coefficient (sync markers, headers,
         side information, padding, CRCs); reported per input sample as
         ``header_bits_per_sample``.
+
+    Returns
+    -------
+    dict
+        The stream's figures (bits, ratio, fidelity, SNR, PRD, peak error),
+        ``channels``, ``reference``, ``basis``, ``frame_length``, the same
+        figures per channel in ``per_channel`` and the ``units`` map.
     """
-    samples, channels = x.shape
     raw = np.array([c.raw_bits_per_sample for c in profile.channels], dtype=np.float64)
     bits_total = int(frame_bits.sum()) + int(extra_bits)
     if frame_floor is None:
         frame_floor = np.zeros(frame_bits.size, dtype=bool)
-
-    def figures(xs, xh, bits, raw_bits, fid, met, floor, nframes):
-        count = xs.size
-        judged = fid[~floor]
-        out = {
-            "frames": int(nframes),
-            "samples": int(xs.shape[0]),
-            "bits_total": int(bits),
-            "bits_per_sample": bits / count if count else 0.0,
-            "bits_per_frame_mean": bits / nframes if nframes else 0.0,
-            "raw_bits_per_sample": float(raw_bits),
-            "compression_ratio": (raw_bits * count / bits) if bits else None,
-            "fidelity_target": profile.fidelity,
-            "fidelity_min": float(judged.min()) if judged.size else None,
-            "fidelity_mean": float(judged.mean()) if judged.size else None,
-            "frames_below_target": int((~met).sum()),
-            "frames_at_floor": int(floor.sum()),
-        }
-        out.update(error_figures(xs, xh))
-        return out
-
-    report = figures(x, x_hat, bits_total, raw.mean(), frame_fidelity, frame_met, frame_floor,
-                     frame_bits.size)
-    report["channels"] = channels
+    report = _figures(x, x_hat, profile, bits_total, raw.mean(), frame_fidelity, frame_met,
+                      frame_floor, frame_bits.size)
+    report["channels"] = x.shape[1]
     if header_bits is not None:
         report["header_bits_per_sample"] = (header_bits + int(extra_bits)) / x.size
     report["reference"] = profile.reference
@@ -141,25 +145,62 @@ def stream_report(
     per = {}
     for c, spec in enumerate(profile.channels):
         sel = frame_channel == c
-        per[spec.name] = figures(
-            x[:, c : c + 1], x_hat[:, c : c + 1], int(frame_bits[sel].sum()),
-            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()),
-        )
+        per[spec.name] = _figures(
+            x[:, c : c + 1], x_hat[:, c : c + 1], profile, int(frame_bits[sel].sum()),
+            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()))
     report["per_channel"] = per
     report["units"] = units_of(profile)
     return report
+
+
+def _figures(xs, xh, profile, bits, raw_bits, fid, met, floor, nframes) -> dict:
+    """Bits, fidelity and error figures of one set of frames (a channel, or every channel)."""
+    count = xs.size
+    judged = fid[~floor]
+    out = {
+        "frames": int(nframes),
+        "samples": int(xs.shape[0]),
+        "bits_total": int(bits),
+        "bits_per_sample": bits / count if count else 0.0,
+        "bits_per_frame_mean": bits / nframes if nframes else 0.0,
+        "raw_bits_per_sample": float(raw_bits),
+        "compression_ratio": (raw_bits * count / bits) if bits else None,
+        "fidelity_target": profile.fidelity,
+        "fidelity_min": float(judged.min()) if judged.size else None,
+        "fidelity_mean": float(judged.mean()) if judged.size else None,
+        "frames_below_target": int((~met).sum()),
+        "frames_at_floor": int(floor.sum()),
+    }
+    out.update(error_figures(xs, xh))
+    return out
 
 
 def scope_figures(profile, block: np.ndarray, block_met: np.ndarray, block_floor: np.ndarray,
                   window_fidelity: np.ndarray, window_floor: np.ndarray) -> dict:
     """Report keys that say which budget scope holds and how the blocks fared.
 
-    ``fidelity_scope`` is the profile's; ``budget_blocks`` counts the budgets
-    the stream was held to (one per window of each channel in window scope;
-    one per channel per frame in frame scope), ``blocks_below_target`` those
-    missed.  ``fidelity_min``/``fidelity_mean`` of the report are over budget
-    blocks; ``window_fidelity_min`` is the lowest single-window fidelity, which
-    in frame scope may lie below the target (a quiet window next to a loud one).
+    Parameters
+    ----------
+    profile : Profile
+        The bound profile (its ``fidelity_scope``).
+    block : ndarray
+        Budget block of every frame (unused; kept for callers).
+    block_met, block_floor : ndarray of bool
+        Per budget block: whether it met its budget, whether it is held to the
+        resolution floor.
+    window_fidelity, window_floor : ndarray
+        Per frame (one window of one channel): its own fidelity and floor flag.
+
+    Returns
+    -------
+    dict
+        ``fidelity_scope`` (the profile's); ``budget_blocks``, the budgets the
+        stream was held to (one per window of each channel in window scope,
+        one per channel per frame in frame scope); ``blocks_below_target``,
+        those missed; ``blocks_at_floor``; ``window_fidelity_min``, the lowest
+        single-window fidelity, which in frame scope may lie below the target
+        (a quiet window next to a loud one).  The report's ``fidelity_min`` and
+        ``fidelity_mean`` are over budget blocks.
     """
     judged = window_fidelity[~window_floor]
     return {
@@ -310,3 +351,514 @@ def _num(value, spec: str) -> str:
     if isinstance(value, float) and math.isinf(value):
         return "-inf" if value < 0 else "inf"
     return format(value, spec)
+
+
+# ---- encode ------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class EncodeTally:
+    """What the encoder knows of its frames and budget blocks: the input of :func:`encode_report`.
+
+    Per coded frame (one window of one channel, in the encoder's row order):
+    ``frame_bits``, ``frame_channel``, ``frame_block`` (the budget block it is
+    held to), ``window_fidelity`` and ``window_floor`` (its own fidelity, and
+    whether it is held to the resolution floor).  Per budget block:
+    ``block_fidelity``, ``block_met``, ``block_floor``.  Per stream:
+    ``extra_bits`` (bits of no frame, e.g. gap-mask frames), ``header_bits``
+    (bits that carry no coefficient), ``frames_on_wire`` (frames actually sent;
+    a frame may carry several coded frames), ``frames_trellis`` (rows coded
+    with dependent quantization), ``gap_policy`` and ``samples_gap``.
+    """
+
+    frame_bits: np.ndarray
+    frame_channel: np.ndarray
+    frame_block: np.ndarray
+    window_fidelity: np.ndarray
+    window_floor: np.ndarray
+    block_fidelity: np.ndarray
+    block_met: np.ndarray
+    block_floor: np.ndarray
+    frames_on_wire: int
+    frames_trellis: int
+    gap_policy: str
+    samples_gap: int
+    extra_bits: int = 0
+    header_bits: int | None = None
+
+
+def encode_report(x: np.ndarray, x_hat: np.ndarray, profile, tally: EncodeTally) -> dict:
+    """The JSON report of :func:`codec.encode` (``EncodeResult.report``).
+
+    Parameters
+    ----------
+    x, x_hat : ndarray
+        Input and reconstruction, samples x channels.
+    profile : Profile
+        The bound profile.
+    tally : EncodeTally
+        The encoder's account of its frames and budget blocks.
+
+    Returns
+    -------
+    dict
+        :func:`stream_report` over the frames, each judged by its budget
+        block, plus :func:`scope_figures` and ``frames_on_wire``,
+        ``layout_version``, ``frames_trellis``, ``gap_policy``, ``samples_gap``.
+    """
+    t, block = tally, tally.frame_block
+    report = stream_report(x, x_hat, profile, t.frame_bits, t.frame_channel,
+                           t.block_fidelity[block], t.block_met[block], t.block_floor[block],
+                           extra_bits=t.extra_bits, header_bits=t.header_bits)
+    report.update(scope_figures(profile, block, t.block_met, t.block_floor, t.window_fidelity,
+                                t.window_floor))
+    # `frames` counts coded frames (one window of one channel); layouts 2 and 3 can carry
+    # several of them under one header, so the frames actually sent are counted apart.
+    report["frames_on_wire"] = int(t.frames_on_wire)
+    report["layout_version"] = profile.layout_version
+    report["frames_trellis"] = int(t.frames_trellis)
+    report["gap_policy"] = t.gap_policy
+    report["samples_gap"] = int(t.samples_gap)
+    return report
+
+
+def per_frame_table(frames: Mapping, fidelity: np.ndarray | None = None,
+                    block_fidelity: np.ndarray | None = None) -> dict:
+    """The per-frame part of a JSON report, one list per column (compact for long streams).
+
+    Parameters
+    ----------
+    frames : mapping of ndarray
+        ``EncodeResult.frames``.
+    fidelity, block_fidelity : ndarray, optional
+        Per frame and per budget block fidelity to report instead of the
+        encoder's own (the round trip's, recomputed on the decoded samples).
+
+    Returns
+    -------
+    dict
+        ``window``, ``channel``, ``bits``, ``terms``, ``step``, ``fidelity``,
+        ``at_floor``, ``met``, ``budget_block`` (the budget each frame is held
+        to; in frame scope shared by the windows of one channel in one frame)
+        and ``block_fidelity`` (that block's fidelity, the figure the target
+        applies to).
+    """
+    from .quantize.steps import step_from_code
+
+    block = frames["block"]
+    bfid = frames["block_fidelity"] if block_fidelity is None else block_fidelity
+    return {
+        "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
+        "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
+        "fidelity": frames["fidelity"] if fidelity is None else fidelity,
+        "at_floor": frames["floor"], "met": frames["met"],
+        "budget_block": block, "block_fidelity": bfid[block],
+    }
+
+
+def time_column_report(name: str | None, fields: Mapping) -> dict:
+    """The ``time_column`` object of the encode report: which time column was kept, and how.
+
+    Parameters
+    ----------
+    name : str or None
+        The input's time column name.
+    fields : mapping
+        The stream note's time fields (``codec._timecol.time_fields``; empty
+        when the input has no time column).
+
+    Returns
+    -------
+    dict
+        ``name`` (None without a time column), ``kept`` (``ticks``,
+        ``float64``, ``regular`` or None) and ``resolution`` (the time
+        column's decimal step, or None).
+    """
+    kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
+                                   ("regular", "time_start_ticks")) if key in fields), None)
+    return {"name": name if fields else None, "kept": kept,
+            "resolution": 10.0 ** -fields["time_decimals"] if "time_decimals" in fields
+            else None}
+
+
+def encode_command_report(result, time_column: dict) -> dict:
+    """The JSON the ``encode`` command writes: the encoder's report, time column, frames.
+
+    Parameters
+    ----------
+    result : EncodeResult
+        What :func:`codec.encode` returned.
+    time_column : dict
+        :func:`time_column_report` of the input.
+
+    Returns
+    -------
+    dict
+        ``result.report`` with ``time_column`` and ``per_frame`` added.
+    """
+    return {**result.report, "time_column": time_column,
+            "per_frame": per_frame_table(result.frames)}
+
+
+# ---- decode ------------------------------------------------------------------------------------
+
+@dataclass(frozen=True, eq=False)
+class DecoderCounts(Mapping):
+    """Frame and sample counts of a decoder (``StreamDecoder.counts()``, ``DecodeResult.counts``).
+
+    Every field is a JSON key of the decode and receive reports, and the
+    object reads as a mapping of them too (``counts["frames_ok"]``), so a
+    report is built from it directly.  ``frames_<why>`` counts CRC-valid
+    frames refused for each reason of :data:`REFUSALS` (zero when none was);
+    ``samples_<status>`` counts released samples by status
+    (``samples_delivered + samples_lost + samples_gap + samples_concealed =
+    samples x channels``).
+
+    Attributes
+    ----------
+    frames_ok, gap_frames_ok : int
+        Data frames and gap-mask frames accepted.
+    frames_foreign_profile, frames_bad_header, frames_duplicate, frames_conflict
+        CRC-valid frames refused, by reason (:data:`REFUSALS`).
+    frames_late, frames_beyond_end, frames_before_start
+        Likewise.
+    frames_crc_failed, bytes_in, bytes_skipped : int
+        Frame candidates failing their CRC, bytes read, bytes in no accepted frame.
+    samples, samples_lost, samples_delivered, samples_gap, samples_concealed : int
+        Samples released (per channel), and sample counts by status over all channels.
+    end_known : bool
+        Whether the stream's end is certain.
+    discontinuities, windows_cut, events_listed : int
+        Sequence jumps, windows cut by ``--max-fill``, events kept in the list.
+
+    Examples
+    --------
+    A clean stream: every frame accepted, every sample delivered, nothing refused.
+
+    >>> import numpy as np, codec
+    >>> x = np.cumsum(np.random.default_rng(1).standard_normal((256, 2)), axis=0)
+    >>> enc = codec.encode(x, codec.default_profile())
+    >>> c = codec.decode(enc.data, enc.profile, samples=256).counts
+    >>> c["samples_delivered"] == 256 * 2, c.frames_refused, c.samples_lost
+    (True, 0, 0)
+    """
+
+    frames_ok: int = 0
+    gap_frames_ok: int = 0
+    frames_foreign_profile: int = 0
+    frames_bad_header: int = 0
+    frames_duplicate: int = 0
+    frames_conflict: int = 0
+    frames_late: int = 0
+    frames_beyond_end: int = 0
+    frames_before_start: int = 0
+    frames_crc_failed: int = 0
+    bytes_in: int = 0
+    bytes_skipped: int = 0
+    samples: int = 0
+    samples_lost: int = 0
+    samples_delivered: int = 0
+    samples_gap: int = 0
+    samples_concealed: int = 0
+    end_known: bool = False
+    discontinuities: int = 0
+    windows_cut: int = 0
+    events_listed: int = 0
+
+    @property
+    def frames_refused(self) -> int:
+        """CRC-valid frames refused for any reason of :data:`REFUSALS`."""
+        return sum(getattr(self, f"frames_{why}") for why in REFUSALS)
+
+    def __getitem__(self, key: str):
+        if key not in _COUNT_KEYS:
+            raise KeyError(key)
+        return getattr(self, key)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(_COUNT_KEYS)
+
+    def __len__(self) -> int:
+        return len(_COUNT_KEYS)
+
+
+_COUNT_KEYS = tuple(f.name for f in fields(DecoderCounts))
+
+
+@dataclass(frozen=True, eq=False)
+class FrameEvent(Mapping):
+    """What happened to a frame that did not make it into the output: one entry of ``events``.
+
+    ``event`` is a reason of :data:`REFUSALS` or ``discontinuity``; ``offset``
+    the frame's byte offset in the stream (unstuffed); ``window`` and
+    ``channel`` where a misplaced frame would have gone; ``detail`` why its
+    header was refused, in words; ``windows_cut`` the lost windows a
+    discontinuity left out.  Reads as a mapping of the fields that apply (the
+    JSON object), so each event lists only its own keys.
+    """
+
+    event: str
+    offset: int
+    window: int | None = None
+    channel: int | None = None
+    detail: str | None = None
+    windows_cut: int | None = None
+
+    def _present(self) -> list[str]:
+        return [k for k in _EVENT_FIELDS if getattr(self, k) not in (None, "")]
+
+    def __getitem__(self, key: str):
+        if key not in self._present():
+            raise KeyError(key)
+        return getattr(self, key)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._present())
+
+    def __len__(self) -> int:
+        return len(self._present())
+
+
+_EVENT_FIELDS = tuple(f.name for f in fields(FrameEvent))
+
+
+class StatusTally:
+    """Samples of each status per channel, summed over the decoder's released blocks."""
+
+    def __init__(self, channels: int):
+        self.counts = np.zeros((len(STATUS_NAMES), channels), dtype=np.int64)  # status x channel
+
+    def add(self, blocks) -> None:
+        """Count the status codes of released blocks (anything with a ``status`` array)."""
+        for b in blocks:
+            for code in STATUS_NAMES:
+                self.counts[code] += (b.status == code).sum(axis=0)
+
+    def per_channel(self, names: list[str]) -> dict:
+        """``{channel: {samples_<status>: count}}``, the report's ``per_channel`` object."""
+        return {n: {f"samples_{STATUS_NAMES[k]}": int(self.counts[k, c]) for k in STATUS_NAMES}
+                for c, n in enumerate(names)}
+
+
+def decode_report(counts: DecoderCounts, profile, tally: StatusTally, events: list,
+                  stuffing: str | None = None, packets_bad: int = 0,
+                  packets_overlong: int = 0) -> dict:
+    """The JSON report of the ``decode`` command.
+
+    Parameters
+    ----------
+    counts : DecoderCounts
+        The decoder's counts after it was closed.
+    profile : Profile
+        The bound profile the stream was decoded with.
+    tally : StatusTally
+        Samples of each status per channel.
+    events : list of FrameEvent
+        The decoder's event list (capped).
+    stuffing : str, optional
+        The SLIP or COBS stuffing undone before decoding, with
+        ``packets_bad`` and ``packets_overlong`` from the unstuffer.
+
+    Returns
+    -------
+    dict
+        Every field of ``counts`` plus ``channels``, ``bits_total``, the
+        stuffing keys (only for a stuffed stream), ``status_codes``,
+        ``per_channel``, ``units``, ``events`` and ``samples_check``.
+    """
+    names = [c.name for c in profile.channels]
+    report = dict(counts)
+    report["channels"] = len(names)
+    report["bits_total"] = 8 * counts.bytes_in
+    if stuffing is not None:
+        report["stuffing"] = stuffing
+        report["packets_bad"] = int(packets_bad)
+        report["packets_overlong"] = int(packets_overlong)
+    report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
+    report["per_channel"] = tally.per_channel(names)
+    report["units"] = units_of(profile)
+    report["events"] = [dict(e) for e in events]
+    report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
+                               "samples_concealed = samples x channels")
+    return report
+
+
+def receive_report(counts: DecoderCounts, channels: int, events: list, datagrams: int,
+                   seconds: float, stopped: str | None, per_channel: dict | None = None,
+                   units: dict | None = None) -> dict:
+    """The JSON report of the ``receive`` command (frames arriving as UDP datagrams).
+
+    Parameters
+    ----------
+    counts : DecoderCounts
+        The decoder's counts after it was closed.
+    channels : int
+        Channels of the stream.
+    events : list of FrameEvent
+        The decoder's event list (capped).
+    datagrams, seconds, stopped
+        Datagrams read, seconds listened, and why the receiver stopped
+        (``complete``, ``duration``, ``idle``, a signal's name,
+        ``interrupted`` or ``error``).
+    per_channel : dict, optional
+        ``{channel name: {samples_<status>, delivered_min, delivered_max}}``.
+    units : dict, optional
+        ``{channel name: unit or None}``, the units of ``delivered_min/max``.
+
+    Returns
+    -------
+    dict
+        Every field of ``counts`` plus ``datagrams``, ``seconds``, ``stopped``,
+        ``channels`` and ``events``, and ``per_channel`` and ``units`` when given.
+
+    Examples
+    --------
+    >>> r = receive_report(DecoderCounts(frames_ok=3, samples=64), 1, [], 3, 0.5, "complete",
+    ...                    units={"t": "K"})
+    >>> r["frames_ok"], r["datagrams"], r["stopped"], r["units"], "per_channel" in r
+    (3, 3, 'complete', {'t': 'K'}, False)
+    """
+    out = {**counts, "datagrams": int(datagrams), "seconds": float(seconds),
+           "stopped": stopped, "channels": int(channels), "events": [dict(e) for e in events]}
+    if per_channel is not None:
+        out["per_channel"] = per_channel
+    if units is not None:
+        out["units"] = units
+    return out
+
+
+# ---- roundtrip ---------------------------------------------------------------------------------
+
+def roundtrip_figures(values: np.ndarray, enc, dec) -> tuple[dict, bool]:
+    """The ``roundtrip`` report: every budget block checked again on the decoded samples.
+
+    Independent of the encoder's own check: the error energy of every frame
+    is recomputed from ``values - dec.samples`` over its real samples and
+    judged against its budget block (window scope: per window; frame scope:
+    the windows of one channel in one frame together).
+
+    Parameters
+    ----------
+    values : ndarray
+        The input, samples x channels.
+    enc : EncodeResult
+        The encoder's result for ``values``.
+    dec : DecodeResult
+        The decoder's result for ``enc.data`` (every sample delivered).
+
+    Returns
+    -------
+    report : dict
+        The encoder's report with the fidelity figures, the error figures and
+        ``per_frame`` replaced by the recomputed ones, plus ``decoded_check``.
+    ok : bool
+        Whether every budget block meets its target on the decoded samples.
+    """
+    from .quantize.select import check_blocks
+    from .transform.framing import split_frames
+
+    n, info = enc.profile.frame_length, enc.frames
+    e, valid, _, _ = split_frames(values - dec.samples, n)
+    e = np.where(np.arange(n) < valid[:, None], e, 0.0)
+    err_rows = np.einsum("ij,ij->i", e, e)  # window-major rows: window * channels + channel
+    err = err_rows[info["window"] * values.shape[1] + info["channel"]]
+    e_ref = info["reference_energy"]
+    fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
+    blk = check_blocks(err, info["block"], info["block_budget"], info["block_reference_energy"])
+    met = blk.met[info["block"]]
+    # every frame carries its budget block's fidelity, as in the encoder's report: the
+    # mean is over frames, the minimum over blocks alike
+    row_fid = blk.fidelity[info["block"]]
+    row_floor = info["block_floor"][info["block"]]
+    report = dict(enc.report)
+    report.update(_fidelity_figures(row_fid, row_floor, met))
+    report["blocks_below_target"] = int((~blk.met).sum())
+    report["decoded_check"] = (f"error energy per budget block ({enc.profile.fidelity_scope} "
+                               "scope) recomputed from the decoded samples")
+    report.update(error_figures(values, dec.samples))
+    per = {}
+    for c, (name, figs) in enumerate(report["per_channel"].items()):
+        mine = info["channel"] == c
+        per[name] = {**figs, **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1]),
+                     **_fidelity_figures(row_fid[mine], row_floor[mine], met[mine])}
+    report["per_channel"] = per
+    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)
+    return report, bool(met.all())
+
+
+def _fidelity_figures(fid: np.ndarray, floor: np.ndarray, met: np.ndarray) -> dict:
+    """Lowest and mean fidelity of the frames not held to the floor, and frames that missed."""
+    judged = fid[~floor]
+    return {"fidelity_min": float(judged.min()) if judged.size else None,
+            "fidelity_mean": float(judged.mean()) if judged.size else None,
+            "frames_below_target": int((~met).sum())}
+
+
+# ---- pack --------------------------------------------------------------------------------------
+
+def pack_report(data: bytes, pack: bytes, samples: int, dictionary: bytes | None) -> dict:
+    """Bits of a pack against per-frame coding of the same stream, per input sample.
+
+    Parameters
+    ----------
+    data : bytes
+        The stream as frames.
+    pack : bytes
+        Its pack (``codec.stream.packs.make_pack``).
+    samples : int
+        Input samples the stream carries (samples x channels).
+    dictionary : bytes or None
+        The zstd dictionary both ends hold (its size is reported, not counted).
+
+    Returns
+    -------
+    dict
+        ``per_frame_bits``, ``pack_bits``, ``bits_saved``, ``saved_percent``,
+        the two per sample, ``dictionary_bytes``, ``verdict`` (in words, also
+        when the pack costs more) and ``frames``.
+    """
+    from .stream.search import locate_frames
+
+    per_frame = 8 * len(data)
+    packed = 8 * len(pack)
+    saved = per_frame - packed
+    return {
+        "per_frame_bits": per_frame,
+        "pack_bits": packed,
+        "bits_saved": saved,
+        "saved_percent": 100.0 * saved / per_frame if per_frame else 0.0,
+        "per_frame_bits_per_sample": per_frame / samples,
+        "pack_bits_per_sample": packed / samples,
+        "dictionary_bytes": len(dictionary) if dictionary else 0,
+        "verdict": ("the pack saves bits" if saved > 0 else
+                    "the pack saves nothing: send the frames as they are"),
+        "frames": int(np.size(locate_frames(data).offsets)),
+    }
+
+
+def pack_command_report(base: dict, samples: int, channels: int,
+                        dictionary_sha256: str | None, zstd_dictionary_id: int,
+                        written: bool) -> dict:
+    """The JSON the ``pack`` command writes: :func:`pack_report` and where the pack stands.
+
+    Parameters
+    ----------
+    base : dict
+        :func:`pack_report` of the stream and its pack.
+    samples, channels : int
+        Samples per channel (the stream note's) and channels.
+    dictionary_sha256 : str or None
+        SHA-256 (hex) of the dictionary file, None without one.
+    zstd_dictionary_id : int
+        The dictionary id the pack's zstd frame names (0: none).
+    written : bool
+        Whether the pack was written (``--only-if-smaller`` may skip it).
+
+    Returns
+    -------
+    dict
+        ``base`` plus ``samples``, ``channels``, ``dictionary_sha256``,
+        ``zstd_dictionary_id`` and ``pack_written``.
+    """
+    return {**base, "samples": int(samples), "channels": int(channels),
+            "dictionary_sha256": dictionary_sha256,
+            "zstd_dictionary_id": int(zstd_dictionary_id), "pack_written": bool(written)}

@@ -22,6 +22,7 @@ from codec import (
     StreamDecoder,
     is_stdio,
     load_stream_note,
+    receive_report,
     units_of,
     with_unit,
     write_csv_block,
@@ -30,6 +31,7 @@ from codec.cli.common import check_paths, write_json
 
 from ._udp import (
     SEND_COUNTED,
+    UdpReception,
     parse_endpoint,
     receive_frames,
     send_frames,
@@ -91,10 +93,7 @@ def _send(args) -> int:
         raise InputError("no frame with a valid sync marker and CRC; is this a coefwire stream?",
                          args.stream)
     stats = send_frames(frames, host, port, args.rate_bps)
-    report = {"frames": stats.frames, "bits": 8 * stats.bytes, "seconds": stats.seconds,
-              "rate_bps": stats.rate_bps, "average_bps": stats.average_bps,
-              "rate_error_percent": stats.rate_error_percent, "counted": SEND_COUNTED}
-    write_json(args.json, report)
+    write_json(args.json, stats.report())
     line = (f"{stats.frames} frames ({8 * stats.bytes} bits) sent to {host}:{port} in "
             f"{stats.seconds:.3f} s: average {stats.average_bps:.0f} bit/s")
     if stats.rate_bps:
@@ -151,27 +150,27 @@ def _receive(args) -> int:
             sink.flush()
             tally.add(block.samples, block.status)
 
-        def on_finish(counts: dict) -> None:
-            counts["channels"] = len(names)
-            counts["events"] = decoder.events
-            counts["per_channel"] = tally.per_channel(names)
-            counts["units"] = units_of(profile)  # the range figures are in these units
+        def on_finish(got: UdpReception) -> None:
             if sink is not None:
                 sink.flush()
-            write_json(args.json, counts)
+            # the per-channel ranges are in the channels' units (the JSON ``units`` map)
+            write_json(args.json, receive_report(got.counts, len(names), decoder.events,
+                                                 got.datagrams, got.seconds, got.stopped,
+                                                 tally.per_channel(names), units_of(profile)))
 
-        counts = receive_frames(decoder, host, port, on_block, args.duration, args.idle,
+        got = receive_frames(decoder, host, port, on_block, args.duration, args.idle,
                                 ready=ready, stop=lambda: signals[0] if signals else None,
                                 on_finish=on_finish)
-    print(f"{counts['datagrams']} datagrams, {counts['frames_ok'] + counts['gap_frames_ok']} "
+    counts = got.counts
+    print(f"{got.datagrams} datagrams, {counts.frames_ok + counts.gap_frames_ok} "
           f"frames decoded in "
-          f"{counts['seconds']:.2f} s -> {counts['samples']} samples x {len(names)} channels; "
+          f"{got.seconds:.2f} s -> {counts.samples} samples x {len(names)} channels; "
           f"counted over all {len(names)} channels: "
-          f"{counts['samples_delivered']} delivered, {counts['samples_lost']} lost, "
-          f"{counts['samples_gap']} gap" + ("" if counts["end_known"] else
-                                            "; the stream's end is not known")
-          + f"; stopped: {counts['stopped']}", file=info)
-    print("\n".join(channel_count_lines(counts["per_channel"], counts["units"])), file=info)
+          f"{counts.samples_delivered} delivered, {counts.samples_lost} lost, "
+          f"{counts.samples_gap} gap" + ("" if counts.end_known else
+                                         "; the stream's end is not known")
+          + f"; stopped: {got.stopped}", file=info)
+    print("\n".join(channel_count_lines(tally.per_channel(names), units_of(profile))), file=info)
     return 0
 
 

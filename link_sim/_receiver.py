@@ -26,6 +26,7 @@ Concealment policies (per channel, on the sample grid):
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -39,7 +40,7 @@ __all__ = ["CONCEAL_POLICIES", "LOST", "DELIVERED", "CONCEALED", "Reception", "r
 CONCEAL_POLICIES = ("hold", "linear", "zero", "none")
 
 
-@dataclass
+@dataclass(frozen=True)
 class Reception:
     """Output samples, their status and an account of every frame received.
 
@@ -74,15 +75,40 @@ class Reception:
     crc_failures: int
 
 
-def _decode_tolerant(rx: bytes, profile, total: int):
+@dataclass(frozen=True)
+class _Decoded:
+    """What the codec delivered from a received stream, one row per window and channel.
+
+    ``offsets``/``lengths`` are each row's frame on the wire (a frame may
+    carry several rows); ``refused`` counts CRC-valid frames the decoder
+    refused (damaged header, foreign, misplaced).
+    """
+
+    samples: np.ndarray
+    delivered: np.ndarray
+    offsets: np.ndarray
+    lengths: np.ndarray
+    windows: np.ndarray
+    channels: np.ndarray
+    crc_failures: int
+    refused: int
+
+    @classmethod
+    def nothing(cls, total: int, channels: int) -> _Decoded:
+        """No frame of ours survived: every sample lost."""
+        empty = np.zeros(0, np.int64)
+        return cls(np.full((total, channels), np.nan), np.zeros((total, channels), bool),
+                   empty, empty, empty, empty, 0, 0)
+
+
+def _decode_tolerant(rx: bytes, profile, total: int) -> _Decoded:
     """codec.decode, falling back to one frame at a time when a frame's header is refused."""
     try:
         d = codec.decode(rx, profile, samples=total)
         # The decoder refuses damaged, foreign or misplaced frames as events, not errors.
-        refused = sum(v for k, v in d.counts.items() if k.startswith("frames_")
-                      and k not in ("frames_ok", "frames_crc_failed"))
-        return d.samples, d.delivered, d.frames["offset"], d.frames["length"], \
-            d.frames["window"], d.frames["channel"], len(d.crc_failures), refused
+        return _Decoded(d.samples, d.delivered, d.frames["offset"], d.frames["length"],
+                        d.frames["window"], d.frames["channel"], len(d.crc_failures),
+                        d.counts.frames_refused)
     except codec.FrameError:
         pass
     loc = locate_frames(rx, codec.frame_key(profile))
@@ -103,12 +129,14 @@ def _decode_tolerant(rx: bytes, profile, total: int):
         chans.append(d.frames["channel"])
     if not keep:
         empty = np.zeros(0, np.int64)
-        return out, got, empty, empty, empty, empty, len(loc.crc_failures), loc.offsets.size
+        return _Decoded(out, got, empty, empty, empty, empty, len(loc.crc_failures),
+                        int(loc.offsets.size))
     offs = np.concatenate(keep).astype(np.int64)
     rejected = loc.offsets.size - np.unique(offs).size
-    return (out, got, offs, np.concatenate(lens).astype(np.int64),
-            np.concatenate(windows).astype(np.int64), np.concatenate(chans).astype(np.int64),
-            len(loc.crc_failures), rejected)
+    return _Decoded(out, got, offs, np.concatenate(lens).astype(np.int64),
+                    np.concatenate(windows).astype(np.int64),
+                    np.concatenate(chans).astype(np.int64), len(loc.crc_failures),
+                    int(rejected))
 
 
 def conceal(samples: np.ndarray, delivered: np.ndarray, policy: str):
@@ -212,18 +240,13 @@ def receive(rx: bytes, tx: bytes, arrived: np.ndarray, frame_lengths: np.ndarray
     kept_len = frame_lengths[arrived]
     kept_start = np.cumsum(kept_len) - kept_len
     channels = len(profile.channels)
-    if rxa.size == 0:
-        samples, got = np.full((total, channels), np.nan), np.zeros((total, channels), bool)
-        offs = lens = windows = chans = np.zeros(0, np.int64)
-        crc_fail = rejected = 0
-    else:
-        try:
-            samples, got, offs, lens, windows, chans, crc_fail, rejected = _decode_tolerant(
-                rxa.tobytes(), profile, total)
-        except codec.FrameError:  # no frame of ours at all survived
-            samples, got = np.full((total, channels), np.nan), np.zeros((total, channels), bool)
-            offs = lens = windows = chans = np.zeros(0, np.int64)
-            crc_fail = rejected = 0
+    d = _Decoded.nothing(total, channels)
+    if rxa.size:
+        with contextlib.suppress(codec.FrameError):  # no frame of ours at all survived
+            d = _decode_tolerant(rxa.tobytes(), profile, total)
+    samples, got, offs, lens, windows, chans = (d.samples, d.delivered, d.offsets, d.lengths,
+                                                d.windows, d.channels)
+    crc_fail, rejected = d.crc_failures, d.refused
     # The decoder lists one row per window and channel; a frame on the wire may carry
     # several, so frames are counted by their offsets.
     row_offs = offs

@@ -19,7 +19,7 @@ import codec
 from codec import InputError, locate_frames
 
 __all__ = ["parse_endpoint", "split_frames_of", "send_frames", "receive_frames", "SendStats",
-           "SEND_COUNTED"]
+           "SEND_COUNTED", "UdpReception"]
 
 _MAX_DATAGRAM = 65535
 
@@ -49,7 +49,7 @@ SEND_COUNTED = ("bits counted: the coefwire frames as sent, sync marker to CRC (
                 "at the link rate (the last frame's own time on the link included)")
 
 
-@dataclass
+@dataclass(frozen=True)
 class SendStats:
     """What :func:`send_frames` sent: frames, bytes and the seconds the stream took.
 
@@ -72,6 +72,12 @@ class SendStats:
         if not self.rate_bps:
             return None
         return 100.0 * (self.average_bps - self.rate_bps) / self.rate_bps
+
+    def report(self) -> dict:
+        """The JSON report of ``coefwire send``: what was sent, how fast, and what is counted."""
+        return {"frames": self.frames, "bits": 8 * self.bytes, "seconds": self.seconds,
+                "rate_bps": self.rate_bps, "average_bps": self.average_bps,
+                "rate_error_percent": self.rate_error_percent, "counted": SEND_COUNTED}
 
 
 def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | None = None,
@@ -109,6 +115,22 @@ def send_frames(frames: list[bytes], host: str, port: int, rate_bps: float | Non
     return SendStats(len(frames), sent_bits // 8, clock() - t0, rate_bps)
 
 
+@dataclass(frozen=True)
+class UdpReception:
+    """What :func:`receive_frames` received: the decoder's counts and how listening went.
+
+    ``counts`` is the decoder's :class:`codec.DecoderCounts` once closed;
+    ``datagrams`` the datagrams read, ``seconds`` the time listened, and
+    ``stopped`` why it stopped (``complete``, ``duration``, ``idle``, a stop
+    reason such as a signal's name, ``interrupted`` or ``error``).
+    """
+
+    counts: codec.DecoderCounts
+    datagrams: int
+    seconds: float
+    stopped: str | None
+
+
 #: Datagrams read, at most, from those already waiting when the receiver stops.
 _DRAIN_MAX = 65536
 #: Receive buffer asked of the kernel, so a burst waits in the socket while a
@@ -120,7 +142,7 @@ def receive_frames(decoder: codec.StreamDecoder, host: str, port: int, on_block,
                    duration_s: float | None = None, idle_s: float | None = None,
                    ready: Callable[[int], None] | None = None,
                    stop: Callable[[], str | None] | None = None,
-                   on_finish: Callable[[dict], None] | None = None) -> dict:
+                   on_finish: Callable[[UdpReception], None] | None = None) -> UdpReception:
     """Decode datagrams arriving at ``host:port`` until the stream is complete or time is up.
 
     ``on_block`` receives every released :class:`codec.StreamDecoder` block.  Stops
@@ -131,11 +153,12 @@ def receive_frames(decoder: codec.StreamDecoder, host: str, port: int, on_block,
     ``stop()`` returns a reason (e.g. the name of a signal received).
     Datagrams already waiting when it stops are still read, then the decoder
     is closed and every remaining block released, also when ``on_block`` or
-    the decoder raise: ``on_finish(counts)`` then runs before the error
+    the decoder raise: ``on_finish(reception)`` then runs before the error
     propagates (a caller writes its report there).  ``ready(port)`` is called
-    once the socket is bound (port 0 picks a free port).  Returns the
-    decoder's counts plus ``datagrams``, ``seconds`` and ``stopped`` (why:
-    complete, duration, idle, a stop reason, interrupted or error).
+    once the socket is bound (port 0 picks a free port).  Returns a
+    :class:`UdpReception`: the decoder's counts plus ``datagrams``,
+    ``seconds`` and ``stopped`` (why: complete, duration, idle, a stop
+    reason, interrupted or error).
     """
     if duration_s is not None and duration_s <= 0:
         raise InputError("the duration must be positive seconds", "--duration")
@@ -206,12 +229,9 @@ def receive_frames(decoder: codec.StreamDecoder, host: str, port: int, on_block,
     except Exception:
         if error is None:
             raise
-    counts = decoder.counts()
-    counts["datagrams"] = datagrams
-    counts["seconds"] = time.monotonic() - start
-    counts["stopped"] = reason
+    reception = UdpReception(decoder.counts(), datagrams, time.monotonic() - start, reason)
     if on_finish is not None:
-        on_finish(counts)
+        on_finish(reception)
     if error is not None:
         raise error
-    return counts
+    return reception

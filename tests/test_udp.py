@@ -39,7 +39,7 @@ def test_loopback_moves_a_stream_without_loss():
         bound.set()
 
     result: dict = {}
-    rx = threading.Thread(target=lambda: result.update(receive_frames(
+    rx = threading.Thread(target=lambda: result.update(got=receive_frames(
         dec, "127.0.0.1", 0, blocks.append, duration_s=60.0, idle_s=30.0, ready=ready)))
     rx.start()
     assert bound.wait(120.0)  # readiness: the socket is bound (generous under load)
@@ -48,9 +48,10 @@ def test_loopback_moves_a_stream_without_loss():
     assert not rx.is_alive()
     vals = np.concatenate([b.samples for b in blocks])
     assert np.array_equal(vals, ref.samples)
-    assert result["samples_lost"] == 0 and result["datagrams"] == stats.frames
+    got = result["got"]
+    assert got.counts.samples_lost == 0 and got.datagrams == stats.frames
     # it stopped at the stream's known end, not at the duration or idle limits
-    assert dec.complete() and result["seconds"] < 30.0
+    assert dec.complete() and got.seconds < 30.0
 
 
 def test_sender_paces_frames_at_the_link_rate():
@@ -161,7 +162,7 @@ def test_a_burst_waiting_in_the_socket_is_read_entirely():
         port.append(p)
         bound.set()
 
-    rx = threading.Thread(target=lambda: result.update(receive_frames(
+    rx = threading.Thread(target=lambda: result.update(got=receive_frames(
         dec, "127.0.0.1", 0, lambda b: None, duration_s=30.0, idle_s=0.2, ready=ready)))
     rx.start()
     assert bound.wait(10.0)
@@ -169,8 +170,9 @@ def test_a_burst_waiting_in_the_socket_is_read_entirely():
     sent.set()
     rx.join(40.0)
     assert not rx.is_alive()
-    assert result["datagrams"] == 36 and result["frames_ok"] == 36
-    assert result["stopped"] == "idle"
+    got = result["got"]
+    assert got.datagrams == 36 and got.counts.frames_ok == 36
+    assert got.stopped == "idle"
 
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])

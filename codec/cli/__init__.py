@@ -29,8 +29,9 @@ from .._errors import CoefwireError
 __all__ = ["main", "build_parser"]
 
 # Exit statuses: 0 done; 1 a target missed (returned by the command itself); 2 a
-# user's error (a CoefwireError, printed as one sentence).
-EXIT_OK, EXIT_ERROR = 0, 2
+# user's error (a CoefwireError, printed as one sentence); 141 standard output closed
+# by its reader (128 + SIGPIPE, what a shell reports for a command killed by it).
+EXIT_OK, EXIT_ERROR, EXIT_BROKEN_PIPE = 0, 2, 141
 
 
 def _version() -> str:
@@ -132,7 +133,9 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser(_command_of(argv))
     args = parser.parse_args(argv)
     try:
-        return int(args.handler(args) or EXIT_OK)
+        status = int(args.handler(args) or EXIT_OK)
+        sys.stdout.flush()  # a reader gone before the last bytes: caught below, not at exit
+        return status
     except CoefwireError as exc:
         print(f"coefwire {args.command}: {exc}", file=sys.stderr)
         return EXIT_ERROR
@@ -140,10 +143,13 @@ def main(argv: list[str] | None = None) -> int:
         print(f"coefwire {args.command}: interrupted", file=sys.stderr)
         return 130
     except BrokenPipeError:
-        # The reader went away (e.g. '| head'): stop quietly, as Unix tools do.
+        # The reader went away (e.g. '| head'): stop quietly with the status a shell
+        # gives a command killed by SIGPIPE (128 + 13), as Unix tools do.  The one place
+        # a closed pipe is handled, for every command.  Standard output is pointed at
+        # the null device so the interpreter's last flush at exit cannot fail again.
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
-        return 141
+        return EXIT_BROKEN_PIPE
 
 
 if __name__ == "__main__":

@@ -34,21 +34,24 @@ from .._profile import (
     save_stream_note,
 )
 from .._progress import busy
-from .._status import STATUS_NAMES
 from .._timecol import describe_time, time_fields, time_values
-from ..layouts.envelope import GAP_KIND
 from ..layouts.gapmask import GAP_POLICIES
-from ..quantize.select import check_blocks, check_magnitude
-from ..quantize.steps import step_from_code
-from ..report import channel_table, error_figures, pooled_label, units_of, with_unit
+from ..quantize.select import check_magnitude
+from ..report import (
+    channel_table,
+    encode_command_report,
+    pooled_label,
+    roundtrip_figures,
+    time_column_report,
+    with_unit,
+)
+from ..stream.chunks import ChunkDecoder
 from ..stream.decode import check_some_frame, decode
-from ..stream.frames import decode_frames
+from ..stream.listing import list_frames
 from ..stream.live import MAX_FILL_WINDOWS, StreamDecoder, StreamEncoder
 from ..stream.search import locate_frames
 from ..stream.stuffing import SNIFF_BYTES, STUFFINGS, Unstuffer, detect_stuffing, stuff
 from ..transform.bases import basis_names
-from ..transform.framing import split_frames
-from ..transform.klt import profile_basis
 from .common import (
     add_profile_options,
     check_paths,
@@ -78,7 +81,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--gaps", choices=GAP_POLICIES, default="refuse",
                    help="NaN samples: refuse (default), fill by linear interpolation, or mark "
                    "them so the receiver reproduces them as NaN")
-    p.set_defaults(handler=_quiet_broken_pipe(_encode))
+    p.set_defaults(handler=_encode)
 
     p = sub.add_parser("decode", help="decode a stream back into samples",
                        description="Decode STREAM into OUTPUT (.csv or .npy). Without -p the "
@@ -97,7 +100,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="with the stream's end unknown, the most lost windows one sequence jump "
                    f"may add to the output; the rest is cut as a discontinuity (default "
                    f"{MAX_FILL_WINDOWS})")
-    p.set_defaults(handler=_quiet_broken_pipe(_decode))
+    p.set_defaults(handler=_decode)
 
     p = sub.add_parser("roundtrip", help="encode, decode and check every frame meets the target",
                        description="Exit 0 when every frame meets the target, 1 when any "
@@ -148,18 +151,6 @@ def _stream_profile(args) -> tuple[Profile, StreamNote | None]:
     return load_stream_note(note)
 
 
-def _quiet_broken_pipe(handler):
-    """A reader that closes the pipe early (``| head``) ends the command quietly."""
-    def run(args) -> int:
-        try:
-            return handler(args)
-        except BrokenPipeError:
-            with contextlib.suppress(OSError):
-                os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-            return 0
-    return run
-
-
 def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: str = "refuse",
                  stuffing: str = "none", json_path: str | Path | None = None,
                  json_report=None):
@@ -193,25 +184,6 @@ def write_stream(path: str | Path, table: SampleTable, profile: Profile, gaps: s
     return result
 
 
-def per_frame_table(frames: dict, fidelity: np.ndarray | None = None,
-                    block_fidelity: np.ndarray | None = None) -> dict:
-    """The per-frame part of a JSON report, one list per column (compact for long streams).
-
-    ``budget_block`` numbers the budget each frame is held to (frame scope: shared
-    by the windows of one channel in one frame) and ``block_fidelity`` is that
-    budget block's fidelity, the figure the target applies to.
-    """
-    block = frames["block"]
-    bfid = frames["block_fidelity"] if block_fidelity is None else block_fidelity
-    return {
-        "window": frames["window"], "channel": frames["channel"], "bits": frames["bits"],
-        "terms": frames["terms"], "step": step_from_code(frames["step_code"]),
-        "fidelity": frames["fidelity"] if fidelity is None else fidelity,
-        "at_floor": frames["floor"], "met": frames["met"],
-        "budget_block": block, "block_fidelity": bfid[block],
-    }
-
-
 def _encode(args) -> int:
     if is_stdio(args.input):
         return _encode_live(args)
@@ -224,14 +196,9 @@ def _encode(args) -> int:
     stuffing = args.stuffing or "none"
     with busy(f"encoding {table.values.shape[0]} samples x {table.values.shape[1]} channels"):
         tf = time_fields(table.time) if table.time is not None else {}
-        kept = next((k for k, key in (("ticks", "time_ticks"), ("float64", "time_float64"),
-                                       ("regular", "time_start_ticks")) if key in tf), None)
-        time_column = {"name": table.time_name if tf else None, "kept": kept,
-                       "resolution": 10.0 ** -tf["time_decimals"] if "time_decimals" in tf
-                       else None}
+        time_column = time_column_report(table.time_name, tf)
         result = write_stream(args.output, table, profile, args.gaps, stuffing, args.json,
-                              lambda r: {**r.report, "time_column": time_column,
-                                         "per_frame": per_frame_table(r.frames)})
+                              lambda r: encode_command_report(r, time_column))
     out = sys.stderr if is_stdio(args.output) else sys.stdout
     r = result.report
     print(f"{r['frames']} frames, {r['samples']} samples x {r['channels']} channels -> "
@@ -489,9 +456,7 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     the first bytes unstuff into more frames) raises :class:`InputError`
     naming the stuffing; ``where`` names the stream in that message.
     """
-    dec = StreamDecoder(profile, samples=note.samples if note else None, reorder=reorder,
-                        max_fill=max_fill)
-    unstuff = Unstuffer(stuffing) if stuffing != "none" else None
+    run = ChunkDecoder(profile, note.samples if note else None, reorder, max_fill, stuffing)
     live = output is not None and is_stdio(output)
     blocks: list = []
     names = [c.name for c in profile.channels]
@@ -499,58 +464,24 @@ def decode_report(chunks, profile: Profile, note: StreamNote | None, stuffing: s
     if live:
         sys.stdout.write(",".join(([note.time_name or "time"] if timed else []) + names) + "\n")
 
-    tally = np.zeros((len(STATUS_NAMES), len(names)), dtype=np.int64)  # status x channel
-
     def take(new) -> None:
-        for b in new:
-            for code in STATUS_NAMES:
-                tally[code] += (b.status == code).sum(axis=0)
-        if live:
-            for b in new:
-                time = time_values(note, b.start, len(b.samples)) if timed else None
-                write_csv_block(sys.stdout, b.samples, time, _decimals(profile),
-                                note.time_decimals if note else None)
-            sys.stdout.flush()
-        else:
+        if not live:
             blocks.extend(new)
+            return
+        for b in new:
+            time = time_values(note, b.start, len(b.samples)) if timed else None
+            write_csv_block(sys.stdout, b.samples, time, _decimals(profile),
+                            note.time_decimals if note else None)
+        sys.stdout.flush()
 
-    head = bytearray()  # the stream's first bytes, to name a stuffing nobody asked to undo
-    got = 0
     for chunk in chunks:
-        got += len(chunk)
-        if len(head) < SNIFF_BYTES:
-            head += chunk[: SNIFF_BYTES - len(head)]
-        if unstuff is None:
-            take(dec.feed(chunk))
-        else:
-            for packet in unstuff.feed(chunk):
-                take(dec.feed(packet))
+        take(run.feed(chunk))
     # closing fills every sample up to the note's count: not beyond what the bytes carry
-    check_note_fits(note, got, profile, "stream note")
-    if unstuff is not None:
-        for packet in unstuff.close():
-            take(dec.feed(packet))
-    take(dec.close())
-    report = dec.counts()
-    report["channels"] = len(names)
-    report["bits_total"] = 8 * report["bytes_in"]
-    if unstuff is not None:
-        report["stuffing"] = stuffing
-        report["packets_bad"] = unstuff.bad_packets
-        report["packets_overlong"] = unstuff.overlong
-    report["status_codes"] = {str(k): v for k, v in STATUS_NAMES.items()}
-    report["per_channel"] = {n: {f"samples_{STATUS_NAMES[k]}": int(tally[k, c])
-                                 for k in STATUS_NAMES} for c, n in enumerate(names)}
-    report["units"] = units_of(profile)
-    report["events"] = dec.events
-    report["samples_check"] = ("samples_delivered + samples_lost + samples_gap + "
-                               "samples_concealed = samples x channels")
-    if unstuff is None and (report["samples_lost"] or not report["frames_ok"]):
-        kind = detect_stuffing(bytes(head), frame_key(profile))
-        if kind is not None:
-            raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain "
-                             f"frames; decode with --stuffing {kind}", where)
-    return report, blocks, dec
+    check_note_fits(note, run.bytes_read, profile, "stream note")
+    take(run.close())
+    report = run.report()
+    run.check_stuffing(where)
+    return report, blocks, run.decoder
 
 
 def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
@@ -564,44 +495,8 @@ def roundtrip_report(values: np.ndarray, profile: Profile, enc=None):
     dec = decode(enc.data, enc.profile, samples=values.shape[0])
     if dec.samples.shape != values.shape or not dec.delivered.all():
         raise RuntimeError("a clean round trip lost samples")  # our bug
-    n = enc.profile.frame_length
-    info = enc.frames
-    # Error energy of every (window, channel) frame over its real samples only.
-    e, valid, _, _ = split_frames(values - dec.samples, n)
-    e = np.where(np.arange(n) < valid[:, None], e, 0.0)
-    err_rows = np.einsum("ij,ij->i", e, e)  # window-major rows: window * channels + channel
-    err = err_rows[info["window"] * values.shape[1] + info["channel"]]
-    e_ref = info["reference_energy"]
-    fidelity = np.where(e_ref > 0, 1.0 - err / np.where(e_ref > 0, e_ref, 1.0), 1.0)
-    # judged per budget block (window scope: per window; frame scope: the windows of
-    # one channel in one frame together)
-    blk = check_blocks(err, info["block"], info["block_budget"], info["block_reference_energy"])
-    met = blk.met[info["block"]]
-    report = dict(enc.report)
-    # every frame (one window of one channel) carries its budget block's fidelity, as in
-    # the encoder's report: the mean is over frames, the minimum over blocks alike
-    row_fid = blk.fidelity[info["block"]]
-    row_floor = info["block_floor"][info["block"]]
-    judged = row_fid[~row_floor]
-    report.update({
-        "fidelity_min": float(judged.min()) if judged.size else None,
-        "fidelity_mean": float(judged.mean()) if judged.size else None,
-        "frames_below_target": int((~met).sum()),
-        "blocks_below_target": int((~blk.met).sum()),
-        "decoded_check": f"error energy per budget block ({enc.profile.fidelity_scope} scope) "
-                         "recomputed from the decoded samples",
-    })
-    report.update(error_figures(values, dec.samples))
-    per = {}
-    for c, (name, figs) in enumerate(report["per_channel"].items()):
-        mine = (info["channel"] == c) & ~row_floor
-        per[name] = {**figs, **error_figures(values[:, c:c + 1], dec.samples[:, c:c + 1]),
-                     "fidelity_min": float(row_fid[mine].min()) if mine.any() else None,
-                     "fidelity_mean": float(row_fid[mine].mean()) if mine.any() else None,
-                     "frames_below_target": int((~met[info["channel"] == c]).sum())}
-    report["per_channel"] = per
-    report["per_frame"] = per_frame_table({**info, "met": met}, fidelity, blk.fidelity)
-    return report, bool(met.all()), dec
+    report, ok = roundtrip_figures(values, enc, dec)
+    return report, ok, dec
 
 
 def _roundtrip(args) -> int:
@@ -625,20 +520,8 @@ def _roundtrip(args) -> int:
     return 0 if ok else 1
 
 
-def _basis_code(name: str) -> int | None:
-    """The header code of a registered basis (None for one that cannot be built alone)."""
-    from ..transform.bases import _kinds
-
-    kind = _kinds().get(name)
-    return None if kind is None else kind.code
-
-
 def _inspect(args) -> int:
-    """List every frame: where, which version/kind, which window and channels, and verdict.
-
-    Goes through the same per-frame interpreter as the decoder, so it reads
-    every layout version and gap-mask frames, and a damaged frame is a line.
-    """
+    """List every frame: where, which version/kind, which window and channels, and verdict."""
     data = _read_stream(args.stream)
     profile = note = None
     if note_path(args.stream).is_file():
@@ -649,52 +532,37 @@ def _inspect(args) -> int:
     if stuffing != "none":
         u = Unstuffer(stuffing)
         data = b"".join(u.feed(data) + u.close())
-    # The CRC covers the profile (FRAME_LAYOUT.md, "Profile check"): without one, frames
-    # are only split as their envelopes claim.
-    loc = locate_frames(data, frame_key(profile) if profile and profile.channels else None)
+    listing = list_frames(data, profile)
+    checked = profile is not None and bool(profile.channels)
     if stuffing == "none" and (kind := detect_stuffing(
-            data[:SNIFF_BYTES], frame_key(profile) if profile and profile.channels else None)):
+            data[:SNIFF_BYTES], frame_key(profile) if checked else None)):
         raise InputError(f"the stream is {kind.upper()}-stuffed but was read as plain frames; "
                          f"inspect with --stuffing {kind}", args.stream)
+    loc = listing.located
     if loc.offsets.size == 0 and not loc.crc_failures:
         raise FrameError("no frame with a valid sync marker and CRC was found; "
                          "is this a coefwire stream?", args.stream)
-    fr = None
-    if profile is not None and profile.channels:
-        fr = decode_frames(loc.frames, profile, profile_basis(profile))
-    names = [c.name for c in profile.channels] if profile and profile.channels else None
-    rows = [(int(o), i) for i, o in enumerate(loc.offsets)]
-    rows += [(int(o), None) for o in loc.crc_failures]
-    rows.sort()
-    codes = {as_code: name for name in basis_names()
-             if (as_code := _basis_code(name)) is not None}
-    units = [c.unit for c in profile.channels] if profile and profile.channels else []
+    names = [c.name for c in profile.channels] if checked else []
+    units = [c.unit for c in profile.channels] if checked else []
     out = [f"{'byte':>9} {'kind':<6} {'seq':>6} {'channels':<20} {'basis':<8} {'terms':>5} "
            f"{'step':>14} {'bits':>7}  status"]
-    for off, i in rows:
-        if i is None:
-            out.append(f"{off:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>14} "
+    for ln in listing.lines:
+        if ln.bits is None:
+            out.append(f"{ln.offset:>9} {'-':<6} {'-':>6} {'-':<20} {'-':<8} {'-':>5} {'-':>14} "
                        f"{'-':>7}  CRC FAILED")
-            continue
-        version = loc.frames[i][2] >> 4
-        kind = "gap" if version == GAP_KIND else f"v{version}"
-        bits = 8 * len(loc.frames[i])
-        if fr is None:
-            out.append(f"{off:>9} {kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} {'?':>14} "
-                       f"{bits:>7}  not checked (no profile: the CRC covers it; contents not read)")
-            continue
-        chans = fr.row_channel[fr.row_frame == i].tolist()
-        chans += [c for c, *_ in fr.masks.get(i, ())]
-        label = ",".join(names[c] if c < len(names) else str(c) for c in sorted(set(chans)))
-        status = "ok" if fr.verdict[i] == "ok" else f"{fr.verdict[i]}: {fr.detail[i]}"
-        gap = version == GAP_KIND or fr.verdict[i] != "ok"
-        basis = "-" if gap else codes.get(int(fr.head["basis"][i]), str(fr.head["basis"][i]))
-        step = "-" if gap else format(float(step_from_code(fr.head["step_code"][i])), ".4g")
-        one = sorted(set(chans))
-        if not gap and len(one) == 1 and one[0] < len(units) and units[one[0]]:
-            step += f" {units[one[0]]}"  # a step is in the channel's units (orthonormal basis)
-        out.append(f"{off:>9} {kind:<6} {int(fr.sequence[i]):>6} {label[:20] or '-':<20} "
-                   f"{basis:<8} {int(fr.head['terms'][i]):>5} {step:>14} {bits:>7}  {status}")
+        elif ln.sequence is None:
+            out.append(f"{ln.offset:>9} {ln.kind:<6} {'?':>6} {'?':<20} {'?':<8} {'?':>5} "
+                       f"{'?':>14} {ln.bits:>7}  not checked (no profile: the CRC covers it; "
+                       "contents not read)")
+        else:
+            label = ",".join(names[c] if c < len(names) else str(c) for c in ln.channels)
+            step = "-" if ln.step is None else format(ln.step, ".4g")
+            one = ln.channels[0] if len(ln.channels) == 1 else None
+            if ln.step is not None and one is not None and one < len(units) and units[one]:
+                step += f" {units[one]}"  # a step is in the channel's units (orthonormal basis)
+            out.append(f"{ln.offset:>9} {ln.kind:<6} {ln.sequence:>6} {label[:20] or '-':<20} "
+                       f"{ln.basis or '-':<8} {ln.terms:>5} {step:>14} {ln.bits:>7}  "
+                       f"{ln.status}")
     out.append(f"{loc.offsets.size} frames pass their CRC, {len(loc.crc_failures)} CRC failures, "
                f"{loc.skipped_bytes} bytes outside frames"
                + (f" ({stuffing.upper()}-stuffed stream: offsets in the unstuffed frames)"

@@ -29,6 +29,7 @@ from .._profile import (
     note_path,
     profile_id,
 )
+from ..report import pack_command_report, pack_report
 from ..stream.packs import (
     PACK_LEVEL,
     dictionary_id,
@@ -38,7 +39,6 @@ from ..stream.packs import (
     make_pack,
     open_pack,
     pack_dictionary_id,
-    pack_report,
     save_dictionary_note,
     train_dictionary,
 )
@@ -205,16 +205,12 @@ def _pack_cmd(args) -> int:
         else None
     pack = make_pack(data, dictionary)
     channels = len(profile.channels)
-    report = pack_report(data, pack, extra.samples * channels, dictionary)
-    saves = report["bits_saved"] > 0
-    write = bool(args.output) and (saves or not args.only_if_smaller)
-    report.update({
-        "samples": extra.samples,
-        "channels": channels,
-        "dictionary_sha256": hashlib.sha256(dictionary).hexdigest() if dictionary else None,
-        "zstd_dictionary_id": pack_dictionary_id(pack),
-        "pack_written": write,
-    })
+    base = pack_report(data, pack, extra.samples * channels, dictionary)
+    write = bool(args.output) and (base["bits_saved"] > 0 or not args.only_if_smaller)
+    report = pack_command_report(
+        base, extra.samples, channels,
+        hashlib.sha256(dictionary).hexdigest() if dictionary else None,
+        pack_dictionary_id(pack), write)
     with contextlib.ExitStack() as stack:
         # every temporary file exists before any is renamed: all or nothing
         tmp_json = stack.enter_context(atomic_output(args.json)) if args.json else None

@@ -34,6 +34,7 @@ from .._profile import Profile
 from .._status import DELIVERED, GAP, LOST, STATUS_NAMES
 from ..layouts.gapmask import GAP_POLICIES
 from ..layouts.registry import layout_for
+from ..report import DecoderCounts, FrameEvent
 from .frames import decode_frames
 from .search import FrameScanner, SequenceTracker
 
@@ -49,7 +50,7 @@ MAX_EVENTS = 1000
 MAX_FILL_WINDOWS = 256
 
 
-@dataclass
+@dataclass(frozen=True)
 class Block:
     """Decoded samples ``[start, start + len)`` of the stream, with their status codes."""
 
@@ -158,7 +159,7 @@ class StreamDecoder:
         self._pending: list[tuple[np.ndarray, ...]] = []
         self._masks: dict[tuple[int, int], np.ndarray] = {}  # (window, channel) -> gap mask
         self._next = 0  # first window not yet emitted
-        self.events: list[dict] = []
+        self.events: list[FrameEvent] = []
         self._frame_counts: dict[str, int] = {}
         self._sample_counts = dict.fromkeys(STATUS_NAMES.values(), 0)
         self._emitted = 0
@@ -320,30 +321,24 @@ class StreamDecoder:
     def _event(self, kind: str, offset: int, **info) -> None:
         self._count(f"frames_{kind}")
         if len(self.events) < MAX_EVENTS:
-            self.events.append({"event": kind, "offset": int(offset),
-                                **{k: v for k, v in info.items() if v not in (None, "")}})
+            self.events.append(FrameEvent(kind, int(offset), **info))
 
     def _discontinuity(self, offset: int, window: int, cut: int) -> None:
         """A jump with the end unknown: ``cut`` windows left out before ``window``."""
         self._jumps += 1
         self._cut += cut
         if len(self.events) < MAX_EVENTS:
-            self.events.append({"event": "discontinuity", "offset": int(offset),
-                                "window": int(window), "windows_cut": int(cut)})
+            self.events.append(FrameEvent("discontinuity", int(offset), window=int(window),
+                                          windows_cut=int(cut)))
 
-    def counts(self) -> dict:
+    def counts(self) -> DecoderCounts:
         """Frame and sample counts so far (samples only for released windows)."""
-        c = {"frames_ok": 0, "gap_frames_ok": 0, **self._frame_counts}
-        c["frames_crc_failed"] = self.scanner.crc_failure_count
-        c["bytes_in"] = self.scanner.bytes_in
-        c["bytes_skipped"] = self.scanner.skipped_bytes
-        c["samples"] = self._emitted
-        c.update({f"samples_{k}": v for k, v in self._sample_counts.items()})
-        c["end_known"] = self.end_known
-        c["discontinuities"] = self._jumps
-        c["windows_cut"] = self._cut
-        c["events_listed"] = len(self.events)
-        return c
+        return DecoderCounts(
+            **self._frame_counts, frames_crc_failed=self.scanner.crc_failure_count,
+            bytes_in=self.scanner.bytes_in, bytes_skipped=self.scanner.skipped_bytes,
+            samples=self._emitted, **{f"samples_{k}": v for k, v in self._sample_counts.items()},
+            end_known=self.end_known, discontinuities=self._jumps, windows_cut=self._cut,
+            events_listed=len(self.events))
 
     def frame_table(self) -> dict:
         """Accepted data frames as arrays (only with ``keep_frames``)."""

@@ -27,13 +27,13 @@ import datetime as _dt
 import hashlib
 from pathlib import Path
 
-import numpy as np
 import tomli_w
 import zstandard
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from .._errors import FrameError, InputError, ProfileError
 from .._profile import read_toml
+from ..report import pack_report  # the pack report's keys are built with every other report's
 from .search import locate_frames
 
 __all__ = ["train_dictionary", "make_pack", "open_pack", "pack_report", "PACK_LEVEL",
@@ -163,25 +163,6 @@ def open_pack(pack: bytes, dictionary: bytes | None = None,
     if data != capped:
         raise RuntimeError("the two expansions of one pack differ")  # our bug
     return data
-
-
-def pack_report(data: bytes, pack: bytes, samples: int, dictionary: bytes | None) -> dict:
-    """Bits of the pack against per-frame coding of the same stream, per input sample."""
-    per_frame = 8 * len(data)
-    packed = 8 * len(pack)
-    saved = per_frame - packed
-    return {
-        "per_frame_bits": per_frame,
-        "pack_bits": packed,
-        "bits_saved": saved,
-        "saved_percent": 100.0 * saved / per_frame if per_frame else 0.0,
-        "per_frame_bits_per_sample": per_frame / samples,
-        "pack_bits_per_sample": packed / samples,
-        "dictionary_bytes": len(dictionary) if dictionary else 0,
-        "verdict": ("the pack saves bits" if saved > 0 else
-                    "the pack saves nothing: send the frames as they are"),
-        "frames": int(np.size(locate_frames(data).offsets)),
-    }
 
 
 class DictionaryNote(BaseModel):
