@@ -21,7 +21,7 @@ import importlib
 _WHERE = {
     ".transform.bases": ("Basis", "as_basis", "basis_fingerprint", "basis_from_code", "basis_names",
                 "register_basis"),
-    "._codec": ("EncodeResult", "as_samples", "encode", "frame_key", "reconstruct"),
+    ".encoder": ("EncodeResult", "as_samples", "encode", "frame_key", "reconstruct"),
     ".stream.decode": ("DecodeResult", "decode"),
     "._compare": ("Comparison", "compare_bases", "energy_compaction"),
     ".layouts.crc": ("crc16_ibm3740", "crc32_iso_hdlc"),

@@ -24,9 +24,9 @@ from pathlib import Path
 
 import numpy as np
 
-from ._codec import as_samples, encode
 from ._errors import InputError
 from ._profile import Profile
+from .encoder import as_samples, encode
 from .quantize.select import check_blocks
 from .report import error_figures
 from .stream.decode import decode

@@ -44,7 +44,7 @@ ALLOWED_PRIVATE = {
 }
 
 #: Module-level import cycles that exist today, each as the sorted tuple of its
-#: modules.  None: the encoder (``codec._codec``) imports nothing of the decoder;
+#: modules.  None: the encoder (``codec.encoder``) imports nothing of the decoder;
 #: whole-stream ``decode`` lives in ``codec.stream.decode``, on top of
 #: ``codec.stream.live`` and ``codec.stream.frames`` (issue 14 item 2).
 KNOWN_CYCLES: set[tuple[str, ...]] = set()

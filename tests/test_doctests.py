@@ -24,7 +24,7 @@ MODULES = sorted(
     | {"codec.entropy.bits", "codec.entropy.rice"})
 
 #: Public names whose numpydoc is written elsewhere: ``encode`` and ``decode`` are
-#: documented in codec/_codec.py with the layouts work (issue 14, item 6).
+#: documented in codec/encoder.py with the layouts work (issue 14, item 6).
 NOT_YET = {"codec": {"encode", "decode"}, "link_sim": set()}
 
 

@@ -4,11 +4,11 @@ import doctest
 
 import pytest
 
-import codec._codec
+import codec.encoder
 import codec.stream.decode
 
 
-@pytest.mark.parametrize("module", [codec._codec, codec.stream.decode])
+@pytest.mark.parametrize("module", [codec.encoder, codec.stream.decode])
 def test_examples_in_docstrings_run(module):
     result = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
     assert result.attempted > 0  # the examples exist

@@ -10,9 +10,9 @@ stream's length: one packet, the decoder's own bounds, :data:`SNIFF_BYTES`.
 
 from __future__ import annotations
 
-from .._codec import frame_key
 from .._errors import InputError
 from .._profile import Profile
+from ..encoder import frame_key
 from ..report import DecoderCounts, StatusTally, decode_report
 from .live import Block, StreamDecoder
 from .stuffing import SNIFF_BYTES, Unstuffer, detect_stuffing

@@ -2,7 +2,7 @@
 
 :func:`decode` is built on :class:`codec.stream.live.StreamDecoder`, which is
 built on :func:`codec.stream.frames.decode_frames`; the encoder
-(:mod:`codec._codec`) imports none of them, so no import cycle remains.
+(:mod:`codec.encoder`) imports none of them, so no import cycle remains.
 """
 
 from __future__ import annotations

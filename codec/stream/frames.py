@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._codec import reconstruct
 from .._profile import Profile, profile_id
+from ..encoder import reconstruct
 from ..layouts.envelope import GAP_KIND, SYNC
 from ..layouts.gapmask import read_gap_runs, unwrap_gap_frame
 from ..layouts.registry import ParseContext, Verdicts, layouts

@@ -11,8 +11,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .._codec import frame_key
 from .._profile import Profile
+from ..encoder import frame_key
 from ..layouts.envelope import GAP_KIND
 from ..quantize.steps import step_from_code
 from .frames import decode_frames

@@ -28,10 +28,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._codec import _bind, encode, frame_key
 from .._errors import ProfileError
 from .._profile import Profile
 from .._status import DELIVERED, GAP, LOST, STATUS_NAMES
+from ..encoder import _bind, encode, frame_key
 from ..layouts.gapmask import GAP_POLICIES
 from ..layouts.registry import layout_for
 from ..report import DecoderCounts, FrameEvent
