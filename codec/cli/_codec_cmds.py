@@ -10,7 +10,6 @@ from pathlib import Path
 
 import numpy as np
 
-from .._codec import encode, frame_key
 from .._errors import FrameError, InputError
 from .._io import (
     CsvBlockReader,
@@ -35,6 +34,7 @@ from .._profile import (
 )
 from .._progress import busy
 from .._timecol import describe_time, time_fields, time_values
+from ..encoder import encode, frame_key
 from ..layouts.gapmask import GAP_POLICIES
 from ..quantize.select import check_magnitude
 from ..report import (
