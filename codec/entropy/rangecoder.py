@@ -255,6 +255,24 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool =
     bit length uses the row ``MEAN_LEN_ROW``.
     """
     ns, n = q.shape
+    rows = max(1, _OPS_CELLS // max(n, 1))
+    if ns <= rows:
+        return _row_ops(q, count, trellis, mean)
+    parts = []
+    for a in range(0, ns, rows):  # blocks of rows: the temporaries stay in the CPU cache
+        tr = trellis if trellis is None or np.ndim(trellis) == 0 else trellis[a : a + rows]
+        cum, freq, shift, row = _row_ops(q[a : a + rows], count[a : a + rows], tr, mean)
+        parts.append((cum, freq, shift, row + a))
+    return tuple(np.concatenate(x) for x in zip(*parts))
+
+
+#: Coefficients per block of rows in :func:`coefficient_ops`.
+_OPS_CELLS = 1 << 17
+
+
+def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
+    """:func:`coefficient_ops` of one block of rows."""
+    ns, n = q.shape
     mag2 = np.abs(q).astype(np.int64)
     cls2 = _trellis_classes(mag2, q, trellis)
     flat = np.flatnonzero((np.arange(n) < count[:, None]).ravel())
@@ -314,7 +332,9 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool =
     zi = np.flatnonzero(nz)
     cum[at[zi]] = neg[zi]
     shift[at[zi]] = 1
-    return cum, freq, shift, np.repeat(row, nops)
+    # small types (cum < 2**16, freq <= 2**15, shift <= 16): a quarter of the memory traffic
+    return (cum.astype(np.int32), freq.astype(np.int32), shift.astype(np.int8),
+            np.repeat(row, nops))
 
 
 def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
@@ -355,88 +375,132 @@ def encode_lanes(cum: np.ndarray, freq: np.ndarray, shift: np.ndarray, lane: np.
 
     ``lane`` gives each operation's lane, non-decreasing; operations of a lane
     are coded in order.  The lanes' bytes come back concatenated in lane order.
+
+    The coder is split in two exact parts.  ``range`` never depends on ``low``,
+    so one pass over the steps (every lane at once) runs the ``range``
+    recurrence alone and records, per operation, ``r = range >> shift`` and how
+    many bytes the lane had shifted out before it.  ``low`` with its carries
+    is then one long addition: each operation adds ``r * cum`` at that byte
+    position of the lane's number, so the bytes are the base-256 digits of the
+    sum of all terms, found for every operation at once
+    (:func:`_lane_digits`).  The result is the byte-wise coder of the module
+    docstring, carry for carry.
     """
+    lane = np.asarray(lane, dtype=np.int64)
     nops = np.bincount(lane, minlength=lanes).astype(np.int64)
-    ostart = np.cumsum(nops) - nops
-    order = np.argsort(-nops, kind="stable")  # longest lanes first: active lanes are a prefix
-    nsorted = nops[order]
-    # bytes a lane can emit: each op narrows range by at most shift + 1 bits
-    bits = np.bincount(lane, weights=shift + 1, minlength=lanes).astype(np.int64)
-    cap = bits // 8 + 3
-    bstart = np.cumsum(cap) - cap
-    buf = np.zeros(int(cap.sum()) + 1, dtype=np.uint8)
-    low = np.zeros(lanes, dtype=np.int64)
+    order, rank, active, sstart = _step_plan(nops)
+    sf = (np.asarray(freq, dtype=np.int32) << 5) | np.asarray(shift, dtype=np.int32)
+    term, before, nbytes = _range_steps(sf, np.asarray(cum, dtype=np.int32),
+                                        (np.cumsum(nops) - nops)[order], active, sstart)
+    return _lane_digits(term, before, nbytes, order, rank, active, sstart)
+
+
+def _step_plan(nops: np.ndarray):
+    """Lanes longest first (``order``; ``rank`` of each lane in it), the number of lanes
+    still active at each step and where each step starts in step-major order."""
+    lanes = nops.size
+    order = np.argsort(-nops, kind="stable")
+    rank = np.empty(lanes, np.int64)
+    rank[order] = np.arange(lanes)
+    steps = int(nops.max(initial=0))
+    active = lanes - np.searchsorted(np.sort(nops), np.arange(steps), side="right")
+    sstart = np.cumsum(active) - active
+    return order, rank, active, sstart
+
+
+def _range_steps(sf: np.ndarray, cum: np.ndarray, first: np.ndarray, active: np.ndarray,
+                 sstart: np.ndarray):
+    """The ``range`` recurrence of every lane, step by step.
+
+    ``sf`` (freq << 5 | shift) and ``cum`` per operation, in lane order; lane
+    ``i`` (longest first) starts at operation ``first[i]``.  Returns, in step-major
+    order, each operation's term ``(range >> shift) * cum`` and the bytes its lane
+    had shifted out before it, and per lane (longest first) the bytes shifted out.
+    Step k reads operation k of every lane: neighbouring steps read neighbouring
+    operations, so the reads stay in the CPU cache.
+    """
+    lanes = first.size
     rng = np.full(lanes, _MASK32, dtype=np.int64)
-    pos = bstart[order].copy()  # write position (absolute), per sorted lane
-    base = bstart[order]
-    low = low[order]
-    rng = rng[order]
-    os_ = ostart[order]
-    steps = int(nsorted[0]) if lanes else 0
-    active = lanes
-    for k in range(steps):
-        while active and nsorted[active - 1] <= k:
-            active -= 1
-        a = slice(0, active)
-        idx = os_[a] + k
-        r = rng[a] >> shift[idx]
-        lw = low[a] + r * cum[idx]
-        rng[a] = r * freq[idx]
-        carry = lw > _MASK32
-        if carry.any():
-            lw[carry] -= 1 << 32
-            _propagate(buf, pos[a][carry] - 1)
-        low[a] = lw
-        _renorm_encode(buf, low, rng, pos, active)
-    # flush: round low up to a multiple of 2**24 and write its top byte
-    v = (low + _TOP - 1) & ~np.int64(_TOP - 1)
-    carry = v > _MASK32
-    if carry.any():
-        v[carry] -= 1 << 32
-        _propagate(buf, pos[carry] - 1)
-    buf[pos] = (v >> 24).astype(np.uint8)
-    pos = pos + 1
-    # drop trailing zero bytes of each lane (the decoder reads zeros past the end)
+    shifted = np.zeros(lanes, dtype=np.int64)
+    term = np.empty(int(active.sum()), np.int64)
+    before = np.empty(term.size, np.int32)
+    for k, (a, s) in enumerate(zip(active.tolist(), sstart.tolist())):
+        idx = first[:a] + k
+        p = sf[idx]
+        r = rng[:a] >> (p & 31)
+        np.multiply(r, cum[idx], out=term[s : s + a])
+        nr = r * (p >> 5)
+        before[s : s + a] = shifted[:a]
+        # renormalisation: range stays >= 2**8 after a step, so at most two bytes
+        nb = (nr < _TOP).view(np.int8) + (nr < (1 << 16)).view(np.int8)
+        shifted[:a] += nb
+        np.left_shift(nr, nb << 3, out=rng[:a])
+    return term, before, shifted
+
+
+#: Step-major operations per pass when the terms are summed: temporaries stay small.
+_SUM_CHUNK = 1 << 20
+
+
+def _lane_digits(term, before, nbytes, order, rank, active, sstart):
+    """The bytes of every lane from the terms (see :func:`encode_lanes`), step-major.
+
+    Lane i's number occupies one guard digit and ``nbytes + 4`` digits (the four
+    of the final ``low``), most significant first; a term of an operation after
+    ``b`` shifted-out bytes has its lowest byte at digit ``b + 3``.  The flush
+    adds ``2**24 - 1`` to the final ``low`` and keeps its top byte, digit
+    ``nbytes``; trailing zero bytes are dropped (the decoder reads zeros past
+    the end).
+    """
+    lanes = order.size
+    own = nbytes[rank]  # per lane, in lane order
+    size = own + 5
+    base = np.cumsum(size) - size
+    rb = base[order] + 4  # lowest digit of a term at b = 0, per rank
+    acc = np.zeros(int(size.sum()), dtype=np.float64)
+    steps = active.size
+    k0 = 0
+    while k0 < steps:  # a few steps at a time: terms < 2**48 and sums < 2**53 are exact
+        k1 = int(np.searchsorted(sstart, sstart[k0] + _SUM_CHUNK, side="right"))
+        k1 = max(k1, k0 + 1)
+        s0, s1 = int(sstart[k0]), int(sstart[k1 - 1] + active[k1 - 1])
+        # the lane of each operation: step k holds ranks 0 .. active[k] - 1
+        pos = np.concatenate([rb[:a] for a in active[k0:k1].tolist()]) + before[s0:s1]
+        acc += np.bincount(pos, weights=term[s0:s1].astype(np.float64), minlength=acc.size)
+        k0 = k1
+    acc[base + own + 4] += _TOP - 1  # the flush
+    digits = _carry(acc.astype(np.int64))
+    if digits[base].any():
+        raise RuntimeError("range coder carried out of a lane")  # our bug
+    # each lane's bytes: digits 1 .. nbytes + 1 of its number, trailing zeros dropped
+    keep = own + 1
+    owner = np.repeat(np.arange(lanes), keep)
+    off = np.arange(int(keep.sum())) - np.repeat(np.cumsum(keep) - keep, keep)
+    vals = digits[np.repeat(base + 1, keep) + off]
+    nz = np.flatnonzero(vals)
     length = np.zeros(lanes, dtype=np.int64)
-    used = pos - base
-    length[order] = _trim_zeros(buf, base, used)
-    keep = np.repeat(bstart, length) + (np.arange(int(length.sum())) -
-                                        np.repeat(np.cumsum(length) - length, length))
-    return buf[keep], length
+    last = np.r_[owner[nz][1:] != owner[nz][:-1], True] if nz.size else nz
+    length[owner[nz][last]] = off[nz][last] + 1
+    return vals[off < np.repeat(length, keep)].astype(np.uint8), length
 
 
-def _trim_zeros(buf: np.ndarray, base: np.ndarray, used: np.ndarray) -> np.ndarray:
-    """Length of each lane's bytes ``buf[base : base + used]`` without trailing zeros."""
-    total = int(used.sum())
-    if total == 0:
-        return used
-    owner = np.repeat(np.arange(base.size), used)
-    off = np.arange(total) - np.repeat(np.cumsum(used) - used, used)
-    vals = buf[np.repeat(base, used) + off]
-    last = np.full(base.size, -1, dtype=np.int64)
-    nzi = np.flatnonzero(vals)
-    np.maximum.at(last, owner[nzi], off[nzi])
-    return last + 1
-
-
-def _propagate(buf: np.ndarray, at: np.ndarray) -> None:
-    """Add one to the byte at each position, carrying into earlier bytes on overflow."""
-    at = at.copy()
-    while at.size:
-        buf[at] += np.uint8(1)  # positions are distinct (one per lane)
-        wrapped = buf[at] == 0
-        at = at[wrapped] - 1
-
-
-def _renorm_encode(buf, low, rng, pos, active) -> None:
-    for _ in range(3):
-        need = np.flatnonzero(rng[:active] < _TOP)
-        if not need.size:
-            return
-        buf[pos[need]] = (low[need] >> 24).astype(np.uint8)
-        pos[need] += 1
-        low[need] = (low[need] << 8) & _MASK32
-        rng[need] <<= 8
+def _carry(a: np.ndarray) -> np.ndarray:
+    """Base-256 digits (most significant first) of a number whose digits may exceed 255."""
+    while True:
+        c = a >> 8
+        if not c[1:].any():
+            break
+        a &= 0xFF
+        a[:-1] += c[1:]
+        if (c <= 1).all():
+            break
+    # every digit is now <= 256: a 256 sends a carry left through any run of 255s
+    n = a.size
+    idx = np.where(a != 0xFF, np.arange(n), n)
+    nxt = np.minimum.accumulate(idx[::-1])[::-1]  # nearest digit at or right of each not 255
+    gen = np.r_[a, 0] == 0x100
+    carry_in = np.r_[gen[np.r_[nxt[1:], n]]]  # carry into digit p: from nxt[p + 1]
+    return (a + carry_in) & 0xFF
 
 
 # Symbol of every (table, value t >> _LUT_DROP): most t decode with one lookup.  Many
