@@ -532,41 +532,50 @@ class RangeDecoder:
     Bytes past a lane's end read as zero.  ``bad`` marks lanes whose state
     became impossible (a corrupt lane that still passed its CRC); ``reads``
     counts the bytes each lane took after its first four.  ``lanes``
-    arguments are index arrays or slices into the lane arrays.
+    arguments are index arrays or slices into the lane arrays; the ``*_prefix``
+    methods work on lanes ``0 .. a - 1`` with one value per lane (a width of
+    0 bits leaves a lane as it is), without index arrays.
+
+    Internally the lanes' bytes are copied one after another, each followed by
+    two zero bytes, and ``pos``/``end`` index that copy: a read at or past a
+    lane's end is clamped to its first padding byte, and two bytes at a time
+    come from one lookup of ``words`` (big-endian byte pairs).
     """
 
     def __init__(self, data: np.ndarray, start: np.ndarray, end: np.ndarray):
-        self.data = np.concatenate([np.asarray(data, dtype=np.uint8), np.zeros(1, np.uint8)])
-        self.pos = start.astype(np.int64).copy()
-        self.end = end.astype(np.int64)
+        data = np.asarray(data, dtype=np.uint8)
+        start = np.asarray(start, dtype=np.int64)
+        size = np.maximum(np.asarray(end, dtype=np.int64) - start, 0)
+        room = size + 2
+        base = np.cumsum(room) - room
+        self.data = np.zeros(int(room.sum()) + 1, dtype=np.uint8)
+        off = np.arange(int(size.sum())) - np.repeat(np.cumsum(size) - size, size)
+        self.data[np.repeat(base, size) + off] = data[np.repeat(start, size) + off]
+        d = self.data.astype(np.int64)
+        self.words = (d[:-1] << 8) | d[1:]
+        self.pos = base + 4
+        self.end = base + size
         self.rng = np.full(start.size, _MASK32, dtype=np.int64)
-        self.value = np.zeros(start.size, dtype=np.int64)
+        self.value = (self._word(base, self.end) << 16) | self._word(base + 2, self.end)
         self.bad = np.zeros(start.size, dtype=bool)
         self.reads = np.zeros(start.size, dtype=np.int64)
-        lanes = np.arange(start.size)
-        for _ in range(4):
-            self.value = (self.value << 8) | self._next(lanes)
-        self.reads[:] = 0
 
-    def _next(self, lanes) -> np.ndarray:
-        p = self.pos[lanes]
-        ok = p < self.end[lanes]
-        b = self.data[np.where(ok, p, self.data.size - 1)].astype(np.int64)
-        self.pos[lanes] = p + 1
-        self.reads[lanes] += 1
-        return b
+    def _word(self, pos, end) -> np.ndarray:
+        return self.words[np.minimum(pos, end)]
 
     def _renorm(self, lanes) -> None:
-        for _ in range(3):
-            need = self.rng[lanes] < _TOP
-            if not need.any():
-                return
-            if isinstance(lanes, slice):
-                need = np.flatnonzero(need) + (lanes.start or 0)
-            else:
-                need = lanes[need]
-            self.value[need] = ((self.value[need] << 8) | self._next(need))
-            self.rng[need] <<= 8
+        # after a step range >= 2**8: at most two bytes
+        rg = self.rng[lanes]
+        nb = (rg < _TOP).view(np.int8) + (rg < (1 << 16)).view(np.int8)
+        if not nb.any():
+            return
+        sh = nb.astype(np.int64) << 3
+        p = self.pos[lanes]
+        w = self._word(p, self.end[lanes])
+        self.value[lanes] = (self.value[lanes] << sh) | (w >> (16 - sh))
+        self.rng[lanes] = rg << sh
+        self.pos[lanes] = p + nb
+        self.reads[lanes] += nb
 
     def symbol(self, lanes, row: np.ndarray) -> np.ndarray:
         """Decode one model symbol per lane with cumulative table row ``row``."""
@@ -597,8 +606,9 @@ class RangeDecoder:
         self._narrow(lanes, r, val - r * v, r)
         return v
 
-    def long_bits(self, lanes: np.ndarray, width: np.ndarray) -> np.ndarray:
+    def long_bits(self, lanes, width: np.ndarray) -> np.ndarray:
         """A bypass value of up to 64 bits, as chunks of <= 16 bits, most significant first."""
+        lanes = np.arange(self.rng.size)[lanes]
         out = np.zeros(lanes.size, dtype=np.int64)
         rem = np.asarray(width, dtype=np.int64).copy()
         while (rem > 0).any():
@@ -608,6 +618,12 @@ class RangeDecoder:
             v = self.bits(lanes[sel], cw[sel])
             out[sel] = (out[sel] << cw[sel]) | v
         return out
+
+    def prefix_bits(self, a: int, width: np.ndarray) -> np.ndarray:
+        """:meth:`long_bits` of lanes ``0 .. a - 1`` (width 0: nothing read)."""
+        if (width <= _BYPASS_MAX).all():
+            return self.bits(slice(0, a), width)
+        return self.long_bits(slice(0, a), width)
 
     def _narrow(self, lanes, r, val, rng) -> None:
         bad = val >= rng
@@ -642,106 +658,117 @@ def _finish_scalar(dec: RangeDecoder, active: int, k0: int, nsorted, lstart, sym
     for step (every read, every renormalisation, the same refusals), so a frame
     decodes to the same codes whether its batch is large or small.
     """
-    data = dec.data.tolist()
-    rows_l, js_l = sym_row.tolist(), sym_j.tolist()
+    data = dec.data.tobytes()
     tr = None if trellis is None else trellis.tolist()
     for lane in range(active):
-        _scalar_lane(dec, lane, data, k0, int(nsorted[lane]), int(lstart[lane]), rows_l, js_l,
-                     hist[:, lane].tolist(), int(state[lane]), q, n, tr,
-                     MEAN_LEN_ROW if mean else LEN_ROW)
+        a, b = int(lstart[lane]) + k0, int(lstart[lane] + nsorted[lane])
+        one = _ScalarLane(dec, lane, data)
+        one.run(sym_row[a:b].tolist(), sym_j[a:b].tolist(), hist[:, lane].tolist(),
+                int(state[lane]), q, n, tr, MEAN_LEN_ROW if mean else LEN_ROW)
+        one.store(dec, lane)
 
 
-def _scalar_lane(dec: RangeDecoder, lane: int, data: list, k0: int, k1: int, idx0: int,
-                 rows_l: list, js_l: list, h: list, st: int, q: np.ndarray, n: int,
-                 tr: list | None, first_row: int = LEN_ROW) -> None:
-    """Symbols ``k0 .. k1 - 1`` of one lane (see :func:`_finish_scalar`)."""
-    pos, end = int(dec.pos[lane]), int(dec.end[lane])
-    rng, value = int(dec.rng[lane]), int(dec.value[lane])
-    bad, reads = bool(dec.bad[lane]), int(dec.reads[lane])
-    zero = data[-1]  # the zero byte read past a lane's end
-    cum_rows, shift, lut, exact, base, transitions = _scalar_tables()
-    top_w = _W - 2
+class _ScalarLane:
+    """One lane's decoder state in plain integers (see :func:`_finish_scalar`)."""
 
-    def narrow(val: int, new_rng: int) -> None:
-        nonlocal rng, value, bad, pos, reads
+    def __init__(self, dec: RangeDecoder, lane: int, data: bytes):
+        self.data = data
+        self.pos, self.end = int(dec.pos[lane]), int(dec.end[lane])
+        self.rng, self.value = int(dec.rng[lane]), int(dec.value[lane])
+        self.bad, self.reads = bool(dec.bad[lane]), int(dec.reads[lane])
+        self.cum_rows, self.shift, self.lut, self.exact, self.base, self.transitions = \
+            _scalar_tables()
+
+    def store(self, dec: RangeDecoder, lane: int) -> None:
+        dec.pos[lane], dec.rng[lane], dec.value[lane] = self.pos, self.rng, self.value
+        dec.bad[lane], dec.reads[lane] = self.bad, self.reads
+
+    def narrow(self, val: int, new_rng: int) -> None:
         if val >= new_rng:
-            bad = True
+            self.bad = True
             val = new_rng - 1
-        value, rng = val, new_rng
+        self.value, self.rng = val, new_rng
         for _ in range(3):
-            if rng >= _TOP:
+            if self.rng >= _TOP:
                 break
-            value = (value << 8) | (data[pos] if pos < end else zero)
-            pos += 1
-            reads += 1
-            rng <<= 8
+            # bytes past the lane's end read as zero
+            byte = self.data[self.pos] if self.pos < self.end else 0
+            self.value = (self.value << 8) | byte
+            self.pos += 1
+            self.reads += 1
+            self.rng <<= 8
 
-    def symbol(cls: int) -> int:
-        r = rng >> TOTAL_BITS
-        t = min(value // r, TOTAL - 1)
-        li = base[cls] + (t >> _LUT_DROP)
-        sym = lut[li]
-        row_ = cum_rows[cls]
-        if not exact[li]:
-            while sym < top_w and row_[sym + 1] <= t:
+    def symbol(self, cls: int) -> int:
+        r = self.rng >> TOTAL_BITS
+        t = min(self.value // r, TOTAL - 1)
+        li = self.base[cls] + (t >> _LUT_DROP)
+        sym = self.lut[li]
+        row_ = self.cum_rows[cls]
+        if not self.exact[li]:
+            while sym < _W - 2 and row_[sym + 1] <= t:
                 sym += 1
         c0 = row_[sym]
-        narrow(value - r * c0, r * (row_[sym + 1] - c0))
+        self.narrow(self.value - r * c0, r * (row_[sym + 1] - c0))
         return sym
 
-    def bits(width: int) -> int:
-        r = rng >> width
-        v = min(value // r, (1 << width) - 1)
-        narrow(value - r * v, r)
+    def bits(self, width: int) -> int:
+        r = self.rng >> width
+        v = min(self.value // r, (1 << width) - 1)
+        self.narrow(self.value - r * v, r)
         return v
 
-    def long_bits(width: int) -> int:
+    def long_bits(self, width: int) -> int:
         out = 0
         while width > 0:
             cw = min(width, _BYPASS_MAX)
             width -= cw
-            out = (out << cw) | bits(cw)
+            out = (out << cw) | self.bits(cw)
         return out
 
-    for k in range(k0, k1):
-        row, j = rows_l[idx0 + k], js_l[idx0 + k]
-        if j == 0:
-            h = [0, 0, 0, 0]
-            st = 0
-            cls, s = first_row, 0  # coefficient 0's bit length: its own table
-        else:
-            tot = h[0] + h[1] + h[2] + h[3]
-            u = (tot << 4) // min(j, CONTEXT_WINDOW)
-            bl = math.frexp(float(u))[1]  # as the vector path: float64 exponent
-            hb = (u >> max(bl - 2, 0)) & 1
-            band = min(max(((j << 8) // n).bit_length() - 1, 0), _BANDS - 1)
-            scale = min(max(2 * bl + hb - 5, 1), _SCALES - 1) if tot else 0
-            cls = scale * _BANDS + band
-            if tr is not None and tr[row]:
-                cls += TRELLIS_BASE * (1 + (st >> 1))
-            s = shift[cls]
-        sym = symbol(cls)
-        mag = sym
-        if j == 0 or sym == MODEL_SYMBOLS:
-            eb = sym if j == 0 else symbol(LEN_ROW)
-            low = long_bits(max(eb - 1, 0))
-            e = ((1 << (eb - 1)) | low) if eb > 0 else 0
-            mag = e if j == 0 else e + MODEL_SYMBOLS
-        over = mag >= _BIG or (mag > 0 and mag.bit_length() + s > _BIG_BITS)
-        if s:
-            mag = (mag << s) | long_bits(s)
-        if over:
-            bad = True
-            mag = 0
-        val = mag
-        if mag and bits(1) == 1:
-            val = -mag
-        q[row, j] = val
-        if tr is not None:
-            st = transitions[st][mag & 1]
-        h = [mag, h[0], h[1], h[2]]
-    dec.pos[lane], dec.rng[lane], dec.value[lane] = pos, rng, value
-    dec.bad[lane], dec.reads[lane] = bad, reads
+    def run(self, rows_l: list, js_l: list, h: list, st: int, q: np.ndarray, n: int,
+            tr: list | None, first_row: int) -> None:
+        """Decode the symbols of rows ``rows_l``, coefficients ``js_l``, into ``q``."""
+        for row, j in zip(rows_l, js_l):
+            if j == 0:
+                h = [0, 0, 0, 0]
+                st = 0
+                cls, s = first_row, 0  # coefficient 0's bit length: its own table
+            else:
+                cls = _scalar_class(h, j, n)
+                if tr is not None and tr[row]:
+                    cls += TRELLIS_BASE * (1 + (st >> 1))
+                s = self.shift[cls]
+            sym = self.symbol(cls)
+            mag = sym
+            if j == 0 or sym == MODEL_SYMBOLS:
+                eb = sym if j == 0 else self.symbol(LEN_ROW)
+                low = self.long_bits(max(eb - 1, 0))
+                e = ((1 << (eb - 1)) | low) if eb > 0 else 0
+                mag = e if j == 0 else e + MODEL_SYMBOLS
+            over = mag >= _BIG or (mag > 0 and mag.bit_length() + s > _BIG_BITS)
+            if s:
+                mag = (mag << s) | self.long_bits(s)
+            if over:
+                self.bad = True
+                mag = 0
+            val = mag
+            if mag and self.bits(1) == 1:
+                val = -mag
+            q[row, j] = val
+            if tr is not None:
+                st = self.transitions[st][mag & 1]
+            h = [mag, h[0], h[1], h[2]]
+
+
+def _scalar_class(h: list, j: int, n: int) -> int:
+    """:func:`context_class` of coefficient ``j`` >= 1 after magnitudes ``h`` (newest first)."""
+    tot = h[0] + h[1] + h[2] + h[3]
+    u = (tot << 4) // min(j, CONTEXT_WINDOW)
+    bl = math.frexp(float(u))[1]  # as the vector path: float64 exponent
+    hb = (u >> max(bl - 2, 0)) & 1
+    band = min(max(((j << 8) // n).bit_length() - 1, 0), _BANDS - 1)
+    scale = min(max(2 * bl + hb - 5, 1), _SCALES - 1) if tot else 0
+    return scale * _BANDS + band
 
 
 def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
@@ -775,8 +802,7 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
     sym_j = np.arange(tot) - np.repeat(np.cumsum(cnt_s) - cnt_s, cnt_s)
     nsorted = per_lane[order]
     lstart = np.cumsum(nsorted) - nsorted
-    hist = np.zeros((CONTEXT_WINDOW, lanes_n), dtype=np.int64)
-    state = np.zeros(lanes_n, dtype=np.int64)  # layout 4: trellis state of each lane
+    st = _DecodeState(sym_j, None if trellis is None else trellis[sym_row], n, lanes_n, mean)
     active = lanes_n
     for k in range(int(nsorted[0])):
         while active and nsorted[active - 1] <= k:
@@ -784,57 +810,105 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
         if active <= SCALAR_LANES:
             # Few lanes left (a frame decoded alone, or the longest lanes of a batch): one
             # lane at a time in plain integers, far cheaper than a vector step per symbol.
-            _finish_scalar(dec, active, k, nsorted, lstart, sym_row, sym_j, hist, state, q,
-                           n, trellis, mean)
-            break
-        lanes = slice(0, active)
-        idx = lstart[:active] + k
-        row = sym_row[idx]
-        j = sym_j[idx]
-        first = j == 0
-        h = hist[:, :active]
-        h[:, first] = 0
-        tot_ctx = h.sum(axis=0)
-        cls = context_class(tot_ctx, np.minimum(j, CONTEXT_WINDOW), j, n)
-        if trellis is not None:
-            st = state[:active]
-            st[first] = 0
-            cls += np.where(trellis[row], TRELLIS_BASE * (1 + (st >> 1)), 0)
-        cls[first] = MEAN_LEN_ROW if mean else LEN_ROW
-        s = SHIFT[cls]
-        s[first] = 0
-        sym = dec.symbol(lanes, cls)
-        esc = ~first & (sym == MODEL_SYMBOLS)
-        mag = sym
-        lng = first | esc
-        if lng.any():
-            li = np.flatnonzero(lng)
-            eb = np.where(first[li], sym[li], 0)
-            ei = np.flatnonzero(esc[li])
-            if ei.size:
-                eb[ei] = dec.symbol(li[ei], np.full(ei.size, LEN_ROW))
-            low = dec.long_bits(li, np.maximum(eb - 1, 0))
-            e = np.where(eb > 0, (np.int64(1) << np.maximum(eb - 1, 0)) | low, 0)
-            mag[li] = np.where(first[li], e, e + MODEL_SYMBOLS)
-        # A magnitude of 2**53 or more is no code of ours (the encoder keeps codes below
-        # 2**52): the lane is corrupt, and the shift below must not wrap.
-        over = (mag < 0) | (mag >= _BIG) | ((mag > 0) & (_bit_length(np.minimum(mag, _BIG))
-                                                        + s > _BIG_BITS))
-        si = np.flatnonzero(s)
-        if si.size:  # the s low bits
-            mag[si] = (mag[si] << s[si]) | dec.long_bits(si, s[si])
-        if over.any():
-            dec.bad[np.flatnonzero(over)] = True
-            mag[over] = 0
-        zi = np.flatnonzero(mag)
-        val = mag
-        if zi.size:  # sign of each non-zero
-            neg = dec.bits(zi, 1) == 1
-            val = mag.copy()
-            val[zi[neg]] = -mag[zi[neg]]
-        q[row, j] = val
-        if trellis is not None:
-            st[:] = TRANSITIONS[st, mag & 1]
-        h[1:] = h[:-1].copy()
-        h[0] = mag
+            q[sym_row, sym_j] = st.out
+            _finish_scalar(dec, active, k, nsorted, lstart, sym_row, sym_j, st.hist, st.state,
+                           q, n, trellis, mean)
+            return q, dec.bad[rank], dec.reads[rank]
+        _decode_step(dec, st, active, lstart[:active] + k)
+    q[sym_row, sym_j] = st.out
     return q, dec.bad[rank], dec.reads[rank]
+
+
+#: Context sums below this find their scale class in a table (larger ones: computed).
+_CTX_LUT = 1 << 12
+
+
+class _DecodeState:
+    """What the vector steps of :func:`decode_coefficients` carry from step to step.
+
+    Per symbol (in lane order): ``info`` = band class | min(j, 4) << 3 (0 .. 7 for
+    j = 0), the layout-4 flag ``tr`` and the decoded value ``out``; per lane the
+    last ``CONTEXT_WINDOW`` magnitudes ``hist`` (most recent first) and the
+    trellis ``state``.  ``scale_lut[d * _CTX_LUT + S]`` is the scale class
+    times ``_BANDS`` of a context sum S over d magnitudes.
+    """
+
+    def __init__(self, sym_j, tr, n, lanes, mean):
+        bands = band_class(np.arange(n), n)
+        self.info = bands[sym_j] | (np.minimum(sym_j, CONTEXT_WINDOW) << 3)
+        self.tr = tr
+        self.out = np.zeros(sym_j.size, dtype=np.int64)
+        self.hist = np.zeros((CONTEXT_WINDOW, lanes), dtype=np.int64)
+        self.state = np.zeros(lanes, dtype=np.int64)  # layout 4: trellis state of each lane
+        self.first_row = MEAN_LEN_ROW if mean else LEN_ROW
+        self.scale_lut = _scale_lut()
+        self.n = n
+
+
+@functools.cache
+def _scale_lut() -> np.ndarray:
+    s = np.arange(_CTX_LUT, dtype=np.int64)
+    d = np.arange(CONTEXT_WINDOW + 1)[:, None]
+    cls = _classes(np.broadcast_to(s, (d.size, s.size)), (s << 4) // np.maximum(d, 1),
+                   np.zeros(1, np.int64))
+    return cls.ravel()
+
+
+def _step_classes(st: _DecodeState, a: int, idx: np.ndarray, first: np.ndarray,
+                  tot: np.ndarray, info: np.ndarray) -> np.ndarray:
+    """Model class of each active lane's symbol (as :func:`context_class`, by table)."""
+    d = info >> 3
+    cls = st.scale_lut[d * _CTX_LUT + np.minimum(tot, _CTX_LUT - 1)] + (info & 7)
+    big = np.flatnonzero(tot >= _CTX_LUT)
+    if big.size:
+        cls[big] = _classes(tot[big], (tot[big] << 4) // d[big], info[big] & 7)
+    if st.tr is not None:
+        s = st.state[:a]
+        s[first] = 0
+        cls += np.where(st.tr[idx], TRELLIS_BASE * (1 + (s >> 1)), 0)
+    return np.where(first, st.first_row, cls)
+
+
+def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray) -> None:
+    """Decode one coefficient of each of the lanes ``0 .. a - 1`` (their symbols ``idx``)."""
+    info = st.info[idx]
+    first = info < 8
+    h = st.hist[:, :a]
+    if first.any():
+        h[:, first] = 0
+    tot = h.sum(axis=0)
+    cls = _step_classes(st, a, idx, first, tot, info)
+    s = SHIFT[cls]
+    sym = dec.symbol(slice(0, a), cls)
+    mag = sym
+    esc = sym == MODEL_SYMBOLS
+    esc &= ~first
+    lng = first | esc
+    if lng.any():
+        li = np.flatnonzero(lng)
+        eb = np.where(first[li], sym[li], 0)
+        ei = np.flatnonzero(esc[li])
+        if ei.size:
+            eb[ei] = dec.symbol(li[ei], np.full(ei.size, LEN_ROW))
+        low = dec.long_bits(li, np.maximum(eb - 1, 0))
+        e = np.where(eb > 0, (np.int64(1) << np.maximum(eb - 1, 0)) | low, 0)
+        mag[li] = np.where(first[li], e, e + MODEL_SYMBOLS)
+    # A magnitude of 2**53 or more is no code of ours (the encoder keeps codes below
+    # 2**52): the lane is corrupt, and the shift below must not wrap.  Only escapes,
+    # coefficient 0 and the widest shifts can get there.
+    hot = np.flatnonzero(lng | (s > _BIG_BITS - MODEL_SYMBOLS.bit_length()))
+    over = hot[(mag[hot] < 0) | (mag[hot] >= _BIG) | (
+        (mag[hot] > 0) & (_bit_length(np.minimum(mag[hot], _BIG)) + s[hot] > _BIG_BITS))]
+    if s.any():  # the s low bits (0 bits: the lane is left as it is)
+        mag = (mag << s) | dec.prefix_bits(a, s)
+    if over.size:
+        dec.bad[over] = True
+        mag[over] = 0
+    nz = mag > 0
+    neg = dec.bits(slice(0, a), nz.view(np.int8)) == 1  # the sign of each non-zero
+    st.out[idx] = np.where(neg, -mag, mag)
+    if st.tr is not None:
+        s_ = st.state[:a]
+        s_[:] = TRANSITIONS[s_, mag & 1]
+    h[1:] = h[:-1].copy()
+    h[0] = mag
