@@ -443,16 +443,19 @@ def spend_block_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.nd
         return q, err
     nf, n = q.shape
     nb = budget.size
-    st = step[:, None]
-    add = np.where(cand, st * (2.0 * np.abs(c) - st), np.inf)
-    # the rows of each block side by side in one padded row of the block
+    # the candidates only, block by block (rows of a block in order): each block's costs
+    # side by side in one row padded with inf, as wide as the block with the most
     order = np.argsort(block, kind="stable")
-    counts = np.bincount(block, minlength=nb)
-    starts = np.cumsum(counts) - counts
-    pos = np.arange(nf) - starts[block[order]]
-    wide = np.full((nb, int(counts.max()), n), np.inf)
-    wide[block[order], pos] = add[order]
-    srt = np.sort(wide.reshape(nb, -1), axis=1)
+    r, j = np.nonzero(cand[order])
+    rows = order[r]
+    sr = step[rows]
+    add = sr * (2.0 * np.abs(c[rows, j]) - sr)
+    blk = block[rows]
+    counts = np.bincount(blk, minlength=nb)
+    pos = np.arange(add.size) - np.repeat(np.cumsum(counts) - counts, counts)
+    wide = np.full((nb, int(counts.max())), np.inf)
+    wide[blk, pos] = add
+    srt = np.sort(wide, axis=1)
     with np.errstate(invalid="ignore"):
         cs = np.cumsum(srt, axis=1)
     slack = budget * _MARGIN - block_sums(err, block, nb)
@@ -460,8 +463,12 @@ def spend_block_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.nd
     km = np.maximum(k - 1, 0)[:, None]
     thr = np.where(k > 0, np.take_along_axis(srt, km, 1)[:, 0], -np.inf)
     # ties at the threshold could overshoot; the encoder's closed loop re-checks every block
-    zero = add <= thr[block][:, None]
-    return np.where(zero, 0, q), err + np.where(zero, add, 0.0).sum(axis=1)
+    z = add <= thr[blk]
+    spent = np.zeros((nf, n))  # row sums over the full rows, as the error is summed elsewhere
+    spent[rows[z], j[z]] = add[z]
+    q = q.copy()
+    q[rows[z], j[z]] = 0
+    return q, err + spent.sum(axis=1)
 
 
 @dataclass(frozen=True)
