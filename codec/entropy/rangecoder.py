@@ -526,6 +526,10 @@ def _lut():
     return lo.astype(np.int8).ravel(), (lo == hi).ravel(), row_of.ravel() * width
 
 
+#: ``x.any()`` without the Python wrapper of the method (called a few times per symbol).
+_any = np.logical_or.reduce
+
+
 class RangeDecoder:
     """Decoder state for many lanes at once; lane i reads ``data[start[i] : end[i]]``.
 
@@ -558,7 +562,12 @@ class RangeDecoder:
         self.rng = np.full(start.size, _MASK32, dtype=np.int64)
         self.value = (self._word(base, self.end) << 16) | self._word(base + 2, self.end)
         self.bad = np.zeros(start.size, dtype=bool)
-        self.reads = np.zeros(start.size, dtype=np.int64)
+        self._first = base + 4
+
+    @property
+    def reads(self) -> np.ndarray:
+        """Bytes each lane read after its first four (every read moves ``pos`` by one)."""
+        return self.pos - self._first
 
     def _word(self, pos, end) -> np.ndarray:
         return self.words[np.minimum(pos, end)]
@@ -567,15 +576,14 @@ class RangeDecoder:
         # after a step range >= 2**8: at most two bytes
         rg = self.rng[lanes]
         nb = (rg < _TOP).view(np.int8) + (rg < (1 << 16)).view(np.int8)
-        if not nb.any():
+        if not _any(nb):
             return
-        sh = nb.astype(np.int64) << 3
+        sh = nb << 3
         p = self.pos[lanes]
         w = self._word(p, self.end[lanes])
         self.value[lanes] = (self.value[lanes] << sh) | (w >> (16 - sh))
         self.rng[lanes] = rg << sh
         self.pos[lanes] = p + nb
-        self.reads[lanes] += nb
 
     def symbol(self, lanes, row: np.ndarray) -> np.ndarray:
         """Decode one model symbol per lane with cumulative table row ``row``."""
@@ -587,11 +595,11 @@ class RangeDecoder:
         s = lut[li].astype(np.int64)
         base = row * _W
         slow = ~lut_exact[li]
-        if slow.any():  # t falls where a table step sits inside the lookup cell
+        if _any(slow):  # t falls where a table step sits inside the lookup cell
             k = np.flatnonzero(slow)
             while True:
                 more = (s[k] < _W - 2) & (_FLAT[base[k] + s[k] + 1] <= t[k])
-                if not more.any():
+                if not _any(more):
                     break
                 s[k] += more
         c0 = _FLAT[base + s]
@@ -621,13 +629,13 @@ class RangeDecoder:
 
     def prefix_bits(self, a: int, width: np.ndarray) -> np.ndarray:
         """:meth:`long_bits` of lanes ``0 .. a - 1`` (width 0: nothing read)."""
-        if (width <= _BYPASS_MAX).all():
+        if np.maximum.reduce(width) <= _BYPASS_MAX:
             return self.bits(slice(0, a), width)
         return self.long_bits(slice(0, a), width)
 
     def _narrow(self, lanes, r, val, rng) -> None:
         bad = val >= rng
-        if bad.any():
+        if _any(bad):
             self.bad[np.arange(self.bad.size)[lanes][bad]] = True
             val = np.minimum(val, rng - 1)
         self.value[lanes] = val
@@ -675,13 +683,13 @@ class _ScalarLane:
         self.data = data
         self.pos, self.end = int(dec.pos[lane]), int(dec.end[lane])
         self.rng, self.value = int(dec.rng[lane]), int(dec.value[lane])
-        self.bad, self.reads = bool(dec.bad[lane]), int(dec.reads[lane])
+        self.bad = bool(dec.bad[lane])
         self.cum_rows, self.shift, self.lut, self.exact, self.base, self.transitions = \
             _scalar_tables()
 
     def store(self, dec: RangeDecoder, lane: int) -> None:
         dec.pos[lane], dec.rng[lane], dec.value[lane] = self.pos, self.rng, self.value
-        dec.bad[lane], dec.reads[lane] = self.bad, self.reads
+        dec.bad[lane] = self.bad
 
     def narrow(self, val: int, new_rng: int) -> None:
         if val >= new_rng:
@@ -695,7 +703,6 @@ class _ScalarLane:
             byte = self.data[self.pos] if self.pos < self.end else 0
             self.value = (self.value << 8) | byte
             self.pos += 1
-            self.reads += 1
             self.rng <<= 8
 
     def symbol(self, cls: int) -> int:
@@ -874,7 +881,7 @@ def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray) -
     info = st.info[idx]
     first = info < 8
     h = st.hist[:, :a]
-    if first.any():
+    if _any(first):
         h[:, first] = 0
     tot = h.sum(axis=0)
     cls = _step_classes(st, a, idx, first, tot, info)
@@ -884,7 +891,7 @@ def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray) -
     esc = sym == MODEL_SYMBOLS
     esc &= ~first
     lng = first | esc
-    if lng.any():
+    if _any(lng):
         li = np.flatnonzero(lng)
         eb = np.where(first[li], sym[li], 0)
         ei = np.flatnonzero(esc[li])
@@ -899,7 +906,7 @@ def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray) -
     hot = np.flatnonzero(lng | (s > _BIG_BITS - MODEL_SYMBOLS.bit_length()))
     over = hot[(mag[hot] < 0) | (mag[hot] >= _BIG) | (
         (mag[hot] > 0) & (_bit_length(np.minimum(mag[hot], _BIG)) + s[hot] > _BIG_BITS))]
-    if s.any():  # the s low bits (0 bits: the lane is left as it is)
+    if _any(s):  # the s low bits (0 bits: the lane is left as it is)
         mag = (mag << s) | dec.prefix_bits(a, s)
     if over.size:
         dec.bad[over] = True
