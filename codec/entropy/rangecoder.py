@@ -41,10 +41,12 @@ from __future__ import annotations
 
 import functools
 import math
+from typing import NamedTuple
 
 import numpy as np
 
 from ..quantize.trellis import TRANSITIONS, quantizer_ids
+from .bits import _bit_length
 from .range_tables import (
     CELL_PARAMS,
     SCALE_PARAMS,
@@ -60,9 +62,9 @@ __all__ = [
     "geometric_cum",
     "context_class",
     "band_class",
-    "CUM",
+    "CUM",  # noqa: F822 - built on first use (module __getattr__)
     "TRELLIS_BASE",
-    "SHIFT",
+    "SHIFT",  # noqa: F822 - built on first use (module __getattr__)
     "LEN_ROW",
     "MEAN_LEN_ROW",
     "encode_lanes",
@@ -76,7 +78,8 @@ TOTAL_BITS = 15
 TOTAL = 1 << TOTAL_BITS
 #: Model symbols 0 .. M-1 of the high part; symbol M is the escape.
 MODEL_SYMBOLS = 64
-#: Coefficients whose magnitudes form the context of the next one.
+#: Coefficients whose magnitudes form the context of the next one: the range coder's
+#: classes here and the Rice parameters of layouts 1 and 2 (codec.layouts.v1v2).
 CONTEXT_WINDOW = 4
 _TOP = 1 << 24
 _MASK32 = (1 << 32) - 1
@@ -177,25 +180,40 @@ def _mean_len_cum() -> list[int]:
     return geometric_cum(3 << 14, 7 << 13, m=MODEL_SYMBOLS - 1) + [TOTAL]
 
 
-#: Cumulative tables, one row per class (then the uniform bit-length table and
-#: the bit-length table of coefficient 0 beside a mean).
-CUM, SHIFT = _build_tables()
-LEN_ROW = CUM.shape[0] - 2
-MEAN_LEN_ROW = CUM.shape[0] - 1
-_W = CUM.shape[1]
-_FLAT = CUM.ravel()
-# cost in bits of each (class, symbol): -log2(freq / TOTAL)
-with np.errstate(divide="ignore"):
-    _COST = TOTAL_BITS - np.log2(np.diff(CUM, axis=1).astype(np.float64))
+#: Rows of the model: one per class of the three table sets (layout 3's, then layout
+#: 4's for each quantizer), then the uniform bit-length table and the bit-length
+#: table of coefficient 0 beside a mean; every row has ``_W`` entries.
+LEN_ROW = 3 * _CLASSES
+MEAN_LEN_ROW = LEN_ROW + 1
+_W = MODEL_SYMBOLS + 2
 
 
-def _bit_length(x: np.ndarray) -> np.ndarray:
-    x = np.asarray(x, dtype=np.int64)
-    out = np.frexp(x.astype(np.float64))[1].astype(np.int64)
-    big = x >= (1 << 52)
-    if big.any():
-        out[big] = [int(v).bit_length() for v in x[big]]
-    return out
+class _Model(NamedTuple):
+    cum: np.ndarray  # cumulative tables, one row per class (CUM)
+    shift: np.ndarray  # the shift s of each row (SHIFT)
+    flat: np.ndarray  # cum.ravel()
+    cost: np.ndarray  # cost in bits of each (row, symbol): -log2(freq / TOTAL)
+
+
+@functools.cache
+def _model() -> _Model:
+    """The model tables, built on first use: importing the coder stays cheap."""
+    cum, shift = _build_tables()
+    if cum.shape != (MEAN_LEN_ROW + 1, _W):
+        raise RuntimeError("range model tables have an unexpected shape")  # our bug
+    with np.errstate(divide="ignore"):
+        cost = TOTAL_BITS - np.log2(np.diff(cum, axis=1).astype(np.float64))
+    return _Model(cum, shift, cum.ravel(), cost)
+
+
+_LAZY = {"CUM": "cum", "SHIFT": "shift", "_FLAT": "flat", "_COST": "cost"}
+
+
+def __getattr__(name: str):
+    """``CUM`` and ``SHIFT`` (and the private ``_FLAT``, ``_COST``), built on first use."""
+    if name in _LAZY:
+        return getattr(_model(), _LAZY[name])
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def context_class(total: np.ndarray, count: np.ndarray, j: np.ndarray, n: int) -> np.ndarray:
@@ -272,6 +290,7 @@ _OPS_CELLS = 1 << 17
 
 def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
     """:func:`coefficient_ops` of one block of rows."""
+    model = _model()
     ns, n = q.shape
     mag2 = np.abs(q).astype(np.int64)
     cls2 = _trellis_classes(mag2, q, trellis)
@@ -281,7 +300,7 @@ def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
     mag = mag2.ravel()[flat]
     cls = cls2.ravel()[flat]
     neg = q.ravel()[flat] < 0
-    s = np.where(first, 0, SHIFT[np.maximum(cls, 0)])
+    s = np.where(first, 0, model.shift[np.maximum(cls, 0)])
     hi = mag >> s
     esc = ~first & (hi >= MODEL_SYMBOLS)
     big = first | esc
@@ -302,16 +321,16 @@ def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
     cum = np.empty(total, np.int64)
     freq = np.ones(total, np.int64)
     shift = np.empty(total, np.int64)
-    cum[base] = _FLAT[tab]
-    freq[base] = _FLAT[tab + 1] - _FLAT[tab]
+    cum[base] = model.flat[tab]
+    freq[base] = model.flat[tab + 1] - model.flat[tab]
     shift[base] = TOTAL_BITS
     at = base + 1
     # escape: bit length of hi - M from the uniform table
     ei = np.flatnonzero(esc)
     if ei.size:
         fe = LEN_ROW * _W + eb[np.searchsorted(bi, ei)]
-        cum[at[ei]] = _FLAT[fe]
-        freq[at[ei]] = _FLAT[fe + 1] - _FLAT[fe]
+        cum[at[ei]] = model.flat[fe]
+        freq[at[ei]] = model.flat[fe + 1] - model.flat[fe]
         shift[at[ei]] = TOTAL_BITS
         at[ei] += 1
     for idx, v, w in ((bi, ev, ew), (np.flatnonzero(cl), None, None)):
@@ -346,13 +365,14 @@ def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
     :func:`coefficient_ops`.
     """
     ns, n = q.shape
+    model = _model()
     mag = np.abs(q).astype(np.int64)
     if count is None:
         nzr = mag > 0
         count = np.where(nzr.any(axis=1), n - np.argmax(nzr[:, ::-1], axis=1), 0)
     cls = _trellis_classes(mag, q, trellis)
     coded = np.arange(n) < count[:, None]
-    s = SHIFT[np.maximum(cls, 0)]
+    s = model.shift[np.maximum(cls, 0)]
     s[:, 0] = 0
     hi = mag >> s
     esc = hi >= MODEL_SYMBOLS
@@ -362,9 +382,9 @@ def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
     sym[:, 0] = bl0
     row_cls = cls.copy()
     row_cls[:, 0] = MEAN_LEN_ROW if mean else LEN_ROW
-    bits = _COST[row_cls, sym] + s + (mag > 0)
+    bits = model.cost[row_cls, sym] + s + (mag > 0)
     eb = _bit_length(np.where(esc, hi - MODEL_SYMBOLS, 0))
-    bits += np.where(esc, _COST[LEN_ROW, 0] + np.maximum(eb - 1, 0), 0)
+    bits += np.where(esc, model.cost[LEN_ROW, 0] + np.maximum(eb - 1, 0), 0)
     bits[:, 0] += np.maximum(bl0 - 1, 0)
     return np.where(coded, bits, 0.0).sum(axis=1)
 
@@ -515,7 +535,7 @@ def _lut():
     One ``searchsorted`` over every distinct table at once: row c is shifted by
     ``c * 2 * TOTAL``, above every value and query of the rows before it.
     """
-    tables, row_of = np.unique(CUM, axis=0, return_inverse=True)
+    tables, row_of = np.unique(_model().cum, axis=0, return_inverse=True)
     width = TOTAL >> _LUT_DROP
     t = np.arange(width, dtype=np.int64) << _LUT_DROP
     shift = (2 * TOTAL) * np.arange(tables.shape[0], dtype=np.int64)[:, None]
@@ -594,16 +614,17 @@ class RangeDecoder:
         li = lut_base[row] + (t >> _LUT_DROP)
         s = lut[li].astype(np.int64)
         base = row * _W
+        flat = _model().flat
         slow = ~lut_exact[li]
         if _any(slow):  # t falls where a table step sits inside the lookup cell
             k = np.flatnonzero(slow)
             while True:
-                more = (s[k] < _W - 2) & (_FLAT[base[k] + s[k] + 1] <= t[k])
+                more = (s[k] < _W - 2) & (flat[base[k] + s[k] + 1] <= t[k])
                 if not _any(more):
                     break
                 s[k] += more
-        c0 = _FLAT[base + s]
-        self._narrow(lanes, r, val - r * c0, r * (_FLAT[base + s + 1] - c0))
+        c0 = flat[base + s]
+        self._narrow(lanes, r, val - r * c0, r * (flat[base + s + 1] - c0))
         return s
 
     def bits(self, lanes, width) -> np.ndarray:
@@ -654,7 +675,8 @@ def _scalar_tables() -> tuple[list, list, list, list, list, list]:
     """The model and lookup tables as Python lists for :func:`_finish_scalar`, built on
     first use (like :func:`_lut`, so importing the coder stays cheap)."""
     lut, exact, base = _lut()
-    return (CUM.tolist(), SHIFT.tolist(), lut.tolist(), exact.tolist(), base.tolist(),
+    model = _model()
+    return (model.cum.tolist(), model.shift.tolist(), lut.tolist(), exact.tolist(), base.tolist(),
             TRANSITIONS.tolist())
 
 
@@ -885,7 +907,7 @@ def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray) -
         h[:, first] = 0
     tot = h.sum(axis=0)
     cls = _step_classes(st, a, idx, first, tot, info)
-    s = SHIFT[cls]
+    s = _model().shift[cls]
     sym = dec.symbol(slice(0, a), cls)
     mag = sym
     esc = sym == MODEL_SYMBOLS

@@ -35,6 +35,7 @@ from ..entropy.bits import (
     signed_width,
     to_twos,
 )
+from ..entropy.rangecoder import CONTEXT_WINDOW  # also the Rice contexts' window
 from ..entropy.rice import exp_golomb_bits
 from .crc import crc16_ibm3740, crc16_prefix_states, crc16_span
 
@@ -445,8 +446,6 @@ def unpack_frame_reference(frame: bytes, n: int, key: FrameKey
 # ---------------------------------------------------------------------------
 
 LAYOUT_VERSION_2 = 2
-#: Coefficients whose magnitudes set the Rice parameter of the next one.
-CONTEXT_WINDOW = 4
 K_INIT_BITS = 5
 STEP_BITS = 10
 PROFILE_BITS_V2 = 8
