@@ -840,10 +840,11 @@ def decode_coefficients(data: np.ndarray, start: np.ndarray, end: np.ndarray,
             # Few lanes left (a frame decoded alone, or the longest lanes of a batch): one
             # lane at a time in plain integers, far cheaper than a vector step per symbol.
             q[sym_row, sym_j] = st.out
-            _finish_scalar(dec, active, k, nsorted, lstart, sym_row, sym_j, st.hist, st.state,
-                           q, n, trellis, mean)
+            newest = [(k - 1 - i) % CONTEXT_WINDOW for i in range(CONTEXT_WINDOW)]
+            _finish_scalar(dec, active, k, nsorted, lstart, sym_row, sym_j, st.hist[newest],
+                           st.state, q, n, trellis, mean)
             return q, dec.bad[rank], dec.reads[rank]
-        _decode_step(dec, st, active, lstart[:active] + k)
+        _decode_step(dec, st, active, lstart[:active] + k, k)
     q[sym_row, sym_j] = st.out
     return q, dec.bad[rank], dec.reads[rank]
 
@@ -857,7 +858,7 @@ class _DecodeState:
 
     Per symbol (in lane order): ``info`` = band class | min(j, 4) << 3 (0 .. 7 for
     j = 0), the layout-4 flag ``tr`` and the decoded value ``out``; per lane the
-    last ``CONTEXT_WINDOW`` magnitudes ``hist`` (most recent first) and the
+    last ``CONTEXT_WINDOW`` magnitudes ``hist`` (a ring, step k in row k % 4) and the
     trellis ``state``.  ``scale_lut[d * _CTX_LUT + S]`` is the scale class
     times ``_BANDS`` of a context sum S over d magnitudes.
     """
@@ -871,6 +872,8 @@ class _DecodeState:
         self.state = np.zeros(lanes, dtype=np.int64)  # layout 4: trellis state of each lane
         self.first_row = MEAN_LEN_ROW if mean else LEN_ROW
         self.scale_lut = _scale_lut()
+        # per class: how far a magnitude may reach before its s low bits pass 2**53
+        self.room = np.maximum(_BIG_BITS - _model().shift, 0)
         self.n = n
 
 
@@ -898,46 +901,57 @@ def _step_classes(st: _DecodeState, a: int, idx: np.ndarray, first: np.ndarray,
     return np.where(first, st.first_row, cls)
 
 
-def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray) -> None:
-    """Decode one coefficient of each of the lanes ``0 .. a - 1`` (their symbols ``idx``)."""
+def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray,
+                 k: int) -> None:
+    """Decode coefficient ``k`` of each of the lanes ``0 .. a - 1`` (their symbols ``idx``)."""
     info = st.info[idx]
     first = info < 8
-    h = st.hist[:, :a]
+    h = st.hist[:, :a]  # a ring: step k writes row k % CONTEXT_WINDOW
     if _any(first):
         h[:, first] = 0
     tot = h.sum(axis=0)
     cls = _step_classes(st, a, idx, first, tot, info)
     s = _model().shift[cls]
-    sym = dec.symbol(slice(0, a), cls)
-    mag = sym
-    esc = sym == MODEL_SYMBOLS
-    esc &= ~first
-    lng = first | esc
+    mag = dec.symbol(slice(0, a), cls)
+    lng = mag == MODEL_SYMBOLS  # an escape, or (below) coefficient 0's bit length
+    lng &= ~first
+    lng |= first
     if _any(lng):
-        li = np.flatnonzero(lng)
-        eb = np.where(first[li], sym[li], 0)
-        ei = np.flatnonzero(esc[li])
-        if ei.size:
-            eb[ei] = dec.symbol(li[ei], np.full(ei.size, LEN_ROW))
-        low = dec.long_bits(li, np.maximum(eb - 1, 0))
-        e = np.where(eb > 0, (np.int64(1) << np.maximum(eb - 1, 0)) | low, 0)
-        mag[li] = np.where(first[li], e, e + MODEL_SYMBOLS)
+        _long_magnitudes(dec, mag, first, lng)
     # A magnitude of 2**53 or more is no code of ours (the encoder keeps codes below
-    # 2**52): the lane is corrupt, and the shift below must not wrap.  Only escapes,
-    # coefficient 0 and the widest shifts can get there.
-    hot = np.flatnonzero(lng | (s > _BIG_BITS - MODEL_SYMBOLS.bit_length()))
-    over = hot[(mag[hot] < 0) | (mag[hot] >= _BIG) | (
-        (mag[hot] > 0) & (_bit_length(np.minimum(mag[hot], _BIG)) + s[hot] > _BIG_BITS))]
+    # 2**52): the lane is corrupt, and the shift below must not wrap.  Same test as
+    # bit_length(mag) + s > 53: mag >> max(53 - s, 0) is not 0.
+    over = (mag >> st.room[cls]) > 0
+    over |= mag < 0
     if _any(s):  # the s low bits (0 bits: the lane is left as it is)
         mag = (mag << s) | dec.prefix_bits(a, s)
-    if over.size:
-        dec.bad[over] = True
-        mag[over] = 0
+    if _any(over):
+        ov = np.flatnonzero(over)
+        dec.bad[ov] = True
+        mag[ov] = 0
     nz = mag > 0
     neg = dec.bits(slice(0, a), nz.view(np.int8)) == 1  # the sign of each non-zero
     st.out[idx] = np.where(neg, -mag, mag)
     if st.tr is not None:
         s_ = st.state[:a]
         s_[:] = TRANSITIONS[s_, mag & 1]
-    h[1:] = h[:-1].copy()
-    h[0] = mag
+    h[k % CONTEXT_WINDOW] = mag
+
+
+def _long_magnitudes(dec: RangeDecoder, mag: np.ndarray, first: np.ndarray,
+                     lng: np.ndarray) -> None:
+    """Magnitudes of coefficient 0 (from its bit length) and of escapes, in place in ``mag``.
+
+    After the bit length ``eb`` (coefficient 0: the symbol just read; an escape:
+    a symbol of the uniform table) come the ``eb - 1`` bits below the leading one.
+    """
+    li = np.flatnonzero(lng)
+    fl = first[li]
+    eb = mag[li]
+    if not fl.all():
+        ei = np.flatnonzero(~fl)
+        eb[ei] = dec.symbol(li[ei], np.full(ei.size, LEN_ROW))
+    w = np.maximum(eb - 1, 0)
+    low = dec.long_bits(li, w) if _any(w) else 0
+    e = np.where(eb > 0, (np.int64(1) << w) | low, 0)
+    mag[li] = np.where(fl, e, e + MODEL_SYMBOLS)
