@@ -189,6 +189,18 @@ def _quantized(cx, mean, dc, code, offset, trellis=False, error_only=False):
         q, err = trellis_quantize(c, step)
         return q, mean_int, err
     st = step[:, None]
+    if error_only and not (np.isscalar(offset) and offset == 0.5):
+        # the error alone: |c| - floor(|c| / step + o) step is exactly -(c - q step) where
+        # c < 0 (IEEE rounding is symmetric), so the squares and their sums are the same
+        # without putting the signs back
+        a = np.abs(c)
+        off = np.broadcast_to(np.asarray(offset, dtype=np.float64), step.shape)[:, None]
+        q = np.divide(a, st)
+        np.add(q, off, out=q)
+        np.floor(q, out=q)
+        np.multiply(q, st, out=q)
+        np.subtract(a, q, out=a)
+        return None, mean_int, np.einsum("ij,ij->i", a, a)
     if np.isscalar(offset) and offset == 0.5:
         q = np.divide(c, st)
         np.rint(q, out=q)
@@ -219,7 +231,7 @@ def _error_only(cx, mean, dc, code, offset, trellis=False):
     for a in range(0, nf, _BLOCK_ROWS):
         b = min(a + _BLOCK_ROWS, nf)
         out[a:b] = _quantized(cx[a:b], None if mean is None else mean[a:b], dc, code[a:b],
-                              offset if np.isscalar(offset) else off[a:b])[2]
+                              offset if np.isscalar(offset) else off[a:b], error_only=True)[2]
     return out
 
 
