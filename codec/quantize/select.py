@@ -398,11 +398,24 @@ def block_budgets(
 
 
 def _row_scale(cx, mean, dc, n):
-    scale = np.abs(cx).max(axis=1)
+    scale = _row_absmax(cx)
     if mean is not None:
         scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
-    ac = scale if mean is None else np.abs(cx - mean[:, None] * dc).max(axis=1)
+    ac = scale if mean is None else _row_absmax(cx - mean[:, None] * dc)
     return scale, ac
+
+
+def _row_absmax(x: np.ndarray) -> np.ndarray:
+    """``np.abs(x).max(axis=1)``, by halving the rows: a maximum is exact in any order,
+    and whole-column passes beat a reduction along short rows (twice as fast, measured)."""
+    y = np.abs(x)
+    while y.shape[1] > 1:
+        h = y.shape[1] // 2
+        top = np.maximum(y[:, :h], y[:, h : 2 * h])
+        if y.shape[1] % 2:
+            top[:, 0] = np.maximum(top[:, 0], y[:, -1])
+        y = top
+    return y[:, 0]
 
 
 def choose_block_steps(
