@@ -410,8 +410,21 @@ def encode_lanes(cum: np.ndarray, freq: np.ndarray, shift: np.ndarray, lane: np.
     nops = np.bincount(lane, minlength=lanes).astype(np.int64)
     order, rank, active, sstart = _step_plan(nops)
     sf = (np.asarray(freq, dtype=np.int32) << 5) | np.asarray(shift, dtype=np.int32)
-    term, before, nbytes = _range_steps(sf, np.asarray(cum, dtype=np.int32),
-                                        (np.cumsum(nops) - nops)[order], active, sstart)
+    cum = np.asarray(cum, dtype=np.int32)
+    first = (np.cumsum(nops) - nops)[order]
+    if lanes * active.size <= 2 * lane.size:
+        # lanes of similar lengths: each lane's operations in a row of a padded table
+        # (rows longest first), so step k reads column k in place, without an index
+        width = active.size
+        at = np.repeat(rank * width - (np.cumsum(nops) - nops), nops) + np.arange(lane.size)
+        ops = []
+        for v in (sf, cum):
+            t = np.zeros(lanes * width, np.int32)
+            t[at] = v
+            ops.append(t.reshape(lanes, width))
+        term, before, nbytes = _range_steps(*ops, None, active, sstart)
+    else:
+        term, before, nbytes = _range_steps(sf, cum, first, active, sstart)
     return _lane_digits(term, before, nbytes, order, rank, active, sstart)
 
 
@@ -433,22 +446,27 @@ def _range_steps(sf: np.ndarray, cum: np.ndarray, first: np.ndarray, active: np.
     """The ``range`` recurrence of every lane, step by step.
 
     ``sf`` (freq << 5 | shift) and ``cum`` per operation, in lane order; lane
-    ``i`` (longest first) starts at operation ``first[i]``.  Returns, in step-major
-    order, each operation's term ``(range >> shift) * cum`` and the bytes its lane
-    had shifted out before it, and per lane (longest first) the bytes shifted out.
+    ``i`` (longest first) starts at operation ``first[i]`` (or, with ``first``
+    None, ``sf`` and ``cum`` are tables with a row per lane, longest first, and
+    column k holds operation k).  Returns, in step-major order, each
+    operation's term ``(range >> shift) * cum`` and the bytes its lane had
+    shifted out before it, and per lane (longest first) the bytes shifted out.
     Step k reads operation k of every lane: neighbouring steps read neighbouring
     operations, so the reads stay in the CPU cache.
     """
-    lanes = first.size
+    lanes = sf.shape[0] if first is None else first.size
     rng = np.full(lanes, _MASK32, dtype=np.int64)
     shifted = np.zeros(lanes, dtype=np.int64)
     term = np.empty(int(active.sum()), np.int64)
     before = np.empty(term.size, np.int32)
     for k, (a, s) in enumerate(zip(active.tolist(), sstart.tolist())):
-        idx = first[:a] + k
-        p = sf[idx]
+        if first is None:
+            p, c = sf[:a, k], cum[:a, k]
+        else:
+            idx = first[:a] + k
+            p, c = sf[idx], cum[idx]
         r = rng[:a] >> (p & 31)
-        np.multiply(r, cum[idx], out=term[s : s + a])
+        np.multiply(r, c, out=term[s : s + a])
         nr = r * (p >> 5)
         before[s : s + a] = shifted[:a]
         # renormalisation: range stays >= 2**8 after a step, so at most two bytes
