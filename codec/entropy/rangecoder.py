@@ -240,11 +240,15 @@ def _contexts(mag: np.ndarray) -> np.ndarray:
     ns, n = mag.shape
     j = np.arange(1, n)
     total = preceding_sums(mag, CONTEXT_WINDOW)
-    u = total << 2  # 16 S / 4 once four magnitudes are known
-    w = min(CONTEXT_WINDOW, n) - 1
-    u[:, :w] = (total[:, :w] << 4) // j[:w]
+    count = np.minimum(j, CONTEXT_WINDOW)  # magnitudes in each sum
+    band = band_class(j, n)
     cls = np.full((ns, n), -1, dtype=np.int64)
-    cls[:, 1:] = _classes(total, u, band_class(j, n))
+    # sums below _CTX_LUT by table (as the decoder), larger ones computed
+    cls[:, 1:] = _scale_lut()[np.minimum(total, _CTX_LUT - 1) + count * _CTX_LUT] + band
+    big = np.nonzero(total >= _CTX_LUT)
+    if big[0].size:
+        t = total[big]
+        cls[big[0], big[1] + 1] = _classes(t, (t << 4) // count[big[1]], band[big[1]])
     return cls
 
 
