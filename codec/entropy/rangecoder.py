@@ -572,6 +572,12 @@ def _lut():
 _any = np.logical_or.reduce
 
 
+@functools.cache
+def _decoder_tables() -> tuple[np.ndarray, np.ndarray]:
+    """The flat model table and the lookup cells that need a search (``~exact``)."""
+    return _model().flat, ~_lut()[1]
+
+
 class RangeDecoder:
     """Decoder state for many lanes at once; lane i reads ``data[start[i] : end[i]]``.
 
@@ -636,8 +642,8 @@ class RangeDecoder:
         li = lut_base[row] + (t >> _LUT_DROP)
         s = lut[li].astype(np.int64)
         base = row * _W
-        flat = _model().flat
-        slow = ~lut_exact[li]
+        flat, inexact = _decoder_tables()
+        slow = inexact[li]
         if _any(slow):  # t falls where a table step sits inside the lookup cell
             k = np.flatnonzero(slow)
             while True:
@@ -645,8 +651,9 @@ class RangeDecoder:
                 if not _any(more):
                     break
                 s[k] += more
-        c0 = flat[base + s]
-        self._narrow(lanes, r, val - r * c0, r * (flat[base + s + 1] - c0))
+        at = base + s
+        c0 = flat[at]
+        self._narrow(lanes, r, val - r * c0, r * (flat[at + 1] - c0))
         return s
 
     def bits(self, lanes, width) -> np.ndarray:
@@ -878,22 +885,22 @@ _CTX_LUT = 1 << 12
 class _DecodeState:
     """What the vector steps of :func:`decode_coefficients` carry from step to step.
 
-    Per symbol (in lane order): ``info`` = band class | min(j, 4) << 3 (0 .. 7 for
-    j = 0), the layout-4 flag ``tr`` and the decoded value ``out``; per lane the
-    last ``CONTEXT_WINDOW`` magnitudes ``hist`` (a ring, step k in row k % 4) and the
-    trellis ``state``.  ``scale_lut[d * _CTX_LUT + S]`` is the scale class
-    times ``_BANDS`` of a context sum S over d magnitudes.
+    Per symbol (in lane order): ``info`` = (min(j, 4) * 8 + band class) * _CTX_LUT
+    (below 8 * _CTX_LUT for j = 0), the layout-4 flag ``tr`` and the decoded
+    value ``out``; per lane the last ``CONTEXT_WINDOW`` magnitudes ``hist`` (a
+    ring, step k in row k % 4) and the trellis ``state``.  ``class_lut[info + S]``
+    is the class of a coefficient whose context sum is S < _CTX_LUT.
     """
 
     def __init__(self, sym_j, tr, n, lanes, mean):
         bands = band_class(np.arange(n), n)
-        self.info = bands[sym_j] | (np.minimum(sym_j, CONTEXT_WINDOW) << 3)
+        self.info = ((np.minimum(sym_j, CONTEXT_WINDOW) << 3) + bands[sym_j]) * _CTX_LUT
         self.tr = tr
         self.out = np.zeros(sym_j.size, dtype=np.int64)
         self.hist = np.zeros((CONTEXT_WINDOW, lanes), dtype=np.int64)
         self.state = np.zeros(lanes, dtype=np.int64)  # layout 4: trellis state of each lane
         self.first_row = MEAN_LEN_ROW if mean else LEN_ROW
-        self.scale_lut = _scale_lut()
+        self.class_lut = _class_lut()
         # per class: how far a magnitude may reach before its s low bits pass 2**53
         self.room = np.maximum(_BIG_BITS - _model().shift, 0)
         self.n = n
@@ -908,14 +915,21 @@ def _scale_lut() -> np.ndarray:
     return cls.ravel()
 
 
+@functools.cache
+def _class_lut() -> np.ndarray:
+    """Class by (magnitudes in the sum, band class, sum): :func:`_scale_lut` plus the band."""
+    table = _scale_lut().reshape(CONTEXT_WINDOW + 1, 1, _CTX_LUT)
+    return (table + np.arange(_BANDS)[None, :, None]).ravel()
+
+
 def _step_classes(st: _DecodeState, a: int, idx: np.ndarray, first: np.ndarray,
                   tot: np.ndarray, info: np.ndarray) -> np.ndarray:
     """Model class of each active lane's symbol (as :func:`context_class`, by table)."""
-    d = info >> 3
-    cls = st.scale_lut[d * _CTX_LUT + np.minimum(tot, _CTX_LUT - 1)] + (info & 7)
+    cls = st.class_lut[info + np.minimum(tot, _CTX_LUT - 1)]
     big = np.flatnonzero(tot >= _CTX_LUT)
     if big.size:
-        cls[big] = _classes(tot[big], (tot[big] << 4) // d[big], info[big] & 7)
+        key = info[big] // _CTX_LUT
+        cls[big] = _classes(tot[big], (tot[big] << 4) // (key >> 3), key & 7)
     if st.tr is not None:
         s = st.state[:a]
         s[first] = 0
@@ -927,7 +941,7 @@ def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray,
                  k: int) -> None:
     """Decode coefficient ``k`` of each of the lanes ``0 .. a - 1`` (their symbols ``idx``)."""
     info = st.info[idx]
-    first = info < 8
+    first = info < 8 * _CTX_LUT
     h = st.hist[:, :a]  # a ring: step k writes row k % CONTEXT_WINDOW
     if _any(first):
         h[:, first] = 0
