@@ -308,7 +308,9 @@ def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
     hi = mag >> s
     esc = ~first & (hi >= MODEL_SYMBOLS)
     big = first | esc
-    sym = np.where(first, _bit_length(mag), np.minimum(hi, MODEL_SYMBOLS))
+    sym = np.minimum(hi, MODEL_SYMBOLS)
+    fi = np.flatnonzero(first)
+    sym[fi] = _bit_length(mag[fi])  # coefficient 0: its bit length
     tab = np.where(first, MEAN_LEN_ROW if mean else LEN_ROW, cls) * _W + sym
     bi = np.flatnonzero(big)
     e = np.where(first[bi], mag[bi], hi[bi] - MODEL_SYMBOLS)
@@ -322,9 +324,10 @@ def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
     nops = 1 + esc + ce + cl + nz
     base = np.cumsum(nops) - nops
     total = int(nops.sum())
-    cum = np.empty(total, np.int64)
-    freq = np.ones(total, np.int64)
-    shift = np.empty(total, np.int64)
+    # small types (cum < 2**16, freq <= 2**15, shift <= 16): less memory traffic
+    cum = np.empty(total, np.int32)
+    freq = np.ones(total, np.int32)
+    shift = np.empty(total, np.int8)
     cum[base] = model.flat[tab]
     freq[base] = model.flat[tab + 1] - model.flat[tab]
     shift[base] = TOTAL_BITS
@@ -355,9 +358,7 @@ def _row_ops(q: np.ndarray, count: np.ndarray, trellis, mean: bool):
     zi = np.flatnonzero(nz)
     cum[at[zi]] = neg[zi]
     shift[at[zi]] = 1
-    # small types (cum < 2**16, freq <= 2**15, shift <= 16): a quarter of the memory traffic
-    return (cum.astype(np.int32), freq.astype(np.int32), shift.astype(np.int8),
-            np.repeat(row, nops))
+    return cum, freq, shift, np.repeat(row, nops)
 
 
 def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
@@ -461,7 +462,7 @@ def _range_steps(sf: np.ndarray, cum: np.ndarray, first: np.ndarray, active: np.
     lanes = sf.shape[0] if first is None else first.size
     rng = np.full(lanes, _MASK32, dtype=np.int64)
     shifted = np.zeros(lanes, dtype=np.int64)
-    term = np.empty(int(active.sum()), np.int64)
+    term = np.empty(int(active.sum()), np.float64)  # exact: every term is below 2**32
     before = np.empty(term.size, np.int32)
     for k, (a, s) in enumerate(zip(active.tolist(), sstart.tolist())):
         if first is None:
@@ -508,7 +509,7 @@ def _lane_digits(term, before, nbytes, order, rank, active, sstart):
         s0, s1 = int(sstart[k0]), int(sstart[k1 - 1] + active[k1 - 1])
         # the lane of each operation: step k holds ranks 0 .. active[k] - 1
         pos = np.concatenate([rb[:a] for a in active[k0:k1].tolist()]) + before[s0:s1]
-        acc += np.bincount(pos, weights=term[s0:s1].astype(np.float64), minlength=acc.size)
+        acc += np.bincount(pos, weights=term[s0:s1], minlength=acc.size)
         k0 = k1
     acc[base + own + 4] += _TOP - 1  # the flush
     digits = _carry(acc.astype(np.int64))
