@@ -281,10 +281,11 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool =
     if ns <= rows:
         return _row_ops(q, count, trellis, mean)
     parts = []
+    small = np.int32 if ns < 2**31 else np.int64  # the row numbers stay under 32 MB
     for a in range(0, ns, rows):  # blocks of rows: the temporaries stay in the CPU cache
         tr = trellis if trellis is None or np.ndim(trellis) == 0 else trellis[a : a + rows]
         cum, freq, shift, row = _row_ops(q[a : a + rows], count[a : a + rows], tr, mean)
-        parts.append((cum, freq, shift, row + a))
+        parts.append((cum, freq, shift, (row + a).astype(small)))
     return tuple(np.concatenate(x) for x in zip(*parts))
 
 
@@ -421,7 +422,9 @@ def encode_lanes(cum: np.ndarray, freq: np.ndarray, shift: np.ndarray, lane: np.
         # lanes of similar lengths: each lane's operations in a row of a padded table
         # (rows longest first), so step k reads column k in place, without an index
         width = active.size
-        at = np.repeat(rank * width - (np.cumsum(nops) - nops), nops) + np.arange(lane.size)
+        small = np.int32 if lanes * width < 2**31 else np.int64  # under 32 MB: no fresh pages
+        at = (np.repeat((rank * width - (np.cumsum(nops) - nops)).astype(small), nops)
+              + np.arange(lane.size, dtype=small))
         ops = []
         for v in (sf, cum):
             t = np.zeros(lanes * width, np.int32)
@@ -462,23 +465,39 @@ def _range_steps(sf: np.ndarray, cum: np.ndarray, first: np.ndarray, active: np.
     lanes = sf.shape[0] if first is None else first.size
     rng = np.full(lanes, _MASK32, dtype=np.int64)
     shifted = np.zeros(lanes, dtype=np.int64)
-    term = np.empty(int(active.sum()), np.float64)  # exact: every term is below 2**32
-    before = np.empty(term.size, np.int32)
-    for k, (a, s) in enumerate(zip(active.tolist(), sstart.tolist())):
-        if first is None:
-            p, c = sf[:a, k], cum[:a, k]
-        else:
-            idx = first[:a] + k
-            p, c = sf[idx], cum[idx]
-        r = rng[:a] >> (p & 31)
-        np.multiply(r, c, out=term[s : s + a])
-        nr = r * (p >> 5)
-        before[s : s + a] = shifted[:a]
-        # renormalisation: range stays >= 2**8 after a step, so at most two bytes
-        nb = (nr < _TOP).view(np.int8) + (nr < (1 << 16)).view(np.int8)
-        shifted[:a] += nb
-        np.left_shift(nr, nb << 3, out=rng[:a])
+    before = np.empty(int(active.sum()), np.int32)
+    # the terms (exact floats: every term is below 2**32) in pieces of _SUM_CHUNK
+    term = [np.empty(s1 - s0) for _, _, s0, s1 in _sum_chunks(active, sstart)]
+    act, start = active.tolist(), sstart.tolist()
+    for (k0, k1, s0, _), piece in zip(_sum_chunks(active, sstart), term):
+        for k in range(k0, k1):
+            a, s = act[k], start[k]
+            if first is None:
+                p, c = sf[:a, k], cum[:a, k]
+            else:
+                idx = first[:a] + k
+                p, c = sf[idx], cum[idx]
+            r = rng[:a] >> (p & 31)
+            np.multiply(r, c, out=piece[s - s0 : s - s0 + a])
+            nr = r * (p >> 5)
+            before[s : s + a] = shifted[:a]
+            # renormalisation: range stays >= 2**8 after a step, so at most two bytes
+            nb = (nr < _TOP).view(np.int8) + (nr < (1 << 16)).view(np.int8)
+            shifted[:a] += nb
+            np.left_shift(nr, nb << 3, out=rng[:a])
     return term, before, shifted
+
+
+def _sum_chunks(active: np.ndarray, sstart: np.ndarray) -> list[tuple[int, int, int, int]]:
+    """Runs of whole steps (k0, k1) of about _SUM_CHUNK operations, and where their
+    operations sit in step-major order (s0, s1)."""
+    out, k0 = [], 0
+    while k0 < active.size:
+        k1 = int(np.searchsorted(sstart, sstart[k0] + _SUM_CHUNK, side="right"))
+        k1 = max(k1, k0 + 1)
+        out.append((k0, k1, int(sstart[k0]), int(sstart[k1 - 1] + active[k1 - 1])))
+        k0 = k1
+    return out
 
 
 #: Step-major operations per pass when the terms are summed: temporaries stay small.
@@ -501,16 +520,12 @@ def _lane_digits(term, before, nbytes, order, rank, active, sstart):
     base = np.cumsum(size) - size
     rb = base[order] + 4  # lowest digit of a term at b = 0, per rank
     acc = np.zeros(int(size.sum()), dtype=np.float64)
-    steps = active.size
-    k0 = 0
-    while k0 < steps:  # a few steps at a time: terms < 2**48 and sums < 2**53 are exact
-        k1 = int(np.searchsorted(sstart, sstart[k0] + _SUM_CHUNK, side="right"))
-        k1 = max(k1, k0 + 1)
-        s0, s1 = int(sstart[k0]), int(sstart[k1 - 1] + active[k1 - 1])
+    # a piece of steps at a time; terms < 2**32 and their sums at one digit < 2**32 are
+    # exact in floating point (the terms at one digit all narrow one interval)
+    for (k0, k1, s0, s1), piece in zip(_sum_chunks(active, sstart), term):
         # the lane of each operation: step k holds ranks 0 .. active[k] - 1
         pos = np.concatenate([rb[:a] for a in active[k0:k1].tolist()]) + before[s0:s1]
-        acc += np.bincount(pos, weights=term[s0:s1], minlength=acc.size)
-        k0 = k1
+        acc += np.bincount(pos, weights=piece, minlength=acc.size)
     acc[base + own + 4] += _TOP - 1  # the flush
     digits = _carry(acc.astype(np.int64))
     if digits[base].any():
