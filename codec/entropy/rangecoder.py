@@ -636,9 +636,8 @@ class RangeDecoder:
     def _word(self, pos, end) -> np.ndarray:
         return self.words[np.minimum(pos, end)]
 
-    def _renorm(self, lanes) -> None:
-        # after a step range >= 2**8: at most two bytes
-        rg = self.rng[lanes]
+    def _renorm(self, lanes, rg: np.ndarray) -> None:
+        # after a step range >= 2**8 (``rg``, just stored): at most two bytes
         nb = (rg < _TOP).view(np.int8) + (rg < (1 << 16)).view(np.int8)
         if not _any(nb):
             return
@@ -693,6 +692,16 @@ class RangeDecoder:
             out[sel] = (out[sel] << cw[sel]) | v
         return out
 
+    def sign_bits(self, a: int, width: np.ndarray) -> np.ndarray:
+        """Whether the 1-bit value of each of lanes ``0 .. a - 1`` with ``width`` 1 is 1
+        (:meth:`bits` with widths of 0 or 1, whose largest value is the width)."""
+        lanes = slice(0, a)
+        r = self.rng[lanes] >> width
+        val = self.value[lanes]
+        v = np.minimum(val // r, width)
+        self._narrow(lanes, r, val - r * v, r)
+        return v == 1
+
     def prefix_bits(self, a: int, width: np.ndarray) -> np.ndarray:
         """:meth:`long_bits` of lanes ``0 .. a - 1`` (width 0: nothing read)."""
         if np.maximum.reduce(width) <= _BYPASS_MAX:
@@ -706,7 +715,7 @@ class RangeDecoder:
             val = np.minimum(val, rng - 1)
         self.value[lanes] = val
         self.rng[lanes] = rng
-        self._renorm(lanes)
+        self._renorm(lanes, rng)
 
 
 #: At most this many lanes still decoding: they finish one at a time in plain integers.
@@ -981,8 +990,7 @@ def _decode_step(dec: RangeDecoder, st: _DecodeState, a: int, idx: np.ndarray,
         ov = np.flatnonzero(over)
         dec.bad[ov] = True
         mag[ov] = 0
-    nz = mag > 0
-    neg = dec.bits(slice(0, a), nz.view(np.int8)) == 1  # the sign of each non-zero
+    neg = dec.sign_bits(a, (mag > 0).view(np.int8))  # the sign of each non-zero
     st.out[idx] = np.where(neg, -mag, mag)
     if st.tr is not None:
         s_ = st.state[:a]
