@@ -281,3 +281,24 @@ def test_public_api_examples_run():
 
     result = doctest.testmod(codec.stream.search)
     assert result.attempted >= 5 and result.failed == 0, result
+
+
+#: Longest function body allowed in ``codec/`` (issue 14's acceptance; a project
+#: rule, no outside source).  Generated table modules hold data, not functions.
+MAX_FUNCTION_LINES = 80
+
+
+def long_functions(source: str, limit: int = MAX_FUNCTION_LINES) -> list[str]:
+    """``name (lines)`` of every function or method in ``source`` longer than ``limit``."""
+    return [f"{node.name} ({node.end_lineno - node.lineno + 1})"
+            for node in ast.walk(ast.parse(source))
+            if isinstance(node, ast.FunctionDef | ast.AsyncFunctionDef)
+            and node.end_lineno - node.lineno + 1 > limit]
+
+
+def test_no_long_functions_in_codec():
+    assert long_functions("def f():\n" + "    x = 1\n" * 80) == ["f (81)"]  # the scanner works
+    assert long_functions("def f():\n" + "    x = 1\n" * 79) == []
+    found = {str(p.relative_to(ROOT)): long_functions(p.read_text(encoding="utf-8"))
+             for p in _py_files("codec")}
+    assert not {k: v for k, v in found.items() if v}, found

@@ -142,6 +142,21 @@ def test_large_values_round_trip(rows, count, lanes):
         assert bytes(data[start[ln] : start[ln] + length[ln]]) == _encode_reference(ops)
 
 
+def test_lanes_of_very_unequal_lengths_match_the_reference_coder():
+    # one long lane beside many short (and empty) ones: the encoder reads the lanes'
+    # operations by index here instead of from a padded table; same bytes either way
+    rng = np.random.default_rng(8)
+    n = 32
+    q = np.rint(rng.laplace(0, 40, (40, n)) * np.exp(-np.arange(n) / 8)).astype(np.int64)
+    count = np.r_[np.full(30, n), rng.integers(0, 4, 10)]
+    lane = np.r_[np.zeros(30, np.int64), np.arange(1, 11)]
+    data, length, start = _roundtrip(q, count, lane)
+    for ln in range(11):
+        ops = [op for i in np.flatnonzero(lane == ln) for op in _ops_scalar(q[i].tolist(),
+                                                                         int(count[i]))]
+        assert bytes(data[start[ln] : start[ln] + length[ln]]) == _encode_reference(ops)
+
+
 def test_coded_length_is_within_a_few_bytes_of_the_ideal():
     # -sum log2 p of the model, coefficient by coefficient (Shannon): an arithmetic
     # coder with 32-bit state spends at most a few bytes more per lane.

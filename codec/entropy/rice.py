@@ -47,12 +47,16 @@ __all__ = [
     "read_rice_escape",
     "rice_k_from_context",
     "preceding_sums",
+    "CONTEXT_WINDOW",
     "zigzag",
     "unzigzag",
     "RICE_ESCAPE",
     "ESCAPE_BITS",
 ]
 
+#: Coefficients whose magnitudes form the context of the next one, in both adaptive
+#: coders: the Rice parameter of layout 2 and the range coder's classes (layouts 3, 4).
+CONTEXT_WINDOW = 4
 #: Quotient from which the frame layout's Rice code escapes to plain bits.
 RICE_ESCAPE = 32
 #: Width of the plain magnitude after an escape (magnitudes stay below 2**53).

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..entropy.bits import BitReader, pack_fields
-from ..entropy.rice import exp_golomb_bits, read_exp_golomb, read_rice_escape
+from ..entropy.rice import CONTEXT_WINDOW, exp_golomb_bits, read_exp_golomb, read_rice_escape
 from ..quantize.select import choose_steps, code_frame
 from .envelope import CRC_BYTES, SYNC, FrameKey, wrap_frames
 from .fields import header_bits, header_slots, read_header
@@ -56,8 +56,6 @@ __all__ = [
 ]
 
 LAYOUT_VERSION_2 = 2
-#: Coefficients whose magnitudes set the Rice parameter of the next one.
-CONTEXT_WINDOW = 4
 K_INIT_BITS = 5
 #: Smallest possible v2 frame: sync, 2 length bytes, 3 header bytes, CRC.
 MIN_V2_BYTES = len(SYNC) + 2 + 3 + CRC_BYTES

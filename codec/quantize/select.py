@@ -189,6 +189,18 @@ def _quantized(cx, mean, dc, code, offset, trellis=False, error_only=False):
         q, err = trellis_quantize(c, step)
         return q, mean_int, err
     st = step[:, None]
+    if error_only and not (np.isscalar(offset) and offset == 0.5):
+        # the error alone: |c| - floor(|c| / step + o) step is exactly -(c - q step) where
+        # c < 0 (IEEE rounding is symmetric), so the squares and their sums are the same
+        # without putting the signs back
+        a = np.abs(c)
+        off = np.broadcast_to(np.asarray(offset, dtype=np.float64), step.shape)[:, None]
+        q = np.divide(a, st)
+        np.add(q, off, out=q)
+        np.floor(q, out=q)
+        np.multiply(q, st, out=q)
+        np.subtract(a, q, out=a)
+        return None, mean_int, np.einsum("ij,ij->i", a, a)
     if np.isscalar(offset) and offset == 0.5:
         q = np.divide(c, st)
         np.rint(q, out=q)
@@ -219,7 +231,7 @@ def _error_only(cx, mean, dc, code, offset, trellis=False):
     for a in range(0, nf, _BLOCK_ROWS):
         b = min(a + _BLOCK_ROWS, nf)
         out[a:b] = _quantized(cx[a:b], None if mean is None else mean[a:b], dc, code[a:b],
-                              offset if np.isscalar(offset) else off[a:b])[2]
+                              offset if np.isscalar(offset) else off[a:b], error_only=True)[2]
     return out
 
 
@@ -386,11 +398,24 @@ def block_budgets(
 
 
 def _row_scale(cx, mean, dc, n):
-    scale = np.abs(cx).max(axis=1)
+    scale = _row_absmax(cx)
     if mean is not None:
         scale = np.maximum(scale, np.abs(mean) * np.sqrt(n))
-    ac = scale if mean is None else np.abs(cx - mean[:, None] * dc).max(axis=1)
+    ac = scale if mean is None else _row_absmax(cx - mean[:, None] * dc)
     return scale, ac
+
+
+def _row_absmax(x: np.ndarray) -> np.ndarray:
+    """``np.abs(x).max(axis=1)``, by halving the rows: a maximum is exact in any order,
+    and whole-column passes beat a reduction along short rows (twice as fast, measured)."""
+    y = np.abs(x)
+    while y.shape[1] > 1:
+        h = y.shape[1] // 2
+        top = np.maximum(y[:, :h], y[:, h : 2 * h])
+        if y.shape[1] % 2:
+            top[:, 0] = np.maximum(top[:, 0], y[:, -1])
+        y = top
+    return y[:, 0]
 
 
 def choose_block_steps(
@@ -443,16 +468,19 @@ def spend_block_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.nd
         return q, err
     nf, n = q.shape
     nb = budget.size
-    st = step[:, None]
-    add = np.where(cand, st * (2.0 * np.abs(c) - st), np.inf)
-    # the rows of each block side by side in one padded row of the block
+    # the candidates only, block by block (rows of a block in order): each block's costs
+    # side by side in one row padded with inf, as wide as the block with the most
     order = np.argsort(block, kind="stable")
-    counts = np.bincount(block, minlength=nb)
-    starts = np.cumsum(counts) - counts
-    pos = np.arange(nf) - starts[block[order]]
-    wide = np.full((nb, int(counts.max()), n), np.inf)
-    wide[block[order], pos] = add[order]
-    srt = np.sort(wide.reshape(nb, -1), axis=1)
+    r, j = np.nonzero(cand[order])
+    rows = order[r]
+    sr = step[rows]
+    add = sr * (2.0 * np.abs(c[rows, j]) - sr)
+    blk = block[rows]
+    counts = np.bincount(blk, minlength=nb)
+    pos = np.arange(add.size) - np.repeat(np.cumsum(counts) - counts, counts)
+    wide = np.full((nb, int(counts.max())), np.inf)
+    wide[blk, pos] = add
+    srt = np.sort(wide, axis=1)
     with np.errstate(invalid="ignore"):
         cs = np.cumsum(srt, axis=1)
     slack = budget * _MARGIN - block_sums(err, block, nb)
@@ -460,8 +488,12 @@ def spend_block_slack(c: np.ndarray, q: np.ndarray, step: np.ndarray, err: np.nd
     km = np.maximum(k - 1, 0)[:, None]
     thr = np.where(k > 0, np.take_along_axis(srt, km, 1)[:, 0], -np.inf)
     # ties at the threshold could overshoot; the encoder's closed loop re-checks every block
-    zero = add <= thr[block][:, None]
-    return np.where(zero, 0, q), err + np.where(zero, add, 0.0).sum(axis=1)
+    z = add <= thr[blk]
+    spent = np.zeros((nf, n))  # row sums over the full rows, as the error is summed elsewhere
+    spent[rows[z], j[z]] = add[z]
+    q = q.copy()
+    q[rows[z], j[z]] = 0
+    return q, err + spent.sum(axis=1)
 
 
 @dataclass(frozen=True)
