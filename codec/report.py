@@ -31,7 +31,7 @@ __all__ = ["error_figures", "stream_report", "scope_figures", "units_of", "with_
            "per_frame_table",
            "time_column_report", "encode_command_report", "DecoderCounts", "FrameEvent",
            "StatusTally", "decode_report", "receive_report", "roundtrip_figures", "REFUSALS",
-           "pack_report", "pack_command_report"]
+           "pack_report", "pack_command_report", "compare_report"]
 
 #: Why the decoder refuses a CRC-valid frame: each is counted as ``frames_<why>``.
 REFUSALS = ("foreign_profile", "bad_header", "duplicate", "conflict", "late", "beyond_end",
@@ -862,3 +862,52 @@ def pack_command_report(base: dict, samples: int, channels: int,
     return {**base, "samples": int(samples), "channels": int(channels),
             "dictionary_sha256": dictionary_sha256,
             "zstd_dictionary_id": int(zstd_dictionary_id), "pack_written": bool(written)}
+
+
+# ---- compare -----------------------------------------------------------------------------------
+
+def compare_report(cmp, profile, input_name: str | None = None) -> dict:
+    """The JSON report of ``compare`` (and the demo's ``*.compare.json``).
+
+    Parameters
+    ----------
+    cmp : Comparison
+        What :func:`codec.compare_bases` returned.
+    profile : Profile
+        The profile the comparison ran under (bound to the channels or not).
+    input_name : str, optional
+        The input file, as the user named it (the demo leaves it out).
+
+    Returns
+    -------
+    dict
+        ``input`` (when given), ``frame_length``, ``fidelity_scope``,
+        ``train_samples``, ``test_samples``, ``scoring``, ``rows`` (one per
+        basis, fidelity and channel, and ``all``), ``units`` (the rows' errors
+        are in each channel's unit) and ``klt`` (the trained basis's note) when
+        a basis was trained.
+
+    Examples
+    --------
+    >>> import numpy as np, codec
+    >>> x = np.cumsum(np.random.default_rng(2).standard_normal((1024, 1)), axis=0)
+    >>> p = codec.default_profile()
+    >>> cmp = codec.compare_bases(x, p, ["dct", "haar"], [0.99])
+    >>> r = compare_report(cmp, p, "x.csv")
+    >>> r["input"], r["frame_length"], sorted({row["basis"] for row in r["rows"]})
+    ('x.csv', 64, ['dct', 'haar'])
+    """
+    report = {} if input_name is None else {"input": str(input_name)}
+    report.update({
+        "frame_length": cmp.frame_length, "fidelity_scope": profile.fidelity_scope,
+        "train_samples": cmp.train_samples, "test_samples": cmp.test_samples,
+        "scoring": "trained bases are fitted on the first train_samples samples; every basis "
+                   "is scored on the remaining test_samples",
+        "rows": cmp.rows,
+        # errors in the rows are in each channel's unit (SI numbers as measured)
+        "units": units_of(profile.bind(cmp.names)),
+    })
+    if cmp.trained is not None:
+        report["klt"] = cmp.trained.note.model_dump()
+    return report
+

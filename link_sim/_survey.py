@@ -37,7 +37,7 @@ from codec import (
     read_samples,
 )
 
-from ._budget import Budget, judge_stream
+from ._budget import SECONDS_PER_DAY, Budget, judge_stream
 
 __all__ = [
     "SUFFIXES",
@@ -60,7 +60,7 @@ SUFFIXES = (".csv", ".npy", ".parquet")
 #: Pattern fields that name the period a file covers; every other field names its group.
 PERIOD_FIELDS = ("date", "day", "period", "time", "start", "week", "month", "hour")
 #: Seconds per day, the unit of every "bits per day" figure.
-DAY_S = 86400.0
+DAY_S = SECONDS_PER_DAY
 
 #: Keys of every survey row, in table order (one row per file x channel x basis x fidelity;
 #: a file that failed has one row with ``error`` set and the figures empty).

@@ -10,7 +10,7 @@ from .._compare import ROW_KEYS, compare_bases
 from .._errors import InputError
 from .._io import atomic_output, read_samples
 from .._profile import default_profile, load_profile
-from ..report import common_unit, pooled_label, units_of, with_unit
+from ..report import common_unit, compare_report, pooled_label, units_of, with_unit
 from ._codec_cmds import _CAUTION
 from .common import check_distinct, fmt, json_ready, write_json
 
@@ -69,18 +69,7 @@ def _compare(args) -> int:
     units = units_of(profile.bind(cmp.names))
     lines = _table(cmp, units)
     print("\n".join(lines))
-    report = {
-        "input": str(args.input), "frame_length": cmp.frame_length,
-        "fidelity_scope": profile.fidelity_scope,
-        "train_samples": cmp.train_samples, "test_samples": cmp.test_samples,
-        "scoring": "trained bases are fitted on the first train_samples samples; every basis "
-                   "is scored on the remaining test_samples",
-        "rows": cmp.rows,
-        # errors in the rows are in each channel's unit (SI numbers as measured)
-        "units": units,
-    }
-    if cmp.trained is not None:
-        report["klt"] = cmp.trained.note.model_dump()
+    report = compare_report(cmp, profile, args.input)
     write_json(args.json, report)
     if args.csv:
         with atomic_output(args.csv) as tmp, open(tmp, "w", encoding="utf-8", newline="") as fh:

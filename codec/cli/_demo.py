@@ -15,7 +15,7 @@ from .._compare import compare_bases
 from .._io import SampleTable, csv_decimals, read_samples, write_samples
 from .._profile import load_profile
 from .._timecol import time_fields
-from ..report import units_of
+from ..report import compare_report
 from ._codec_cmds import channel_figure_lines, roundtrip_report, write_stream
 from .common import fmt, write_json
 
@@ -103,8 +103,7 @@ def _print_comparison(name, profile, table, out) -> int:
                         train_fraction=0.5, names=table.names, input_name=name, progress=True)
     plot = out / f"{name}.compare.png"
     plot_comparison(cmp, plot, profile=profile, profile_name=f"profile {name}.toml")
-    write_json(out / f"{name}.compare.json",
-               {"rows": cmp.rows, "units": units_of(profile.bind(cmp.names))})
+    write_json(out / f"{name}.compare.json", compare_report(cmp, profile))
     print(f"   bases compared on the last {cmp.test_samples} samples ('klt' trained on the first "
           f"{cmp.train_samples}); bits/sample over all channels:")
     overall = [r for r in cmp.rows if r["channel"] == "all"]

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..entropy.rice import exp_golomb_bits
+from ..quantize.steps import STEP_CODE_BITS as STEP_BITS  # one step-code width
 from .envelope import CRC_BYTES, LONG_LENGTH_BITS, SHORT_LENGTH_BITS, SYNC
 from .registry import ParseContext, ParsedFrames, Verdicts
 
@@ -30,7 +31,6 @@ __all__ = [
     "parse_checked",
 ]
 
-STEP_BITS = 10
 #: Bits of the profile field: the low byte of the 16-bit profile identifier.
 PROFILE_BITS = 8
 
