@@ -23,6 +23,7 @@ from collections.abc import Callable
 import numpy as np
 
 from ._fec_base import Code, DecodeStats, as_u8
+from ._registry import NamedRegistry
 
 __all__ = ["FEC_NAMES", "Code", "DecodeStats", "NoCode", "Hamming74", "ReedSolomon255",
            "Convolutional", "make_code", "register_fec", "unregister_fec", "fec_names", "GF_EXP",
@@ -521,15 +522,15 @@ class Convolutional(Code):
 #: The codes by name, each made from its interleaving depth.  A new code is one file
 #: (a :class:`Code` subclass, importing only ``link_sim._fec_base``) plus one line
 #: here, or one :func:`register_fec` call (DEVELOPERS.md, "Adding an FEC code").
-_FACTORIES: dict[str, Callable[[int], Code]] = {
+_FACTORIES = NamedRegistry("FEC code", {
     "none": lambda interleave: NoCode(),
     "hamming74": lambda interleave: Hamming74(),
     "rs255": ReedSolomon255,
     "conv": lambda interleave: Convolutional(),
-}
+})
 
 #: The names of the built-in codes, in the order the command line lists them.
-FEC_NAMES = tuple(_FACTORIES)
+FEC_NAMES = _FACTORIES.builtins
 
 
 def register_fec(name: str, factory: Callable[[int], Code]) -> None:
@@ -552,9 +553,7 @@ def register_fec(name: str, factory: Callable[[int], Code]) -> None:
     (True, 0.3333333333333333)
     >>> unregister_fec("repeat3")
     """
-    if name in _FACTORIES:
-        raise ValueError(f"an FEC code called {name!r} is already registered")
-    _FACTORIES[name] = factory
+    _FACTORIES.add(name, factory)
 
 
 def unregister_fec(name: str) -> None:
@@ -572,9 +571,7 @@ def unregister_fec(name: str) -> None:
     ...
     ValueError: the built-in FEC code 'conv' cannot be withdrawn
     """
-    if name in FEC_NAMES:
-        raise ValueError(f"the built-in FEC code {name!r} cannot be withdrawn")
-    _FACTORIES.pop(name, None)
+    _FACTORIES.remove(name)
 
 
 def fec_names() -> tuple[str, ...]:
@@ -590,7 +587,7 @@ def fec_names() -> tuple[str, ...]:
     >>> fec_names()[:4]
     ('none', 'hamming74', 'rs255', 'conv')
     """
-    return tuple(_FACTORIES)
+    return _FACTORIES.names()
 
 
 def make_code(name: str, interleave: int = 1) -> Code:
@@ -618,7 +615,4 @@ def make_code(name: str, interleave: int = 1) -> Code:
     >>> [round(make_code(name).rate, 4) for name in FEC_NAMES]
     [1.0, 0.5714, 0.8745, 0.5]
     """
-    factory = _FACTORIES.get(name)
-    if factory is None:
-        raise ValueError(f"unknown FEC {name!r}; use one of {', '.join(_FACTORIES)}")
-    return factory(interleave)
+    return _FACTORIES.get(name)(interleave)

@@ -34,6 +34,7 @@ from codec import locate_frames, units_of
 from ._channels import GilbertElliott, awgn, bsc, erase_frames, gilbert_elliott
 from ._fec import make_code
 from ._receiver import CONCEALED, DELIVERED, LOST, receive
+from ._registry import NamedRegistry
 from ._theory import ber_theory
 
 __all__ = ["ChannelConfig", "CHANNEL_KINDS", "channel_kinds", "register_channel",
@@ -89,7 +90,7 @@ class ChannelConfig:
 #: in its own file plus one line here or one :func:`register_channel` call
 #: (DEVELOPERS.md, "Adding a channel model").
 Transmit = Callable[[np.ndarray, "ChannelConfig", np.random.Generator, float, bool], np.ndarray]
-_CHANNELS: dict[str, Transmit] = {
+_CHANNELS = NamedRegistry("channel model", {
     "bsc": lambda bits, cfg, rng, rate, soft: bsc(bits, cfg.ber, rng),
     "awgn": lambda bits, cfg, rng, rate, soft: awgn(bits, cfg.ebn0_db, rng, cfg.modulation,
                                                     rate=rate, soft=soft),
@@ -97,10 +98,10 @@ _CHANNELS: dict[str, Transmit] = {
         bits, GilbertElliott(cfg.burst_length_bits, cfg.bad_fraction, cfg.ber, cfg.ber_bad), rng),
     # whole frames lost (cfg.loss_rate, applied to every channel), no bit errors
     "erasure": lambda bits, cfg, rng, rate, soft: bits.copy(),
-}
+})
 
 #: The names of the built-in channel models, in the order the command line lists them.
-CHANNEL_KINDS = tuple(_CHANNELS)
+CHANNEL_KINDS = _CHANNELS.builtins
 
 
 def register_channel(name: str, transmit: Transmit) -> None:
@@ -128,9 +129,7 @@ def register_channel(name: str, transmit: Transmit) -> None:
     [1, 0, 0]
     >>> unregister_channel("invert")
     """
-    if name in _CHANNELS:
-        raise ValueError(f"a channel model called {name!r} is already registered")
-    _CHANNELS[name] = transmit
+    _CHANNELS.add(name, transmit)
 
 
 def unregister_channel(name: str) -> None:
@@ -148,9 +147,7 @@ def unregister_channel(name: str) -> None:
     ...
     ValueError: the built-in channel model 'awgn' cannot be withdrawn
     """
-    if name in CHANNEL_KINDS:
-        raise ValueError(f"the built-in channel model {name!r} cannot be withdrawn")
-    _CHANNELS.pop(name, None)
+    _CHANNELS.remove(name)
 
 
 def channel_kinds() -> tuple[str, ...]:
@@ -166,7 +163,7 @@ def channel_kinds() -> tuple[str, ...]:
     >>> channel_kinds()[:4]
     ('bsc', 'awgn', 'burst', 'erasure')
     """
-    return tuple(_CHANNELS)
+    return _CHANNELS.names()
 
 
 def transmit_bits(bits: np.ndarray, cfg: ChannelConfig, rng: np.random.Generator,
@@ -202,10 +199,7 @@ def transmit_bits(bits: np.ndarray, cfg: ChannelConfig, rng: np.random.Generator
     >>> round(float(out.mean()), 2)
     0.1
     """
-    transmit = _CHANNELS.get(cfg.kind)
-    if transmit is None:
-        raise ValueError(f"unknown channel {cfg.kind!r}; use one of {', '.join(_CHANNELS)}")
-    return transmit(bits, cfg, rng, rate, soft)
+    return _CHANNELS.get(cfg.kind)(bits, cfg, rng, rate, soft)
 
 
 def _hard(received: np.ndarray) -> np.ndarray:
