@@ -202,8 +202,7 @@ def compare_bases(
     input_name : str
         Recorded in the trained basis's note.
     progress : bool
-        Report progress on standard error (``codec._progress``: after 2 s, a bar
-        on a terminal, a line every few seconds otherwise).
+        Report progress on standard error (``codec._progress``).
 
     Returns
     -------
@@ -242,20 +241,22 @@ def compare_bases(
     n = profile.frame_length
     fids = _check_fidelities(fidelities)
     names_b = resolve_bases(bases, n)
-    if "identity" not in names_b:
-        names_b = ["identity"] + names_b
+    names_b = names_b if "identity" in names_b else ["identity"] + names_b  # the reference
     split = _training_split(x.shape[0], n, train_fraction)
-    train, test = x[:split], x[split:]
-    trained = None
-    if "klt" in names_b:
-        if split == 0:
-            raise InputError("basis klt needs a training slice; give --train-fraction > 0")
-        trained = train_klt(train, n, names, input_name=input_name)
+    test = x[split:]
+    trained = _trained(x[:split], n, names, input_name) if "klt" in names_b else None
     jobs = [(b, f) for b in names_b for f in fids]
     measured, recon = _encode_all(test, profile, jobs, trained, progress)
     rows = _rows(test, profile, names_b, fids, measured, recon)
     return Comparison(rows, split, test.shape[0], names_b, fids, list(names), trained, test,
                       recon, n)
+
+
+def _trained(train: np.ndarray, n: int, names, input_name: str):
+    """The KLT fitted on the training slice (refused when there is none)."""
+    if train.shape[0] == 0:
+        raise InputError("basis klt needs a training slice; give --train-fraction > 0")
+    return train_klt(train, n, names, input_name=input_name)
 
 
 def _candidate_profile(profile: Profile, names: list[str] | None, channels: int

@@ -181,6 +181,19 @@ def train_klt(values: np.ndarray, n: int, names: list[str] | None = None,
     if x.ndim == 1:
         x = x[:, None]
     names = list(names) if names is not None else [f"ch{i}" for i in range(x.shape[1])]
+    frames, channel = _training_frames(x, n)
+    matrix, energy = _principal_rows(frames, channel, n, x.shape[1])
+    note = BasisNote(
+        frame_length=n, input_name=str(input_name), channels=tuple(names),
+        frames_used=int(frames.shape[0]),
+        trained_utc=_dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
+        sha256=matrix_sha256(matrix),
+    )
+    return TrainedBasis(matrix, energy, note)
+
+
+def _training_frames(x: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """The full frames of ``x`` (samples x channels) and their channels; refuses too few."""
     if not np.isfinite(x).all():
         raise InputError("the history holds non-finite values; fill the gaps before training")
     if not 2 <= n <= MAX_FRAME_LENGTH:
@@ -194,9 +207,16 @@ def train_klt(values: np.ndarray, n: int, names: list[str] | None = None,
             f"only {frames.shape[0]} full frames of {n} samples in the history; training a "
             f"basis of {n} vectors needs at least {n} frames: give more history, more "
             "channels, or a shorter frame length")
+    return frames, channel
+
+
+def _principal_rows(frames: np.ndarray, channel: np.ndarray, n: int,
+                    channels: int) -> tuple[np.ndarray, np.ndarray]:
+    """The KLT matrix (constant row first, then the principal components of the frames
+    about their means, each channel scaled to unit rms) and the energy along each row."""
     y = frames - frames.mean(axis=1, keepdims=True)
-    rms = np.sqrt(np.bincount(channel, np.einsum("ij,ij->i", y, y), minlength=x.shape[1])
-                  / (n * np.maximum(np.bincount(channel, minlength=x.shape[1]), 1)))
+    rms = np.sqrt(np.bincount(channel, np.einsum("ij,ij->i", y, y), minlength=channels)
+                  / (n * np.maximum(np.bincount(channel, minlength=channels), 1)))
     scale = np.where(rms > 0, rms, 1.0)[channel]
     y = y / scale[:, None]
     # An orthonormal basis of the vectors orthogonal to the constant: DCT rows 1..N-1.
@@ -215,13 +235,7 @@ def train_klt(values: np.ndarray, n: int, names: list[str] | None = None,
     matrix = (qm * np.sign(np.diag(r))).T
     energy = np.concatenate([[np.mean(frames.mean(axis=1) ** 2 * n / scale**2)],
                              np.maximum(eigval[order], 0.0)])
-    note = BasisNote(
-        frame_length=n, input_name=str(input_name), channels=tuple(names),
-        frames_used=int(frames.shape[0]),
-        trained_utc=_dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
-        sha256=matrix_sha256(matrix),
-    )
-    return TrainedBasis(matrix, energy, note)
+    return matrix, energy
 
 
 def save_trained_basis(trained: TrainedBasis, path: str | Path) -> None:
