@@ -51,6 +51,31 @@ def _both(data, profile, monkeypatch, **kw):
     return fast
 
 
+def _chunked(data, profile, monkeypatch, fast, sizes, **kw):
+    """The streaming decoder fed ``data`` in chunks: its blocks, events and counts."""
+    monkeypatch.setattr(live, "FAST_PLACE", fast)
+    dec = live.StreamDecoder(profile, keep_frames=True, **kw)
+    blocks, at, k = [], 0, 0
+    while at < len(data):
+        blocks += dec.feed(data[at : at + sizes[k % len(sizes)]])
+        at += sizes[k % len(sizes)]
+        k += 1
+    blocks += dec.close()
+    return ([(b.start, b.samples, b.status) for b in blocks], dec.events, dec.counts(),
+            dec.frame_table())
+
+
+def _both_chunked(data, profile, monkeypatch, sizes, **kw):
+    a = _chunked(data, profile, monkeypatch, True, sizes, **kw)
+    b = _chunked(data, profile, monkeypatch, False, sizes, **kw)
+    assert len(a[0]) == len(b[0])
+    for (s1, x1, t1), (s2, x2, t2) in zip(a[0], b[0]):
+        assert s1 == s2 and np.array_equal(x1, x2, equal_nan=True) and np.array_equal(t1, t2)
+    assert a[1] == b[1] and a[2] == b[2]
+    for k in a[3]:
+        assert np.array_equal(a[3][k], b[3][k]), k
+
+
 def _long(layout: int, windows: int = 300, channels: int = 2, seed: int = 0, **prof):
     rng = np.random.default_rng(seed)
     n = 16
@@ -107,6 +132,10 @@ def test_reordered_duplicated_spliced_truncated(layout, monkeypatch):
         for kw in ({"samples": samples}, {"samples": None}, {"samples": None, "max_fill": 3},
                    {"samples": samples, "reorder": 0}, {"samples": None, "reorder": 1}):
             _both(data, enc.profile, monkeypatch, **kw)
+        # Fed in chunks: runs start with the head, released windows and keys of earlier feeds.
+        sizes = rng.integers(1, 3 * len(frames[0]), size=7).tolist()
+        for kw in ({"samples": samples}, {"samples": None, "max_fill": 3, "reorder": 2}):
+            _both_chunked(data, enc.profile, monkeypatch, sizes, **kw)
 
 
 def _with_sequence(frame: bytes, seq: int, digest: bytes) -> bytes:
