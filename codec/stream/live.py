@@ -395,9 +395,14 @@ class StreamDecoder:
         blocks = []
         n, nc = self.n, self.channels
         # A long run of windows with no frame is released in pieces (bounded size each).
-        for a in range(self._next, upto, 256):
+        # Each piece's rows found by bisection in window order, then taken in arrival order
+        # (what a mask over all rows would select, without one mask per piece).
+        order = np.argsort(win, kind="stable")
+        bounds = np.searchsorted(win[order], np.arange(self._next, upto + 256, 256)).tolist()
+        for j, a in enumerate(range(self._next, upto, 256)):
             b = min(upto, a + 256)
-            sel = go & (win >= a) & (win < b)
+            hi = bounds[j + 1] if b == a + 256 else int(np.searchsorted(win[order], b))
+            sel = np.sort(order[bounds[j] : hi])
             vals = np.full((b - a, nc, n), np.nan)
             stat = np.full((b - a, nc, n), LOST, dtype=np.uint8)
             have = np.arange(n) < valid[sel][:, None]
