@@ -241,8 +241,8 @@ class StreamDecoder:
         row_ch = fr.row_channel.tolist()
         row_off, row_valid = fr.row_offset.tolist(), fr.row_valid.tolist()  # v3: several windows
         first_row = np.searchsorted(fr.row_frame, np.arange(len(found) + 1)).tolist()
-        take: list[np.ndarray] = []
-        wins: list[np.ndarray] = []
+        take: list[int] = []
+        wins: list[int] = []
         # Frames the fast path may take: accepted data frames with rows and no gap masks.
         plain = np.array([v == "ok" and kinds[i] == 0 and i not in fr.masks
                           and first_row[i + 1] > first_row[i]
@@ -286,8 +286,8 @@ class StreamDecoder:
                 if kind == 1:
                     self._masks[(window, ch)] = what
                 else:
-                    take.append(np.array([what]))
-                    wins.append(np.array([window], dtype=np.int64))
+                    take.append(what)
+                    wins.append(window)
                 if rvalid < self.n and self.end_sample is None:
                     # A short window is the last of its stream: the end is now known.
                     self.end_sample = window * self.n + rvalid
@@ -296,8 +296,8 @@ class StreamDecoder:
                 self._count("frames_ok" if kinds[f] == 0 else "gap_frames_ok")
             tr.released = tr.releasable(False)
         if take:
-            idx = np.concatenate(take)
-            win = np.concatenate(wins).astype(np.int64)
+            idx = np.array(take, dtype=np.int64)
+            win = np.array(wins, dtype=np.int64)
             fidx = fr.row_frame[idx]
             self._pending.append((win, fr.row_channel[idx], fr.row_valid[idx],
                                   fr.row_flags[idx], fr.rows[idx]))
@@ -310,7 +310,7 @@ class StreamDecoder:
                                              fr.row_valid[idx]], axis=1))
 
     def _place_run(self, fr, start: int, stop: int, first_row: list[int],
-                   take: list[np.ndarray], wins: list[np.ndarray]) -> int:
+                   take: list[int], wins: list[int]) -> int:
         """Place frames ``[start, k)`` of a run of plain frames at once; return ``k``.
 
         ``k`` is the first frame with a row that :meth:`SequenceTracker.place`
@@ -375,8 +375,8 @@ class StreamDecoder:
         crc = fr.crc[rf[:n]]
         seen.update(zip(zip(win[keep].tolist(), ch[keep].tolist(), [0] * int(keep.sum())),
                         crc[keep].tolist()))
-        take.append(np.arange(r0, r0 + n))
-        wins.append(win)
+        take.extend(range(r0, r0 + n))
+        wins.extend(win.tolist())
         self._frame_counts["frames_ok"] = self._frame_counts.get("frames_ok", 0) + (k - start)
         return k
 
