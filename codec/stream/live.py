@@ -48,6 +48,10 @@ MAX_EVENTS = 1000
 #: numbers cannot tell a jump over 127 windows), so only version 1, gap-mask frames
 #: and a first frame far from window 0 meet it: 16 384 samples per channel at N = 64.
 MAX_FILL_WINDOWS = 256
+#: Place runs of plain in-order frames with whole-array work (False: every row through
+#: SequenceTracker.place, the reference; the tests compare both).
+FAST_PLACE = True
+_FIRST_SPAN = 64  # frames in a first fast attempt (doubled while runs hold)
 
 
 @dataclass(frozen=True)
@@ -57,6 +61,16 @@ class Block:
     start: int
     samples: np.ndarray
     status: np.ndarray
+
+
+def _run_ends(plain: np.ndarray, modulus: np.ndarray) -> np.ndarray:
+    """For each frame, the end of the run of plain frames of one modulus that holds it."""
+    n = plain.size
+    brk = np.ones(n + 1, dtype=bool)  # a run starts at i when brk[i]
+    brk[1:n] = (~plain[1:]) | (~plain[:-1]) | (modulus[1:] != modulus[:-1])
+    starts = np.flatnonzero(brk)
+    ends = starts[np.searchsorted(starts, np.arange(n), side="right")]
+    return ends
 
 
 def max_frame_bytes(profile: Profile) -> int:
@@ -214,7 +228,12 @@ class StreamDecoder:
         return out
 
     def _place_all(self, found: list[tuple[int, bytes]]) -> None:
-        """Verdict and window of every frame row, in arrival order (plain integers, no arrays)."""
+        """Verdict and window of every frame row, in arrival order.
+
+        Runs of plain in-order frames are placed with whole-array work
+        (:meth:`_place_run`); every other frame goes row by row through
+        :meth:`SequenceTracker.place`, the reference the fast path must equal.
+        """
         fr = decode_frames([f for _, f in found], self.profile, self.basis)
         tr = self.tracker
         seqs, mods = fr.sequence.tolist(), fr.modulus.tolist()
@@ -222,17 +241,42 @@ class StreamDecoder:
         row_ch = fr.row_channel.tolist()
         row_off, row_valid = fr.row_offset.tolist(), fr.row_valid.tolist()  # v3: several windows
         first_row = np.searchsorted(fr.row_frame, np.arange(len(found) + 1)).tolist()
-        take, wins = [], []
-        for i, (offset, _) in enumerate(found):  # one decision per frame row, in order
-            if fr.verdict[i] != "ok":
-                self._event(fr.verdict[i], offset, detail=fr.detail[i])
+        take: list[int] = []
+        wins: list[int] = []
+        # Frames the fast path may take: accepted data frames with rows and no gap masks.
+        plain = np.array([v == "ok" and kinds[i] == 0 and i not in fr.masks
+                          and first_row[i + 1] > first_row[i]
+                          for i, v in enumerate(fr.verdict)], dtype=bool)
+        run_end = _run_ends(plain, fr.modulus) if FAST_PLACE else None
+        i = 0
+        # Attempt sizes grow while runs hold; after a failed attempt the next waits a
+        # few frames (doubling), so a stream that is all reordering stays row by row.
+        span, wait, retry = _FIRST_SPAN, 1, 0
+        while i < len(found):
+            if run_end is not None and plain[i] and tr.head is not None and i >= retry:
+                stop = min(int(run_end[i]), i + span)
+                done = self._place_run(fr, i, stop, first_row, take, wins)
+                if done == stop:
+                    span, wait = span * 2, 1
+                elif done > i:
+                    span, wait = max(_FIRST_SPAN, 2 * (done - i)), 1
+                else:
+                    span, retry, wait = _FIRST_SPAN, i + wait, min(2 * wait, _FIRST_SPAN)
+                if done > i:
+                    i = done
+                    continue
+            offset = found[i][0]
+            i += 1
+            if fr.verdict[i - 1] != "ok":
+                self._event(fr.verdict[i - 1], offset, detail=fr.detail[i - 1])
                 continue
+            f = i - 1
             placed = False
             items = [(row_ch[r], 0, r, row_off[r], row_valid[r])
-                     for r in range(first_row[i], first_row[i + 1])]
-            items += [(ch, 1, mask, off, mask.size) for ch, mask, off in fr.masks.get(i, ())]
+                     for r in range(first_row[f], first_row[f + 1])]
+            items += [(ch, 1, mask, off, mask.size) for ch, mask, off in fr.masks.get(f, ())]
             for ch, kind, what, off, rvalid in items:  # data rows, then a gap frame's masks
-                window, where = tr.place((seqs[i] + off) % mods[i], ch, kind, crcs[i], mods[i])
+                window, where = tr.place((seqs[f] + off) % mods[f], ch, kind, crcs[f], mods[f])
                 if tr.last_cut:
                     self._discontinuity(offset, window, tr.last_cut)
                 if where != "ok":
@@ -249,21 +293,92 @@ class StreamDecoder:
                     self.end_sample = window * self.n + rvalid
                     tr.end_window = window + 1
             if placed:
-                self._count("frames_ok" if kinds[i] == 0 else "gap_frames_ok")
+                self._count("frames_ok" if kinds[f] == 0 else "gap_frames_ok")
             tr.released = tr.releasable(False)
         if take:
-            idx = np.array(take)
+            idx = np.array(take, dtype=np.int64)
             win = np.array(wins, dtype=np.int64)
             fidx = fr.row_frame[idx]
             self._pending.append((win, fr.row_channel[idx], fr.row_valid[idx],
                                   fr.row_flags[idx], fr.rows[idx]))
             if self._keep:
-                offs = np.array([found[f][0] for f in fidx.tolist()], dtype=np.int64)
-                lens = np.array([len(found[f][1]) for f in fidx.tolist()], dtype=np.int64)
-                self._table.append(np.stack([offs, lens, fr.sequence[fidx], win,
+                offs = np.fromiter((o for o, _ in found), dtype=np.int64, count=len(found))
+                lens = np.fromiter((len(f) for _, f in found), dtype=np.int64, count=len(found))
+                self._table.append(np.stack([offs[fidx], lens[fidx], fr.sequence[fidx], win,
                                              fr.row_channel[idx], fr.head["basis"][fidx],
                                              fr.head["terms"][fidx], fr.head["step_code"][fidx],
                                              fr.row_valid[idx]], axis=1))
+
+    def _place_run(self, fr, start: int, stop: int, first_row: list[int],
+                   take: list[int], wins: list[int]) -> int:
+        """Place frames ``[start, k)`` of a run of plain frames at once; return ``k``.
+
+        ``k`` is the first frame with a row that :meth:`SequenceTracker.place`
+        might not accept: a window before 0, past the end or already released,
+        a jump the ``max_fill`` rule would cut, a repeated (window, channel), a
+        short window that fixes the end, or a sequence number the unwrapping
+        below might read otherwise.  The rows before it are exactly those
+        ``place`` would accept, with the same windows.
+        """
+        tr = self.tracker
+        r0, r1 = first_row[start], first_row[stop]
+        rf = fr.row_frame[r0:r1]
+        mod = int(fr.modulus[start])  # one modulus in a run (see _run_ends)
+        half = mod // 2
+        seq = (fr.sequence[rf] + fr.row_offset[r0:r1]) % mod
+        # Unwrap each row against the one before (serial-number steps), the first against
+        # the head as place does; then check each against the head place would hold there
+        # (the largest window so far): within half the range of it, place reads the same.
+        step = np.empty(r1 - r0, dtype=np.int64)
+        step[0] = (int(seq[0]) - tr.head - tr.shift + half) % mod - half
+        step[1:] = (seq[1:] - seq[:-1] + half) % mod - half
+        win = tr.head + np.cumsum(step)
+        top = np.maximum.accumulate(np.maximum(win, tr.head))  # head after each row
+        before = np.concatenate([[tr.head], top[:-1]])  # head place holds at each row
+        ch = fr.row_channel[r0:r1]
+        bad = (win - before < -half) | (win - before >= half) | (win < 0)
+        if tr.max_fill is not None and tr.end_window is None:
+            bad |= win - before - 1 > tr.max_fill
+        if tr.end_window is not None:
+            bad |= win >= tr.end_window
+        # Released before each row: as left by the previous frame (releasable(False)).
+        rel = np.full(r1 - r0, tr.released, dtype=np.int64)
+        later = rf > start
+        if later.any():
+            last = np.asarray(first_row[start + 1 : stop + 1], dtype=np.int64) - 1 - r0
+            rel[later] = np.maximum(rel[later], top[last[rf[later] - start - 1]] - tr.reorder + 1)
+        bad |= win < rel
+        if self.end_sample is None:
+            bad |= fr.row_valid[r0:r1] < self.n
+        # A (window, channel) met before: earlier in the run, or in the tracker (whose
+        # windows are at most its head).
+        order = np.lexsort((np.arange(r1 - r0), ch, win))
+        again = np.zeros(r1 - r0, dtype=bool)
+        again[order[1:]] = (win[order[1:]] == win[order[:-1]]) & (ch[order[1:]] == ch[order[:-1]])
+        bad |= again
+        old = np.flatnonzero(win <= tr.head)
+        seen = tr._seen
+        for r, w, c in zip(old.tolist(), win[old].tolist(), ch[old].tolist()):
+            if (w, c, 0) in seen:
+                bad[r] = True
+        nbad = np.flatnonzero(bad)
+        k = stop if nbad.size == 0 else int(rf[nbad[0]])  # whole frames only
+        if k == start:
+            return start
+        n = first_row[k] - r0
+        win, ch = win[:n], ch[:n]
+        tr.last_cut = 0
+        tr.head = int(top[n - 1])
+        tr.released = tr.releasable(False)
+        # Keys of windows now released are never looked up again (a frame there is late).
+        keep = win >= tr.released
+        crc = fr.crc[rf[:n]]
+        seen.update(zip(zip(win[keep].tolist(), ch[keep].tolist(), [0] * int(keep.sum())),
+                        crc[keep].tolist()))
+        take.extend(range(r0, r0 + n))
+        wins.extend(win.tolist())
+        self._frame_counts["frames_ok"] = self._frame_counts.get("frames_ok", 0) + (k - start)
+        return k
 
     def _emit(self, upto: int) -> list[Block]:
         """Blocks for windows ``[next, upto)``, whole-array work over their frames."""
@@ -280,9 +395,14 @@ class StreamDecoder:
         blocks = []
         n, nc = self.n, self.channels
         # A long run of windows with no frame is released in pieces (bounded size each).
-        for a in range(self._next, upto, 256):
+        # Each piece's rows found by bisection in window order, then taken in arrival order
+        # (what a mask over all rows would select, without one mask per piece).
+        order = np.argsort(win, kind="stable")
+        bounds = np.searchsorted(win[order], np.arange(self._next, upto + 256, 256)).tolist()
+        for j, a in enumerate(range(self._next, upto, 256)):
             b = min(upto, a + 256)
-            sel = go & (win >= a) & (win < b)
+            hi = bounds[j + 1] if b == a + 256 else int(np.searchsorted(win[order], b))
+            sel = np.sort(order[bounds[j] : hi])
             vals = np.full((b - a, nc, n), np.nan)
             stat = np.full((b - a, nc, n), LOST, dtype=np.uint8)
             have = np.arange(n) < valid[sel][:, None]
