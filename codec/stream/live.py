@@ -296,18 +296,23 @@ class StreamDecoder:
                 self._count("frames_ok" if kinds[f] == 0 else "gap_frames_ok")
             tr.released = tr.releasable(False)
         if take:
-            idx = np.array(take, dtype=np.int64)
-            win = np.array(wins, dtype=np.int64)
-            fidx = fr.row_frame[idx]
-            self._pending.append((win, fr.row_channel[idx], fr.row_valid[idx],
-                                  fr.row_flags[idx], fr.rows[idx]))
-            if self._keep:
-                offs = np.fromiter((o for o, _ in found), dtype=np.int64, count=len(found))
-                lens = np.fromiter((len(f) for _, f in found), dtype=np.int64, count=len(found))
-                self._table.append(np.stack([offs[fidx], lens[fidx], fr.sequence[fidx], win,
-                                             fr.row_channel[idx], fr.head["basis"][fidx],
-                                             fr.head["terms"][fidx], fr.head["step_code"][fidx],
-                                             fr.row_valid[idx]], axis=1))
+            self._keep_rows(fr, found, take, wins)
+
+    def _keep_rows(self, fr, found: list[tuple[int, bytes]], take: list[int],
+                   wins: list[int]) -> None:
+        """Hold the placed rows ``take`` (their windows ``wins``) until their windows release."""
+        idx = np.array(take, dtype=np.int64)
+        win = np.array(wins, dtype=np.int64)
+        fidx = fr.row_frame[idx]
+        self._pending.append((win, fr.row_channel[idx], fr.row_valid[idx],
+                              fr.row_flags[idx], fr.rows[idx]))
+        if self._keep:
+            offs = np.fromiter((o for o, _ in found), dtype=np.int64, count=len(found))
+            lens = np.fromiter((len(f) for _, f in found), dtype=np.int64, count=len(found))
+            self._table.append(np.stack([offs[fidx], lens[fidx], fr.sequence[fidx], win,
+                                         fr.row_channel[idx], fr.head["basis"][fidx],
+                                         fr.head["terms"][fidx], fr.head["step_code"][fidx],
+                                         fr.row_valid[idx]], axis=1))
 
     def _place_run(self, fr, start: int, stop: int, first_row: list[int],
                    take: list[int], wins: list[int]) -> int:
