@@ -2,7 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
+import io
+import queue
+import subprocess
+import sys
+import threading
+from pathlib import Path
 
 import numpy as np
 from crcref import crc16_ibm3740_ref
@@ -12,7 +19,7 @@ import codec
 from codec.stream.search import locate_frames
 
 __all__ = ["real_stream", "frames_of", "crc_ok_reference", "assert_accounting", "EXAMPLE_DIGEST",
-           "keyed_crc", "with_crc", "digest_of"]
+           "keyed_crc", "with_crc", "digest_of", "receive_over_loopback"]
 
 #: The profile digest of FRAME_LAYOUT.md's worked examples: bytes 00 01 02 ... 1f.
 EXAMPLE_DIGEST = bytes(range(32))
@@ -66,3 +73,41 @@ def assert_accounting(dec, channels: int) -> None:
     assert total == c["samples"] * channels == dec.status.size
     assert np.count_nonzero(dec.status == codec.DELIVERED) == c["samples_delivered"]
     assert np.array_equal(np.isnan(dec.samples), dec.status != codec.DELIVERED)
+
+
+def receive_over_loopback(stream: Path, output: Path, receive_args: tuple = (),
+                          send_args: tuple = ()) -> str:
+    """Send ``stream`` to a real ``receive`` over loopback UDP; return what receive printed.
+
+    ``receive`` runs in its own process (it installs signal handlers) on
+    127.0.0.1 port 0 and says which port it got; this waits for that line
+    (readiness, not a fixed sleep), runs ``send`` in this process, and waits
+    for ``receive`` to stop at the stream's known end with exit status 0.
+    The returned text is everything receive printed after its "listening" line.
+    """
+    from codec.cli import main
+
+    argv = [sys.executable, "-m", "codec.cli", "receive", "--udp", "127.0.0.1:0", "-p",
+            f"{stream}.profile.toml", "-o", str(output), "--duration", "60", "--idle", "30",
+            *receive_args]
+    with subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                          text=True, encoding="utf-8") as proc:
+        lines: queue.Queue = queue.Queue()
+        reader = threading.Thread(target=lambda: [lines.put(ln) for ln in proc.stdout])
+        reader.start()
+        try:
+            first = lines.get(timeout=120)  # generous: a loaded machine imports numpy slowly
+            assert first.startswith("listening on 127.0.0.1:"), first
+            port = int(first.rsplit(":", 1)[1])
+            assert port > 0
+            with contextlib.redirect_stdout(io.StringIO()):
+                assert main(["send", str(stream), "--udp", f"127.0.0.1:{port}",
+                             *send_args]) == 0
+            assert proc.wait(timeout=120) == 0, "".join(lines.queue)
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+            proc.wait()
+            reader.join()
+    return "".join(lines.queue)
+

@@ -21,14 +21,11 @@ from __future__ import annotations
 import contextlib
 import io
 import json
-import queue
-import subprocess
-import sys
-import threading
 from importlib.resources import files
 from pathlib import Path
 
 import pytest
+from streams import receive_over_loopback
 
 import codec
 from codec.cli import main
@@ -325,26 +322,8 @@ def test_send_and_receive_keys(demo, tmp_path):
     # 'receive' in its own process (it installs signal handlers), on loopback only; the
     # test waits for its "listening on" line (readiness, not a fixed sleep), then sends.
     rx_json, tx_json = tmp_path / "rx.json", tmp_path / "tx.json"
-    argv = [sys.executable, "-m", "codec.cli", "receive", "--udp", "127.0.0.1:0", "-p",
-            f"{demo / 's.cw'}.profile.toml", "-o", str(tmp_path / "rx.csv"), "--duration", "60",
-            "--idle", "30", "--json", str(rx_json)]
-    with subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                          text=True) as proc:
-        lines: queue.Queue = queue.Queue()
-        reader = threading.Thread(target=lambda: [lines.put(ln) for ln in proc.stdout])
-        reader.start()
-        try:
-            first = lines.get(timeout=120)  # generous: a loaded machine imports numpy slowly
-            assert first.startswith("listening on 127.0.0.1:"), first
-            port = int(first.rsplit(":", 1)[1])
-            assert _run(["send", str(demo / "s.cw"), "--udp", f"127.0.0.1:{port}",
-                         "--json", str(tx_json)]) == 0
-            assert proc.wait(timeout=120) == 0, "".join(lines.queue)
-        finally:
-            if proc.poll() is None:
-                proc.kill()
-            proc.wait()
-            reader.join()
+    receive_over_loopback(demo / "s.cw", tmp_path / "rx.csv", ("--json", str(rx_json)),
+                          ("--json", str(tx_json)))
     assert_keys(_json(tx_json), SEND)
     assert_keys(_json(rx_json), RECEIVE)
 

@@ -18,7 +18,7 @@ import time
 
 import numpy as np
 import pytest
-from streams import real_stream
+from streams import real_stream, receive_over_loopback
 
 import codec
 from codec._profile import StreamNote, save_stream_note
@@ -101,26 +101,7 @@ def test_cli_send_and_receive(tmp_path):
     with contextlib.redirect_stdout(io.StringIO()):
         assert main(["encode", str(src), "-o", str(stream)]) == 0
     out = tmp_path / "rx.csv"
-    argv = [sys.executable, "-m", "codec.cli", "receive", "--udp", "127.0.0.1:0", "-p",
-            f"{stream}.profile.toml", "-o", str(out), "--duration", "60", "--idle", "30"]
-    with subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                          text=True) as proc:
-        lines: queue.Queue = queue.Queue()
-        reader = threading.Thread(target=lambda: [lines.put(ln) for ln in proc.stdout])
-        reader.start()
-        try:
-            first = lines.get(timeout=120)  # generous: a loaded machine imports numpy slowly
-            assert first.startswith("listening on 127.0.0.1:"), first
-            port = int(first.rsplit(":", 1)[1])
-            assert port > 0
-            with contextlib.redirect_stdout(io.StringIO()):
-                assert main(["send", str(stream), "--udp", f"127.0.0.1:{port}"]) == 0
-            assert proc.wait(timeout=120) == 0  # it stops at the stream's known end
-        finally:
-            if proc.poll() is None:
-                proc.kill()
-            proc.wait()
-            reader.join()
+    receive_over_loopback(stream, out)
     got = np.loadtxt(out, delimiter=",", skiprows=1)
     ref = codec.decode(stream.read_bytes(), codec.load_profile(f"{stream}.profile.toml")
                        .bind(["a", "b"]), samples=300)

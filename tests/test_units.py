@@ -9,14 +9,11 @@ figures are recomputed here with plain NumPy from the README's definitions
 import contextlib
 import io
 import json
-import queue
 import re
-import subprocess
-import sys
-import threading
 
 import numpy as np
 import pytest
+from streams import receive_over_loopback
 
 from codec import ChannelSpec, Profile, profile_id
 from codec._profile import save_profile
@@ -234,27 +231,7 @@ def test_receive_prints_counts_and_ranges_in_channel_units(pump, tmp_path):
     with contextlib.redirect_stdout(io.StringIO()):
         assert main(["encode", str(d / "pump.npy"), "-p", str(d / "pump.toml"),
                      "-o", str(stream)]) == 0
-    argv = [sys.executable, "-m", "codec.cli", "receive", "--udp", "127.0.0.1:0", "-p",
-            f"{stream}.profile.toml", "-o", str(d / "rx.csv"), "--json", str(d / "rx.json"),
-            "--duration", "60", "--idle", "30"]
-    with subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                          text=True, encoding="utf-8") as proc:
-        lines: queue.Queue = queue.Queue()
-        reader = threading.Thread(target=lambda: [lines.put(ln) for ln in proc.stdout])
-        reader.start()
-        try:
-            first = lines.get(timeout=120)  # generous: a loaded machine imports numpy slowly
-            assert first.startswith("listening on 127.0.0.1:"), first
-            with contextlib.redirect_stdout(io.StringIO()):
-                assert main(["send", str(stream), "--udp",
-                             f"127.0.0.1:{int(first.rsplit(':', 1)[1])}"]) == 0
-            assert proc.wait(timeout=120) == 0
-        finally:
-            if proc.poll() is None:
-                proc.kill()
-            proc.wait()
-            reader.join()
-    out = "".join(lines.queue)
+    out = receive_over_loopback(stream, d / "rx.csv", ("--json", str(d / "rx.json")))
     assert "counted over all 4 channels: 8192 delivered, 0 lost" in out
     rows = _rows_after(out, ["channel", "unit", "delivered"])
     assert [r[1] for r in rows] == list(UNITS.values())
