@@ -162,12 +162,12 @@ class Profile(BaseModel):
         the decoded frame keeps, 0 to 1.
     reference : {"ac", "total"}
         Energy the fidelity is a fraction of.
-    layout_version : {1, 2, 3, 4}
-        Frame layout the encoder writes.
+    layout_version : {1, 2, 3, 4, 5}
+        Frame layout the encoder writes (5, the default, is 3 with long-term prediction).
     multi_channel_frames : bool
-        Layouts 2 to 4: one frame carries all channels of a time window.
+        Layouts 2 to 5: one frame carries all channels of a time window.
     windows_per_frame : int
-        Layouts 3 and 4: time windows per frame, 1 to 16.
+        Layouts 3 to 5: time windows per frame, 1 to 16.
     fidelity_scope : {"frame", "window"}
         What one fidelity budget covers.
     channels : tuple of ChannelSpec
@@ -195,9 +195,10 @@ class Profile(BaseModel):
     fidelity: float = Field(default=0.99, ge=0.0, le=1.0)
     reference: Literal["total", "ac"] = "ac"
     #: Frame layout the encoder writes (the decoder reads every version); 4 is 3 with
-    #: dependent (trellis-coded) quantization.  Any registered layout
-    #: (``codec.layouts.registry.register_layout``); built in: 1 to 4.
-    layout_version: int = 3
+    #: dependent (trellis-coded) quantization, 5 (the default) is 3 with long-term
+    #: prediction inside a frame (measured on real recordings: README, "Rate").  Any
+    #: registered layout (``codec.layouts.registry.register_layout``); built in: 1 to 5.
+    layout_version: int = 5
     #: Layouts 2 to 4: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
     #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more

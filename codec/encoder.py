@@ -10,6 +10,7 @@ never branches on the number itself.  Decoding lives in :mod:`codec.stream`
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 from dataclasses import dataclass
 
@@ -41,6 +42,12 @@ from .stream.search import locate_frames
 from .transform.bases import Basis, basis_fingerprint
 from .transform.framing import merge_frames, split_frames
 from .transform.klt import profile_basis
+from .transform.predict import (
+    add_predictions,
+    choose_lags,
+    prediction_index,
+    window_energy,
+)
 
 __all__ = ["EncodeResult", "encode", "frame_key", "as_samples", "reconstruct"]
 
@@ -304,6 +311,10 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     w = _windows(x, profile, layout, basis, first_window, frame_scope=True)
     q, mean_int, code, offset, trellis = _choose(w, layout)
     recon, err = _closed_loop(w, basis, q, mean_int, code, offset, trellis)
+    alt = None
+    if (getattr(layout, "predicts", False) and w.block is not None
+            and not (missing is not None and gaps == "mark")):
+        alt = _predicted(w, basis, code, offset, first_window)
     n = profile.frame_length
     fmiss = gap_rows = None
     if missing is not None and gaps == "mark":
@@ -315,12 +326,17 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
         if mean_int is not None:
             mean_int[empty] = 0
     key = frame_key(profile, basis)
-    packed = layout.pack(CodedFrames(
+    coded = CodedFrames(
         channel=w.channel, sequence=w.window + first_window, valid=w.valid, step_code=code,
         mean=mean_int, q=q, profile_id=profile_id(profile), n=n,
         channels=len(profile.channels), basis_code=basis.code,
         multi=profile.multi_channel_frames, windows_per_frame=layout.windows_per_frame(profile),
-        trellis=trellis), key)
+        trellis=trellis, lag=None if not getattr(layout, "predicts", False) else
+        np.zeros(code.size, np.int64))
+    packed = layout.pack(coded, key)
+    if alt is not None:
+        packed, coded, recon, err = _keep_cheaper(layout, key, coded, packed, alt, w, basis)
+        q, mean_int, code = coded.q, coded.mean, coded.step_code
     data, frame_bits, extra_bits = packed.data, packed.row_bits, 0
     if gap_rows is not None:
         data, extra_bits = _add_gap_frames(data, packed.row_frame, fmiss, gap_rows, w.valid,
@@ -619,6 +635,147 @@ def _closed_loop(w: _Windows, basis: Basis, q, mean_int, code, offset, trellis):
             rows = np.arange(code.size)
             drop = _step_drop(w, rows, err, recon, peak_mode)
     return recon, err
+
+
+#: Rounds of the predicted closed loop before a block is left unpredicted (each round
+#: shrinks the step of every failing block by the estimate of its overshoot).
+_PREDICTED_ROUNDS = 12
+
+
+def _predicted(w: _Windows, basis: Basis, code: np.ndarray, offset: np.ndarray,
+               first_window: int):
+    """Frame scope with long-term prediction: the budget blocks worth predicting, coded.
+
+    A lag per block comes from :func:`codec.transform.predict.choose_lags`;
+    the blocks' windows are then coded in order, each predicted from the
+    decoder's samples of the windows before it, starting from the plain
+    step; blocks that miss their budget on those samples get a finer step
+    and are coded again.  Returns None when no block is predicted, else
+    ``(rows, q, mean_int, code, lag, offset_in_frame)`` for the rows of the
+    predicted blocks (every one meeting its budget) and every row's window
+    offset in its frame.
+    """
+    nb = w.block_budget.size
+    if np.isfinite(w.limit).any():  # peak limits: kept on the plain path
+        return None
+    seq = w.window + first_window
+    start = np.full(nb, np.iinfo(np.int64).max)
+    np.minimum.at(start, w.block, seq)
+    off = seq - start[w.block]
+    lag_b = choose_lags(w.frames, w.mask, w.block, off, nb, w.mean is not None)
+    rows = np.flatnonzero(lag_b[w.block] > 0)
+    pcode = code.copy()
+    # never finer than twice the plain path's finest step (codes stay below 2**52)
+    scale = np.abs(w.cx).max(axis=1)
+    if w.mean is not None:
+        scale = np.maximum(scale, np.abs(w.mean) * np.sqrt(w.frames.shape[1]))
+    finest = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52) + 8
+    for _ in range(_PREDICTED_ROUNDS):
+        if not rows.size:
+            return None
+        blocks, sub = np.unique(w.block[rows], return_inverse=True)
+        q, mean_int, lag, err = _code_predicted(w, basis, rows, off[rows], lag_b[w.block[rows]],
+                                                pcode[rows], offset[rows])
+        be, budget = block_sums(err, sub, blocks.size), w.block_budget[blocks]
+        over = be > budget * _MARGIN
+        if not over.any():
+            return rows, q, mean_int, pcode[rows], lag, off
+        # an error energy scales with the step squared: 4 eighth-octaves per doubling
+        drop = np.maximum(np.ceil(4.0 * np.log2(np.maximum(be / budget, 1.0))), 1).astype(
+            np.int64)
+        pcode[rows] -= np.where(over, drop, 0)[sub]
+        rows = rows[(pcode[rows] >= finest[rows])
+                    & ~np.isin(w.block[rows], blocks[np.bincount(
+                        sub, pcode[rows] < finest[rows], minlength=blocks.size) > 0])]
+    return None
+
+
+def _code_predicted(w: _Windows, basis: Basis, rows: np.ndarray, off: np.ndarray,
+                    lag: np.ndarray, code: np.ndarray, offset: np.ndarray):
+    """Code whole blocks window offset by window offset, with prediction where it helps.
+
+    A window the lag can reach is predicted from the decoder's samples of the
+    windows before it when that costs less: bits (the range coder's ideal code
+    length and the mean field) plus the error energy priced at the high-rate
+    slope of a uniform quantizer, 6 / (ln 2 step**2) bits per unit (each
+    halving of the step costs a bit per coded term and quarters its error).
+    Returns ``(q, mean_int, lag, err)`` for ``rows``; ``lag`` is 0 where a
+    window is not predicted.
+    """
+    n = w.frames.shape[1]
+    frames, mask, ac = w.frames[rows], w.mask[rows], w.mean is not None
+    q = np.zeros((rows.size, n), np.int64)
+    mean_int = np.zeros(rows.size, np.int64) if ac else None
+    used = np.zeros(rows.size, np.int64)
+    recon = np.zeros((rows.size, n))
+    pr, src, col = prediction_index(np.where(off * n >= lag, lag, 0), w.block[rows],
+                                    np.zeros(rows.size, np.int64), off, n)
+    for k in range(int(off.max(initial=0)) + 1):  # the decoder's order: earlier windows first
+        at = np.flatnonzero(off == k)
+        pred = np.zeros((at.size, n))
+        sel = np.flatnonzero(off[pr] == k)
+        if sel.size:
+            r = pr[sel]
+            p = recon[src[sel], col[sel]]
+            keep = (_window_cost(w, basis, rows[r], frames[r] - p, code[r], offset[r])
+                    < _window_cost(w, basis, rows[r], frames[r], code[r], offset[r]))
+            used[r] = np.where(keep, lag[r], 0)
+            pred[np.searchsorted(at, r)] = np.where(keep[:, None], p, 0.0)
+        x = frames[at] - pred
+        mean = np.where(mask[at], x, 0.0).sum(axis=1) / w.valid[rows[at]] if ac else None
+        qa, ma = _requantize(basis.analyze(x), mean, w.dc, code[at], offset[at], None)
+        q[at] = qa
+        if ac:
+            mean_int[at] = ma
+        recon[at] = reconstruct(qa, ma, code[at], basis) + pred
+    return q, mean_int, used, _valid_error(frames, recon, mask)
+
+
+def _window_cost(w: _Windows, basis: Basis, rows: np.ndarray, x: np.ndarray, code: np.ndarray,
+                 offset: np.ndarray) -> np.ndarray:
+    """Bits plus priced error of windows ``x`` (of ``rows``) coded at ``code`` (prediction choice)."""
+    ac = w.mean is not None
+    mean = np.where(w.mask[rows], x, 0.0).sum(axis=1) / w.valid[rows] if ac else None
+    q, m = _requantize(basis.analyze(x), mean, w.dc, code, offset, None)
+    err = _valid_error(x, reconstruct(q, m, code, basis), w.mask[rows])
+    price = 6.0 / (np.log(2.0) * step_from_code(code) ** 2)
+    return coefficient_cost_bits(q, mean=ac) + _mean_bits(m) + price * err
+
+
+def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, basis: Basis):
+    """Frame by frame, the plain or the predicted coding, whichever packs into fewer bits.
+
+    Returns the packed frames, their codes, the decoder's samples and each
+    row's error, checked against every budget block (a miss is our bug: both
+    codings met their budgets on the same samples).
+    """
+    rows, qp, mp, cp, lp, off = alt
+    q, code, lag = coded.q.copy(), coded.step_code.copy(), coded.lag.copy()
+    mean = None if coded.mean is None else coded.mean.copy()
+    q[rows], code[rows], lag[rows] = qp, cp, lp
+    if mean is not None:
+        mean[rows] = mp
+    trial = dataclasses.replace(coded, q=q, mean=mean, step_code=code, lag=lag)
+    t_packed = layout.pack(trial, key)
+    nfr = int(packed.row_frame.max(initial=-1)) + 1
+    use = (np.bincount(t_packed.row_frame, t_packed.row_bits, nfr)
+           < np.bincount(packed.row_frame, packed.row_bits, nfr))[packed.row_frame]
+    if use.all():
+        coded, packed = trial, t_packed
+    elif use.any():
+        coded = dataclasses.replace(
+            coded, q=np.where(use[:, None], q, coded.q), step_code=np.where(use, code,
+                                                                            coded.step_code),
+            lag=np.where(use, lag, 0),
+            mean=None if mean is None else np.where(use, mean, coded.mean))
+        packed = layout.pack(coded, key)
+    recon = reconstruct(coded.q, coded.mean, coded.step_code, basis, coded.trellis)
+    add_predictions(recon, coded.lag, w.block, np.zeros_like(w.block), off)
+    err = _valid_error(w.frames, recon, w.mask)
+    nb = w.block_budget.size
+    if (block_sums(err, w.block, nb) > w.block_budget * _MARGIN).any():
+        raise RuntimeError("a predicted block misses its budget on the decoder's samples")
+    return packed, coded, recon, err
 
 
 def _peak_limits(profile: Profile, channel: np.ndarray) -> np.ndarray:

@@ -74,7 +74,8 @@ class CodedFrames:
     Rows are window-major, channel-minor.  Per row: ``channel``, ``sequence``
     (window number in the stream), ``valid`` (real samples of the window),
     ``step_code``, ``mean`` (mean codes, None when the reference is
-    ``total``), ``q`` (integer codes, rows of N), ``trellis`` (None, or per
+    ``total``), ``q`` (integer codes, rows of N), ``lag`` (None, or per row the
+    lag of its long-term prediction, 0 where not predicted; layout 5), ``trellis`` (None, or per
     row whether ``q`` holds levels of dependent quantization).
     Per stream: the profile's ``profile_id``, frame length ``n``,
     ``channels``, ``basis_code``, ``multi`` (one frame carries every channel
@@ -82,7 +83,7 @@ class CodedFrames:
 
     Attributes
     ----------
-    channel, sequence, valid, step_code, mean, q, trellis
+    channel, sequence, valid, step_code, mean, q, trellis, lag
         Per row, as above.
     profile_id, n, channels, basis_code, multi, windows_per_frame
         Per stream, as above.
@@ -120,6 +121,7 @@ class CodedFrames:
     multi: bool = False
     windows_per_frame: int = 1
     trellis: np.ndarray | None = None
+    lag: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -201,7 +203,9 @@ class ParsedFrames:
     one channel): ``row_frame``, ``row_channel``, ``row_offset`` (window
     number minus the frame's), ``row_valid``, ``row_step``, ``row_mean``
     (None without means), ``row_count`` (coded coefficients), ``row_trellis``
-    (levels of dependent quantization) and the integer codes ``q``.  Rows of
+    (levels of dependent quantization), the integer codes ``q`` and
+    ``row_lag`` (None, or each row's long-term prediction lag, 0 where not
+    predicted: :func:`codec.transform.predict.add_predictions`).  Rows of
     refused frames hold whatever was read; the decoder never uses them.
 
     Attributes
@@ -209,6 +213,7 @@ class ParsedFrames:
     verdict, detail, sequence, valid, terms, step_code, header
         Per frame, as above.
     row_frame, row_channel, row_offset, row_valid, row_step, row_mean, row_count, row_trellis, q
+    row_lag
         Per row, as above.
 
     Examples
@@ -246,6 +251,7 @@ class ParsedFrames:
     row_count: np.ndarray
     row_trellis: np.ndarray
     q: np.ndarray
+    row_lag: np.ndarray | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "header", MappingProxyType(dict(self.header)))  # read-only
@@ -288,6 +294,11 @@ class Layout(Protocol):
     spends_slack : bool
         Whether the encoder spends each budget's rest by zeroing small codes.
 
+    A layout may also set ``predicts = True`` (optional; read with
+    ``getattr``): its frames carry long-term prediction
+    (:class:`CodedFrames` ``lag``), which the encoder then searches in
+    frame scope (layout 5).
+
     Examples
     --------
     >>> lay = layout_for(4)
@@ -326,9 +337,9 @@ class Layout(Protocol):
 
 
 _LAYOUTS: dict[int, Layout] = {}
-_BUILTIN = (".v1", ".v2", ".v3", ".v4")
+_BUILTIN = (".v1", ".v2", ".v3", ".v4", ".v5")
 #: Versions of the built-in layouts: refused to other modules even before those load.
-_RESERVED = range(1, 5)
+_RESERVED = range(1, 6)
 _state = {"loaded": False, "rules": None}
 _KINDS = {"fixed16": 1, "flagged": 2}
 

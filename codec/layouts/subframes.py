@@ -208,7 +208,8 @@ def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n
 def parsed_frames(v: Verdicts, head: dict, valid: np.ndarray, owner: np.ndarray,
                   channel: np.ndarray, offset: np.ndarray, row_valid: np.ndarray,
                   step: np.ndarray, mean: np.ndarray | None, count: np.ndarray,
-                  trellis: np.ndarray, q: np.ndarray) -> ParsedFrames:
+                  trellis: np.ndarray, q: np.ndarray, lag: np.ndarray | None = None
+                  ) -> ParsedFrames:
     """The :class:`ParsedFrames` of subframe rows; per frame, the terms and coarsest step.
 
     A frame of several windows has one step each: the frame table shows the coarsest.
@@ -220,7 +221,7 @@ def parsed_frames(v: Verdicts, head: dict, valid: np.ndarray, owner: np.ndarray,
     np.maximum.at(frame_step, owner, step)
     return ParsedFrames(tuple(v.verdict), tuple(v.detail), head["sequence"], valid, terms,
                         frame_step, head, owner, np.minimum(channel, 255), offset, row_valid,
-                        step, mean, count, trellis, q)
+                        step, mean, count, trellis, q, lag)
 
 
 def parse_checked(parse, data: bytes, offsets: np.ndarray, lengths: np.ndarray,
@@ -251,4 +252,4 @@ def parse_checked(parse, data: bytes, offsets: np.ndarray, lengths: np.ndarray,
                         full(p.terms), full(p.step_code),
                         {k: full(a) for k, a in p.header.items()}, keep[p.row_frame],
                         p.row_channel, p.row_offset, p.row_valid, p.row_step, p.row_mean,
-                        p.row_count, p.row_trellis, p.q)
+                        p.row_count, p.row_trellis, p.q, p.row_lag)

@@ -25,6 +25,7 @@ subframe; the routines here take it as the ``quantizer_bit`` switch.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -33,6 +34,7 @@ from ..entropy.bits import BitReader, pack_fields
 from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
 from ..entropy.rice import exp_golomb_bits, zigzag
 from ..quantize.select import choose_steps
+from ..transform.predict import lag_bits, predictable
 from .envelope import CRC_BYTES, SYNC, FrameKey, wrap_frames
 from .fields import header_bits, header_slots, read_header
 from .registry import (
@@ -62,6 +64,7 @@ from .v2 import PACK_BLOCK
 __all__ = [
     "LAYOUT_VERSION_3",
     "HEADER_FIELDS_V3",
+    "HEADER_FIELDS_V5",
     "FrameBatchV3",
     "Layout3",
     "LAYOUT_3",
@@ -72,6 +75,10 @@ __all__ = [
 ]
 
 LAYOUT_VERSION_3 = 3
+#: The other versions these routines serve and what each adds to version 3's subframes:
+#: 4 the quantizer bit (:mod:`codec.layouts.v4`), 5 the prediction fields
+#: (:mod:`codec.layouts.v5`).
+QUANTIZER_BIT_VERSION, PREDICTION_VERSION = 4, 5
 WINDOW_BITS = 4
 #: Smallest possible v3 frame: sync, 4 header bytes, CRC.
 MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
@@ -93,7 +100,7 @@ def _several(h, ctx):
 #: (field, bits, meaning) of the frame header after the sync marker (layouts 3 and 4);
 #: ``bits`` may be a function of the fields before it (:mod:`codec.layouts.fields`).
 HEADER_FIELDS_V3 = (
-    ("version", 4, "frame layout version (3 or 4)"),
+    ("version", 4, "frame layout version (3, 4 or 5)"),
     ("long", 1, "0: the length field has 11 bits; 1: 27 bits"),
     ("length", length_width, "bytes in the whole frame, sync marker to CRC"),
     ("profile", 8, "low byte of the 16-bit profile identifier"),
@@ -108,6 +115,12 @@ HEADER_FIELDS_V3 = (
     ("mean_change", lambda h, c: _several(h, c) & c.has_mean,
      "1: later windows send their mean as a change (when windows > 1, reference ac)"),
     ("count_change", _several, "1: later windows send their count as a change (windows > 1)"),
+)
+
+#: Layout 5: layout 3's header and one more flag (:mod:`codec.layouts.v5`).
+HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
+    ("predict", _several,
+     "1: subframes carry long-term prediction fields (when windows > 1, layout 5)"),
 )
 
 
@@ -132,6 +145,7 @@ class FrameBatchV3:
     mean: np.ndarray | None
     q: np.ndarray
     quantizer: np.ndarray | None = None
+    lag: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.multi.size)
@@ -169,16 +183,46 @@ def _predictions(mean: np.ndarray | None, count: np.ndarray, prev: np.ndarray,
     return mean_pred, count_pred, np.where(mean_pred[owner], delta, mean), cz
 
 
+def _prediction_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win, n, channels):
+    """Layout 5's lag field (a channel's first subframe) and prediction flags (later ones).
+
+    A frame's ``predict`` flag is set when any of its rows is predicted; then
+    each channel's first subframe sends the lag of the channel's predicted
+    rows (0: none) in :func:`codec.transform.predict.lag_bits` bits, and each
+    later subframe that this lag can predict (``lag <= offset * N``) a flag,
+    1 = predicted.  Returns the per-frame flags.
+    """
+    ns = owner.size
+    slot = np.arange(ns) - first[owner]
+    offset = slot // per_win
+    ch = np.where(batch.multi[owner].astype(bool), slot % per_win, batch.channel[owner])
+    lag = batch.lag.astype(np.int64)
+    chlag = np.zeros(first.size * channels, np.int64)
+    np.maximum.at(chlag, owner * channels + ch, lag)
+    chlag = chlag[owner * channels + ch]
+    if ((lag > 0) & ((lag != chlag) | ~predictable(lag, offset, n))).any():
+        raise RuntimeError("a predicted row has a lag its frame cannot carry")  # our bug
+    predict = np.bincount(owner, lag > 0, minlength=first.size) > 0
+    on = predict[owner]
+    lead = offset == 0
+    val[:, col] = np.where(lead, chlag, lag > 0).astype(np.uint64)
+    wid[:, col] = np.where(on & lead, lag_bits(n), np.where(on & predictable(chlag, offset, n),
+                                                             1, 0))
+    return predict
+
+
 def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None):
     """Slots of every subframe header, the frame-header slots left free in each frame's first row.
 
-    Returns ``(val, wid, first, lastrow, sub_bits, mean_pred, count_pred)``.
+    Returns ``(val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict)``
+    (``predict``: layout 5's per-frame flag, None for layouts 3 and 4).
     """
     nf, ns = len(batch), batch.q.shape[0]
     count = _counts(batch.q)
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
     lastrow = np.r_[first[1:] - 1, ns - 1]
-    nh, nsub = len(HEADER_FIELDS_V3), 4 if quant is None else 5
+    nh = len(HEADER_FIELDS_V3 if batch.lag is None else HEADER_FIELDS_V5)
+    nsub = 4 + (quant is not None) + (batch.lag is not None)
     val = np.zeros((ns, nh + nsub + 1), dtype=np.uint64)
     wid = np.zeros((ns, nh + nsub + 1), dtype=np.int64)
     lead = np.zeros(ns, dtype=bool)
@@ -196,7 +240,10 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     cp = count_pred[owner] & has_prev
     val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
     wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
-    return val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred
+    predict = None
+    if batch.lag is not None:  # layout 5
+        predict = _prediction_slots(batch, val, wid, nh + 4, first, owner, per_win, n, channels)
+    return val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred, predict
 
 
 def _join_bodies(heads: np.ndarray, head_bytes: np.ndarray, lanes: np.ndarray,
@@ -216,31 +263,35 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
                    version: int = LAYOUT_VERSION_3, *, key: FrameKey
                    ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout 3, or in layout 4 (``version`` 4: a quantizer
-    bit per subframe, 1 where the rows of ``batch.q`` are levels of dependent quantization).
+    bit per subframe, 1 where the rows of ``batch.q`` are levels of dependent quantization),
+    or in layout 5 (``version`` 5: ``batch.lag`` says which rows are predicted).
 
     Returns the bytes, each frame's byte length, each subframe's header bits
     (step, mean, count) and each frame's range-coded bytes.
     """
     nf, ns = len(batch), batch.q.shape[0]
     quant = None
-    if version != LAYOUT_VERSION_3:  # layout 4 (codec.layouts.v4)
+    if version == PREDICTION_VERSION and batch.lag is None:
+        batch = dataclasses.replace(batch, lag=np.zeros(ns, np.int64))
+    if version == QUANTIZER_BIT_VERSION:  # layout 4 (codec.layouts.v4)
         quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
                  else batch.quantizer.astype(bool))
     cum, freq, shift, row = coefficient_ops(batch.q, _counts(batch.q), trellis=quant,
                                             mean=batch.mean is not None)
     lanes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
-    val, wid, first, lastrow, sub_bits, mean_pred, count_pred = _subframe_slots(
+    val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict = _subframe_slots(
         batch, n, channels, quant)
     ctx = ParseContext(n, channels, batch.mean is not None)
+    table = HEADER_FIELDS_V3 if predict is None else HEADER_FIELDS_V5
     fields = {"version": version, "profile": profile_id & 0xFF,
               "sequence": batch.sequence % 256, "windows_minus_1": batch.windows - 1,
               "multi": batch.multi.astype(bool), "channel": batch.channel,
               "short": batch.valid < n, "valid_minus_1": batch.valid - 1,
-              "mean_change": mean_pred, "count_change": count_pred}
-    head_bits = header_bits(HEADER_FIELDS_V3, fields, ctx, nf, skip=("length",))
+              "mean_change": mean_pred, "count_change": count_pred, "predict": predict}
+    head_bits = header_bits(table, fields, ctx, nf, skip=("length",))
     payload = np.add.reduceat(sub_bits, first)
     long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len)
-    head = header_slots(HEADER_FIELDS_V3, {**fields, "long": long, "length": length}, ctx, nf)
+    head = header_slots(table, {**fields, "long": long, "length": length}, ctx, nf)
     write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
     heads = pack_fields(val.ravel(), wid.ravel())
     # frame = sync | header bytes | lane bytes | crc
@@ -250,14 +301,21 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     return out.tobytes(), length, sub_bits, lane_len
 
 
-def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n):
-    """Every subframe header of every frame; returns (step, mean, count, quant, end pos, bad)."""
+def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, predict=False):
+    """Every subframe header of every frame.
+
+    Returns (step, mean, count, quant, lag, end pos, bad); ``lag`` (layout 5,
+    else None) is each row's prediction lag, 0 where it is not predicted.
+    """
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
     step = np.zeros(ns, np.int64)
     mean = np.zeros(ns, np.int64) if has_mean else None
     count = np.zeros(ns, np.int64)
     quant = np.zeros(ns, np.int64) if quantizer_bit else None
+    lag = chlag = None
+    if predict:
+        lag, chlag = np.zeros(ns, np.int64), np.zeros(ns, np.int64)
     mean_pred, count_pred = h["mean_change"] > 0, h["count_change"] > 0
     bad_any = np.zeros(cnt.size, dtype=bool)
     for s in range(int(cnt.max(initial=0))):
@@ -269,13 +327,36 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n):
                                       quant, later & mean_pred[fr], later & count_pred[fr],
                                       np.where(later, rows - pw, rows))
         bad_any[fr] |= bad
-    return step, mean, count, quant, p, bad_any
+        if predict:
+            p[fr] = _read_prediction(r, p[fr], rows, s, pw, h["predict"][fr] > 0, lag, chlag, n)
+    return step, mean, count, quant, lag, p, bad_any
+
+
+def _read_prediction(r, pp, rows, s, pw, on, lag, chlag, n):
+    """Layout 5: subframe ``s``'s lag field (a channel's first) or prediction flag (later ones).
+
+    Fills ``chlag`` (the lag of the row's channel in its frame) and ``lag``
+    (the row's lag when its flag says predicted) at ``rows``; returns the bit
+    positions after the fields.
+    """
+    later = s >= pw
+    lead = np.flatnonzero(on & ~later)
+    if lead.size:
+        chlag[rows[lead]] = r.read(pp[lead], lag_bits(n))
+        pp[lead] += lag_bits(n)
+    back = np.flatnonzero(later)
+    chlag[rows[back]] = chlag[rows[back] - pw[back]]
+    flag = np.flatnonzero(on & later & predictable(chlag[rows], s // pw, n))
+    if flag.size:
+        lag[rows[flag]] = np.where(r.read(pp[flag], 1) > 0, chlag[rows[flag]], 0)
+        pp[flag] += 1
+    return pp
 
 
 def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
                     channels: int, has_mean: bool, version: int = LAYOUT_VERSION_3
                     ) -> ParsedFrames:
-    """Parse CRC-checked v3 (or, with ``version`` 4, v4) frames at ``offsets``.
+    """Parse CRC-checked v3 (or, with ``version`` 4 or 5, v4 or v5) frames at ``offsets``.
 
     Rows are subframes, window by window (``row_offset``: window number
     relative to the frame's ``sequence``); ``header`` holds the frame-header
@@ -288,7 +369,9 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     ctx = ParseContext(n, channels, has_mean)
     r = BitReader(data)
     offsets = offsets.astype(np.int64)
-    h, p = read_header(r, offsets * 8 + 8 * len(SYNC), HEADER_FIELDS_V3, ctx)
+    predict = version == PREDICTION_VERSION
+    h, p = read_header(r, offsets * 8 + 8 * len(SYNC),
+                       HEADER_FIELDS_V5 if predict else HEADER_FIELDS_V3, ctx)
     windows, multi = h["windows_minus_1"] + 1, h["multi"] > 0
     valid = np.where(h["short"] > 0, h["valid_minus_1"] + 1, n)
     per_win = np.where(multi, channels, 1)
@@ -297,14 +380,14 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     # own bytes can hold (each subframe header takes at least min_subframe_bits) is
     # refused and gets no rows, so the work and memory per frame follow its length.
     fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
-                         version != LAYOUT_VERSION_3, h["count_change"] > 0)
+                         version == QUANTIZER_BIT_VERSION, h["count_change"] > 0)
     cnt = np.where(fits, cnt, 0)
     owner = np.repeat(np.arange(offsets.size), cnt)
     slot = np.arange(owner.size) - (np.cumsum(cnt) - cnt)[owner]
     woff = slot // per_win[owner]
     sub_channel = np.where(multi[owner], slot % per_win[owner], h["channel"][owner])
-    step, mean, count, quant, p, bad = _read_subheaders_all(
-        r, p, cnt, per_win, h, has_mean, version != LAYOUT_VERSION_3, n)
+    step, mean, count, quant, lag, p, bad = _read_subheaders_all(
+        r, p, cnt, per_win, h, has_mean, version == QUANTIZER_BIT_VERSION, n, predict)
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
     ok = fits & ~bad & (start <= end) & (h["length"] == lengths)
@@ -322,11 +405,11 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     refuse_contents(v, valid, owner, sub_channel, ok, ctx)
     sub_valid = np.where(woff == windows[owner] - 1, valid[owner], n)
     return parsed_frames(v, h, valid, owner, sub_channel, woff, sub_valid, step, mean, count,
-                         trellis, q)
+                         trellis, q, lag)
 
 
 def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
-    """Frames of layout ``version`` (3 or 4): windows go ``windows_per_frame`` at a time.
+    """Frames of layout ``version`` (3, 4 or 5): windows go ``windows_per_frame`` at a time.
 
     Header bits are everything but the range-coded bytes."""
     w = c.windows_per_frame
@@ -353,7 +436,8 @@ def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
             sequence=c.sequence[fo[a:b]], windows=nwin[a:b], valid=c.valid[order[lastrow[a:b]]],
             frame=frame[r0:r1] - frame[r0], step_code=c.step_code[rows],
             mean=None if c.mean is None else c.mean[rows], q=c.q[rows],
-            quantizer=None if c.trellis is None else c.trellis[rows])
+            quantizer=None if c.trellis is None else c.trellis[rows],
+            lag=None if c.lag is None else c.lag[rows])
         parts.append(pack_frames_v3(batch, c.profile_id, c.n, c.channels, version, key=key))
     data = b"".join(p[0] for p in parts)
     lengths, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 3))
@@ -380,9 +464,11 @@ class Layout3:
     supports_frame_scope = True
     spends_slack = True
 
-    def __init__(self, version: int = LAYOUT_VERSION_3, trellis: bool = False):
+    def __init__(self, version: int = LAYOUT_VERSION_3, trellis: bool = False,
+                 predicts: bool = False):
         self.version = version
         self.has_trellis = trellis
+        self.predicts = predicts
 
     def windows_per_frame(self, profile) -> int:
         return profile.windows_per_frame

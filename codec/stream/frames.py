@@ -19,6 +19,7 @@ from ..layouts.envelope import GAP_KIND, SYNC
 from ..layouts.gapmask import read_gap_runs, unwrap_gap_frame
 from ..layouts.registry import ParseContext, Verdicts, layouts
 from ..transform.bases import Basis
+from ..transform.predict import add_predictions
 
 __all__ = ["FrameRows", "decode_frames"]
 
@@ -128,8 +129,12 @@ def _layout_rows(layout, data: bytes, offsets: np.ndarray, lengths: np.ndarray, 
     good = v.ok[idx][p.row_frame]
     rows = np.full((p.q.shape[0], ctx.n), np.nan)
     if good.any():
-        rows[good] = reconstruct(p.q[good], None if p.row_mean is None else p.row_mean[good],
-                                 p.row_step[good], basis, p.row_trellis[good])
+        sub = reconstruct(p.q[good], None if p.row_mean is None else p.row_mean[good],
+                          p.row_step[good], basis, p.row_trellis[good])
+        if p.row_lag is not None:  # layout 5: add each predicted window's prediction
+            add_predictions(sub, p.row_lag[good], p.row_frame[good], p.row_channel[good],
+                            p.row_offset[good])
+        rows[good] = sub
     acc.parts.append((idx[p.row_frame], p.row_channel, np.zeros(p.row_frame.size, np.int64),
                       rows, p.row_offset, p.row_valid))
 
