@@ -292,7 +292,7 @@ def default_profile() -> Profile:
     --------
     >>> p = default_profile()
     >>> p.basis, p.frame_length, p.fidelity, p.reference, p.layout_version
-    ('dct', 64, 0.99, 'ac', 3)
+    ('dct', 64, 0.99, 'ac', 5)
     """
     return Profile()
 

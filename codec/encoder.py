@@ -311,31 +311,25 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
     w = _windows(x, profile, layout, basis, first_window, frame_scope=True)
     q, mean_int, code, offset, trellis = _choose(w, layout)
     recon, err = _closed_loop(w, basis, q, mean_int, code, offset, trellis)
-    alt = None
-    if (getattr(layout, "predicts", False) and w.block is not None
-            and not (missing is not None and gaps == "mark")):
-        alt = _predicted(w, basis, code, offset, first_window)
     n = profile.frame_length
-    fmiss = gap_rows = None
+    fmiss, empty = _gap_windows(missing, w.valid, n)
+    gap_rows = alt = None
+    if getattr(layout, "predicts", False) and w.block is not None:
+        alt = _predicted(w, basis, code, offset, first_window, empty)
     if missing is not None and gaps == "mark":
-        fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
         gap_rows = fmiss.any(axis=1)
         # a window of nothing but gaps is never shown: its coefficients need not be sent
-        empty = (fmiss & (np.arange(n) < w.valid[:, None])).sum(axis=1) == w.valid
+        # (its block is never predicted, so no window is predicted from it)
         q[empty] = 0
         if mean_int is not None:
             mean_int[empty] = 0
     key = frame_key(profile, basis)
-    coded = CodedFrames(
-        channel=w.channel, sequence=w.window + first_window, valid=w.valid, step_code=code,
-        mean=mean_int, q=q, profile_id=profile_id(profile), n=n,
-        channels=len(profile.channels), basis_code=basis.code,
-        multi=profile.multi_channel_frames, windows_per_frame=layout.windows_per_frame(profile),
-        trellis=trellis, lag=None if not getattr(layout, "predicts", False) else
-        np.zeros(code.size, np.int64))
+    coded = _coded(w, profile, layout, basis, first_window, q, mean_int, code, trellis,
+                   alt is not None)
     packed = layout.pack(coded, key)
     if alt is not None:
-        packed, coded, recon, err = _keep_cheaper(layout, key, coded, packed, alt, w, basis)
+        packed, coded, recon, err = _keep_cheaper(layout, key, coded, packed, alt, w, basis,
+                                                  recon, err)
         q, mean_int, code = coded.q, coded.mean, coded.step_code
     data, frame_bits, extra_bits = packed.data, packed.row_bits, 0
     if gap_rows is not None:
@@ -343,6 +337,26 @@ def encode(samples, profile: Profile, gaps: str = "refuse", first_window: int = 
                                            key)
     return _encode_result(x, profile, w, q, code, trellis, recon, err, data, frame_bits,
                           packed.header_bits, packed.row_frame, extra_bits, gaps, missing)
+
+
+def _coded(w: _Windows, profile: Profile, layout, basis: Basis, first_window: int, q, mean_int,
+           code, trellis, predicted: bool) -> CodedFrames:
+    """What the layout packs (``lag`` all 0 when some block may be predicted, else None)."""
+    return CodedFrames(
+        channel=w.channel, sequence=w.window + first_window, valid=w.valid, step_code=code,
+        mean=mean_int, q=q, profile_id=profile_id(profile), n=profile.frame_length,
+        channels=len(profile.channels), basis_code=basis.code,
+        multi=profile.multi_channel_frames, windows_per_frame=layout.windows_per_frame(profile),
+        trellis=trellis, lag=np.zeros(code.size, np.int64) if predicted else None)
+
+
+def _gap_windows(missing: np.ndarray | None, valid: np.ndarray, n: int):
+    """Per window, the mask of its gaps and whether it holds nothing but gaps (None, None
+    without gaps)."""
+    if missing is None:
+        return None, None
+    fmiss = split_frames(missing.astype(np.float64), n)[0] > 0
+    return fmiss, (fmiss & (np.arange(n) < valid[:, None])).sum(axis=1) == valid
 
 
 def _encode_result(x, profile, w, q, code, trellis, recon, err, data, frame_bits, header_bits,
@@ -643,7 +657,7 @@ _PREDICTED_ROUNDS = 12
 
 
 def _predicted(w: _Windows, basis: Basis, code: np.ndarray, offset: np.ndarray,
-               first_window: int):
+               first_window: int, empty: np.ndarray | None):
     """Frame scope with long-term prediction: the budget blocks worth predicting, coded.
 
     A lag per block comes from :func:`codec.transform.predict.choose_lags`;
@@ -653,7 +667,9 @@ def _predicted(w: _Windows, basis: Basis, code: np.ndarray, offset: np.ndarray,
     and are coded again.  Returns None when no block is predicted, else
     ``(rows, q, mean_int, code, lag, offset_in_frame)`` for the rows of the
     predicted blocks (every one meeting its budget) and every row's window
-    offset in its frame.
+    offset in its frame.  Blocks holding a window of nothing but gaps
+    (``empty``) are not predicted, whatever the gap policy, so filled and
+    marked streams carry the same data frames.
     """
     nb = w.block_budget.size
     if np.isfinite(w.limit).any():  # peak limits: kept on the plain path
@@ -663,6 +679,8 @@ def _predicted(w: _Windows, basis: Basis, code: np.ndarray, offset: np.ndarray,
     np.minimum.at(start, w.block, seq)
     off = seq - start[w.block]
     lag_b = choose_lags(w.frames, w.mask, w.block, off, nb, w.mean is not None)
+    if empty is not None:
+        lag_b[w.block[empty]] = 0
     rows = np.flatnonzero(lag_b[w.block] > 0)
     pcode = code.copy()
     # never finer than twice the plain path's finest step (codes stay below 2**52)
@@ -742,12 +760,14 @@ def _window_cost(w: _Windows, basis: Basis, rows: np.ndarray, x: np.ndarray, cod
     return coefficient_cost_bits(q, mean=ac) + _mean_bits(m) + price * err
 
 
-def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, basis: Basis):
+def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, basis: Basis,
+                  recon: np.ndarray, err: np.ndarray):
     """Frame by frame, the plain or the predicted coding, whichever packs into fewer bits.
 
     Returns the packed frames, their codes, the decoder's samples and each
-    row's error, checked against every budget block (a miss is our bug: both
-    codings met their budgets on the same samples).
+    row's error (``recon`` and ``err`` of the plain coding where it stays);
+    every predicted block is checked against its budget on the decoder's
+    samples (a miss is our bug: the predicted loop met it on the same samples).
     """
     rows, qp, mp, cp, lp, off = alt
     q, code, lag = coded.q.copy(), coded.step_code.copy(), coded.lag.copy()
@@ -769,11 +789,16 @@ def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, bas
             lag=np.where(use, lag, 0),
             mean=None if mean is None else np.where(use, mean, coded.mean))
         packed = layout.pack(coded, key)
-    recon = reconstruct(coded.q, coded.mean, coded.step_code, basis, coded.trellis)
-    add_predictions(recon, coded.lag, w.block, np.zeros_like(w.block), off)
-    err = _valid_error(w.frames, recon, w.mask)
+    take = np.zeros(use.size, bool)
+    take[rows] = use[rows]  # rows of predicted blocks in frames that keep them
+    if not take.any():
+        return packed, coded, recon, err
+    new = reconstruct(coded.q, coded.mean, coded.step_code, basis, coded.trellis)
+    add_predictions(new, coded.lag, w.block, np.zeros_like(w.block), off)
+    recon = np.where(take[:, None], new, recon)
+    err = np.where(take, _valid_error(w.frames, new, w.mask), err)
     nb = w.block_budget.size
-    if (block_sums(err, w.block, nb) > w.block_budget * _MARGIN).any():
+    if (block_sums(err, w.block, nb) > w.block_budget * _MARGIN)[w.block[take]].any():
         raise RuntimeError("a predicted block misses its budget on the decoder's samples")
     return packed, coded, recon, err
 

@@ -126,10 +126,11 @@ def _signal(n=3000, c=3, seed=0):
                                 dict(windows_per_frame=1), dict(windows_per_frame=16),
                                 dict(reference="total", frame_length=256),
                                 dict(basis="haar", frame_length=32, fidelity=0.999)])
-def test_v3_round_trip_is_the_encoders_reconstruction(kw):
+@pytest.mark.parametrize("version", [3, 5])  # 5 (the default) is 3 with prediction fields
+def test_v3_round_trip_is_the_encoders_reconstruction(kw, version):
     x = _signal()
-    enc = codec.encode(x, codec.Profile(**kw))
-    assert enc.data[2] >> 4 == 3
+    enc = codec.encode(x, codec.Profile(layout_version=version, **kw))
+    assert enc.data[2] >> 4 == version
     dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
     assert np.array_equal(dec.samples, enc.reconstruction)
     assert_meets_target(x, dec.samples, enc.profile)  # recomputed, not the encoder's 'met'
@@ -209,12 +210,13 @@ def test_streaming_decoder_reads_multi_window_frames_in_any_chunks(multi):
     assert whole.delivered.all() and np.array_equal(whole.samples, enc.reconstruction)
 
 
-def test_stream_encoder_emits_v3_frames_that_decode():
+@pytest.mark.parametrize("version", [3, 5])
+def test_stream_encoder_emits_v3_frames_that_decode(version):
     x = _signal(1000)
-    prof = codec.Profile()
+    prof = codec.Profile(layout_version=version)
     se = codec.StreamEncoder(prof, 3)
     data = b"".join(se.feed(x[a : a + 300]) for a in range(0, 1000, 300)) + se.close()
-    assert data[2] >> 4 == 3
+    assert data[2] >> 4 == version
     dec = codec.decode(data, se.profile, samples=1000)
     assert dec.delivered.all()
     assert_meets_target(x, dec.samples, se.profile)  # every budget, recomputed (verify.py)

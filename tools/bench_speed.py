@@ -36,7 +36,7 @@ def main() -> None:
     ap.add_argument("--samples", type=int, default=1_000_000)
     ap.add_argument("--channels", type=int, default=4)
     ap.add_argument("--repeats", type=int, default=3)
-    ap.add_argument("--layout", type=int, choices=(1, 2, 3, 4), default=None,
+    ap.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5), default=None,
                     help="frame layout (default: the default profile's)")
     args = ap.parse_args()
     x = _signal(args.samples, args.channels)

@@ -447,7 +447,7 @@ def layout_for(version: int) -> Layout:
     >>> layout_for(13)
     Traceback (most recent call last):
     ...
-    ValueError: no frame layout has version 13; registered: [1, 2, 3, 4]
+    ValueError: no frame layout has version 13; registered: [1, 2, 3, 4, 5]
     """
     _builtins()
     try:
