@@ -132,10 +132,12 @@ class PackedFrames:
     :class:`CodedFrames` (a frame's bits shared by its rows, so they add up to
     the stream).  ``header_bits``: bits of the stream that are not coefficient
     data.  ``row_frame``: the frame (0, 1, ... in stream order) of each row.
+    ``frame_header_bits`` (optional, layouts 3 to 5): each frame's share of
+    ``header_bits``, so frames of two packings can be spliced.
 
     Attributes
     ----------
-    data, row_bits, header_bits, row_frame
+    data, row_bits, header_bits, row_frame, frame_header_bits
         As above; see the example of :class:`CodedFrames`.
 
     Examples
@@ -150,6 +152,7 @@ class PackedFrames:
     row_bits: np.ndarray
     header_bits: int
     row_frame: np.ndarray
+    frame_header_bits: np.ndarray | None = None
 
 
 @dataclass(frozen=True)

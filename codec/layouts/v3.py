@@ -448,7 +448,8 @@ def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
     bits[order] = bits_sorted
     row_frame = np.empty_like(frame)
     row_frame[order] = frame
-    return PackedFrames(data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8), row_frame)
+    return PackedFrames(data, bits, int(lengths.sum() * 8 - lane_len.sum() * 8), row_frame,
+                        (lengths - lane_len) * 8)
 
 
 class Layout3:

@@ -19,12 +19,19 @@ decoder's samples bit for bit.  :func:`choose_lags` is the encoder's search.
 from __future__ import annotations
 
 import numpy as np
+import scipy.fft
 
 __all__ = ["lag_bits", "predictable", "prediction_sources", "prediction_index", "add_predictions",
            "window_energy", "choose_lags"]
 
 #: Shortest lag searched: two samples repeat as a near-constant, which the mean already codes.
 MIN_LAG = 3
+#: Longest lag searched, in windows: the windows a lag of more than two windows leaves
+#: unpredicted, and the quantization error passed on down chains of predictions, cost
+#: more than the lag saves (measured with ``tools/bench_real.py`` and
+#: ``tools/bench_speed.py``: no real recording gained from a longer lag).  The wire
+#: format carries any lag up to 15 N.
+MAX_LAG_WINDOWS = 2
 #: A budget block is predicted only when the open-loop prediction leaves at most this share
 #: of its windows' energy (about 1.5 dB): below that, the lag field and flags and the
 #: quantization error that prediction carries forward cost more than they save (measured
@@ -32,6 +39,10 @@ MIN_LAG = 3
 MAX_RESIDUAL_SHARE = 0.7
 #: Peaks of the autocorrelation tried per block (each costs one pass over the block).
 CANDIDATES = 4
+#: Peaks whose normalized autocorrelation is below this are not tried: a stationary
+#: signal predicted one lag back leaves about 2 (1 - rho) of its energy, so a peak well
+#: below 0.65 cannot leave MAX_RESIDUAL_SHARE (the screen is loose on purpose).
+MIN_CORRELATION = 0.5
 
 
 def lag_bits(n: int) -> int:
@@ -173,28 +184,47 @@ def choose_lags(frames: np.ndarray, mask: np.ndarray, block: np.ndarray, offset:
     width = int(offset.max(initial=0)) + 1
     if width < 2:
         return np.zeros(blocks, np.int64)
-    sig = np.zeros((blocks, width * n))
+    # The autocorrelation only ranks candidate lags (each is then measured in float64),
+    # so float32 serves and halves the memory the FFT touches.
+    sig = np.zeros((blocks, 2 * width * n), np.float32)
     cols = offset[:, None] * n + np.arange(n)
-    sig[block[:, None], cols] = np.where(mask, frames, 0.0)
-    sig -= sig.mean(axis=1, keepdims=True)
-    spec = np.fft.rfft(sig, 2 * width * n, axis=1)
-    acf = np.fft.irfft(spec.real**2 + spec.imag**2, axis=1)[:, : (width - 1) * n + 1]
-    inner = acf[:, 1:-1]
-    peak = (inner >= acf[:, :-2]) & (inner >= acf[:, 2:]) & (inner > 0)
+    sig[block[:, None], cols] = frames
+    short = np.flatnonzero(~mask.all(axis=1))  # the samples past a short last window
+    sig[block[short, None], cols[short]] *= mask[short]
+    sig[:, : width * n] -= sig[:, : width * n].mean(axis=1, keepdims=True)
+    spec = scipy.fft.rfft(sig, axis=1)
+    # the inverse transform of a real, even power spectrum is a DCT-I (real to real)
+    longest = min(width - 1, MAX_LAG_WINDOWS) * n
+    acf = scipy.fft.dct(spec.real**2 + spec.imag**2, type=1, axis=1)[:, : longest + 1]
+    # normalized, biased: a long lag sums fewer products, so shorter lags (which more of
+    # the block's windows can use) rank first among equally periodic ones
+    rho = acf / np.maximum(acf[:, :1], np.finfo(np.float32).tiny)
+    inner = rho[:, 1:-1]
+    peak = (inner >= rho[:, :-2]) & (inner >= rho[:, 2:]) & (inner >= MIN_CORRELATION)
     peak[:, : MIN_LAG - 1] = False
     score = np.where(peak, inner, -np.inf)
-    top = np.argsort(-score, axis=1)[:, :CANDIDATES]
-    own = window_energy(frames, mask, remove_mean)
-    total = np.bincount(block, own, minlength=blocks)
+    k = min(CANDIDATES, score.shape[1])
+    top = np.argpartition(-score, k - 1, axis=1)[:, :k]
+    top = np.take_along_axis(top, np.argsort(-np.take_along_axis(score, top, axis=1), axis=1,
+                                             kind="stable"), axis=1)
     best = np.zeros(blocks, np.int64)
-    best_e = total * MAX_RESIDUAL_SHARE
+    tried = np.isfinite(score).any(axis=1)
+    if not tried.any():
+        return best
+    rows = np.flatnonzero(tried[block])  # only blocks with a peak worth trying
+    frames, mask, block, offset = frames[rows], mask[rows], block[rows], offset[rows]
+    at = np.zeros((blocks, width), np.int64)  # row of each (block, window offset)
+    at[block, offset] = np.arange(rows.size)
+    own = window_energy(frames, mask, remove_mean)
+    best_e = np.bincount(block, own, minlength=blocks) * MAX_RESIDUAL_SHARE
     for c in range(top.shape[1]):
         ok = np.isfinite(np.take_along_axis(score, top[:, c:c + 1], axis=1)[:, 0])
         lag = np.where(ok, top[:, c] + 1, 0)[block]
-        lag = np.where(predictable(lag, offset, n), lag, 0)
+        r = np.flatnonzero(predictable(lag, offset, n))
         res = own.copy()
-        if lag.any():
-            r, src, col = prediction_index(lag, block, np.zeros_like(block), offset, n)
+        if r.size:
+            back, col = prediction_sources(offset[r], lag[r], n)
+            src = at[block[r][:, None], offset[r][:, None] - back]
             res[r] = np.minimum(window_energy(frames[r] - frames[src, col], mask[r],
                                               remove_mean), own[r])
         e = np.bincount(block, res, minlength=blocks)
