@@ -23,19 +23,20 @@ KEY = FrameKey(EXAMPLE_DIGEST)  # as tests/test_layout_v3.py: digest 00 01 ... 1
 # window 0: mean code 100, q = [0, 4, -2, 1, 0, 0, 0, 0] (L = 4);
 # window 1: mean code 0, every coefficient 0 (L = 0), predicted with lag 3.
 # Header and subframe bits written out by hand from the layout tables (mean and count
-# sent whole: as changes they would cost 15 + 7 bits against 1 + 4).
+# sent whole: as changes they would cost 15 + 7 bits against 1 + 4; one step for both
+# windows, so window 1 sends none; mean order 0: orders 0 to 5 all take 16 bits for the
+# two means, the smallest is chosen).
 HEADER5_BITS = (
-    "0101" "0" "00000010010" "11001101" "00000101" "0001" "0" "0" "0" "0" "1"
+    "0101" "0" "00000010010" "11001101" "00000101" "0001" "0" "0" "0" "0" "1" "1" "0000"
     "1000000000" "000000011001001" "0100" "0000011"
-    "1" "1" "0000" "1"
-    "0000"
+    "1" "0000" "1"
 )
 LANE5 = bytes.fromhex("df1f8f")  # window 0's coefficients, as layout 3 codes them (below)
 EXAMPLE5 = bytes.fromhex("e35a") + int(HEADER5_BITS, 2).to_bytes(11, "big") + LANE5
 Q0 = [0, 4, -2, 1, 0, 0, 0, 0]
 LAG = 3
 # bit positions after the sync marker: lag field of window 0, flag of window 1
-LAG_AT, FLAG_AT = 41 + 10 + 15 + 4, 41 + 10 + 15 + 4 + 7 + 1 + 1 + 4
+LAG_AT, FLAG_AT = 46 + 10 + 15 + 4, 46 + 10 + 15 + 4 + 7 + 1 + 4
 
 
 def _example_batch(lag=LAG, mean1=0):
@@ -64,11 +65,11 @@ def test_worked_example_packs_to_the_documented_bytes():
     # CRC-16/IBM-3740 over the implicit prefix SHA-256(D || 00 00 00 12), rebuilt by the
     # catalogue implementation of tests/crcref.py (check value 0x29B1) and hashlib
     want = with_crc(EXAMPLE5, EXAMPLE_DIGEST)
-    assert want.hex() == "e35a5012cd0510c00032501e10df1f8f1d80"
+    assert want.hex() == "e35a5012cd0510c200019280e1df1f8f6f43"
     data, length, sub_bits, lane = pack_frames_v3(_example_batch(), 0xABCD, 8, 1, version=5,
                                                   key=KEY)
     assert data == want and length.tolist() == [18] and lane.tolist() == [3]
-    assert sub_bits.tolist() == [10 + 15 + 4 + 7, 1 + 1 + 4 + 1]
+    assert sub_bits.tolist() == [10 + 15 + 4 + 7, 0 + 1 + 4 + 1]  # window 1: no step (one_step)
     # the coefficient bytes are layout 3's: prediction adds header fields only
     v3 = dataclasses.replace(_example_batch(), lag=None)
     d3, _, _, lane3 = pack_frames_v3(v3, 0xABCD, 8, 1, key=KEY)

@@ -136,7 +136,8 @@ def write_subheaders(val: np.ndarray, wid: np.ndarray, col: int, lead: np.ndarra
 def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarray,
                     mean: np.ndarray | None, count: np.ndarray, lb: int, n: int,
                     quantizer: np.ndarray | None = None, mean_pred: np.ndarray | None = None,
-                    count_pred: np.ndarray | None = None, prev: np.ndarray | None = None
+                    count_pred: np.ndarray | None = None, prev: np.ndarray | None = None,
+                    step_same: np.ndarray | None = None, mean_order: np.ndarray | None = None
                     ) -> tuple[np.ndarray, np.ndarray]:
     """Read subframe ``s`` of each frame (layouts 2 to 4): step, mean, term count.
 
@@ -145,7 +146,9 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     zig-zag exp-Golomb code; the count has ``lb`` bits.  Layouts 3 and 4 may
     send, at rows with ``mean_pred`` / ``count_pred``, the mean / count as the
     zig-zag exp-Golomb change from row ``prev`` (the same channel's previous
-    window in the frame).  Fills ``step``, ``mean`` and ``count`` (and layout
+    window in the frame); layout 5 sends no step at rows with ``step_same``
+    (the step of row ``prev``) and its mean fields as exp-Golomb codes of
+    order ``mean_order`` (per row).  Fills ``step``, ``mean`` and ``count`` (and layout
     4's ``quantizer`` bit) at ``rows``; returns the bit positions after them
     and which frames hold an impossible value (refused by the decoder).
     """
@@ -156,13 +159,21 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
         step[rows] = r.read(pp, STEP_BITS)
         pp = pp + STEP_BITS
     else:
-        v, used = read_exp_golomb(r, pp)
-        code = step[rows - 1] + unzigzag(v)
-        bad |= (code < 0) | (code >= (1 << STEP_BITS))
-        step[rows] = np.clip(code, 0, (1 << STEP_BITS) - 1)
-        pp = pp + used
+        rd = np.arange(rows.size) if step_same is None else np.flatnonzero(~step_same)
+        v, used = read_exp_golomb(r, pp[rd])
+        code = step[rows[rd] - 1] + unzigzag(v)
+        bad[rd] |= (code < 0) | (code >= (1 << STEP_BITS))
+        step[rows[rd]] = np.clip(code, 0, (1 << STEP_BITS) - 1)
+        pp = pp.copy()
+        pp[rd] += used
+        if step_same is not None:  # layout 5: the channel's previous window's step, no field
+            same = np.flatnonzero(step_same)
+            step[rows[same]] = step[prev[same]]
     if mean is not None:
         v, used = read_exp_golomb(r, pp)
+        if mean_order is not None:  # layout 5: then the k low bits
+            v = (v << mean_order) | r.read(pp + used, mean_order)
+            used = used + mean_order
         mean[rows] = unzigzag(v) + (0 if mean_pred is None
                                     else np.where(mean_pred, mean[prev], 0))
         pp = pp + used
@@ -183,12 +194,14 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
 
 def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n: int,
                   has_mean: bool, quantizer_bit: bool = False,
-                  count_change: np.ndarray | None = None) -> np.ndarray:
-    """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-4).
+                  count_change: np.ndarray | None = None,
+                  one_step: np.ndarray | None = None) -> np.ndarray:
+    """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-5).
 
     A subframe header takes at least its step (10 bits for the first, a 1-bit
-    exp-Golomb code for the others), a 1-bit mean code (reference ``ac``),
-    the count (``count_bits(n)``, or for a later subframe of a frame with
+    exp-Golomb code for the others, none for the later ones of a layout-5
+    frame with ``one_step``), a 1-bit mean code (reference ``ac``), the count
+    (``count_bits(n)``, or for a later subframe of a frame with
     ``count_change`` set a 1-bit exp-Golomb change) and layout 4's quantizer
     bit.  ``head_bits`` are the bits the frame header took from the sync
     marker on.  Checked before a parser allocates any row, so a short frame
@@ -197,8 +210,9 @@ def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n
     fixed = int(has_mean) + int(quantizer_bit)
     later_count = (count_bits(n) if count_change is None
                    else np.where(count_change, 1, count_bits(n)))
+    later_step = 1 if one_step is None else np.where(one_step, 0, 1)
     need = np.where(cnt > 0, STEP_BITS + fixed + count_bits(n)
-                    + (cnt - 1) * (1 + fixed + later_count), 0)
+                    + (cnt - 1) * (later_step + fixed + later_count), 0)
     room = (np.asarray(lengths, np.int64) - CRC_BYTES) * 8 - head_bits
     return need <= room
 

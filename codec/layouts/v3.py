@@ -75,6 +75,8 @@ __all__ = [
 ]
 
 LAYOUT_VERSION_3 = 3
+#: Layout 5: bits of the frame's exp-Golomb order of its mean fields (orders 0 to 15).
+MEAN_ORDER_BITS = 4
 #: The other versions these routines serve and what each adds to version 3's subframes:
 #: 4 the quantizer bit (:mod:`codec.layouts.v4`), 5 the prediction fields
 #: (:mod:`codec.layouts.v5`).
@@ -121,6 +123,10 @@ HEADER_FIELDS_V3 = (
 HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("predict", _several,
      "1: subframes carry long-term prediction fields (when windows > 1, layout 5)"),
+    ("one_step", _several,
+     "1: later windows repeat their channel's step and send none (when windows > 1, layout 5)"),
+    ("mean_order", lambda h, c: np.where(c.has_mean, MEAN_ORDER_BITS, 0),
+     "order k of the exp-Golomb codes of the mean fields (reference ac, layout 5)"),
 )
 
 
@@ -211,11 +217,33 @@ def _prediction_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win,
     return predict
 
 
+def _mean_orders(val, wid, col, zz, owner, nf):
+    """Layout 5: each frame's exp-Golomb order k of its mean fields, and the fields rewritten.
+
+    k (0 to 15) minimises the frame's mean bits; a field is the order-0 code of
+    ``zz >> k`` (its leading zeros in slot ``col``, the codeword in ``col + 1``)
+    followed by the ``k`` low bits of ``zz``.
+    """
+    from ..entropy.bits import bit_length
+
+    ks = np.arange(1 << MEAN_ORDER_BITS)
+    bits = np.stack([np.bincount(owner, 2 * bit_length((zz >> k) + 1) - 1 + k, minlength=nf)
+                     for k in ks])
+    order = np.argmin(bits, axis=0)  # the smallest order among equals
+    k = order[owner].astype(np.uint64)
+    hi = (zz.astype(np.uint64) >> k) + np.uint64(1)
+    nb = bit_length(hi.astype(np.int64))
+    wid[:, col] = nb - 1
+    val[:, col + 1] = (hi << k) | (zz.astype(np.uint64) & ((np.uint64(1) << k) - np.uint64(1)))
+    wid[:, col + 1] = nb + k.astype(np.int64)
+    return order
+
+
 def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None):
     """Slots of every subframe header, the frame-header slots left free in each frame's first row.
 
-    Returns ``(val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict)``
-    (``predict``: layout 5's per-frame flag, None for layouts 3 and 4).
+    Returns ``(val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict,
+    one_step, mean_order)`` (layout 5's per-frame fields, None for layouts 3 and 4).
     """
     nf, ns = len(batch), batch.q.shape[0]
     count = _counts(batch.q)
@@ -240,10 +268,18 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     cp = count_pred[owner] & has_prev
     val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
     wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
-    predict = None
+    predict = one_step = mean_order = None
     if batch.lag is not None:  # layout 5
         predict = _prediction_slots(batch, val, wid, nh + 4, first, owner, per_win, n, channels)
-    return val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred, predict
+        # frame scope gives a channel one step for all its windows in a frame: sent once
+        one_step = np.bincount(owner, has_prev & (batch.step_code != batch.step_code[prev]),
+                               minlength=nf) == 0
+        wid[has_prev & one_step[owner], nh] = 0
+        mean_order = np.zeros(nf, np.int64)
+        if mean_sent is not None:
+            mean_order = _mean_orders(val, wid, nh + 1, zigzag(mean_sent), owner, nf)
+    return (val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred, predict,
+            one_step, mean_order)
 
 
 def _join_bodies(heads: np.ndarray, head_bytes: np.ndarray, lanes: np.ndarray,
@@ -279,15 +315,16 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     cum, freq, shift, row = coefficient_ops(batch.q, _counts(batch.q), trellis=quant,
                                             mean=batch.mean is not None)
     lanes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
-    val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict = _subframe_slots(
-        batch, n, channels, quant)
+    val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict, one_step, mean_order = \
+        _subframe_slots(batch, n, channels, quant)
     ctx = ParseContext(n, channels, batch.mean is not None)
     table = HEADER_FIELDS_V3 if predict is None else HEADER_FIELDS_V5
     fields = {"version": version, "profile": profile_id & 0xFF,
               "sequence": batch.sequence % 256, "windows_minus_1": batch.windows - 1,
               "multi": batch.multi.astype(bool), "channel": batch.channel,
               "short": batch.valid < n, "valid_minus_1": batch.valid - 1,
-              "mean_change": mean_pred, "count_change": count_pred, "predict": predict}
+              "mean_change": mean_pred, "count_change": count_pred, "predict": predict,
+              "one_step": one_step, "mean_order": mean_order}
     head_bits = header_bits(table, fields, ctx, nf, skip=("length",))
     payload = np.add.reduceat(sub_bits, first)
     long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len)
@@ -325,7 +362,9 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
         later = s >= pw
         p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, count_bits(n), n,
                                       quant, later & mean_pred[fr], later & count_pred[fr],
-                                      np.where(later, rows - pw, rows))
+                                      np.where(later, rows - pw, rows),
+                                      later & (h["one_step"][fr] > 0) if predict else None,
+                                      h["mean_order"][fr] if predict and has_mean else None)
         bad_any[fr] |= bad
         if predict:
             p[fr] = _read_prediction(r, p[fr], rows, s, pw, h["predict"][fr] > 0, lag, chlag, n)
@@ -380,7 +419,8 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     # own bytes can hold (each subframe header takes at least min_subframe_bits) is
     # refused and gets no rows, so the work and memory per frame follow its length.
     fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
-                         version == QUANTIZER_BIT_VERSION, h["count_change"] > 0)
+                         version == QUANTIZER_BIT_VERSION, h["count_change"] > 0,
+                         h["one_step"] > 0 if predict else None)
     cnt = np.where(fits, cnt, 0)
     owner = np.repeat(np.arange(offsets.size), cnt)
     slot = np.arange(owner.size) - (np.cumsum(cnt) - cnt)[owner]
