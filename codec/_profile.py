@@ -60,7 +60,7 @@ MAX_CHANNELS = 256
 
 #: Characters a channel name may have.
 MAX_NAME_CHARS = 64
-#: Time windows one frame carries at most (the windows field of layouts 3 and 4).
+#: Time windows one frame carries at most (the windows field of layouts 3 to 5).
 MAX_WINDOWS_PER_FRAME = 16
 
 
@@ -201,12 +201,12 @@ class Profile(BaseModel):
     layout_version: int = 5
     #: Layouts 2 to 4: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
-    #: Layouts 3 and 4: consecutive time windows one frame carries (1 to 16); more
+    #: Layouts 3 to 5: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
     windows_per_frame: int = Field(default=16, ge=1, le=MAX_WINDOWS_PER_FRAME)
     #: What one fidelity budget covers: "window" (each window of each channel on its
     #: own) or "frame" (the windows of one channel that travel in one frame share one
-    #: budget; layouts 3 and 4 with several windows per frame).  Only the encoder
+    #: budget; layouts 3 to 5 with several windows per frame).  Only the encoder
     #: reads it and the profile identifier leaves it out, but the CRC key
     #: (:func:`profile_digest`) holds it: a decoder needs the encoder's value.
     fidelity_scope: Literal["window", "frame"] = "frame"

@@ -88,6 +88,42 @@ def test_worked_example_parses_back():
     assert p.row_offset.tolist() == [0, 1] and p.sequence.tolist() == [5]
 
 
+def _ueg_bits(v, k):
+    """Length of the k-th order exp-Golomb codeword of v >= 0: the order-0 code of v >> k
+    (2 floor(log2(u + 1)) + 1 bits, ITU-T H.264 table 9-2) and k suffix bits (the k-th
+    order code of H.264 clause 9.3.2.3; clause number from memory)."""
+    u = v >> k
+    return 2 * int(np.floor(np.log2(u + 1))) + 1 + k
+
+
+@pytest.mark.parametrize("means", [[1000, 1500, 900, 1300], [-7000, 6000, 5, -4000],
+                                   [3, 0, 1, 2]])
+def test_mean_order_is_the_cheapest_and_parses_back(means):
+    # four windows of one channel, every coefficient 0: the subframes hold step (one field),
+    # mean and count; the frame's order k must be the cheapest for its mean fields
+    w = len(means)
+    batch = FrameBatchV3(
+        multi=np.array([False]), channel=np.array([0]), sequence=np.array([0]),
+        windows=np.array([w]), valid=np.array([8]), frame=np.zeros(w, np.int64),
+        step_code=np.full(w, 512), mean=np.array(means), q=np.zeros((w, 8), np.int64),
+        lag=np.zeros(w, np.int64))
+    data, length, sub_bits, _ = pack_frames_v3(batch, 0xABCD, 8, 1, version=5, key=KEY)
+    p = parse_frames_v3(data, np.array([0]), length, 8, 1, True, version=5)
+    assert p.verdict == ("ok",) and p.row_mean.tolist() == means
+    k = int(p.header["mean_order"][0])
+    change = bool(p.header["mean_change"][0])
+    sent = np.array(means) - np.r_[0, means[:-1]] * change  # whole, or changes after the first
+    zz = np.where(sent >= 0, 2 * sent, -2 * sent - 1)  # zigzag
+    cost = [sum(_ueg_bits(int(z), j) for z in zz) for j in range(16)]
+    assert cost[k] == min(cost) and k == cost.index(min(cost))
+    # subframe bits: the first sends step (10) + mean + count (4); later ones mean + count
+    # (one_step: no step field)
+    count = 4
+    want = [10 + _ueg_bits(int(zz[0]), k) + count] + [
+        _ueg_bits(int(z), k) + (1 if p.header["count_change"][0] else count) for z in zz[1:]]
+    assert sub_bits.tolist() == want
+
+
 def test_a_layout_3_parser_does_not_read_version_5_fields():
     # without the version, the predict flag and lag field are not layout 3's: the same
     # bits read as layout 3 misalign and the frame is refused (or differs)

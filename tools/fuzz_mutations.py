@@ -100,6 +100,8 @@ def build_cases(rng: np.random.Generator, which: list[int]) -> list[Case]:
         n = prof.frame_length
         samples = windows * n - (n // 3 if i % 2 else 0)  # some streams end on a short window
         x = np.cumsum(rng.normal(size=(samples, ch)), axis=0) * (1 + i)
+        if i % 2 == 0:  # a periodic part, so that layout 5 frames carry predicted windows
+            x += 40.0 * (1 + i) * np.sin(2 * np.pi * np.arange(samples) / 11.0)[:, None]
         if gaps:
             x[n // 2 : n // 2 + 5, 0] = np.nan
             x[2 * n : 3 * n, ch - 1] = np.nan  # one whole window
