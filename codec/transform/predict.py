@@ -186,15 +186,17 @@ def choose_lags(frames: np.ndarray, mask: np.ndarray, block: np.ndarray, offset:
         return np.zeros(blocks, np.int64)
     # The autocorrelation only ranks candidate lags (each is then measured in float64),
     # so float32 serves and halves the memory the FFT touches.
-    sig = np.zeros((blocks, 2 * width * n), np.float32)
+    longest = min(width - 1, MAX_LAG_WINDOWS) * n
+    # zero padding past the longest lag keeps the correlation linear; an even length
+    # makes the power spectrum's inverse a DCT-I (real to real) of half the length + 1
+    size = 2 * scipy.fft.next_fast_len((width * n + longest + 1) // 2, real=True)
+    sig = np.zeros((blocks, size), np.float32)
     cols = offset[:, None] * n + np.arange(n)
     sig[block[:, None], cols] = frames
     short = np.flatnonzero(~mask.all(axis=1))  # the samples past a short last window
     sig[block[short, None], cols[short]] *= mask[short]
     sig[:, : width * n] -= sig[:, : width * n].mean(axis=1, keepdims=True)
     spec = scipy.fft.rfft(sig, axis=1)
-    # the inverse transform of a real, even power spectrum is a DCT-I (real to real)
-    longest = min(width - 1, MAX_LAG_WINDOWS) * n
     acf = scipy.fft.dct(spec.real**2 + spec.imag**2, type=1, axis=1)[:, : longest + 1]
     # normalized, biased: a long lag sums fewer products, so shorter lags (which more of
     # the block's windows can use) rank first among equally periodic ones
