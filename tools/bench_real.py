@@ -187,7 +187,7 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
 
 
 def parse_stream(enc) -> dict:
-    """The fields of every frame of a layout-3 (or 4) stream (``parse_frames_v3``'s dict)."""
+    """The fields of every frame of a layout-3 (4 or 5) stream (``parse_frames_v3``'s dict)."""
     from codec.layouts.v3 import parse_frames_v3
 
     p = enc.profile
@@ -198,7 +198,11 @@ def parse_stream(enc) -> dict:
     return {"frame": f.row_frame, "channel": f.row_channel, "step_code": f.row_step,
             "mean": f.row_mean, "count": f.row_count, "q": f.q, "window_offset": f.row_offset,
             "sub_valid": f.row_valid, "windows": h["windows_minus_1"] + 1, "multi": h["multi"] > 0,
-            "mean_pred": h["mean_change"] > 0, "count_pred": h["count_change"] > 0}
+            "mean_pred": h["mean_change"] > 0, "count_pred": h["count_change"] > 0,
+            # layout 5: the prediction lag of each row, one step field per channel and
+            # frame, the frame's exp-Golomb order of its mean fields
+            "lag": f.row_lag, "predict": h.get("predict"), "one_step": h.get("one_step"),
+            "mean_order": h.get("mean_order")}
 
 
 def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
@@ -212,8 +216,9 @@ def bit_split(enc) -> dict:
     """Where a layout-3 stream's bits go, per input sample: the parsed subframe fields.
 
     ``mean``, ``step`` and ``count`` are the subframe-header fields, ``coef`` the
-    range coder's ideal code length of the coefficients, ``frame`` the rest
-    (sync marker, frame header, padding, CRC, the range coder's last bytes).
+    range coder's ideal code length of the coefficients, ``lag`` layout 5's
+    lag fields and prediction flags, ``frame`` the rest (sync marker, frame
+    header, padding, CRC, the range coder's last bytes).
     """
     from codec.entropy.rangecoder import coefficient_cost_bits
     from codec.entropy.rice import exp_golomb_bits, zigzag
@@ -228,10 +233,14 @@ def bit_split(enc) -> dict:
     first = np.flatnonzero(lead)[fr]
     later = np.arange(fr.size) - first >= per_win
     prev = np.where(later, np.arange(fr.size) - per_win, 0)
+    v5 = f["one_step"] is not None
+    if v5:
+        step = np.where(later & (f["one_step"][fr] > 0), 0, step)
     mean = 0
     if f["mean"] is not None:
         mp = later & f["mean_pred"][fr]
-        mean = exp_golomb_bits(zigzag(f["mean"] - np.where(mp, f["mean"][prev], 0))).sum()
+        k = f["mean_order"][fr] if v5 else 0
+        mean = signed_exp_golomb_bits(f["mean"] - np.where(mp, f["mean"][prev], 0), k).sum()
     cp = later & f["count_pred"][fr]
     count = np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
                      int(p.frame_length).bit_length()).sum()
@@ -239,6 +248,19 @@ def bit_split(enc) -> dict:
     total = len(enc.data) * 8
     samples = enc.reconstruction.size
     out = {"mean": mean, "step": step.sum(), "count": count, "coef": coef}
+    if v5:  # the lag field of each channel's first subframe, a flag where the lag reaches
+        from codec.transform.predict import lag_bits, predictable
+
+        on = f["predict"][fr] > 0
+        # each row's channel lag, from the predicted rows (a channel whose lag field
+        # is sent but no row predicted has lag 0 here: its flags are not counted)
+        key = fr * len(p.channels) + f["channel"]
+        top = np.zeros(int(key.max(initial=0)) + 1, np.int64)
+        np.maximum.at(top, key, f["lag"])
+        chlag = top[key]
+        out["lag"] = (np.where(on & ~later, lag_bits(p.frame_length), 0)
+                      + (on & later & predictable(chlag, f["window_offset"],
+                                                  p.frame_length))).sum()
     out["frame"] = total - sum(out.values())
     return {k: float(v) / samples for k, v in out.items()}
 
