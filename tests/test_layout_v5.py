@@ -10,8 +10,10 @@ from scipy.fft import idct
 from streams import EXAMPLE_DIGEST, digest_of, with_crc
 
 import codec
+from codec._profile import profile_id
 from codec.encoder import reconstruct
 from codec.layouts.envelope import FrameKey
+from codec.layouts.registry import CodedFrames, layout_for
 from codec.layouts.v3 import FrameBatchV3, pack_frames_v3, parse_frames_v3
 from codec.stream.search import locate_frames
 from codec.transform.predict import add_predictions
@@ -209,6 +211,31 @@ def test_periodic_signal_round_trip(multi, windows):
     blocks = [b for a in range(0, len(enc.data), 37) for b in sd.feed(enc.data[a : a + 37])]
     out = np.concatenate([b.samples for b in blocks + sd.close()])
     assert np.array_equal(out, enc.reconstruction)
+
+
+@pytest.mark.parametrize("multi", [False, True])
+def test_a_spliced_stream_is_what_one_packing_gives(multi):
+    # The encoder packs the plain coding, packs the frames that may be predicted again and
+    # splices the cheaper frame of each; parsing the stream and packing its rows in one
+    # call must give the same bytes (frames whose prediction was kept and frames without).
+    x = _periodic(64 * 40, 2, seed=3)
+    x[: 64 * 16, 1] = np.random.default_rng(4).normal(size=64 * 16).cumsum()  # no period
+    enc = codec.encode(x, codec.Profile(frame_length=64, multi_channel_frames=multi))
+    prof = enc.profile
+    loc = locate_frames(enc.data)
+    p = parse_frames_v3(enc.data, loc.offsets, loc.lengths, 64, 2, True, version=5)
+    predicted = np.bincount(p.row_frame, p.row_lag > 0) > 0
+    assert predicted.any() and (multi or not predicted.all())  # single-channel: a mix
+    seq = p.sequence[p.row_frame] + p.row_offset  # fewer than 256 windows: no wrap
+    order = np.lexsort((p.row_channel, seq))
+    coded = CodedFrames(
+        channel=p.row_channel[order], sequence=seq[order], valid=p.row_valid[order],
+        step_code=p.row_step[order], mean=p.row_mean[order], q=p.q[order],
+        profile_id=profile_id(prof), n=64, channels=2, basis_code=0, multi=multi,
+        windows_per_frame=prof.windows_per_frame, lag=p.row_lag[order])
+    again = layout_for(5).pack(coded, codec.frame_key(prof))
+    assert again.data == enc.data
+    assert again.header_bits == round(enc.report["header_bits_per_sample"] * x.size)
 
 
 @pytest.mark.parametrize("multi", [False, True])
