@@ -45,6 +45,7 @@ from .transform.klt import profile_basis
 from .transform.predict import (
     add_predictions,
     choose_lags,
+    predictable,
     prediction_index,
 )
 
@@ -615,11 +616,7 @@ def _closed_loop(w: _Windows, basis: Basis, q, mean_int, code, offset, trellis):
     recon = reconstruct(q, mean_int, code, basis, trellis)
     err = _valid_error(w.frames, recon, w.mask)
     peak_mode = bool(np.isfinite(w.limit).any())
-    # finest step: keeps every integer code below 2**52 (exact in float64)
-    scale = np.abs(cx).max(axis=1)
-    if mean is not None:
-        scale = np.maximum(scale, np.abs(mean) * np.sqrt(w.frames.shape[1]))
-    finest = np.minimum(code_for_step(np.maximum(scale, 1e-300) * 2.0**-52), code)
+    finest = np.minimum(_finest_codes(w), code)
     rows = np.arange(code.size)
     drop = _step_drop(w, rows, err, recon, peak_mode)
     while (drop > 0).any():  # closed loop on the reconstruction the decoder will produce
@@ -689,11 +686,9 @@ def _predicted(w: _Windows, basis: Basis, plain_q: np.ndarray, code: np.ndarray,
     q = np.zeros_like(w.cx, dtype=np.int64)
     mean_int = None if w.mean is None else np.zeros(code.size, np.int64)
     lag = np.zeros(code.size, np.int64)
-    # never finer than twice the plain path's finest step (codes stay below 2**52)
-    scale = np.abs(w.cx).max(axis=1)
-    if w.mean is not None:
-        scale = np.maximum(scale, np.abs(w.mean) * np.sqrt(w.frames.shape[1]))
-    finest = code_for_step(np.maximum(scale, 1e-300) * 2.0**-52) + 8
+    # never finer than twice the plain path's finest step: a prediction residual may
+    # exceed its window a little, and its codes too must stay below 2**52
+    finest = _finest_codes(w) + 8
     for rnd in range(_PREDICTED_ROUNDS):  # each round codes again only the blocks that missed
         blocks, sub = np.unique(w.block[todo], return_inverse=True)
         q[todo], mi, lag[todo], err = _code_predicted(
@@ -753,7 +748,7 @@ def _code_predicted(w: _Windows, basis: Basis, rows: np.ndarray, off: np.ndarray
     mean_int = np.zeros(rows.size, np.int64) if ac else None
     used = np.zeros(rows.size, np.int64)
     recon = np.zeros((rows.size, n))
-    pr, src, col = prediction_index(np.where(off * n >= lag, lag, 0), w.block[rows],
+    pr, src, col = prediction_index(np.where(predictable(lag, off, n), lag, 0), w.block[rows],
                                     np.zeros(rows.size, np.int64), off, n)
     for k in range(int(off.max(initial=0)) + 1):  # the decoder's order: earlier windows first
         at = np.flatnonzero(off == k)
@@ -864,6 +859,15 @@ def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, bas
     if (block_sums(err, w.block, nb) > w.block_budget * _MARGIN)[w.block[take]].any():
         raise RuntimeError("a predicted block misses its budget on the decoder's samples")
     return packed, coded, recon, err
+
+
+def _finest_codes(w: _Windows) -> np.ndarray:
+    """Per window, the finest step code that keeps every integer code below 2**52 (exact in
+    float64)."""
+    scale = np.abs(w.cx).max(axis=1)
+    if w.mean is not None:
+        scale = np.maximum(scale, np.abs(w.mean) * np.sqrt(w.frames.shape[1]))
+    return code_for_step(np.maximum(scale, 1e-300) * 2.0**-52)
 
 
 def _peak_limits(profile: Profile, channel: np.ndarray) -> np.ndarray:

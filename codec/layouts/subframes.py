@@ -139,7 +139,7 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
                     count_pred: np.ndarray | None = None, prev: np.ndarray | None = None,
                     step_same: np.ndarray | None = None, mean_order: np.ndarray | None = None
                     ) -> tuple[np.ndarray, np.ndarray]:
-    """Read subframe ``s`` of each frame (layouts 2 to 4): step, mean, term count.
+    """Read subframe ``s`` of each frame (layouts 2 to 5): step, mean, term count.
 
     The first subframe sends its step code whole, later ones as an exp-Golomb
     difference from the previous subframe's; the mean (when sent) is a

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..entropy.bits import BitReader, pack_fields
+from ..entropy.bits import BitReader, bit_length, pack_fields
 from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
 from ..entropy.rice import exp_golomb_bits, zigzag
 from ..quantize.select import choose_steps
@@ -99,7 +99,8 @@ def _several(h, ctx):
     return h["windows_minus_1"] > 0
 
 
-#: (field, bits, meaning) of the frame header after the sync marker (layouts 3 and 4);
+#: (field, bits, meaning) of the frame header after the sync marker (layouts 3 and 4;
+#: layout 5 adds three fields, HEADER_FIELDS_V5);
 #: ``bits`` may be a function of the fields before it (:mod:`codec.layouts.fields`).
 HEADER_FIELDS_V3 = (
     ("version", 4, "frame layout version (3, 4 or 5)"),
@@ -119,7 +120,7 @@ HEADER_FIELDS_V3 = (
     ("count_change", _several, "1: later windows send their count as a change (windows > 1)"),
 )
 
-#: Layout 5: layout 3's header and one more flag (:mod:`codec.layouts.v5`).
+#: Layout 5: layout 3's header and three more fields (:mod:`codec.layouts.v5`).
 HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("predict", _several,
      "1: subframes carry long-term prediction fields (when windows > 1, layout 5)"),
@@ -224,10 +225,8 @@ def _mean_orders(val, wid, col, zz, owner, nf):
     ``zz >> k`` (its leading zeros in slot ``col``, the codeword in ``col + 1``)
     followed by the ``k`` low bits of ``zz``.
     """
-    from ..entropy.bits import bit_length
-
     ks = np.arange(1 << MEAN_ORDER_BITS)
-    bits = np.stack([np.bincount(owner, 2 * bit_length((zz >> k) + 1) - 1 + k, minlength=nf)
+    bits = np.stack([np.bincount(owner, exp_golomb_bits(zz >> k) + k, minlength=nf)
                      for k in ks])
     order = np.argmin(bits, axis=0)  # the smallest order among equals
     k = order[owner].astype(np.uint64)

@@ -184,11 +184,11 @@ def choose_lags(frames: np.ndarray, mask: np.ndarray, block: np.ndarray, offset:
     width = int(offset.max(initial=0)) + 1
     if width < 2:
         return np.zeros(blocks, np.int64)
-    # The autocorrelation only ranks candidate lags (each is then measured in float64),
-    # so float32 serves and halves the memory the FFT touches.
     longest = min(width - 1, MAX_LAG_WINDOWS) * n
     # zero padding past the longest lag keeps the correlation linear; an even length
-    # makes the power spectrum's inverse a DCT-I (real to real) of half the length + 1
+    # makes the power spectrum's inverse a DCT-I (real to real) of half the length + 1.
+    # The autocorrelation only ranks candidate lags (each is then measured in float64),
+    # so float32 serves and halves the memory the FFT touches.
     size = 2 * scipy.fft.next_fast_len((width * n + longest + 1) // 2, real=True)
     sig = np.zeros((blocks, size), np.float32)
     cols = offset[:, None] * n + np.arange(n)
