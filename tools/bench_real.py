@@ -34,7 +34,7 @@ coefwire's decoded output (step sqrt(12 MSE)), first-differenced, stored as
 the smallest integer type, zstd level 19.  Printed: bits/sample with every
 stream bit counted, the ratio to the baseline, and the medians.
 
-    python tools/bench_real.py [--fidelity 0.99] [--only NAME,...] [--split] [--ideal]
+    python tools/bench_real.py [--fidelity 0.99] [--only NAME,...] [--split] [--ideal | --paths]
 
 ``--ideal`` instead prints, for the default profile in frame scope, what an
 oracle coder of the same quantized integers would spend (per coefficient
@@ -42,6 +42,13 @@ index, given the previous coefficient, given the previous window; also with
 the model counted on held-out windows) and the baseline in four forms: as
 benchmarked, at an error bisected to match, keeping the per-block promise,
 and compressed frame by frame like coefwire's independent frames.
+
+``--paths`` instead prints, for the default profile in frame scope, what
+changes of the layout would give, coded where the current layouts can code
+them (multi-channel frames; each frame the smaller of its DCT and Haar
+codings, spliced) and estimated from the coder's own code lengths where they
+cannot (a flag that drops a frame's count fields; the three together), and
+how much of its error budgets the default coding spends.
 """
 
 from __future__ import annotations
@@ -212,6 +219,26 @@ def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
     return exp_golomb_bits(zigzag(np.asarray(v)) >> k) + k
 
 
+def _count_field_bits(f: dict, later: np.ndarray, prev: np.ndarray, n: int) -> np.ndarray:
+    """Each row's count field bits: whole, or as the change from its channel's previous
+    window where the frame's flag says so."""
+    from codec.entropy.rice import exp_golomb_bits, zigzag
+
+    cp = later & f["count_pred"][f["frame"]]
+    return np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
+                    int(n).bit_length())
+
+
+def _later_rows(f: dict, channels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per row, whether it has a previous window of its channel in its frame, and that row."""
+    fr = f["frame"]
+    lead = np.r_[True, fr[1:] != fr[:-1]]
+    per_win = np.where(f["multi"], channels, 1)[fr]
+    first = np.flatnonzero(lead)[fr]
+    later = np.arange(fr.size) - first >= per_win
+    return later, np.where(later, np.arange(fr.size) - per_win, 0)
+
+
 def bit_split(enc) -> dict:
     """Where a layout-3 stream's bits go, per input sample: the parsed subframe fields.
 
@@ -229,10 +256,7 @@ def bit_split(enc) -> dict:
     step = np.where(lead, 10, exp_golomb_bits(zigzag(np.diff(f["step_code"], prepend=0))))
     # the previous window of the same channel in the frame (mean and count changes)
     fr = f["frame"]
-    per_win = np.where(f["multi"], len(p.channels), 1)[fr]
-    first = np.flatnonzero(lead)[fr]
-    later = np.arange(fr.size) - first >= per_win
-    prev = np.where(later, np.arange(fr.size) - per_win, 0)
+    later, prev = _later_rows(f, len(p.channels))
     v5 = f["one_step"] is not None
     if v5:
         step = np.where(later & (f["one_step"][fr] > 0), 0, step)
@@ -241,9 +265,7 @@ def bit_split(enc) -> dict:
         mp = later & f["mean_pred"][fr]
         k = f["mean_order"][fr] if v5 else 0
         mean = signed_exp_golomb_bits(f["mean"] - np.where(mp, f["mean"][prev], 0), k).sum()
-    cp = later & f["count_pred"][fr]
-    count = np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
-                     int(p.frame_length).bit_length()).sum()
+    count = _count_field_bits(f, later, prev, p.frame_length).sum()
     coef = coefficient_cost_bits(f["q"], mean=f["mean"] is not None).sum()
     total = len(enc.data) * 8
     samples = enc.reconstruction.size
@@ -475,6 +497,119 @@ def print_ideal(recs: dict, fidelity: float) -> None:
     print(f"{'median ratio':<49} | " + " ".join(f"{np.median(v):>6.3f}" for v in med.values()))
 
 
+def _frame_samples(profile) -> int:
+    """Samples of one channel that one frame carries (windows per frame x N)."""
+    return profile.windows_per_frame * profile.frame_length
+
+
+def _coded_frames(values, profile):
+    """(each frame's bytes, the decoded samples, the stream's bits) of one coding."""
+    enc = codec.encode(values, profile)
+    dec = codec.decode(enc.data, enc.profile, samples=values.shape[0])
+    return np.asarray(codec.locate_frames(enc.data).lengths), dec.samples, enc
+
+
+def _best_per_frame(values, profiles) -> tuple[float, float]:
+    """Bits/sample and ratio if each frame took the fewest bytes among ``profiles``.
+
+    The profiles differ only in their basis, so their frames cover the same
+    samples: frame f of a single-channel coding is block f // C of channel
+    f % C (blocks of windows_per_frame windows, channel-minor), of a
+    multi-channel one block f.  One bit per frame and channel is counted for
+    the choice; the baseline is taken at the error of the spliced
+    reconstruction.
+    """
+    runs = [_coded_frames(values, p) for p in profiles]
+    lengths = np.stack([r[0] for r in runs])
+    pick = np.argmin(lengths, axis=0)
+    s, c = values.shape
+    multi = profiles[0].multi_channel_frames
+    span = _frame_samples(profiles[0])
+    recon = runs[0][1].copy()
+    for f, k in enumerate(pick):
+        b, ch = (f, slice(None)) if multi else (f // c, f % c)
+        recon[b * span:(b + 1) * span, ch] = runs[k][1][b * span:(b + 1) * span, ch]
+    bits = lengths.min(axis=0).sum() * 8 + pick.size * (c if multi else 1)
+    return bits / values.size, bits / values.size / diff_zstd_bits(values, recon)
+
+
+def run_paths(values, fidelity) -> dict:
+    """The default profile (frame scope) and what changes of the layout would give.
+
+    ``today``: as coded; ``multi``: multi-channel frames (one header for every
+    channel of a block of windows); ``basis``: each frame the smaller of its
+    DCT and Haar codings; ``multi_basis``: both; ``no_count``: a frame flag
+    (one bit) that drops the frame's count fields and codes every coefficient
+    to N, set where that saves bits, estimated with the range coder's own code
+    lengths of the same integers; ``all``: multi-channel frames with a choice
+    of basis per channel and the count flag, estimated as ``multi`` less the
+    single-channel savings of the other two.  Each as (bits/sample, ratio to
+    differenced zstd at that coding's error).  ``fill``: today's error energy
+    over its budgets, summed over the budget blocks (1: no budget left unspent).
+    """
+    from codec.entropy.rangecoder import coefficient_cost_bits
+
+    base = codec.Profile(fidelity=fidelity, frame_length=N_FRAME)
+    multi = base.model_copy(update={"multi_channel_frames": True})
+    haar = {"basis": "haar"}
+    out = {}
+    for label, p in (("today", base), ("multi", multi)):
+        _lengths, recon, enc = _coded_frames(values, p)
+        bps = len(enc.data) * 8 / values.size
+        out[label] = (bps, bps / diff_zstd_bits(values, recon))
+        if label == "today":
+            g, budget, _ng = _block_budgets(values, enc.profile)
+            err = np.zeros_like(budget)
+            np.add.at(err, g, (values - recon) ** 2)
+            out["fill"] = float(err.sum() / budget.sum())  # the budgets' share spent
+            f = parse_stream(enc)
+            has_mean = f["mean"] is not None
+            tails = (coefficient_cost_bits(f["q"], np.full_like(f["count"], N_FRAME),
+                                           mean=has_mean)
+                     - coefficient_cost_bits(f["q"], f["count"], mean=has_mean))
+            later, prev = _later_rows(f, values.shape[1])
+            gain = _count_field_bits(f, later, prev, N_FRAME) - tails
+            # a per-frame flag: the frames where dropping the counts saves bits drop them
+            per_frame = np.bincount(f["frame"], gain)
+            saved = (np.maximum(per_frame, 0).sum() - per_frame.size) / values.size
+            zstd = bps / out["today"][1]  # the same integers, so the same baseline
+            out["no_count"] = (bps - saved, (bps - saved) / zstd)
+    out["basis"] = _best_per_frame(values, [base, base.model_copy(update=haar)])
+    out["multi_basis"] = _best_per_frame(values, [multi, multi.model_copy(update=haar)])
+    # a per-channel choice inside multi-channel frames cannot be measured by frame
+    # sizes: the single-channel savings of the basis choice and of the count flag are
+    # added to the multi-channel coding (an estimate), at its baseline
+    est = out["multi"][0] - (out["today"][0] - out["basis"][0]) - (
+        out["today"][0] - out["no_count"][0])
+    out["all"] = (est, est / (out["multi"][0] / out["multi"][1]))
+    return out
+
+
+PATHS = ("today", "multi", "basis", "multi_basis", "no_count", "all")
+
+
+def print_paths(recs: dict, fidelity: float) -> None:
+    """The --paths table."""
+    print(f"F = {fidelity}; default profile (DCT, N = {N_FRAME}), frame scope; bits/sample "
+          "(ratio to differenced zstd-19 at the same error energy)")
+    print("today: as coded; multi: multi-channel frames; basis: each frame the smaller of its "
+          "DCT and Haar codings (+1 bit per frame and channel); multi_basis: both; no_count: "
+          "where it saves bits, no count fields and every coefficient to N (+1 bit per frame; "
+          "estimate from the coder's code lengths); all: multi with "
+          "the savings of basis (per channel) and no_count added (estimate); fill: today's error "
+          "energy over its budgets, summed over the budget blocks")
+    print(f"{'recording':<14} " + " ".join(f"{k:>16}" for k in PATHS) + "   fill")
+    ratios = {k: [] for k in PATHS}
+    for name, (_kind, values, _names, _step) in recs.items():
+        r = run_paths(values, fidelity)
+        for k in PATHS:
+            ratios[k].append(r[k][1])
+        print(f"{name:<14} " + " ".join(f"{r[k][0]:>8.3f} ({r[k][1]:.3f})" for k in PATHS)
+              + f" {r['fill']:>6.3f}")
+    for lab, fn in (("median ratio", np.median), ("largest ratio", np.max)):
+        print(f"{lab:<14} " + " ".join(f"{'':>9}{fn(ratios[k]):>6.3f} " for k in PATHS))
+
+
 def run(name, values, names, step_s, fidelity) -> dict:
     time_col = None if step_s is None else np.arange(values.shape[0]) * step_s
     t0 = time.perf_counter()
@@ -504,12 +639,19 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--ideal", action="store_true",
                     help="instead: the default profile in frame scope against an oracle "
                     "coder of the same integers and against four forms of the baseline")
+    ap.add_argument("--paths", action="store_true",
+                    help="instead: the default profile in frame scope against what changes "
+                    "of the layout would give (multi-channel frames, a per-frame choice of "
+                    "DCT or Haar, no count fields)")
     args = ap.parse_args(argv)
     recs = recordings()
     if args.only:
         recs = {k: v for k, v in recs.items() if k in args.only.split(",")}
     if args.ideal:
         print_ideal(recs, args.fidelity)
+        return 0
+    if args.paths:
+        print_paths(recs, args.fidelity)
         return 0
     t_all = time.perf_counter()
     print(f"F = {args.fidelity}; bits/sample (every stream bit) and ratio to differenced "

@@ -8,9 +8,13 @@ best of a few repeats, and the same per second of this process's CPU time
 on a 2-core machine: encode >= 1 M samples/s, decode >= 2 M samples/s.
 
     python tools/bench_speed.py [--samples 1000000] [--channels 4] [--repeats 3] [--layout 4]
+                                [--multi]
 
 ``--layout 4`` measures the same profile with layout 4 (dependent
 quantization tried on every frame), which the targets do not cover.
+``--multi`` measures it with multi-channel frames (every channel of 16
+windows in one frame): the range decoder steps once per coefficient of its
+longest frame, so frames that carry more coefficients decode more slowly.
 """
 
 from __future__ import annotations
@@ -38,11 +42,15 @@ def main() -> None:
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5), default=None,
                     help="frame layout (default: the default profile's)")
+    ap.add_argument("--multi", action="store_true",
+                    help="multi-channel frames (the default profile's are single-channel)")
     args = ap.parse_args()
     x = _signal(args.samples, args.channels)
     profile = codec.default_profile()
     if args.layout is not None:
         profile = profile.model_copy(update={"layout_version": args.layout})
+    if args.multi:
+        profile = profile.model_copy(update={"multi_channel_frames": True})
     count = x.size
     enc_t, dec_t, enc_c, dec_c = [], [], [], []
     for _ in range(args.repeats):
@@ -58,7 +66,8 @@ def main() -> None:
     assert dec.delivered.all()
     print(f"input: {args.samples} samples x {args.channels} channels, default profile "
           f"(dct, N={profile.frame_length}, F={profile.fidelity}, {profile.reference}, "
-          f"layout {profile.layout_version})")
+          f"layout {profile.layout_version}"
+          f"{', multi-channel frames' if profile.multi_channel_frames else ''})")
     print(f"stream: {enc.report['bits_per_sample']:.3f} bits/sample, "
           f"{enc.report['frames']} frames, fidelity min {enc.report['fidelity_min']:.5f}")
     print(f"encode: {count / min(enc_t) / 1e6:.2f} M samples/s (best of {args.repeats})")
