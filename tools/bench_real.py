@@ -525,6 +525,8 @@ def _best_per_frame(values, profiles) -> tuple[float, float]:
     s, c = values.shape
     multi = profiles[0].multi_channel_frames
     span = _frame_samples(profiles[0])
+    if pick.size != -(-s // span) * (1 if multi else c):
+        raise RuntimeError("frames do not map to blocks as assumed")  # a layout changed
     recon = runs[0][1].copy()
     for f, k in enumerate(pick):
         b, ch = (f, slice(None)) if multi else (f // c, f % c)
