@@ -184,11 +184,17 @@ def _block_budgets(x: np.ndarray, profile) -> tuple[np.ndarray, np.ndarray, int]
     return np.repeat(g, n)[:s], budget, ng
 
 
-def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
-    """Budget blocks that hold on the decoded samples, recomputed from the input alone."""
-    g, budget, ng = _block_budgets(x, profile)
+def block_errors(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[np.ndarray, np.ndarray]:
+    """Error energy and budget of every budget block (block row, channel) of the decoded samples."""
+    g, budget, _ng = _block_budgets(x, profile)
     err = np.zeros_like(budget)
     np.add.at(err, g, (x - x_hat) ** 2)
+    return err, budget
+
+
+def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
+    """Budget blocks that hold on the decoded samples, recomputed from the input alone."""
+    err, budget = block_errors(x, x_hat, profile)
     met = err <= budget * (1 + 1e-12)
     return int(met.sum()), int(met.size)
 
@@ -497,20 +503,15 @@ def print_ideal(recs: dict, fidelity: float) -> None:
     print(f"{'median ratio':<49} | " + " ".join(f"{np.median(v):>6.3f}" for v in med.values()))
 
 
-def _frame_samples(profile) -> int:
-    """Samples of one channel that one frame carries (windows per frame x N)."""
-    return profile.windows_per_frame * profile.frame_length
-
-
 def _coded_frames(values, profile):
-    """(each frame's bytes, the decoded samples, the stream's bits) of one coding."""
+    """(each frame's bytes, the decoded samples, the encode result) of one coding."""
     enc = codec.encode(values, profile)
     dec = codec.decode(enc.data, enc.profile, samples=values.shape[0])
     return np.asarray(codec.locate_frames(enc.data).lengths), dec.samples, enc
 
 
 def _best_per_frame(values, profiles) -> tuple[float, float]:
-    """Bits/sample and ratio if each frame took the fewest bytes among ``profiles``.
+    """Bits/sample, and the baseline's, if each frame took the fewest bytes among ``profiles``.
 
     The profiles differ only in their basis, so their frames cover the same
     samples: frame f of a single-channel coding is block f // C of channel
@@ -524,15 +525,33 @@ def _best_per_frame(values, profiles) -> tuple[float, float]:
     pick = np.argmin(lengths, axis=0)
     s, c = values.shape
     multi = profiles[0].multi_channel_frames
-    span = _frame_samples(profiles[0])
+    span = profiles[0].windows_per_frame * profiles[0].frame_length  # samples per frame
     if pick.size != -(-s // span) * (1 if multi else c):
         raise RuntimeError("frames do not map to blocks as assumed")  # a layout changed
     recon = runs[0][1].copy()
-    for f, k in enumerate(pick):
+    for f, k in enumerate(pick):  # frames, not samples: a few dozen per recording
         b, ch = (f, slice(None)) if multi else (f // c, f % c)
         recon[b * span:(b + 1) * span, ch] = runs[k][1][b * span:(b + 1) * span, ch]
     bits = lengths.min(axis=0).sum() * 8 + pick.size * (c if multi else 1)
-    return bits / values.size, bits / values.size / diff_zstd_bits(values, recon)
+    return bits / values.size, diff_zstd_bits(values, recon)
+
+
+def _count_flag_saving(enc, channels: int) -> float:
+    """Bits/sample a per-frame flag dropping the count fields would save (an estimate).
+
+    A frame drops them where its count fields cost more than coding every
+    coefficient to N does, priced with the range coder's own code lengths of
+    the same integers; one flag bit per frame is counted.
+    """
+    from codec.entropy.rangecoder import coefficient_cost_bits
+
+    f = parse_stream(enc)
+    has_mean = f["mean"] is not None
+    tails = (coefficient_cost_bits(f["q"], np.full_like(f["count"], N_FRAME), mean=has_mean)
+             - coefficient_cost_bits(f["q"], f["count"], mean=has_mean))
+    later, prev = _later_rows(f, channels)
+    per_frame = np.bincount(f["frame"], _count_field_bits(f, later, prev, N_FRAME) - tails)
+    return (np.maximum(per_frame, 0).sum() - per_frame.size) / enc.reconstruction.size
 
 
 def run_paths(values, fidelity) -> dict:
@@ -542,48 +561,33 @@ def run_paths(values, fidelity) -> dict:
     channel of a block of windows); ``basis``: each frame the smaller of its
     DCT and Haar codings; ``multi_basis``: both; ``no_count``: a frame flag
     (one bit) that drops the frame's count fields and codes every coefficient
-    to N, set where that saves bits, estimated with the range coder's own code
-    lengths of the same integers; ``all``: multi-channel frames with a choice
-    of basis per channel and the count flag, estimated as ``multi`` less the
-    single-channel savings of the other two.  Each as (bits/sample, ratio to
-    differenced zstd at that coding's error).  ``fill``: today's error energy
-    over its budgets, summed over the budget blocks (1: no budget left unspent).
+    to N, set where that saves bits (:func:`_count_flag_saving`, an estimate);
+    ``all``: multi-channel frames with a choice of basis per channel and the
+    count flag, estimated as ``multi`` less the single-channel savings of the
+    other two.  Each as (bits/sample, differenced zstd's bits/sample at that
+    coding's error).  ``fill``: today's error energy over its budgets, summed
+    over the budget blocks (1: no budget left unspent).
     """
-    from codec.entropy.rangecoder import coefficient_cost_bits
-
     base = codec.Profile(fidelity=fidelity, frame_length=N_FRAME)
     multi = base.model_copy(update={"multi_channel_frames": True})
     haar = {"basis": "haar"}
     out = {}
     for label, p in (("today", base), ("multi", multi)):
         _lengths, recon, enc = _coded_frames(values, p)
-        bps = len(enc.data) * 8 / values.size
-        out[label] = (bps, bps / diff_zstd_bits(values, recon))
+        out[label] = (len(enc.data) * 8 / values.size, diff_zstd_bits(values, recon))
         if label == "today":
-            g, budget, _ng = _block_budgets(values, enc.profile)
-            err = np.zeros_like(budget)
-            np.add.at(err, g, (values - recon) ** 2)
-            out["fill"] = float(err.sum() / budget.sum())  # the budgets' share spent
-            f = parse_stream(enc)
-            has_mean = f["mean"] is not None
-            tails = (coefficient_cost_bits(f["q"], np.full_like(f["count"], N_FRAME),
-                                           mean=has_mean)
-                     - coefficient_cost_bits(f["q"], f["count"], mean=has_mean))
-            later, prev = _later_rows(f, values.shape[1])
-            gain = _count_field_bits(f, later, prev, N_FRAME) - tails
-            # a per-frame flag: the frames where dropping the counts saves bits drop them
-            per_frame = np.bincount(f["frame"], gain)
-            saved = (np.maximum(per_frame, 0).sum() - per_frame.size) / values.size
-            zstd = bps / out["today"][1]  # the same integers, so the same baseline
-            out["no_count"] = (bps - saved, (bps - saved) / zstd)
+            err, budget = block_errors(values, recon, enc.profile)
+            out["fill"] = float(err.sum() / budget.sum())
+            # the same integers, so the same baseline
+            out["no_count"] = (out["today"][0] - _count_flag_saving(enc, values.shape[1]),
+                               out["today"][1])
     out["basis"] = _best_per_frame(values, [base, base.model_copy(update=haar)])
     out["multi_basis"] = _best_per_frame(values, [multi, multi.model_copy(update=haar)])
     # a per-channel choice inside multi-channel frames cannot be measured by frame
     # sizes: the single-channel savings of the basis choice and of the count flag are
     # added to the multi-channel coding (an estimate), at its baseline
-    est = out["multi"][0] - (out["today"][0] - out["basis"][0]) - (
-        out["today"][0] - out["no_count"][0])
-    out["all"] = (est, est / (out["multi"][0] / out["multi"][1]))
+    saved = 2 * out["today"][0] - out["basis"][0] - out["no_count"][0]
+    out["all"] = (out["multi"][0] - saved, out["multi"][1])
     return out
 
 
@@ -605,8 +609,9 @@ def print_paths(recs: dict, fidelity: float) -> None:
     for name, (_kind, values, _names, _step) in recs.items():
         r = run_paths(values, fidelity)
         for k in PATHS:
-            ratios[k].append(r[k][1])
-        print(f"{name:<14} " + " ".join(f"{r[k][0]:>8.3f} ({r[k][1]:.3f})" for k in PATHS)
+            ratios[k].append(r[k][0] / r[k][1])
+        print(f"{name:<14} " + " ".join(f"{r[k][0]:>8.3f} ({r[k][0] / r[k][1]:.3f})"
+                                        for k in PATHS)
               + f" {r['fill']:>6.3f}")
     for lab, fn in (("median ratio", np.median), ("largest ratio", np.max)):
         print(f"{lab:<14} " + " ".join(f"{'':>9}{fn(ratios[k]):>6.3f} " for k in PATHS))
