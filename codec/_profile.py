@@ -60,7 +60,7 @@ MAX_CHANNELS = 256
 
 #: Characters a channel name may have.
 MAX_NAME_CHARS = 64
-#: Time windows one frame carries at most (the windows field of layouts 3 to 5).
+#: Time windows one frame carries at most (the windows field of layouts 3 to 6).
 MAX_WINDOWS_PER_FRAME = 16
 
 
@@ -195,18 +195,19 @@ class Profile(BaseModel):
     fidelity: float = Field(default=0.99, ge=0.0, le=1.0)
     reference: Literal["total", "ac"] = "ac"
     #: Frame layout the encoder writes (the decoder reads every version); 4 is 3 with
-    #: dependent (trellis-coded) quantization, 5 (the default) is 3 with long-term
-    #: prediction inside a frame (measured on real recordings: README, "Rate").  Any
-    #: registered layout (``codec.layouts.registry.register_layout``); built in: 1 to 5.
-    layout_version: int = 5
-    #: Layouts 2 to 4: one frame (one header) carries all channels of a time window.
+    #: dependent (trellis-coded) quantization, 5 is 3 with long-term prediction inside a
+    #: frame, 6 (the default) is 5 with a choice of the Haar basis per channel and frame
+    #: (measured on real recordings: README, "Bits on real recordings").  Any registered
+    #: layout (``codec.layouts.registry.register_layout``); built in: 1 to 6.
+    layout_version: int = 6
+    #: Layouts 2 to 6: one frame (one header) carries all channels of a time window.
     multi_channel_frames: bool = False
-    #: Layouts 3 to 5: consecutive time windows one frame carries (1 to 16); more
+    #: Layouts 3 to 6: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
     windows_per_frame: int = Field(default=16, ge=1, le=MAX_WINDOWS_PER_FRAME)
     #: What one fidelity budget covers: "window" (each window of each channel on its
     #: own) or "frame" (the windows of one channel that travel in one frame share one
-    #: budget; layouts 3 to 5 with several windows per frame).  Only the encoder
+    #: budget; layouts 3 to 6 with several windows per frame).  Only the encoder
     #: reads it and the profile identifier leaves it out, but the CRC key
     #: (:func:`profile_digest`) holds it: a decoder needs the encoder's value.
     fidelity_scope: Literal["window", "frame"] = "frame"
@@ -292,7 +293,7 @@ def default_profile() -> Profile:
     --------
     >>> p = default_profile()
     >>> p.basis, p.frame_length, p.fidelity, p.reference, p.layout_version
-    ('dct', 64, 0.99, 'ac', 5)
+    ('dct', 64, 0.99, 'ac', 6)
     """
     return Profile()
 

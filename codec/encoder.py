@@ -39,7 +39,7 @@ from .quantize.steps import code_for_step, step_from_code
 from .quantize.trellis import dequantize_levels
 from .report import EncodeTally, encode_report
 from .stream.search import locate_frames
-from .transform.bases import Basis, basis_fingerprint
+from .transform.bases import Basis, alternate_basis, basis_fingerprint, has_alternate_basis
 from .transform.framing import merge_frames, split_frames
 from .transform.klt import profile_basis
 from .transform.predict import (
@@ -152,11 +152,13 @@ def as_samples(samples, where: str = "input", allow_gaps: bool = False) -> np.nd
 
 
 def reconstruct(q: np.ndarray, mean_int: np.ndarray | None, code: np.ndarray,
-                basis: Basis, trellis: bool = False) -> np.ndarray:
+                basis: Basis, trellis: bool = False,
+                alternate: np.ndarray | None = None) -> np.ndarray:
     """Frames from integer codes: the one synthesis both ends run.
 
     ``trellis`` (a bool, or one per row): rows of levels of dependent
-    quantization (layout 4).
+    quantization (layout 4).  ``alternate`` (one bool per row): rows coded on
+    :func:`codec.transform.bases.alternate_basis` (layout 6).
 
     Parameters
     ----------
@@ -170,6 +172,8 @@ def reconstruct(q: np.ndarray, mean_int: np.ndarray | None, code: np.ndarray,
         The basis.
     trellis : bool or ndarray of bool
         Rows of dependent-quantization levels.
+    alternate : ndarray of bool, optional
+        Rows synthesized on the alternate basis instead of ``basis``.
 
     Returns
     -------
@@ -194,7 +198,14 @@ def reconstruct(q: np.ndarray, mean_int: np.ndarray | None, code: np.ndarray,
     # einsum (not BLAS matmul): each row's sum runs in one fixed order whatever the
     # batch size, so a frame decodes bit-identically alone, in any batch, or in the
     # encoder's closed-loop check -- the streaming decoder relies on it.
-    frames = np.einsum("ij,jk->ik", q.astype(np.float64) * step[:, None], basis.matrix)
+    scaled = q.astype(np.float64) * step[:, None]
+    frames = np.einsum("ij,jk->ik", scaled, basis.matrix)
+    if alternate is not None and np.any(alternate):
+        alt = alternate_basis(basis.code, basis.n)
+        if alt is None:
+            raise RuntimeError("rows on an alternate basis that this basis does not have")
+        rows = np.asarray(alternate, dtype=bool)
+        frames[rows] = np.einsum("ij,jk->ik", scaled[rows], alt.matrix)
     if mean_int is not None:
         frames += (mean_int * (step / np.sqrt(basis.n)))[:, None]
     return frames
@@ -347,7 +358,16 @@ def _coded(w: _Windows, profile: Profile, layout, basis: Basis, first_window: in
         mean=mean_int, q=q, profile_id=profile_id(profile), n=profile.frame_length,
         channels=len(profile.channels), basis_code=basis.code,
         multi=profile.multi_channel_frames, windows_per_frame=layout.windows_per_frame(profile),
-        trellis=trellis, lag=np.zeros(code.size, np.int64) if predicted else None)
+        trellis=trellis, lag=np.zeros(code.size, np.int64) if predicted else None,
+        alternate=_alternate_rows(w, layout, basis))
+
+
+def _alternate_rows(w: _Windows, layout, basis: Basis) -> np.ndarray | None:
+    """What layout 6 packs of the basis switch: every row's flag, or None where it has none."""
+    if not getattr(layout, "switches_basis", False) or not has_alternate_basis(basis.code,
+                                                                                basis.n):
+        return None
+    return np.zeros(w.valid.size, bool) if w.alternate is None else w.alternate
 
 
 def _gap_windows(missing: np.ndarray | None, valid: np.ndarray, n: int):
@@ -523,6 +543,9 @@ class _Windows:
     cx: np.ndarray
     dc: np.ndarray
     limit: np.ndarray
+    #: Rows coded on the alternate basis (layout 6; ``cx`` holds their coefficients
+    #: on it), or None.
+    alternate: np.ndarray | None = None
 
 
 def _windows(x: np.ndarray, profile: Profile, layout, basis: Basis, first_window: int,
@@ -546,9 +569,47 @@ def _windows(x: np.ndarray, profile: Profile, layout, basis: Basis, first_window
     mean = None
     if profile.reference == "ac":
         mean = np.where(mask, frames, 0.0).sum(axis=1) / valid
+    cx, alternate = basis.analyze(frames), None
+    if getattr(layout, "switches_basis", False) and block is not None:
+        cx, alternate = _switch_basis(frames, cx, basis, block, block_budget)
     return _Windows(frames, valid, channel, window, mask, e_ref, budget, block, block_budget,
-                    mean, basis.analyze(frames), basis.analyze(np.ones(n)),
-                    _peak_limits(profile, channel))
+                    mean, cx, basis.analyze(np.ones(n)), _peak_limits(profile, channel),
+                    alternate)
+
+
+#: A budget block moves to the alternate basis when its estimated bits there are below
+#: this share of its bits on the profile's basis.  Measured on the real recordings of
+#: ``tools/bench_real.py``: at 0.9 the estimate picks the frames that coding both ways
+#: picks (within 0.002 bits/sample) and no frame of the eight recordings where the
+#: DCT wins everywhere; common practice, no source.
+_SWITCH_SHARE = 0.9
+
+
+def _switch_basis(frames: np.ndarray, cx: np.ndarray, basis: Basis, block: np.ndarray,
+                  block_budget: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """Layout 6: the budget blocks coded on the alternate basis, and every row's coefficients.
+
+    Each block's bits on either basis are estimated at its budget as
+    sum(log2(1 + c**2 / D)) / 2 over its coefficients c, with D the budget per
+    coefficient (the rate of a Gaussian component of variance c**2 at
+    distortion D; Cover & Thomas, ch. 10), and the block moves where that
+    estimate is below ``_SWITCH_SHARE`` of the profile basis's.  Both bases
+    have the same constant first vector, so the mean term is the same on both.
+    """
+    alt = alternate_basis(basis.code, basis.n)
+    if alt is None:
+        return cx, None
+    ax = alt.analyze(frames)
+    nb = block_budget.size
+    per = block_budget / (np.bincount(block, minlength=nb) * basis.n)
+    d = np.maximum(per, np.finfo(float).tiny)[block][:, None]
+    # coefficient 0 (the constant vector) is the same on both and left out
+    bits = [block_sums(0.5 * np.log2(1.0 + c[:, 1:] ** 2 / d).sum(axis=1), block, nb)
+            for c in (cx, ax)]
+    alternate = (bits[1] < _SWITCH_SHARE * bits[0])[block]
+    if not alternate.any():
+        return cx, None
+    return np.where(alternate[:, None], ax, cx), alternate
 
 
 def _choose(w: _Windows, layout):
@@ -613,7 +674,7 @@ def _closed_loop(w: _Windows, basis: Basis, q, mean_int, code, offset, trellis):
     reconstruction and each row's error energy.
     """
     cx, mean, dc = w.cx, w.mean, w.dc
-    recon = reconstruct(q, mean_int, code, basis, trellis)
+    recon = reconstruct(q, mean_int, code, basis, trellis, w.alternate)
     err = _valid_error(w.frames, recon, w.mask)
     peak_mode = bool(np.isfinite(w.limit).any())
     finest = np.minimum(_finest_codes(w), code)
@@ -633,14 +694,15 @@ def _closed_loop(w: _Windows, basis: Basis, q, mean_int, code, offset, trellis):
         q[bad] = qb
         if mean_int is not None:
             mean_int[bad] = mb
-        recon[bad] = reconstruct(qb, mb, code[bad], basis, tb)
+        recon[bad] = reconstruct(qb, mb, code[bad], basis, tb,
+                                 None if w.alternate is None else w.alternate[bad])
         err[bad] = _valid_error(w.frames[bad], recon[bad], w.mask[bad])
         rows = bad
         drop = _step_drop(w, rows, err, recon, peak_mode)
         if not (drop > 0).any():
             # Synthesize all frames in one call, as the decoder does: BLAS may round a
             # subset differently from the whole batch, so the check is redone on this.
-            recon = reconstruct(q, mean_int, code, basis, trellis)
+            recon = reconstruct(q, mean_int, code, basis, trellis, w.alternate)
             err = _valid_error(w.frames, recon, w.mask)
             rows = np.arange(code.size)
             drop = _step_drop(w, rows, err, recon, peak_mode)
@@ -679,6 +741,8 @@ def _predicted(w: _Windows, basis: Basis, plain_q: np.ndarray, code: np.ndarray,
     lag_b = choose_lags(w.frames, w.mask, w.block, off, nb, w.mean is not None)
     if empty is not None:
         lag_b[w.block[empty]] = 0
+    if w.alternate is not None:  # prediction pays on periodic signals, which stay on the DCT
+        lag_b[w.block[w.alternate]] = 0
     todo = np.flatnonzero(lag_b[w.block] > 0)
     if not todo.size:
         return None
@@ -834,8 +898,8 @@ def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, bas
     t_packed = layout.pack(dataclasses.replace(
         coded, channel=coded.channel[sub], sequence=coded.sequence[sub],
         valid=coded.valid[sub], step_code=code[sub], mean=None if mean is None else mean[sub],
-        q=q[sub], lag=lag[sub], trellis=None if coded.trellis is None else coded.trellis[sub]),
-        key)
+        q=q[sub], lag=lag[sub], trellis=None if coded.trellis is None else coded.trellis[sub],
+        alternate=None if coded.alternate is None else coded.alternate[sub]), key)
     t_bits = np.bincount(t_packed.row_frame, t_packed.row_bits)[t_packed.row_frame]
     use = np.zeros(coded.q.shape[0], bool)
     use[sub] = t_bits < np.bincount(packed.row_frame, packed.row_bits, nfr)[
@@ -851,7 +915,8 @@ def _keep_cheaper(layout, key, coded: CodedFrames, packed, alt, w: _Windows, bas
     take[rows] = use[rows]  # rows of predicted blocks in frames that keep them
     if not take.any():
         return packed, coded, recon, err
-    new = reconstruct(coded.q, coded.mean, coded.step_code, basis, coded.trellis)
+    new = reconstruct(coded.q, coded.mean, coded.step_code, basis, coded.trellis,
+                      coded.alternate)
     add_predictions(new, coded.lag, w.block, np.zeros_like(w.block), off)
     recon = np.where(take[:, None], new, recon)
     err = np.where(take, _valid_error(w.frames, new, w.mask), err)

@@ -36,13 +36,14 @@ ALLOWED_PRIVATE = {
     ("tools/rate_losses.py", "codec.entropy.rangecoder"),
     ("tools/rate_losses.py", "codec.quantize.select"),
     # Splits the bits of real recordings by coder stage (Exp-Golomb vs range
-    # model costs of parsed layout-3 to 5 frames, layout 5's lag fields) and draws
-    # profiles as `init` does.
+    # model costs of parsed layout-3 to 6 frames, layout 5's lag fields; whether a
+    # layout-6 frame carries the basis field) and draws profiles as `init` does.
     ("tools/bench_real.py", "codec._infer"),
     ("tools/bench_real.py", "codec.entropy.rice"),
     ("tools/bench_real.py", "codec.layouts.v3"),
     ("tools/bench_real.py", "codec.entropy.rangecoder"),
     ("tools/bench_real.py", "codec.transform.predict"),
+    ("tools/bench_real.py", "codec.transform.bases"),
 }
 
 #: Module-level import cycles that exist today, each as the sorted tuple of its

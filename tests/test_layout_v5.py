@@ -213,17 +213,23 @@ def test_periodic_signal_round_trip(multi, windows):
     assert np.array_equal(out, enc.reconstruction)
 
 
+@pytest.mark.parametrize("version", [5, 6])
 @pytest.mark.parametrize("multi", [False, True])
-def test_a_spliced_stream_is_what_one_packing_gives(multi):
+def test_a_spliced_stream_is_what_one_packing_gives(multi, version):
     # The encoder packs the plain coding, packs the frames that may be predicted again and
     # splices the cheaper frame of each; parsing the stream and packing its rows in one
     # call must give the same bytes (frames whose prediction was kept and frames without).
     x = _periodic(64 * 40, 2, seed=3)
     x[: 64 * 16, 1] = np.random.default_rng(4).normal(size=64 * 16).cumsum()  # no period
-    enc = codec.encode(x, codec.Profile(frame_length=64, multi_channel_frames=multi))
+    if version == 6:  # bursts on a flat line: blocks on the Haar basis beside predicted ones
+        x[64 * 16 : 64 * 32, 1] = np.where(np.arange(64 * 16) % 97 == 5, 9.0, 0.0)
+    enc = codec.encode(x, codec.Profile(frame_length=64, multi_channel_frames=multi,
+                                        layout_version=version))
     prof = enc.profile
     loc = locate_frames(enc.data)
-    p = parse_frames_v3(enc.data, loc.offsets, loc.lengths, 64, 2, True, version=5)
+    p = parse_frames_v3(enc.data, loc.offsets, loc.lengths, 64, 2, True, version=version,
+                        switch=version == 6)
+    assert version == 5 or p.row_alternate.any()
     predicted = np.bincount(p.row_frame, p.row_lag > 0) > 0
     assert predicted.any() and (multi or not predicted.all())  # single-channel: a mix
     seq = p.sequence[p.row_frame] + p.row_offset  # fewer than 256 windows: no wrap
@@ -231,9 +237,11 @@ def test_a_spliced_stream_is_what_one_packing_gives(multi):
     coded = CodedFrames(
         channel=p.row_channel[order], sequence=seq[order], valid=p.row_valid[order],
         step_code=p.row_step[order], mean=p.row_mean[order], q=p.q[order],
-        profile_id=profile_id(prof), n=64, channels=2, basis_code=0, multi=multi,
-        windows_per_frame=prof.windows_per_frame, lag=p.row_lag[order])
-    again = layout_for(5).pack(coded, codec.frame_key(prof))
+        profile_id=profile_id(prof), n=64, channels=2, basis_code=codec.as_basis("dct", 64).code,
+        multi=multi,
+        windows_per_frame=prof.windows_per_frame, lag=p.row_lag[order],
+        alternate=None if p.row_alternate is None else p.row_alternate[order])
+    again = layout_for(version).pack(coded, codec.frame_key(prof))
     assert again.data == enc.data
     assert again.header_bits == round(enc.report["header_bits_per_sample"] * x.size)
 

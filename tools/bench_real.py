@@ -44,11 +44,10 @@ benchmarked, at an error bisected to match, keeping the per-block promise,
 and compressed frame by frame like coefwire's independent frames.
 
 ``--paths`` instead prints, for the default profile in frame scope, what
-changes of the layout would give, coded where the current layouts can code
-them (multi-channel frames; each frame the smaller of its DCT and Haar
-codings, spliced) and estimated from the coder's own code lengths where they
-cannot (a flag that drops a frame's count fields; the three together), and
-how much of its error budgets the default coding spends.
+changes of it would give, coded where the layouts can code them (layout 5,
+multi-channel frames) and estimated from the coder's own code lengths where
+they cannot (a flag that drops a frame's count fields), and how much of its
+error budgets the default coding spends.
 """
 
 from __future__ import annotations
@@ -200,13 +199,16 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
 
 
 def parse_stream(enc) -> dict:
-    """The fields of every frame of a layout-3 (4 or 5) stream (``parse_frames_v3``'s dict)."""
+    """The fields of every frame of a layout-3 (4 to 6) stream (``parse_frames_v3``'s dict)."""
     from codec.layouts.v3 import parse_frames_v3
+    from codec.transform.bases import has_alternate_basis
 
     p = enc.profile
     loc = codec.locate_frames(enc.data)
     f = parse_frames_v3(enc.data, loc.offsets, loc.lengths, p.frame_length,
-                        len(p.channels), p.reference == "ac", version=p.layout_version)
+                        len(p.channels), p.reference == "ac", version=p.layout_version,
+                        switch=has_alternate_basis(codec.as_basis(p.basis, p.frame_length).code,
+                                                   p.frame_length))
     h = f.header
     return {"frame": f.row_frame, "channel": f.row_channel, "step_code": f.row_step,
             "mean": f.row_mean, "count": f.row_count, "q": f.q, "window_offset": f.row_offset,
@@ -510,32 +512,6 @@ def _coded_frames(values, profile):
     return np.asarray(codec.locate_frames(enc.data).lengths), dec.samples, enc
 
 
-def _best_per_frame(values, profiles) -> tuple[float, float]:
-    """Bits/sample, and the baseline's, if each frame took the fewest bytes among ``profiles``.
-
-    The profiles differ only in their basis, so their frames cover the same
-    samples: frame f of a single-channel coding is block f // C of channel
-    f % C (blocks of windows_per_frame windows, channel-minor), of a
-    multi-channel one block f.  One bit per frame and channel is counted for
-    the choice; the baseline is taken at the error of the spliced
-    reconstruction.
-    """
-    runs = [_coded_frames(values, p) for p in profiles]
-    lengths = np.stack([r[0] for r in runs])
-    pick = np.argmin(lengths, axis=0)
-    s, c = values.shape
-    multi = profiles[0].multi_channel_frames
-    span = profiles[0].windows_per_frame * profiles[0].frame_length  # samples per frame
-    if pick.size != -(-s // span) * (1 if multi else c):
-        raise RuntimeError("frames do not map to blocks as assumed")  # a layout changed
-    recon = runs[0][1].copy()
-    for f, k in enumerate(pick):  # frames, not samples: a few dozen per recording
-        b, ch = (f, slice(None)) if multi else (f // c, f % c)
-        recon[b * span:(b + 1) * span, ch] = runs[k][1][b * span:(b + 1) * span, ch]
-    bits = lengths.min(axis=0).sum() * 8 + pick.size * (c if multi else 1)
-    return bits / values.size, diff_zstd_bits(values, recon)
-
-
 def _count_flag_saving(enc, channels: int) -> float:
     """Bits/sample a per-frame flag dropping the count fields would save (an estimate).
 
@@ -555,55 +531,45 @@ def _count_flag_saving(enc, channels: int) -> float:
 
 
 def run_paths(values, fidelity) -> dict:
-    """The default profile (frame scope) and what changes of the layout would give.
+    """The default profile (frame scope) and what changes of it would give.
 
-    ``today``: as coded; ``multi``: multi-channel frames (one header for every
-    channel of a block of windows); ``basis``: each frame the smaller of its
-    DCT and Haar codings; ``multi_basis``: both; ``no_count``: a frame flag
-    (one bit) that drops the frame's count fields and codes every coefficient
-    to N, set where that saves bits (:func:`_count_flag_saving`, an estimate);
-    ``all``: multi-channel frames with a choice of basis per channel and the
-    count flag, estimated as ``multi`` less the single-channel savings of the
-    other two.  Each as (bits/sample, differenced zstd's bits/sample at that
-    coding's error).  ``fill``: today's error energy over its budgets, summed
-    over the budget blocks (1: no budget left unspent).
+    ``today``: as coded (layout 6); ``layout5``: with layout 5 (no basis
+    switch); ``multi``: multi-channel frames (one header for every channel of
+    a block of windows); ``no_count`` and ``multi_no_count``: those two with a
+    frame flag (one bit) that drops the frame's count fields and codes every
+    coefficient to N, set where that saves bits (:func:`_count_flag_saving`,
+    an estimate).  Each as (bits/sample, differenced zstd's bits/sample at
+    that coding's error).  ``fill``: today's error energy over its budgets,
+    summed over the budget blocks (1: no budget left unspent).
     """
     base = codec.Profile(fidelity=fidelity, frame_length=N_FRAME)
-    multi = base.model_copy(update={"multi_channel_frames": True})
-    haar = {"basis": "haar"}
     out = {}
-    for label, p in (("today", base), ("multi", multi)):
-        _lengths, recon, enc = _coded_frames(values, p)
+    for label, update in (("today", {}), ("layout5", {"layout_version": 5}),
+                          ("multi", {"multi_channel_frames": True})):
+        _lengths, recon, enc = _coded_frames(values, base.model_copy(update=update))
         out[label] = (len(enc.data) * 8 / values.size, diff_zstd_bits(values, recon))
         if label == "today":
             err, budget = block_errors(values, recon, enc.profile)
             out["fill"] = float(err.sum() / budget.sum())
-            # the same integers, so the same baseline
-            out["no_count"] = (out["today"][0] - _count_flag_saving(enc, values.shape[1]),
-                               out["today"][1])
-    out["basis"] = _best_per_frame(values, [base, base.model_copy(update=haar)])
-    out["multi_basis"] = _best_per_frame(values, [multi, multi.model_copy(update=haar)])
-    # a per-channel choice inside multi-channel frames cannot be measured by frame
-    # sizes: the single-channel savings of the basis choice and of the count flag are
-    # added to the multi-channel coding (an estimate), at its baseline
-    saved = 2 * out["today"][0] - out["basis"][0] - out["no_count"][0]
-    out["all"] = (out["multi"][0] - saved, out["multi"][1])
+        if label != "layout5":  # the same integers, so the same baseline
+            saved = _count_flag_saving(enc, values.shape[1])
+            out["no_count" if label == "today" else "multi_no_count"] = (
+                out[label][0] - saved, out[label][1])
     return out
 
 
-PATHS = ("today", "multi", "basis", "multi_basis", "no_count", "all")
+PATHS = ("layout5", "today", "no_count", "multi", "multi_no_count")
 
 
 def print_paths(recs: dict, fidelity: float) -> None:
     """The --paths table."""
     print(f"F = {fidelity}; default profile (DCT, N = {N_FRAME}), frame scope; bits/sample "
           "(ratio to differenced zstd-19 at the same error energy)")
-    print("today: as coded; multi: multi-channel frames; basis: each frame the smaller of its "
-          "DCT and Haar codings (+1 bit per frame and channel); multi_basis: both; no_count: "
+    print("layout5: the default profile with layout 5; today: as coded (layout 6); no_count: "
           "where it saves bits, no count fields and every coefficient to N (+1 bit per frame; "
-          "estimate from the coder's code lengths); all: multi with "
-          "the savings of basis (per channel) and no_count added (estimate); fill: today's error "
-          "energy over its budgets, summed over the budget blocks")
+          "estimate from the coder's code lengths); multi: multi-channel frames; "
+          "multi_no_count: both; fill: today's error energy over its budgets, summed over "
+          "the budget blocks")
     print(f"{'recording':<14} " + " ".join(f"{k:>16}" for k in PATHS) + "   fill")
     ratios = {k: [] for k in PATHS}
     for name, (_kind, values, _names, _step) in recs.items():
@@ -648,8 +614,7 @@ def main(argv: list[str] | None = None) -> int:
                     "coder of the same integers and against four forms of the baseline")
     ap.add_argument("--paths", action="store_true",
                     help="instead: the default profile in frame scope against what changes "
-                    "of the layout would give (multi-channel frames, a per-frame choice of "
-                    "DCT or Haar, no count fields)")
+                    "of it would give (layout 5, multi-channel frames, no count fields)")
     args = ap.parse_args(argv)
     recs = recordings()
     if args.only:

@@ -102,6 +102,8 @@ def build_cases(rng: np.random.Generator, which: list[int]) -> list[Case]:
         x = np.cumsum(rng.normal(size=(samples, ch)), axis=0) * (1 + i)
         if i % 2 == 0:  # a periodic part, so that layout 5 frames carry predicted windows
             x += 40.0 * (1 + i) * np.sin(2 * np.pi * np.arange(samples) / 11.0)[:, None]
+        elif i % 4 == 3:  # bursts on a flat line, so that layout 6 frames switch to Haar
+            x = np.where(rng.random((samples, ch)) < 0.03, x, 0.0)
         if gaps:
             x[n // 2 : n // 2 + 5, 0] = np.nan
             x[2 * n : 3 * n, ch - 1] = np.nan  # one whole window

@@ -34,10 +34,11 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
     p.add_argument("--reference", choices=("total", "ac"),
                    help="reference energy: total = sum x^2, ac = sum (x - mean)^2")
     p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
-    p.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5), metavar="V",
-                   help="frame layout the encoder writes: 5 (default: 3 with long-term "
-                   "prediction inside a frame), 3, or 4 (adds dependent quantization where "
-                   "it saves bits: slower to encode); 1 and 2 are older")
+    p.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5, 6), metavar="V",
+                   help="frame layout the encoder writes: 6 (default: 5 with the Haar basis "
+                   "for a channel's bursty frames), 5 (3 with long-term prediction inside a "
+                   "frame), 3, or 4 (adds dependent quantization where it saves bits: slower "
+                   "to encode); 1 and 2 are older")
     p.add_argument("--scope", choices=("window", "frame"), dest="fidelity_scope",
                    help="what one fidelity budget covers: every window of every channel "
                    "(window), or the windows of one channel that travel in one frame together "

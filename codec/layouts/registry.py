@@ -75,15 +75,16 @@ class CodedFrames:
     (window number in the stream), ``valid`` (real samples of the window),
     ``step_code``, ``mean`` (mean codes, None when the reference is
     ``total``), ``q`` (integer codes, rows of N), ``lag`` (None, or per row the
-    lag of its long-term prediction, 0 where not predicted; layout 5), ``trellis`` (None, or per
-    row whether ``q`` holds levels of dependent quantization).
+    lag of its long-term prediction, 0 where not predicted; layouts 5 and 6), ``trellis`` (None,
+    or per row whether ``q`` holds levels of dependent quantization), ``alternate`` (None, or
+    per row whether ``q`` is on :func:`codec.transform.bases.alternate_basis`; layout 6).
     Per stream: the profile's ``profile_id``, frame length ``n``,
     ``channels``, ``basis_code``, ``multi`` (one frame carries every channel
     of a window) and ``windows_per_frame``.
 
     Attributes
     ----------
-    channel, sequence, valid, step_code, mean, q, trellis, lag
+    channel, sequence, valid, step_code, mean, q, trellis, lag, alternate
         Per row, as above.
     profile_id, n, channels, basis_code, multi, windows_per_frame
         Per stream, as above.
@@ -122,6 +123,7 @@ class CodedFrames:
     windows_per_frame: int = 1
     trellis: np.ndarray | None = None
     lag: np.ndarray | None = None
+    alternate: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -208,7 +210,9 @@ class ParsedFrames:
     (None without means), ``row_count`` (coded coefficients), ``row_trellis``
     (levels of dependent quantization), the integer codes ``q`` and
     ``row_lag`` (None, or each row's long-term prediction lag, 0 where not
-    predicted: :func:`codec.transform.predict.add_predictions`).  Rows of
+    predicted: :func:`codec.transform.predict.add_predictions`) and
+    ``row_alternate`` (None, or whether each row is on the alternate basis,
+    layout 6: :func:`codec.transform.bases.alternate_basis`).  Rows of
     refused frames hold whatever was read; the decoder never uses them.
 
     Attributes
@@ -216,7 +220,7 @@ class ParsedFrames:
     verdict, detail, sequence, valid, terms, step_code, header
         Per frame, as above.
     row_frame, row_channel, row_offset, row_valid, row_step, row_mean, row_count, row_trellis, q
-    row_lag
+    row_lag, row_alternate
         Per row, as above.
 
     Examples
@@ -255,6 +259,7 @@ class ParsedFrames:
     row_trellis: np.ndarray
     q: np.ndarray
     row_lag: np.ndarray | None = None
+    row_alternate: np.ndarray | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "header", MappingProxyType(dict(self.header)))  # read-only
@@ -300,7 +305,10 @@ class Layout(Protocol):
     A layout may also set ``predicts = True`` (optional; read with
     ``getattr``): its frames carry long-term prediction
     (:class:`CodedFrames` ``lag``), which the encoder then searches in
-    frame scope (layout 5).
+    frame scope (layouts 5 and 6); and ``switches_basis = True``: its frames
+    may put a channel's windows on :func:`codec.transform.bases.alternate_basis`
+    (:class:`CodedFrames` ``alternate``), which the encoder then chooses per
+    budget block in frame scope (layout 6).
 
     Examples
     --------
@@ -340,7 +348,7 @@ class Layout(Protocol):
 
 
 _LAYOUTS: dict[int, Layout] = {}
-_BUILTIN = (".v1", ".v2", ".v3", ".v4", ".v5")
+_BUILTIN = (".v1", ".v2", ".v3", ".v4", ".v5", ".v6")
 #: Versions of the built-in layouts: refused to other modules even before those load.
 _RESERVED = range(1, 6)
 _state = {"loaded": False, "rules": None}
@@ -450,7 +458,7 @@ def layout_for(version: int) -> Layout:
     >>> layout_for(13)
     Traceback (most recent call last):
     ...
-    ValueError: no frame layout has version 13; registered: [1, 2, 3, 4, 5]
+    ValueError: no frame layout has version 13; registered: [1, 2, 3, 4, 5, 6]
     """
     _builtins()
     try:

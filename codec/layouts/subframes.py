@@ -222,8 +222,8 @@ def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n
 def parsed_frames(v: Verdicts, head: dict, valid: np.ndarray, owner: np.ndarray,
                   channel: np.ndarray, offset: np.ndarray, row_valid: np.ndarray,
                   step: np.ndarray, mean: np.ndarray | None, count: np.ndarray,
-                  trellis: np.ndarray, q: np.ndarray, lag: np.ndarray | None = None
-                  ) -> ParsedFrames:
+                  trellis: np.ndarray, q: np.ndarray, lag: np.ndarray | None = None,
+                  alternate: np.ndarray | None = None) -> ParsedFrames:
     """The :class:`ParsedFrames` of subframe rows; per frame, the terms and coarsest step.
 
     A frame of several windows has one step each: the frame table shows the coarsest.
@@ -235,7 +235,7 @@ def parsed_frames(v: Verdicts, head: dict, valid: np.ndarray, owner: np.ndarray,
     np.maximum.at(frame_step, owner, step)
     return ParsedFrames(tuple(v.verdict), tuple(v.detail), head["sequence"], valid, terms,
                         frame_step, head, owner, np.minimum(channel, 255), offset, row_valid,
-                        step, mean, count, trellis, q, lag)
+                        step, mean, count, trellis, q, lag, alternate)
 
 
 def parse_checked(parse, data: bytes, offsets: np.ndarray, lengths: np.ndarray,

@@ -34,6 +34,7 @@ from ..entropy.bits import BitReader, bit_length, pack_fields
 from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
 from ..entropy.rice import exp_golomb_bits, zigzag
 from ..quantize.select import choose_steps
+from ..transform.bases import has_alternate_basis
 from ..transform.predict import lag_bits, predictable
 from .envelope import CRC_BYTES, SYNC, FrameKey, wrap_frames
 from .fields import header_bits, header_slots, read_header
@@ -79,8 +80,8 @@ LAYOUT_VERSION_3 = 3
 MEAN_ORDER_BITS = 4
 #: The other versions these routines serve and what each adds to version 3's subframes:
 #: 4 the quantizer bit (:mod:`codec.layouts.v4`), 5 the prediction fields
-#: (:mod:`codec.layouts.v5`).
-QUANTIZER_BIT_VERSION, PREDICTION_VERSION = 4, 5
+#: (:mod:`codec.layouts.v5`), 6 those and the basis switch (:mod:`codec.layouts.v6`).
+QUANTIZER_BIT_VERSION, PREDICTION_VERSION, SWITCH_VERSION = 4, 5, 6
 WINDOW_BITS = 4
 #: Smallest possible v3 frame: sync, 4 header bytes, CRC.
 MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
@@ -103,7 +104,7 @@ def _several(h, ctx):
 #: layout 5 adds three fields, HEADER_FIELDS_V5);
 #: ``bits`` may be a function of the fields before it (:mod:`codec.layouts.fields`).
 HEADER_FIELDS_V3 = (
-    ("version", 4, "frame layout version (3, 4 or 5)"),
+    ("version", 4, "frame layout version (3 to 6)"),
     ("long", 1, "0: the length field has 11 bits; 1: 27 bits"),
     ("length", length_width, "bytes in the whole frame, sync marker to CRC"),
     ("profile", 8, "low byte of the 16-bit profile identifier"),
@@ -120,7 +121,7 @@ HEADER_FIELDS_V3 = (
     ("count_change", _several, "1: later windows send their count as a change (windows > 1)"),
 )
 
-#: Layout 5: layout 3's header and three more fields (:mod:`codec.layouts.v5`).
+#: Layouts 5 and 6: layout 3's header and three more fields (:mod:`codec.layouts.v5`).
 HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("predict", _several,
      "1: subframes carry long-term prediction fields (when windows > 1, layout 5)"),
@@ -138,8 +139,10 @@ class FrameBatchV3:
     Per frame: ``multi``, ``channel`` (when not multi), ``sequence`` (first
     window), ``windows`` (1..16), ``valid`` (real samples of the last window).
     Per subframe (rows of ``q``, grouped by frame in order): ``frame``,
-    ``step_code``, ``mean`` (or None), and for layout 4 ``quantizer`` (1 where
-    the levels are of dependent quantization).
+    ``step_code``, ``mean`` (or None), for layout 4 ``quantizer`` (1 where
+    the levels are of dependent quantization), for layouts 5 and 6 ``lag``,
+    and for layout 6 ``alternate`` (1 where the row is on the alternate basis;
+    None where the profile's basis has none, and then no field is sent).
     """
 
     multi: np.ndarray
@@ -153,6 +156,7 @@ class FrameBatchV3:
     q: np.ndarray
     quantizer: np.ndarray | None = None
     lag: np.ndarray | None = None
+    alternate: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.multi.size)
@@ -218,6 +222,25 @@ def _prediction_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win,
     return predict
 
 
+def _switch_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win, channels):
+    """Layout 6's basis field: one bit in each channel's first subframe of the frame.
+
+    1: every window of that channel in the frame is on the alternate basis.
+    """
+    ns = owner.size
+    slot = np.arange(ns) - first[owner]
+    ch = np.where(batch.multi[owner].astype(bool), slot % per_win, batch.channel[owner])
+    key = owner * channels + ch
+    alt = batch.alternate.astype(np.int64)
+    on = np.zeros(first.size * channels, np.int64)
+    np.maximum.at(on, key, alt)
+    if (on[key] != alt).any():
+        raise RuntimeError("a channel's windows in one frame are on two bases")  # our bug
+    lead = slot < per_win
+    val[:, col] = alt.astype(np.uint64)
+    wid[:, col] = lead
+
+
 def _mean_orders(val, wid, col, zz, owner, nf):
     """Layout 5: each frame's exp-Golomb order k of its mean fields, and the fields rewritten.
 
@@ -249,7 +272,7 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
     lastrow = np.r_[first[1:] - 1, ns - 1]
     nh = len(HEADER_FIELDS_V3 if batch.lag is None else HEADER_FIELDS_V5)
-    nsub = 4 + (quant is not None) + (batch.lag is not None)
+    nsub = 4 + (quant is not None) + (batch.lag is not None) + (batch.alternate is not None)
     val = np.zeros((ns, nh + nsub + 1), dtype=np.uint64)
     wid = np.zeros((ns, nh + nsub + 1), dtype=np.int64)
     lead = np.zeros(ns, dtype=bool)
@@ -277,6 +300,8 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
         mean_order = np.zeros(nf, np.int64)
         if mean_sent is not None:
             mean_order = _mean_orders(val, wid, nh + 1, zigzag(mean_sent), owner, nf)
+    if batch.alternate is not None:  # layout 6
+        _switch_slots(batch, val, wid, nh + nsub - 1, first, owner, per_win, channels)
     return (val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred, predict,
             one_step, mean_order)
 
@@ -306,7 +331,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     """
     nf, ns = len(batch), batch.q.shape[0]
     quant = None
-    if version == PREDICTION_VERSION and batch.lag is None:
+    if version >= PREDICTION_VERSION and batch.lag is None:
         batch = dataclasses.replace(batch, lag=np.zeros(ns, np.int64))
     if version == QUANTIZER_BIT_VERSION:  # layout 4 (codec.layouts.v4)
         quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
@@ -337,11 +362,14 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     return out.tobytes(), length, sub_bits, lane_len
 
 
-def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, predict=False):
+def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, predict=False,
+                         switch=False):
     """Every subframe header of every frame.
 
-    Returns (step, mean, count, quant, lag, end pos, bad); ``lag`` (layout 5,
-    else None) is each row's prediction lag, 0 where it is not predicted.
+    Returns (step, mean, count, quant, lag, alternate, end pos, bad); ``lag``
+    (layouts 5 and 6, else None) is each row's prediction lag, 0 where it is
+    not predicted; ``alternate`` (layout 6 with ``switch``, else None) whether
+    each row is on the alternate basis.
     """
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
@@ -352,6 +380,7 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
     lag = chlag = None
     if predict:
         lag, chlag = np.zeros(ns, np.int64), np.zeros(ns, np.int64)
+    alternate = np.zeros(ns, bool) if switch else None
     mean_pred, count_pred = h["mean_change"] > 0, h["count_change"] > 0
     bad_any = np.zeros(cnt.size, dtype=bool)
     for s in range(int(cnt.max(initial=0))):
@@ -367,7 +396,13 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
         bad_any[fr] |= bad
         if predict:
             p[fr] = _read_prediction(r, p[fr], rows, s, pw, h["predict"][fr] > 0, lag, chlag, n)
-    return step, mean, count, quant, lag, p, bad_any
+        if switch:  # a channel's first subframe sends the bit, its later ones repeat it
+            lead = np.flatnonzero(~later)
+            alternate[rows[lead]] = r.read(p[fr][lead], 1) > 0
+            p[fr[lead]] += 1
+            back = np.flatnonzero(later)
+            alternate[rows[back]] = alternate[rows[back] - pw[back]]
+    return step, mean, count, quant, lag, alternate, p, bad_any
 
 
 def _read_prediction(r, pp, rows, s, pw, on, lag, chlag, n):
@@ -392,9 +427,12 @@ def _read_prediction(r, pp, rows, s, pw, on, lag, chlag, n):
 
 
 def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
-                    channels: int, has_mean: bool, version: int = LAYOUT_VERSION_3
-                    ) -> ParsedFrames:
-    """Parse CRC-checked v3 (or, with ``version`` 4 or 5, v4 or v5) frames at ``offsets``.
+                    channels: int, has_mean: bool, version: int = LAYOUT_VERSION_3,
+                    switch: bool = False) -> ParsedFrames:
+    """Parse CRC-checked v3 (or, with ``version`` 4 to 6, v4 to v6) frames at ``offsets``.
+
+    ``switch``: version 6 frames carry the basis field (the profile's basis
+    has an alternate, :func:`codec.transform.bases.alternate_basis`).
 
     Rows are subframes, window by window (``row_offset``: window number
     relative to the frame's ``sequence``); ``header`` holds the frame-header
@@ -407,7 +445,8 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     ctx = ParseContext(n, channels, has_mean)
     r = BitReader(data)
     offsets = offsets.astype(np.int64)
-    predict = version == PREDICTION_VERSION
+    predict = version >= PREDICTION_VERSION
+    switch = switch and version == SWITCH_VERSION
     h, p = read_header(r, offsets * 8 + 8 * len(SYNC),
                        HEADER_FIELDS_V5 if predict else HEADER_FIELDS_V3, ctx)
     windows, multi = h["windows_minus_1"] + 1, h["multi"] > 0
@@ -425,8 +464,8 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     slot = np.arange(owner.size) - (np.cumsum(cnt) - cnt)[owner]
     woff = slot // per_win[owner]
     sub_channel = np.where(multi[owner], slot % per_win[owner], h["channel"][owner])
-    step, mean, count, quant, lag, p, bad = _read_subheaders_all(
-        r, p, cnt, per_win, h, has_mean, version == QUANTIZER_BIT_VERSION, n, predict)
+    step, mean, count, quant, lag, alternate, p, bad = _read_subheaders_all(
+        r, p, cnt, per_win, h, has_mean, version == QUANTIZER_BIT_VERSION, n, predict, switch)
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
     ok = fits & ~bad & (start <= end) & (h["length"] == lengths)
@@ -444,7 +483,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     refuse_contents(v, valid, owner, sub_channel, ok, ctx)
     sub_valid = np.where(woff == windows[owner] - 1, valid[owner], n)
     return parsed_frames(v, h, valid, owner, sub_channel, woff, sub_valid, step, mean, count,
-                         trellis, q, lag)
+                         trellis, q, lag, alternate)
 
 
 def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
@@ -453,6 +492,9 @@ def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
     Header bits are everything but the range-coded bytes."""
     w = c.windows_per_frame
     group = c.sequence // w
+    alternate = None  # layout 6 sends the basis field where the profile's basis has one
+    if version == SWITCH_VERSION and has_alternate_basis(c.basis_code, c.n):
+        alternate = np.zeros(c.q.shape[0], bool) if c.alternate is None else c.alternate
     if c.multi:
         order = np.arange(c.channel.size)  # rows are window-major, channel-minor already
         frame = group
@@ -476,7 +518,8 @@ def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
             frame=frame[r0:r1] - frame[r0], step_code=c.step_code[rows],
             mean=None if c.mean is None else c.mean[rows], q=c.q[rows],
             quantizer=None if c.trellis is None else c.trellis[rows],
-            lag=None if c.lag is None else c.lag[rows])
+            lag=None if c.lag is None else c.lag[rows],
+            alternate=None if alternate is None else alternate[rows])
         parts.append(pack_frames_v3(batch, c.profile_id, c.n, c.channels, version, key=key))
     data = b"".join(p[0] for p in parts)
     lengths, lane_len = (np.concatenate([p[i] for p in parts]) for i in (1, 3))
@@ -505,10 +548,11 @@ class Layout3:
     spends_slack = True
 
     def __init__(self, version: int = LAYOUT_VERSION_3, trellis: bool = False,
-                 predicts: bool = False):
+                 predicts: bool = False, switches_basis: bool = False):
         self.version = version
         self.has_trellis = trellis
         self.predicts = predicts
+        self.switches_basis = switches_basis
 
     def windows_per_frame(self, profile) -> int:
         return profile.windows_per_frame
@@ -529,8 +573,9 @@ class Layout3:
     def parse(self, data: bytes, offsets: np.ndarray, lengths: np.ndarray,
               ctx: ParseContext) -> ParsedFrames:
         return parse_checked(
-            lambda d, o, ln, c: parse_frames_v3(d, o, ln, c.n, c.channels, c.has_mean,
-                                                self.version),
+            lambda d, o, ln, c: parse_frames_v3(
+                d, o, ln, c.n, c.channels, c.has_mean, self.version,
+                self.switches_basis and has_alternate_basis(c.basis_code, c.n)),
             data, offsets, lengths, ctx)
 
 

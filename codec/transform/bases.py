@@ -36,7 +36,9 @@ from .._errors import InputError
 
 __all__ = [
     "Basis",
+    "alternate_basis",
     "as_basis",
+    "has_alternate_basis",
     "basis_from_code",
     "basis_names",
     "basis_fingerprint",
@@ -269,6 +271,65 @@ def basis_from_code(code: int, n: int) -> Basis:
         if kind.code == code:
             return as_basis(name, n)
     raise InputError(f"basis code {code} is not known to this version of coefwire")
+
+
+def alternate_basis(code: int, n: int) -> Basis | None:
+    """The basis a frame may switch a channel to instead of the profile's (layout 6).
+
+    The Haar basis when the profile's basis is the DCT and N is a power of
+    two; otherwise None (no switch).  Both have the constant vector first, so
+    the window mean is sent and removed alike on either basis, and both are
+    orthonormal, so a budget holds the same way on either.  The Haar basis
+    codes windows of isolated bursts (rain, events, switching) in fewer bits
+    than the DCT, which spreads a burst over every coefficient.
+
+    Parameters
+    ----------
+    code : int
+        The profile basis's header code.
+    n : int
+        Frame length.
+
+    Returns
+    -------
+    Basis or None
+        The alternate basis.
+
+    Examples
+    --------
+    >>> dct = as_basis("dct", 64)
+    >>> alternate_basis(dct.code, 64).name
+    'haar'
+    >>> alternate_basis(dct.code, 48) is None, alternate_basis(as_basis("haar", 64).code, 64)
+    (True, None)
+    """
+    return as_basis("haar", int(n)) if has_alternate_basis(code, n) else None
+
+
+def has_alternate_basis(code: int, n: int) -> bool:
+    """Whether :func:`alternate_basis` has a basis for this profile basis and N.
+
+    Builds no matrix: what a frame parser asks to know whether a layout-6
+    frame carries the basis field.
+
+    Parameters
+    ----------
+    code : int
+        The profile basis's header code.
+    n : int
+        Frame length.
+
+    Returns
+    -------
+    bool
+        True for the DCT at a power-of-two N.
+
+    Examples
+    --------
+    >>> has_alternate_basis(as_basis("dct", 8).code, 8), has_alternate_basis(0, 8)
+    (True, False)
+    """
+    return code == _kinds()["dct"].code and not _power_of_two(int(n))
 
 
 @functools.lru_cache(maxsize=64)
