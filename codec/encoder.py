@@ -583,6 +583,12 @@ def _windows(x: np.ndarray, profile: Profile, layout, basis: Basis, first_window
 #: picks (within 0.002 bits/sample) and no frame of the eight recordings where the
 #: DCT wins everywhere; common practice, no source.
 _SWITCH_SHARE = 0.9
+#: Blocks whose coefficients' magnitudes sum to this many times more on the alternate
+#: basis than on the profile's are not estimated further (the estimate is the
+#: encoder's costliest part of the switch; smooth blocks, the most, stop here).  On the
+#: real recordings of ``tools/bench_real.py`` the blocks that switch are at most 1.005 (19
+#: blocks), and 111 of the 172 blocks stop at the gate.
+_SWITCH_GATE = 1.25
 
 
 def _switch_basis(frames: np.ndarray, cx: np.ndarray, basis: Basis, block: np.ndarray,
@@ -594,27 +600,38 @@ def _switch_basis(frames: np.ndarray, cx: np.ndarray, basis: Basis, block: np.nd
     coefficient (the rate of a Gaussian component of variance c**2 at
     distortion D; Cover & Thomas, ch. 10), and the block moves where that
     estimate is below ``_SWITCH_SHARE`` of the profile basis's.  Both bases
-    have the same constant first vector, so the mean term is the same on both.
+    have the same constant first vector, so the mean term is the same on both
+    and left out.  The estimate runs in float32 (it only ranks two bases) and
+    only on blocks that pass ``_SWITCH_GATE``; the rows that switch get their
+    coefficients from the alternate basis's own matrix in float64.
     """
     alt = alternate_basis(basis.code, basis.n)
     if alt is None:
         return cx, None
-    ax = alt.analyze(frames)
     nb = block_budget.size
+    c32 = cx[:, 1:].astype(np.float32)
+    a32 = (frames.astype(np.float32) @ alt.matrix.T.astype(np.float32))[:, 1:]
+    l1 = [block_sums(np.abs(c).sum(axis=1), block, nb) for c in (c32, a32)]
+    cand = np.flatnonzero((l1[1] < _SWITCH_GATE * l1[0])[block])
+    if not cand.size:
+        return cx, None
     per = block_budget / (np.bincount(block, minlength=nb) * basis.n)
-    d = np.maximum(per, np.finfo(np.float32).tiny)[block][:, None].astype(np.float32)
+    d = np.maximum(per, np.finfo(np.float32).tiny)[block[cand]][:, None].astype(np.float32)
 
-    def bits(c):  # float32: the estimate only ranks two bases (half the time of float64);
-        # coefficient 0 (the constant vector) is the same on both and left out
+    def bits(c):
         with np.errstate(over="ignore"):
-            c = c[:, 1:].astype(np.float32)
+            c = c[cand]
             return block_sums(0.5 * np.log2(1.0 + c * c / d).sum(axis=1, dtype=np.float64),
-                              block, nb)
+                              block[cand], nb)
 
-    alternate = (bits(ax) < _SWITCH_SHARE * bits(cx))[block]
+    moves = bits(a32) < _SWITCH_SHARE * bits(c32)
+    moves[np.bincount(block[cand], minlength=nb) == 0] = False
+    alternate = moves[block]
     if not alternate.any():
         return cx, None
-    return np.where(alternate[:, None], ax, cx), alternate
+    cx = cx.copy()
+    cx[alternate] = alt.analyze(frames[alternate])
+    return cx, alternate
 
 
 def _choose(w: _Windows, layout):
