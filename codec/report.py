@@ -73,17 +73,19 @@ def error_figures(x: np.ndarray, x_hat: np.ndarray) -> dict:
     >>> round(f["snr_db"], 2), f["prd_percent"], f["max_abs_error"]
     (13.98, 20.0, 1.0)
     """
-    e = x - x_hat
+    e = np.subtract(x, x_hat, dtype=np.float64)
     err = float(np.einsum("i,i->", e.ravel(), e.ravel()))
+    peak = float(max(e.max(), -e.min())) if e.size else 0.0
     sig = float(np.einsum("i,i->", x.ravel(), x.ravel()))
-    xc = x - x.mean(axis=0) if x.size else x
-    sig_ac = float(np.einsum("i,i->", xc.ravel(), xc.ravel()))
+    if x.size:  # the signal about its mean, in the error's buffer (no second full copy)
+        np.subtract(x, x.mean(axis=0), out=e)
+    sig_ac = float(np.einsum("i,i->", e.ravel(), e.ravel())) if x.size else 0.0
     return {
         "snr_db": _db(sig, err),
         "snr_ac_db": _db(sig_ac, err),
         "prd_percent": 100.0 * math.sqrt(err / sig) if sig else (0.0 if err == 0 else None),
         "prdn_percent": 100.0 * math.sqrt(err / sig_ac) if sig_ac else (0.0 if err == 0 else None),
-        "max_abs_error": float(np.abs(e).max()) if e.size else 0.0,
+        "max_abs_error": peak,
         "error_energy": err,
     }
 
