@@ -175,3 +175,24 @@ def test_hostile_header_bits_never_crash_the_decoder():
         dec = codec.decode(with_crc(bytes(body), digest), enc.profile, samples=x.shape[0],
                            strict=False)
         assert np.isfinite(dec.samples[dec.delivered]).all()
+
+
+def test_a_foreign_frame_in_the_batch_leaves_the_basis_of_the_others():
+    # Found by tools/fuzz_mutations.py: frames whose profile byte is another profile's are
+    # set aside before parsing, and the rows of the others were rebuilt without their
+    # basis field, so a Haar frame batched with one decoded on the DCT.  Each frame must
+    # decode alike alone and beside a CRC-valid frame that names another profile.
+    x = _bursty(64 * 8, 1, seed=3)
+    enc = codec.encode(x, codec.Profile(frame_length=64, layout_version=6, windows_per_frame=4))
+    assert _row_alternate(enc).row_alternate.any()
+    digest = digest_of(enc.profile)
+    frame = enc.data[: locate_frames(enc.data).lengths[0]]
+    body = bytearray(frame[:-2])
+    body[4] ^= 0xFF  # the profile byte (short length field): another profile's
+    foreign = with_crc(bytes(body), digest)
+    alone = codec.decode(frame, enc.profile, strict=False)
+    both = codec.decode(foreign + frame, enc.profile, strict=False)
+    assert both.counts["frames_foreign_profile"] == 1
+    ok = alone.delivered
+    assert ok.any() and np.array_equal(both.samples[ok], alone.samples[ok])
+    assert np.array_equal(alone.samples[ok], enc.reconstruction[: ok.shape[0]][ok])

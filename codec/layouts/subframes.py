@@ -8,6 +8,8 @@ Written down in ``FRAME_LAYOUT.md`` ("Version 2", "Version 3").
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from ..entropy.rice import exp_golomb_bits
@@ -262,8 +264,9 @@ def parse_checked(parse, data: bytes, offsets: np.ndarray, lengths: np.ndarray,
         out[keep] = a
         return out
 
-    return ParsedFrames(tuple(v.verdict), tuple(v.detail), full(p.sequence), full(p.valid),
-                        full(p.terms), full(p.step_code),
-                        {k: full(a) for k, a in p.header.items()}, keep[p.row_frame],
-                        p.row_channel, p.row_offset, p.row_valid, p.row_step, p.row_mean,
-                        p.row_count, p.row_trellis, p.q, p.row_lag)
+    # per-frame fields widened to every frame; the rows (every per-row field, whatever
+    # the layout adds) pass through with their frame numbers mapped back
+    return dataclasses.replace(
+        p, verdict=tuple(v.verdict), detail=tuple(v.detail), sequence=full(p.sequence),
+        valid=full(p.valid), terms=full(p.terms), step_code=full(p.step_code),
+        header={k: full(a) for k, a in p.header.items()}, row_frame=keep[p.row_frame])
