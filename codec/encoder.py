@@ -624,9 +624,8 @@ def _switch_basis(frames: np.ndarray, cx: np.ndarray, basis: Basis, block: np.nd
             return block_sums(0.5 * np.log2(1.0 + c * c / d).sum(axis=1, dtype=np.float64),
                               block[cand], nb)
 
-    moves = bits(a32) < _SWITCH_SHARE * bits(c32)
-    moves[np.bincount(block[cand], minlength=nb) == 0] = False
-    alternate = moves[block]
+    # blocks that stopped at the gate sum to 0 on both and stay
+    alternate = (bits(a32) < _SWITCH_SHARE * bits(c32))[block]
     if not alternate.any():
         return cx, None
     cx = cx.copy()

@@ -124,11 +124,11 @@ HEADER_FIELDS_V3 = (
 #: Layouts 5 and 6: layout 3's header and three more fields (:mod:`codec.layouts.v5`).
 HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("predict", _several,
-     "1: subframes carry long-term prediction fields (when windows > 1, layout 5)"),
+     "1: subframes carry long-term prediction fields (when windows > 1, layouts 5, 6)"),
     ("one_step", _several,
-     "1: later windows repeat their channel's step and send none (when windows > 1, layout 5)"),
+     "1: later windows repeat their channel's step and send none (windows > 1, layouts 5, 6)"),
     ("mean_order", lambda h, c: np.where(c.has_mean, MEAN_ORDER_BITS, 0),
-     "order k of the exp-Golomb codes of the mean fields (reference ac, layout 5)"),
+     "order k of the exp-Golomb codes of the mean fields (reference ac, layouts 5, 6)"),
 )
 
 
@@ -203,10 +203,8 @@ def _prediction_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win,
     later subframe that this lag can predict (``lag <= offset * N``) a flag,
     1 = predicted.  Returns the per-frame flags.
     """
-    ns = owner.size
-    slot = np.arange(ns) - first[owner]
+    slot, ch = _slot_channels(batch, first, owner, per_win)
     offset = slot // per_win
-    ch = np.where(batch.multi[owner].astype(bool), slot % per_win, batch.channel[owner])
     lag = batch.lag.astype(np.int64)
     chlag = np.zeros(first.size * channels, np.int64)
     np.maximum.at(chlag, owner * channels + ch, lag)
@@ -222,14 +220,18 @@ def _prediction_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win,
     return predict
 
 
+def _slot_channels(batch: FrameBatchV3, first, owner, per_win):
+    """Each subframe's place in its frame (0, 1, ...) and its channel."""
+    slot = np.arange(owner.size) - first[owner]
+    return slot, np.where(batch.multi[owner].astype(bool), slot % per_win, batch.channel[owner])
+
+
 def _switch_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win, channels):
     """Layout 6's basis field: one bit in each channel's first subframe of the frame.
 
     1: every window of that channel in the frame is on the alternate basis.
     """
-    ns = owner.size
-    slot = np.arange(ns) - first[owner]
-    ch = np.where(batch.multi[owner].astype(bool), slot % per_win, batch.channel[owner])
+    slot, ch = _slot_channels(batch, first, owner, per_win)
     key = owner * channels + ch
     alt = batch.alternate.astype(np.int64)
     on = np.zeros(first.size * channels, np.int64)
