@@ -21,7 +21,7 @@ N = 256, DCT) this prints, per row:
   zstd level 19;
 * the gap to R_N(D) and the saving against the better baseline.
 
-Run: ``python tools/bench_rate.py [--samples N] [--seed S] [--layout 3|4|5|6] [--scope S]``
+Run: ``python tools/bench_rate.py [--samples N] [--seed S] [--layout 3|4|5|6|7] [--scope S]``
 (layout 4, the default here, lets each frame use dependent quantization).
 
 References
@@ -155,9 +155,10 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--frame-length", type=int, default=256)
     ap.add_argument("--rho", type=float, nargs="*", default=[0.9, 0.95, 0.99])
     ap.add_argument("--fidelity", type=float, nargs="*", default=[0.9, 0.95, 0.99, 0.999])
-    ap.add_argument("--layout", type=int, choices=(3, 4, 5, 6), default=4,
-                    help="frame layout (6: the default profile's; 5: without its basis switch; "
-                    "3: without prediction either; 4: 3 with dependent quantization)")
+    ap.add_argument("--layout", type=int, choices=(3, 4, 5, 6, 7), default=4,
+                    help="frame layout (7: the default profile's; 6: without its count-free "
+                    "flag; 5: without the basis switch either; 3: without prediction either; "
+                    "4: 3 with dependent quantization)")
     ap.add_argument("--scope", choices=("window", "frame"), default="frame",
                     help="fidelity scope (default frame, the profile default)")
     args = ap.parse_args(argv)

@@ -40,7 +40,7 @@ def main() -> None:
     ap.add_argument("--samples", type=int, default=1_000_000)
     ap.add_argument("--channels", type=int, default=4)
     ap.add_argument("--repeats", type=int, default=3)
-    ap.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5, 6), default=None,
+    ap.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5, 6, 7), default=None,
                     help="frame layout (default: the default profile's)")
     ap.add_argument("--multi", action="store_true",
                     help="multi-channel frames (the default profile's are single-channel)")

@@ -3,9 +3,9 @@
     python tools/fuzz_mutations.py [--streams 10000] [--seed 7] [--profiles all|0,3,5]
                                    [--tracemalloc]
 
-Each stream is one of a dozen profiles (channels 1 to 8, N 16 to 1024, one- and
-multi-channel frames, gaps marked, layouts 1 to 4), encoded once, then mutated
-one to four times by:
+Each stream is one of fourteen profiles (channels 1 to 8, N 16 to 1024, one- and
+multi-channel frames, gaps marked, layouts 1, 2, 4, 6 and the default 7), encoded
+once, then mutated one to four times by:
 
 * byte damage (the operators of ``tests/test_hostile.py``: bit flips,
   truncation, garbage with false sync markers, duplicated and deleted spans);
@@ -68,6 +68,8 @@ PROFILES = [
     (dict(frame_length=512, layout_version=1), 2, 3, True),
     (dict(frame_length=64, reference="total", basis="haar"), 5, 3, False),
     (dict(frame_length=32, layout_version=2), 2, 5, True),
+    (dict(frame_length=64, multi_channel_frames=False), 3, 4, False),
+    (dict(frame_length=64, layout_version=6), 2, 3, False),
 ]
 
 

@@ -71,6 +71,7 @@ __all__ = [
     "RangeDecoder",
     "coefficient_ops",
     "coefficient_cost_bits",
+    "zero_tail_bits",
     "decode_coefficients",
 ]
 
@@ -390,6 +391,46 @@ def coefficient_cost_bits(q: np.ndarray, count: np.ndarray | None = None,
     bits += np.where(esc, model.cost[LEN_ROW, 0] + np.maximum(eb - 1, 0), 0)
     bits[:, 0] += np.maximum(bl0 - 1, 0)
     return np.where(coded, bits, 0.0).sum(axis=1)
+
+
+def zero_tail_bits(q: np.ndarray, count: np.ndarray, mean: bool = False) -> np.ndarray:
+    """Ideal bits of coding each row's zeros at coefficients ``count`` .. N - 1 as well.
+
+    What coding every coefficient of a row costs beyond its first ``count``
+    (all of them zero): :func:`coefficient_cost_bits` with count N minus
+    with ``count``, in O(rows) work instead of O(rows x N).  Past the first
+    ``CONTEXT_WINDOW`` zeros the context sum is 0, so those costs come from
+    one suffix sum per N; the first few take their context from the row's
+    last magnitudes.  Layout 7's choice of dropping a frame's count fields.
+
+    Examples
+    --------
+    >>> q = np.array([[5, -2, 1, 0, 0, 0, 0, 0]])
+    >>> tail = zero_tail_bits(q, np.array([3]))
+    >>> full = coefficient_cost_bits(q, np.array([8])) - coefficient_cost_bits(q, np.array([3]))
+    >>> bool(np.isclose(tail[0], full[0]))
+    True
+    """
+    model = _model()
+    ns, n = q.shape
+    count = np.asarray(count, dtype=np.int64)
+    j = np.arange(n)
+    band = band_class(np.maximum(j, 1), n)  # class of a zero after CONTEXT_WINDOW zeros
+    c0 = model.cost[band, 0] + model.shift[band]
+    c0[0] = model.cost[MEAN_LEN_ROW if mean else LEN_ROW, 0]
+    suffix = np.r_[np.cumsum(c0[::-1])[::-1], 0.0]
+    bits = suffix[np.minimum(count + CONTEXT_WINDOW, n)]
+    # the magnitudes just before the tail: mag[count - W + k], k = 0 .. W - 1 (0 before j = 0)
+    col = count[:, None] - CONTEXT_WINDOW + np.arange(CONTEXT_WINDOW)
+    last = np.where(col >= 0, np.abs(q[np.arange(ns)[:, None], np.maximum(col, 0)]), 0)
+    for d in range(CONTEXT_WINDOW):
+        jj = count + d
+        on = jj < n
+        total = last[:, d:].sum(axis=1)
+        cls = context_class(total, np.minimum(jj, CONTEXT_WINDOW), np.maximum(jj, 1), n)
+        here = np.where(jj == 0, c0[0], model.cost[cls, 0] + model.shift[cls])
+        bits = bits + np.where(on, here, 0.0)
+    return bits
 
 
 def encode_lanes(cum: np.ndarray, freq: np.ndarray, shift: np.ndarray, lane: np.ndarray,

@@ -75,7 +75,7 @@ class CodedFrames:
     (window number in the stream), ``valid`` (real samples of the window),
     ``step_code``, ``mean`` (mean codes, None when the reference is
     ``total``), ``q`` (integer codes, rows of N), ``lag`` (None, or per row the
-    lag of its long-term prediction, 0 where not predicted; layouts 5 and 6), ``trellis`` (None,
+    lag of its long-term prediction, 0 where not predicted; layouts 5 to 7), ``trellis`` (None,
     or per row whether ``q`` holds levels of dependent quantization), ``alternate`` (None, or
     per row whether ``q`` is on :func:`codec.transform.bases.alternate_basis`; layout 6).
     Per stream: the profile's ``profile_id``, frame length ``n``,
@@ -305,7 +305,7 @@ class Layout(Protocol):
     A layout may also set ``predicts = True`` (optional; read with
     ``getattr``): its frames carry long-term prediction
     (:class:`CodedFrames` ``lag``), which the encoder then searches in
-    frame scope (layouts 5 and 6); and ``switches_basis = True``: its frames
+    frame scope (layouts 5 to 7); and ``switches_basis = True``: its frames
     may put a channel's windows on :func:`codec.transform.bases.alternate_basis`
     (:class:`CodedFrames` ``alternate``), which the encoder then chooses per
     budget block in frame scope (layout 6).
@@ -348,9 +348,9 @@ class Layout(Protocol):
 
 
 _LAYOUTS: dict[int, Layout] = {}
-_BUILTIN = (".v1", ".v2", ".v3", ".v4", ".v5", ".v6")
+_BUILTIN = (".v1", ".v2", ".v3", ".v4", ".v5", ".v6", ".v7")
 #: Versions of the built-in layouts: refused to other modules even before those load.
-_RESERVED = range(1, 6)
+_RESERVED = range(1, 8)
 _state = {"loaded": False, "rules": None}
 _KINDS = {"fixed16": 1, "flagged": 2}
 
@@ -458,7 +458,7 @@ def layout_for(version: int) -> Layout:
     >>> layout_for(13)
     Traceback (most recent call last):
     ...
-    ValueError: no frame layout has version 13; registered: [1, 2, 3, 4, 5, 6]
+    ValueError: no frame layout has version 13; registered: [1, 2, 3, 4, 5, 6, 7]
     """
     _builtins()
     try:

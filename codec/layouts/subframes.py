@@ -70,20 +70,23 @@ def refuse_contents(v: Verdicts, valid: np.ndarray, owner: np.ndarray, channel: 
     v.refuse(~consumed_ok, "bad_header", "contents do not fill the length field exactly")
 
 
-def size_length_fields(bits: np.ndarray, extra_bytes: np.ndarray | int
+def size_length_fields(bits: np.ndarray, extra_bytes: np.ndarray | int,
+                       widen: np.ndarray | int = 1
                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Length field of layouts 2 to 4 for frames of ``bits`` bit-packed header bits.
+    """Length field of layouts 2 to 7 for frames of ``bits`` bit-packed header bits.
 
     ``bits`` counts every bit-packed field but the length field; ``extra_bytes``
-    follow them (layouts 3 and 4: the range-coded bytes).  A frame takes the
-    11-bit length unless its length reaches 2**11 bytes, then the 27-bit one.
+    follow them (layouts 3 to 7: the range-coded bytes).  A frame takes the
+    11-bit length unless its length reaches 2**11 bytes, then the 27-bit one;
+    ``widen`` fields take that width (the length field, and layout 7's string
+    lengths, counted in ``bits`` at 11 bits).
     Returns (long flag, packed bits with the length field, packed bytes after
     the sync marker before ``extra_bytes``, whole frame length in bytes).
     """
     bits = bits + SHORT_LENGTH_BITS
     length = len(SYNC) + (bits + 7) // 8 + extra_bytes + CRC_BYTES
     long = length >= (1 << SHORT_LENGTH_BITS)
-    bits = np.where(long, bits + LONG_LENGTH_BITS - SHORT_LENGTH_BITS, bits)
+    bits = np.where(long, bits + (LONG_LENGTH_BITS - SHORT_LENGTH_BITS) * widen, bits)
     head_bytes = (bits + 7) // 8
     length = len(SYNC) + head_bytes + extra_bytes + CRC_BYTES
     if (length >= (1 << LONG_LENGTH_BITS)).any():
@@ -197,7 +200,8 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
 def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n: int,
                   has_mean: bool, quantizer_bit: bool = False,
                   count_change: np.ndarray | None = None,
-                  one_step: np.ndarray | None = None) -> np.ndarray:
+                  one_step: np.ndarray | None = None,
+                  all_terms: np.ndarray | None = None) -> np.ndarray:
     """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-5).
 
     A subframe header takes at least its step (10 bits for the first, a 1-bit
@@ -208,12 +212,18 @@ def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n
     bit.  ``head_bits`` are the bits the frame header took from the sync
     marker on.  Checked before a parser allocates any row, so a short frame
     claiming 16 windows of every channel costs no more than its length.
+    Layout 7's ``all_terms`` frames send no count but at least one coefficient
+    byte per subframe, which the bound counts instead.
     """
     fixed = int(has_mean) + int(quantizer_bit)
     later_count = (count_bits(n) if count_change is None
                    else np.where(count_change, 1, count_bits(n)))
+    first_count = count_bits(n)
+    if all_terms is not None:
+        later_count = np.where(all_terms, 8, later_count)
+        first_count = np.where(all_terms, 8, first_count)
     later_step = 1 if one_step is None else np.where(one_step, 0, 1)
-    need = np.where(cnt > 0, STEP_BITS + fixed + count_bits(n)
+    need = np.where(cnt > 0, STEP_BITS + fixed + first_count
                     + (cnt - 1) * (later_step + fixed + later_count), 0)
     room = (np.asarray(lengths, np.int64) - CRC_BYTES) * 8 - head_bits
     return need <= room

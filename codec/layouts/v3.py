@@ -31,12 +31,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..entropy.bits import BitReader, bit_length, pack_fields
-from ..entropy.rangecoder import coefficient_ops, decode_coefficients, encode_lanes
+from ..entropy.rangecoder import (
+    coefficient_ops,
+    decode_coefficients,
+    encode_lanes,
+    zero_tail_bits,
+)
 from ..entropy.rice import exp_golomb_bits, zigzag
 from ..quantize.select import choose_steps
 from ..transform.bases import has_alternate_basis
 from ..transform.predict import lag_bits, predictable
-from .envelope import CRC_BYTES, SYNC, FrameKey, wrap_frames
+from .envelope import CRC_BYTES, LONG_LENGTH_BITS, SHORT_LENGTH_BITS, SYNC, FrameKey, wrap_frames
 from .fields import header_bits, header_slots, read_header
 from .registry import (
     CodedFrames,
@@ -66,6 +71,7 @@ __all__ = [
     "LAYOUT_VERSION_3",
     "HEADER_FIELDS_V3",
     "HEADER_FIELDS_V5",
+    "HEADER_FIELDS_V7",
     "FrameBatchV3",
     "Layout3",
     "LAYOUT_3",
@@ -80,8 +86,10 @@ LAYOUT_VERSION_3 = 3
 MEAN_ORDER_BITS = 4
 #: The other versions these routines serve and what each adds to version 3's subframes:
 #: 4 the quantizer bit (:mod:`codec.layouts.v4`), 5 the prediction fields
-#: (:mod:`codec.layouts.v5`), 6 those and the basis switch (:mod:`codec.layouts.v6`).
-QUANTIZER_BIT_VERSION, PREDICTION_VERSION, SWITCH_VERSION = 4, 5, 6
+#: (:mod:`codec.layouts.v5`), 6 those and the basis switch (:mod:`codec.layouts.v6`), 7 those,
+#: a frame flag dropping the count fields and a range-coded string per channel of a
+#: multi-channel frame (:mod:`codec.layouts.v7`).
+QUANTIZER_BIT_VERSION, PREDICTION_VERSION, SWITCH_VERSION, STRINGS_VERSION = 4, 5, 6, 7
 WINDOW_BITS = 4
 #: Smallest possible v3 frame: sync, 4 header bytes, CRC.
 MIN_V3_BYTES = len(SYNC) + 4 + CRC_BYTES
@@ -104,7 +112,7 @@ def _several(h, ctx):
 #: layout 5 adds three fields, HEADER_FIELDS_V5);
 #: ``bits`` may be a function of the fields before it (:mod:`codec.layouts.fields`).
 HEADER_FIELDS_V3 = (
-    ("version", 4, "frame layout version (3 to 6)"),
+    ("version", 4, "frame layout version (3 to 7)"),
     ("long", 1, "0: the length field has 11 bits; 1: 27 bits"),
     ("length", length_width, "bytes in the whole frame, sync marker to CRC"),
     ("profile", 8, "low byte of the 16-bit profile identifier"),
@@ -124,12 +132,20 @@ HEADER_FIELDS_V3 = (
 #: Layouts 5 and 6: layout 3's header and three more fields (:mod:`codec.layouts.v5`).
 HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("predict", _several,
-     "1: subframes carry long-term prediction fields (when windows > 1, layouts 5, 6)"),
+     "1: subframes carry long-term prediction fields (when windows > 1, layouts 5 to 7)"),
     ("one_step", _several,
-     "1: later windows repeat their channel's step and send none (windows > 1, layouts 5, 6)"),
+     "1: later windows repeat their channel's step and send none (windows > 1, layouts 5 to 7)"),
     ("mean_order", lambda h, c: np.where(c.has_mean, MEAN_ORDER_BITS, 0),
-     "order k of the exp-Golomb codes of the mean fields (reference ac, layouts 5, 6)"),
+     "order k of the exp-Golomb codes of the mean fields (reference ac, layouts 5 to 7)"),
 )
+
+#: Layout 7: layout 5's header with the ``all_terms`` flag before ``count_change``, which
+#: it makes absent (:mod:`codec.layouts.v7`).
+HEADER_FIELDS_V7 = HEADER_FIELDS_V3[:-1] + (
+    ("all_terms", 1, "1: no count fields; every subframe codes all N coefficients (layout 7)"),
+    ("count_change", lambda h, c: _several(h, c) & (h["all_terms"] == 0),
+     "1: later windows send their count as a change (windows > 1, all_terms = 0)"),
+) + HEADER_FIELDS_V5[len(HEADER_FIELDS_V3):]
 
 
 @dataclass(frozen=True)
@@ -140,7 +156,7 @@ class FrameBatchV3:
     window), ``windows`` (1..16), ``valid`` (real samples of the last window).
     Per subframe (rows of ``q``, grouped by frame in order): ``frame``,
     ``step_code``, ``mean`` (or None), for layout 4 ``quantizer`` (1 where
-    the levels are of dependent quantization), for layouts 5 and 6 ``lag``,
+    the levels are of dependent quantization), for layouts 5 to 7 ``lag``,
     and for layout 6 ``alternate`` (1 where the row is on the alternate basis;
     None where the profile's basis has none, and then no field is sent).
     """
@@ -263,10 +279,24 @@ def _mean_orders(val, wid, col, zz, owner, nf):
     return order
 
 
-def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None):
+def _string_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win, channels,
+                  string_len):
+    """Layout 7's string lengths: in a multi-channel frame, channel c's first subframe
+    (c < channels - 1) ends with the bytes of its range-coded string, 11 bits wide
+    (widened to 27 with the frame's long length field by :func:`_widen_strings`)."""
+    slot, ch = _slot_channels(batch, first, owner, per_win)
+    on = batch.multi[owner].astype(bool) & (slot < per_win) & (ch < channels - 1)
+    val[:, col] = np.where(on, string_len[owner * channels + ch], 0).astype(np.uint64)
+    wid[:, col] = np.where(on, SHORT_LENGTH_BITS, 0)
+
+
+def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None,
+                    all_terms: np.ndarray | None = None, string_len: np.ndarray | None = None):
     """Slots of every subframe header, the frame-header slots left free in each frame's first row.
 
-    Returns ``(val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict,
+    Layout 7: ``all_terms`` (per frame) drops the count fields, and
+    ``string_len`` (per frame and channel) gives the string-length fields.
+    Returns ``(val, wid, first, lastrow, mean_pred, count_pred, predict,
     one_step, mean_order)`` (layout 5's per-frame fields, None for layouts 3 and 4).
     """
     nf, ns = len(batch), batch.q.shape[0]
@@ -274,7 +304,10 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
     lastrow = np.r_[first[1:] - 1, ns - 1]
     nh = len(HEADER_FIELDS_V3 if batch.lag is None else HEADER_FIELDS_V5)
-    nsub = 4 + (quant is not None) + (batch.lag is not None) + (batch.alternate is not None)
+    strings = string_len is not None
+    nh += strings  # layout 7's all_terms flag
+    alt_col = nh + 4 + (quant is not None) + (batch.lag is not None)
+    nsub = alt_col - nh + (batch.alternate is not None) + strings
     val = np.zeros((ns, nh + nsub + 1), dtype=np.uint64)
     wid = np.zeros((ns, nh + nsub + 1), dtype=np.int64)
     lead = np.zeros(ns, dtype=bool)
@@ -287,11 +320,15 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     prev = np.where(has_prev, np.arange(ns) - per_win, 0)
     mean_pred, count_pred, mean_sent, count_delta = _predictions(
         batch.mean, count, prev, has_prev, owner, nf, count_bits(n))
+    if all_terms is not None:
+        count_pred &= ~all_terms
     write_subheaders(val, wid, nh, lead, batch.step_code, mean_sent, count, count_bits(n),
                      quant)
     cp = count_pred[owner] & has_prev
     val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
     wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
+    if all_terms is not None:  # layout 7: no count fields in such a frame
+        wid[all_terms[owner], nh + 3] = 0
     predict = one_step = mean_order = None
     if batch.lag is not None:  # layout 5
         predict = _prediction_slots(batch, val, wid, nh + 4, first, owner, per_win, n, channels)
@@ -303,9 +340,11 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
         if mean_sent is not None:
             mean_order = _mean_orders(val, wid, nh + 1, zigzag(mean_sent), owner, nf)
     if batch.alternate is not None:  # layout 6
-        _switch_slots(batch, val, wid, nh + nsub - 1, first, owner, per_win, channels)
-    return (val, wid, first, lastrow, wid[:, nh:].sum(axis=1), mean_pred, count_pred, predict,
-            one_step, mean_order)
+        _switch_slots(batch, val, wid, alt_col, first, owner, per_win, channels)
+    if strings:  # layout 7
+        _string_slots(batch, val, wid, nh + nsub - 1, first, owner, per_win, channels,
+                      string_len)
+    return val, wid, first, lastrow, mean_pred, count_pred, predict, one_step, mean_order
 
 
 def _join_bodies(heads: np.ndarray, head_bytes: np.ndarray, lanes: np.ndarray,
@@ -321,15 +360,96 @@ def _join_bodies(heads: np.ndarray, head_bytes: np.ndarray, lanes: np.ndarray,
     return body, body_bytes
 
 
+def _lane_base(multi: np.ndarray, channels: int, strings: bool) -> np.ndarray:
+    """Each frame's first range-coder lane (:func:`_lanes_of_rows`)."""
+    per = np.where(multi.astype(bool) & strings, channels, 1)
+    return np.cumsum(per) - per
+
+
+def _lanes_of_rows(multi: np.ndarray, owner: np.ndarray, channel: np.ndarray, channels: int,
+                   strings: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's range-coder lane and each frame's first lane.
+
+    One lane per frame, or with ``strings`` (layout 7) one per channel of a
+    multi-channel frame, in channel order.
+    """
+    base = _lane_base(multi, channels, strings)
+    on = (multi.astype(bool) & strings)[owner]
+    return base[owner] + np.where(on, channel, 0), base
+
+
+def _all_terms(batch: FrameBatchV3, count: np.ndarray, first: np.ndarray, owner: np.ndarray,
+               per_win: np.ndarray, n: int) -> np.ndarray:
+    """Layout 7: the frames whose count fields cost more than coding every coefficient.
+
+    Each frame's count fields are priced as sent (whole, or as changes where
+    that is cheaper); the zeros after each count at the range coder's ideal
+    code lengths (:func:`codec.entropy.rangecoder.zero_tail_bits`).
+    """
+    nf = first.size
+    has_prev = np.arange(owner.size) - first[owner] >= per_win
+    prev = np.where(has_prev, np.arange(owner.size) - per_win, 0)
+    change = np.where(has_prev, exp_golomb_bits(zigzag(count - count[prev])), count_bits(n))
+    fields = np.minimum(np.bincount(owner, change, minlength=nf),
+                        np.bincount(owner, minlength=nf) * count_bits(n))
+    tails = np.bincount(owner, zero_tail_bits(batch.q, count, batch.mean is not None),
+                        minlength=nf)
+    return tails < fields
+
+
+def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bool):
+    """Range-code the coefficients: one string per frame, or with ``strings`` (layout 7)
+    one per channel of a multi-channel frame and the all-terms choice.
+
+    Returns the bytes of every string, each frame's coefficient bytes, layout 7's
+    per-frame all-terms flags and its string lengths by (frame, channel) (None before).
+    """
+    nf = len(batch)
+    count = _counts(batch.q)
+    first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
+    owner = batch.frame
+    per_win = np.where(batch.multi.astype(bool), channels, 1)[owner]
+    _slot, ch = _slot_channels(batch, first, owner, per_win)
+    lane, lane_base = _lanes_of_rows(batch.multi, owner, ch, channels, strings)
+    nlanes = max(int(lane.max(initial=-1)), int(lane_base[-1]) if nf else -1) + 1
+    # rows of a lane in row order, lanes in order (a multi-channel frame's rows are
+    # window-major, its strings channel by channel)
+    order = np.argsort(lane, kind="stable") if (np.diff(lane) < 0).any() else slice(None)
+    all_terms = _all_terms(batch, count, first, owner, per_win, n) if strings else None
+    while True:
+        coded = count if all_terms is None else np.where(all_terms[owner], n, count)
+        cum, freq, shift, row = coefficient_ops(
+            batch.q[order], coded[order], trellis=None if quant is None else quant[order],
+            mean=batch.mean is not None)
+        lanes, string_len = encode_lanes(cum, freq, shift, lane[order][row], nlanes)
+        lane_len = np.add.reduceat(string_len, lane_base) if nf else string_len[:0]
+        if all_terms is None:
+            return lanes, lane_len, None, None
+        # an all-terms frame carries at least one coefficient byte per subframe, so the
+        # rows a receiver decodes stay bounded by the frame's bytes (subframes_fit); a
+        # frame that would not keeps its counts (its strings change, no other frame's)
+        thin = all_terms & (lane_len < np.bincount(owner, minlength=nf))
+        if not thin.any():
+            break
+        all_terms = all_terms & ~thin
+    str_len = np.zeros(nf * channels, np.int64)  # by (frame, channel) of multi frames
+    multi_f = np.flatnonzero(batch.multi.astype(bool) & (channels > 1))
+    idx = (multi_f[:, None] * channels + np.arange(channels)).ravel()
+    str_len[idx] = string_len[(lane_base[multi_f][:, None] + np.arange(channels)).ravel()]
+    return lanes, lane_len, all_terms, str_len
+
+
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
                    version: int = LAYOUT_VERSION_3, *, key: FrameKey
                    ) -> tuple[bytes, np.ndarray, np.ndarray, np.ndarray]:
     """Pack every frame of ``batch`` in layout 3, or in layout 4 (``version`` 4: a quantizer
     bit per subframe, 1 where the rows of ``batch.q`` are levels of dependent quantization),
-    or in layout 5 (``version`` 5: ``batch.lag`` says which rows are predicted).
+    or in layout 5 (``version`` 5: ``batch.lag`` says which rows are predicted), 6 (and
+    ``batch.alternate`` the rows on the alternate basis) or 7 (and, where it saves bits, no
+    count fields; a range-coded string per channel of a multi-channel frame).
 
     Returns the bytes, each frame's byte length, each subframe's header bits
-    (step, mean, count) and each frame's range-coded bytes.
+    (step, mean, count and the fields after them) and each frame's range-coded bytes.
     """
     nf, ns = len(batch), batch.q.shape[0]
     quant = None
@@ -338,22 +458,31 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     if version == QUANTIZER_BIT_VERSION:  # layout 4 (codec.layouts.v4)
         quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
                  else batch.quantizer.astype(bool))
-    cum, freq, shift, row = coefficient_ops(batch.q, _counts(batch.q), trellis=quant,
-                                            mean=batch.mean is not None)
-    lanes, lane_len = encode_lanes(cum, freq, shift, batch.frame[row], nf)
-    val, wid, first, lastrow, sub_bits, mean_pred, count_pred, predict, one_step, mean_order = \
-        _subframe_slots(batch, n, channels, quant)
+    strings = version >= STRINGS_VERSION
+    lanes, lane_len, all_terms, str_len = _code_strings(batch, quant, n, channels, strings)
+    owner = batch.frame
+    val, wid, first, lastrow, mean_pred, count_pred, predict, one_step, mean_order = \
+        _subframe_slots(batch, n, channels, quant, all_terms, str_len)
     ctx = ParseContext(n, channels, batch.mean is not None)
-    table = HEADER_FIELDS_V3 if predict is None else HEADER_FIELDS_V5
+    table = (HEADER_FIELDS_V3 if predict is None
+             else HEADER_FIELDS_V7 if strings else HEADER_FIELDS_V5)
     fields = {"version": version, "profile": profile_id & 0xFF,
               "sequence": batch.sequence % 256, "windows_minus_1": batch.windows - 1,
               "multi": batch.multi.astype(bool), "channel": batch.channel,
               "short": batch.valid < n, "valid_minus_1": batch.valid - 1,
               "mean_change": mean_pred, "count_change": count_pred, "predict": predict,
-              "one_step": one_step, "mean_order": mean_order}
+              "one_step": one_step, "mean_order": mean_order, "all_terms": all_terms}
     head_bits = header_bits(table, fields, ctx, nf, skip=("length",))
-    payload = np.add.reduceat(sub_bits, first)
-    long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len)
+    nh = len(table)
+    # layout 7's string lengths take the length field's width: 11 bits, 27 in a long frame
+    nstr = np.bincount(owner[wid[:, -2] > 0], minlength=nf) if strings else 0
+    payload = np.add.reduceat(wid[:, nh:].sum(axis=1), first)
+    long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len,
+                                                        widen=1 + nstr)
+    if strings:
+        wid[:, -2] = np.where(wid[:, -2] > 0, np.where(long[owner], LONG_LENGTH_BITS,
+                                                       SHORT_LENGTH_BITS), 0)
+    sub_bits = wid[:, nh:].sum(axis=1)
     head = header_slots(table, {**fields, "long": long, "length": length}, ctx, nf)
     write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
     heads = pack_fields(val.ravel(), wid.ravel())
@@ -365,13 +494,15 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
 
 
 def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, predict=False,
-                         switch=False):
+                         switch=False, strings=False):
     """Every subframe header of every frame.
 
-    Returns (step, mean, count, quant, lag, alternate, end pos, bad); ``lag``
-    (layouts 5 and 6, else None) is each row's prediction lag, 0 where it is
-    not predicted; ``alternate`` (layout 6 with ``switch``, else None) whether
-    each row is on the alternate basis.
+    Returns (step, mean, count, quant, lag, alternate, string_len, end pos, bad);
+    ``lag`` (layouts 5 to 7, else None) is each row's prediction lag, 0 where it
+    is not predicted; ``alternate`` (layouts 6 and 7 with ``switch``, else None)
+    whether each row is on the alternate basis; ``string_len`` (layout 7, else
+    None) per frame and subframe slot, the string length a channel's first
+    subframe of a multi-channel frame sends (-1 where none is sent).
     """
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
@@ -384,13 +515,19 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
         lag, chlag = np.zeros(ns, np.int64), np.zeros(ns, np.int64)
     alternate = np.zeros(ns, bool) if switch else None
     mean_pred, count_pred = h["mean_change"] > 0, h["count_change"] > 0
+    lb = count_bits(n)
+    all_terms = h["all_terms"] > 0 if strings else np.zeros(cnt.size, bool)
+    width = np.where(h["long"] > 0, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
+    nmax = int(per_win.max(initial=1))
+    string_len = np.full((cnt.size, nmax), -1, np.int64) if strings else None
     bad_any = np.zeros(cnt.size, dtype=bool)
     for s in range(int(cnt.max(initial=0))):
         fr = np.flatnonzero(cnt > s)
         rows = sstart[fr] + s
         pw = per_win[fr]
         later = s >= pw
-        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, count_bits(n), n,
+        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count,
+                                      np.where(all_terms[fr], 0, lb), n,
                                       quant, later & mean_pred[fr], later & count_pred[fr],
                                       np.where(later, rows - pw, rows),
                                       later & (h["one_step"][fr] > 0) if predict else None,
@@ -398,13 +535,20 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
         bad_any[fr] |= bad
         if predict:
             p[fr] = _read_prediction(r, p[fr], rows, s, pw, h["predict"][fr] > 0, lag, chlag, n)
+        count[rows[all_terms[fr]]] = n  # layout 7: no count field, every coefficient
         if switch:  # a channel's first subframe sends the bit, its later ones repeat it
             lead = np.flatnonzero(~later)
             alternate[rows[lead]] = r.read(p[fr][lead], 1) > 0
             p[fr[lead]] += 1
             back = np.flatnonzero(later)
             alternate[rows[back]] = alternate[rows[back] - pw[back]]
-    return step, mean, count, quant, lag, alternate, p, bad_any
+        if strings:  # channels 0 .. C - 2 of a multi-channel frame: their string's bytes
+            on = np.flatnonzero((pw > 1) & (s < pw - 1))
+            if on.size:
+                f = fr[on]
+                string_len[f, s] = r.read(p[f], width[f])
+                p[f] += width[f]
+    return step, mean, count, quant, lag, alternate, string_len, p, bad_any
 
 
 def _read_prediction(r, pp, rows, s, pw, on, lag, chlag, n):
@@ -431,10 +575,10 @@ def _read_prediction(r, pp, rows, s, pw, on, lag, chlag, n):
 def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: int,
                     channels: int, has_mean: bool, version: int = LAYOUT_VERSION_3,
                     switch: bool = False) -> ParsedFrames:
-    """Parse CRC-checked v3 (or, with ``version`` 4 to 6, v4 to v6) frames at ``offsets``.
+    """Parse CRC-checked v3 (or, with ``version`` 4 to 7, v4 to v7) frames at ``offsets``.
 
-    ``switch``: version 6 frames carry the basis field (the profile's basis
-    has an alternate, :func:`codec.transform.bases.alternate_basis`).
+    ``switch``: version 6 and 7 frames carry the basis field (the profile's
+    basis has an alternate, :func:`codec.transform.bases.alternate_basis`).
 
     Rows are subframes, window by window (``row_offset``: window number
     relative to the frame's ``sequence``); ``header`` holds the frame-header
@@ -448,9 +592,11 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     r = BitReader(data)
     offsets = offsets.astype(np.int64)
     predict = version >= PREDICTION_VERSION
-    switch = switch and version == SWITCH_VERSION
+    switch = switch and version >= SWITCH_VERSION
+    strings = version >= STRINGS_VERSION
     h, p = read_header(r, offsets * 8 + 8 * len(SYNC),
-                       HEADER_FIELDS_V5 if predict else HEADER_FIELDS_V3, ctx)
+                       HEADER_FIELDS_V7 if strings else HEADER_FIELDS_V5 if predict
+                       else HEADER_FIELDS_V3, ctx)
     windows, multi = h["windows_minus_1"] + 1, h["multi"] > 0
     valid = np.where(h["short"] > 0, h["valid_minus_1"] + 1, n)
     per_win = np.where(multi, channels, 1)
@@ -458,34 +604,74 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     # Before anything is allocated: a frame whose header claims more subframes than its
     # own bytes can hold (each subframe header takes at least min_subframe_bits) is
     # refused and gets no rows, so the work and memory per frame follow its length.
+    all_terms = h["all_terms"] > 0 if strings else np.zeros(offsets.size, bool)
     fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
                          version == QUANTIZER_BIT_VERSION, h["count_change"] > 0,
-                         h["one_step"] > 0 if predict else None)
+                         h["one_step"] > 0 if predict else None, all_terms)
     cnt = np.where(fits, cnt, 0)
     owner = np.repeat(np.arange(offsets.size), cnt)
     slot = np.arange(owner.size) - (np.cumsum(cnt) - cnt)[owner]
     woff = slot // per_win[owner]
     sub_channel = np.where(multi[owner], slot % per_win[owner], h["channel"][owner])
-    step, mean, count, quant, lag, alternate, p, bad = _read_subheaders_all(
-        r, p, cnt, per_win, h, has_mean, version == QUANTIZER_BIT_VERSION, n, predict, switch)
+    step, mean, count, quant, lag, alternate, string_len, p, bad = _read_subheaders_all(
+        r, p, cnt, per_win, h, has_mean, version == QUANTIZER_BIT_VERSION, n, predict, switch,
+        strings)
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
     ok = fits & ~bad & (start <= end) & (h["length"] == lengths)
     start = np.minimum(start, end)
+    # an all-terms frame (layout 7) carries at least a coefficient byte per subframe
+    ok &= ~all_terms | (end - start >= cnt)
+    lane, lstart, lend, lok, lane_frame = _string_bounds(
+        multi, owner, sub_channel, channels, strings, string_len, start, end)
+    ok &= lok
     buf = np.frombuffer(data, dtype=np.uint8)
     trellis = np.zeros(owner.size, bool) if quant is None else quant.astype(bool)
-    q, bad, reads = decode_coefficients(buf, start, end, owner, count, n,
+    q, bad, reads = decode_coefficients(buf, lstart, lend, lane, count, n,
                                         trellis=None if quant is None else trellis,
                                         mean=has_mean)
-    # the lane must be used: no byte past what the decoder read, and no trailing zero byte
-    lane_len = end - start
-    last = buf[np.maximum(end - 1, 0)]
-    ok &= ~bad & (lane_len <= reads + 1) & ((lane_len == 0) | (last != 0))
+    # every lane must be used: no byte past what the decoder read, no trailing zero byte,
+    # and no byte at all in a lane with nothing to decode
+    lane_len = lend - lstart
+    last = buf[np.maximum(lend - 1, 0)]
+    coded = np.bincount(lane, count, minlength=lane_len.size) > 0
+    used = ~bad & (lane_len <= reads + 1) & ((lane_len == 0) | ((last != 0) & coded))
+    ok &= np.bincount(lane_frame, ~used, minlength=offsets.size) == 0
     v = Verdicts(offsets.size)
     refuse_contents(v, valid, owner, sub_channel, ok, ctx)
     sub_valid = np.where(woff == windows[owner] - 1, valid[owner], n)
     return parsed_frames(v, h, valid, owner, sub_channel, woff, sub_valid, step, mean, count,
                          trellis, q, lag, alternate)
+
+
+def _string_bounds(multi, owner, channel, channels, strings, string_len, start, end):
+    """Each row's lane, each lane's bytes ``[lstart, lend)``, per frame whether the string
+    lengths fit its coefficient bytes, and each lane's frame.
+
+    One lane per frame from ``start`` to ``end``; in a layout-7 multi-channel
+    frame one per channel, the first C - 1 as long as their length fields
+    say, the last running to ``end``.
+    """
+    lane, base = _lanes_of_rows(multi, owner, channel, channels, strings)
+    if not strings or not multi.any():
+        return lane, start, end, np.ones(start.size, bool), np.arange(start.size)
+    per = np.where(multi, channels, 1)
+    sizes = np.zeros(int(per.sum()), np.int64)
+    mf = np.flatnonzero(multi)
+    lens = np.maximum(string_len[mf, :channels - 1], 0)
+    sizes[(base[mf][:, None] + np.arange(channels - 1)).ravel()] = lens.ravel()
+    fits = np.ones(start.size, bool)
+    fits[mf] = lens.sum(axis=1) <= end[mf] - start[mf]
+    lstart = np.repeat(start, per) + (np.cumsum(sizes) - sizes
+                                      - np.repeat((np.cumsum(sizes) - sizes)[base], per))
+    lend = lstart + sizes
+    lastlane = base + per - 1
+    lend[lastlane] = end
+    bad = np.repeat(~fits, per)
+    lstart, lend = np.where(bad, np.repeat(end, per), lstart), np.where(bad, np.repeat(end, per),
+                                                                         lend)
+    lstart = np.minimum(lstart, lend)
+    return lane, lstart, lend, fits, np.repeat(np.arange(start.size), per)
 
 
 def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
@@ -495,7 +681,7 @@ def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
     w = c.windows_per_frame
     group = c.sequence // w
     alternate = None  # layout 6 sends the basis field where the profile's basis has one
-    if version == SWITCH_VERSION and has_alternate_basis(c.basis_code, c.n):
+    if version >= SWITCH_VERSION and has_alternate_basis(c.basis_code, c.n):
         alternate = np.zeros(c.q.shape[0], bool) if c.alternate is None else c.alternate
     if c.multi:
         order = np.arange(c.channel.size)  # rows are window-major, channel-minor already

@@ -132,7 +132,7 @@ def _layout_rows(layout, data: bytes, offsets: np.ndarray, lengths: np.ndarray, 
         sub = reconstruct(p.q[good], None if p.row_mean is None else p.row_mean[good],
                           p.row_step[good], basis, p.row_trellis[good],
                           None if p.row_alternate is None else p.row_alternate[good])
-        if p.row_lag is not None:  # layouts 5 and 6: add each predicted window's prediction
+        if p.row_lag is not None:  # layouts 5 to 7: add each predicted window's prediction
             add_predictions(sub, p.row_lag[good], p.row_frame[good], p.row_channel[good],
                             p.row_offset[good])
         rows[good] = sub
