@@ -47,6 +47,7 @@ __all__ = [
     "MAX_TOML_DEPTH",
     "MIN_FRAME_BYTES",
     "MAX_WINDOWS_PER_FRAME",
+    "MULTI_FRAMES_FROM_LAYOUT",
     "note_sample_limit",
     "check_note_fits",
     "MAX_NAME_CHARS",
@@ -60,8 +61,10 @@ MAX_CHANNELS = 256
 
 #: Characters a channel name may have.
 MAX_NAME_CHARS = 64
-#: Time windows one frame carries at most (the windows field of layouts 3 to 6).
+#: Time windows one frame carries at most (the windows field of layouts 3 to 7).
 MAX_WINDOWS_PER_FRAME = 16
+#: The first layout whose frames carry every channel unless a profile says otherwise.
+MULTI_FRAMES_FROM_LAYOUT = 7
 
 
 def check_channel_names(names: list[str], where: str = "input") -> None:
@@ -162,12 +165,13 @@ class Profile(BaseModel):
         the decoded frame keeps, 0 to 1.
     reference : {"ac", "total"}
         Energy the fidelity is a fraction of.
-    layout_version : {1, 2, 3, 4, 5}
-        Frame layout the encoder writes (5, the default, is 3 with long-term prediction).
-    multi_channel_frames : bool
-        Layouts 2 to 5: one frame carries all channels of a time window.
+    layout_version : {1, 2, 3, 4, 5, 6, 7}
+        Frame layout the encoder writes (7, the default: see the field's comment).
+    multi_channel_frames : bool or None
+        Layouts 2 to 7: one frame carries all channels of its time windows; None (the
+        default): from layout 7 on (:attr:`multi_frames`).
     windows_per_frame : int
-        Layouts 3 to 5: time windows per frame, 1 to 16.
+        Layouts 3 to 7: time windows per frame, 1 to 16.
     fidelity_scope : {"frame", "window"}
         What one fidelity budget covers.
     channels : tuple of ChannelSpec
@@ -196,18 +200,25 @@ class Profile(BaseModel):
     reference: Literal["total", "ac"] = "ac"
     #: Frame layout the encoder writes (the decoder reads every version); 4 is 3 with
     #: dependent (trellis-coded) quantization, 5 is 3 with long-term prediction inside a
-    #: frame, 6 (the default) is 5 with a choice of the Haar basis per channel and frame
-    #: (measured on real recordings: README, "Bits on real recordings").  Any registered
-    #: layout (``codec.layouts.registry.register_layout``); built in: 1 to 6.
-    layout_version: int = 6
-    #: Layouts 2 to 6: one frame (one header) carries all channels of a time window.
-    multi_channel_frames: bool = False
-    #: Layouts 3 to 6: consecutive time windows one frame carries (1 to 16); more
+    #: frame, 6 is 5 with a choice of the Haar basis per channel and frame, 7 (the default)
+    #: is 6 with a frame flag dropping the count fields and a range-coded string per channel
+    #: of a multi-channel frame (measured on real recordings: README, "Bits on real
+    #: recordings").  Any registered layout (``codec.layouts.registry.register_layout``);
+    #: built in: 1 to 7.
+    layout_version: int = 7
+    #: Layouts 2 to 7: one frame (one header) carries all channels of its time windows.
+    #: Unset (the default): the layout's choice, multi-channel frames from layout 7 on
+    #: and single-channel frames before (as those layouts always had), read through
+    #: :attr:`multi_frames`.  From layout 7 on the header is paid once for every channel,
+    #: which real multi-channel recordings need to beat differenced zstd; the price is
+    #: that a lost frame loses every channel of its windows (README, "Frame layouts").
+    multi_channel_frames: bool | None = None
+    #: Layouts 3 to 7: consecutive time windows one frame carries (1 to 16); more
     #: windows share one header but a lost frame loses them all.
     windows_per_frame: int = Field(default=16, ge=1, le=MAX_WINDOWS_PER_FRAME)
     #: What one fidelity budget covers: "window" (each window of each channel on its
     #: own) or "frame" (the windows of one channel that travel in one frame share one
-    #: budget; layouts 3 to 6 with several windows per frame).  Only the encoder
+    #: budget; layouts 3 to 7 with several windows per frame).  Only the encoder
     #: reads it and the profile identifier leaves it out, but the CRC key
     #: (:func:`profile_digest`) holds it: a decoder needs the encoder's value.
     fidelity_scope: Literal["window", "frame"] = "frame"
@@ -215,6 +226,24 @@ class Profile(BaseModel):
     #: A trained basis (basis = "klt"): its .cwbasis.npz file and the SHA-256 of its matrix.
     basis_file: str | None = None
     basis_sha256: str | None = Field(default=None, pattern=r"^[0-9a-fA-F]{64}$")
+
+    @property
+    def multi_frames(self) -> bool:
+        """Whether the encoder puts every channel in each frame.
+
+        ``multi_channel_frames`` when set; unset, the layout's choice: from layout
+        7 on (its frames carry a range-coded string per channel).
+
+        Examples
+        --------
+        >>> Profile().multi_frames, Profile(layout_version=6).multi_frames
+        (True, False)
+        >>> Profile(multi_channel_frames=False).multi_frames
+        False
+        """
+        if self.multi_channel_frames is not None:
+            return self.multi_channel_frames
+        return self.layout_version >= MULTI_FRAMES_FROM_LAYOUT
 
     @model_validator(mode="after")
     def _trained_basis(self) -> Profile:
@@ -293,7 +322,7 @@ def default_profile() -> Profile:
     --------
     >>> p = default_profile()
     >>> p.basis, p.frame_length, p.fidelity, p.reference, p.layout_version
-    ('dct', 64, 0.99, 'ac', 6)
+    ('dct', 64, 0.99, 'ac', 7)
     """
     return Profile()
 

@@ -357,7 +357,7 @@ def _coded(w: _Windows, profile: Profile, layout, basis: Basis, first_window: in
         channel=w.channel, sequence=w.window + first_window, valid=w.valid, step_code=code,
         mean=mean_int, q=q, profile_id=profile_id(profile), n=profile.frame_length,
         channels=len(profile.channels), basis_code=basis.code,
-        multi=profile.multi_channel_frames, windows_per_frame=layout.windows_per_frame(profile),
+        multi=profile.multi_frames, windows_per_frame=layout.windows_per_frame(profile),
         trellis=trellis, lag=np.zeros(code.size, np.int64) if predicted else None,
         alternate=_alternate_rows(w, layout, basis))
 

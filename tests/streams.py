@@ -46,13 +46,16 @@ def with_crc(frame_wo_crc: bytes, digest: bytes) -> bytes:
     return frame_wo_crc + keyed_crc(frame_wo_crc, digest).to_bytes(2, "big")
 
 
-def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int = 1, **enc):
+def real_stream(samples: int = 600, channels: int = 3, n: int = 32, windows: int = 1,
+                multi: bool = False, **enc):
     """Encode the first ``samples`` rows of real accelerometer counts (see realdata).
 
-    One window per frame by default, so damage patterns hit single windows.
+    One window of one channel per frame by default, so damage patterns hit single
+    windows of single channels.
     """
     x = motion("train")[:samples, :channels]
-    return x, codec.encode(x, codec.Profile(frame_length=n, windows_per_frame=windows), **enc)
+    prof = codec.Profile(frame_length=n, windows_per_frame=windows, multi_channel_frames=multi)
+    return x, codec.encode(x, prof, **enc)
 
 
 def frames_of(data: bytes, profile=None) -> list[tuple[int, int]]:

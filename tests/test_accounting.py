@@ -5,7 +5,8 @@ or delayed, and which samples each frame carried.  Frame order on the wire is
 the one FRAME_LAYOUT.md states for single-channel frames: time groups of
 ``windows_per_frame`` windows in order, and within a group the channels in
 profile order, so frame k carries channel k mod C of windows
-[(k div C) W, (k div C + 1) W).
+[(k div C) W, (k div C + 1) W).  A multi-channel frame k (the default from
+layout 7) carries every channel of windows [k W, (k + 1) W).
 """
 
 from __future__ import annotations
@@ -24,18 +25,19 @@ from link_sim._receiver import CONCEALED, DELIVERED, LOST
 N, SAMPLES, CHANNELS = 32, 640, 2  # 20 windows of 2 channels
 
 
-def _sender(windows_per_frame: int):
+def _sender(windows_per_frame: int, multi: bool = False):
     x = motion("train")[:SAMPLES, :CHANNELS]
-    enc = codec.encode(x, codec.Profile(frame_length=N, windows_per_frame=windows_per_frame))
+    enc = codec.encode(x, codec.Profile(frame_length=N, windows_per_frame=windows_per_frame,
+                                        multi_channel_frames=multi))
     loc = locate_frames(enc.data)
     frames = [enc.data[o : o + n] for o, n in zip(loc.offsets.tolist(), loc.lengths.tolist())]
-    assert len(frames) == CHANNELS * (SAMPLES // N) // windows_per_frame
+    assert len(frames) == (1 if multi else CHANNELS) * (SAMPLES // N) // windows_per_frame
     return x, enc, frames
 
 
-def _carried(k: int, w: int) -> tuple[slice, int]:
-    """Rows and channel that frame ``k`` carries (the layout's frame order)."""
-    g, c = divmod(k, CHANNELS)
+def _carried(k: int, w: int, multi: bool = False) -> tuple[slice, int | slice]:
+    """Rows and channel(s) that frame ``k`` carries (the layout's frame order)."""
+    g, c = (k, slice(None)) if multi else divmod(k, CHANNELS)
     return slice(g * w * N, min((g + 1) * w * N, SAMPLES)), c
 
 
@@ -45,9 +47,9 @@ def _flip_payload(frame: bytes) -> bytes:
     return bytes(b)
 
 
-@pytest.mark.parametrize("w", [1, 4])
-def test_decoder_status_is_exactly_what_the_sender_did(w):
-    x, enc, f = _sender(w)
+@pytest.mark.parametrize("w, multi", [(1, False), (4, False), (1, True), (2, True)])
+def test_decoder_status_is_exactly_what_the_sender_did(w, multi):
+    x, enc, f = _sender(w, multi)
     nf = len(f)
     drop, corrupt, dup, late = 5, 7, nf - 2, 2
     # the wire: frame 'late' arrives after every other frame (more than 'reorder'
@@ -64,7 +66,7 @@ def test_decoder_status_is_exactly_what_the_sender_did(w):
     dec = codec.decode(b"".join(wire), enc.profile, samples=SAMPLES, reorder=8, strict=False)
     want = np.full((SAMPLES, CHANNELS), codec.DELIVERED, np.uint8)
     for k in (drop, corrupt, late):
-        rows, c = _carried(k, w)
+        rows, c = _carried(k, w, multi)
         want[rows, c] = codec.LOST
     np.testing.assert_array_equal(dec.status, want)
     ok = want == codec.DELIVERED
@@ -74,8 +76,9 @@ def test_decoder_status_is_exactly_what_the_sender_did(w):
     assert c["frames_crc_failed"] == 1  # frames on the wire (no header can be read)
     # duplicates and late arrivals are counted in coded frames (one window of one channel,
     # the README's unit for 'frames'): w of them per frame on the wire
-    assert c["frames_duplicate"] == w and c["frames_late"] == w
-    assert c["samples_lost"] == 3 * w * N and c["samples_delivered"] == ok.sum()
+    per = w * (CHANNELS if multi else 1)
+    assert c["frames_duplicate"] == per and c["frames_late"] == per
+    assert c["samples_lost"] == 3 * per * N and c["samples_delivered"] == ok.sum()
 
 
 def _link_case():

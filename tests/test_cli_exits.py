@@ -34,8 +34,15 @@ def test_decode_exit_0_complete_1_lossy_1_empty(stream, tmp_path, capsys):
     capsys.readouterr()
     assert main(["decode", str(s), "-o", str(tmp_path / "a.csv")]) == 0
     assert "every sample delivered (1200 of 1200): exit status 0" in capsys.readouterr().out
-    # Lossy: cut the stream after its first frame; the note still gives the length.
+    # Lossy: cut the stream after its first frame; the note still gives the length.  The
+    # default frames carry both channels of 16 windows (one frame here): single-channel
+    # frames give a stream of several.
+    src = s.parent / "in.csv"
+    s = tmp_path / "single.cwire"
+    assert main(["encode", str(src), "-o", str(s), "--frames", "single"]) == 0
+    capsys.readouterr()
     loc = locate_frames(s.read_bytes())
+    assert loc.offsets.size == 2
     cut = tmp_path / "cut.cwire"
     cut.write_bytes(s.read_bytes()[: int(loc.offsets[1])])
     note_path(cut).write_bytes(note_path(s).read_bytes())

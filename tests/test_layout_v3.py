@@ -155,7 +155,7 @@ def test_every_v3_frame_decodes_on_its_own(multi):
 
 def test_corrupt_v3_frame_costs_only_its_windows():
     x = _signal()
-    enc = codec.encode(x, codec.Profile(windows_per_frame=4))
+    enc = codec.encode(x, codec.Profile(windows_per_frame=4, multi_channel_frames=False))
     loc = locate_frames(enc.data)
     bad = bytearray(enc.data)
     bad[int(loc.offsets[2]) + 9] ^= 0x10

@@ -61,8 +61,9 @@ def test_unit_is_a_label_not_part_of_the_profile_id():
 def test_encode_roundtrip_decode_print_units_and_per_channel_tables(pump, capsys):
     x, d = pump
     p = str(d / "pump.toml")
+    # single-channel frames: inspect then lists each channel's step in its own unit
     assert main(["encode", str(d / "pump.npy"), "-p", p, "-o", str(d / "s.cwire"),
-                 "--json", str(d / "e.json")]) == 0
+                 "--json", str(d / "e.json"), "--frames", "single"]) == 0
     out = capsys.readouterr().out
     rows = _table(out)
     assert list(rows) == ["ch0", "ch1", "ch2", "ch3"]
@@ -248,3 +249,21 @@ def test_receive_prints_counts_and_ranges_in_channel_units(pump, tmp_path):
         assert f["delivered_max"] == pytest.approx(got[:, c].max(), abs=1e-3)
         # and within the profile's resolution-bounded coding error of the sent samples
         assert f["delivered_max"] == pytest.approx(x[:, c].max(), abs=1.0), name
+
+
+def test_inspect_gives_a_multi_channel_frames_step_a_unit_only_when_its_channels_share_one(
+        pump, capsys):
+    x, d = pump
+    np.save(d / "two.npy", x[:, [0, 3]])
+    for k, (units, want) in enumerate(((["m/s2", "degC"], None), (["m/s2", "m/s2"], "m/s2"))):
+        prof = Profile(frame_length=64, channels=tuple(
+            ChannelSpec(name=n, unit=u) for n, u in zip(["ch0", "ch1"], units)))
+        save_profile(prof, d / f"two{k}.toml")
+        assert main(["encode", str(d / "two.npy"), "-p", str(d / f"two{k}.toml"),
+                     "-o", str(d / f"two{k}.cwire")]) == 0
+        capsys.readouterr()
+        assert main(["inspect", str(d / f"two{k}.cwire")]) == 0
+        rows = capsys.readouterr().out.splitlines()[1:-1]
+        assert rows and all(r.split()[3] == "ch0,ch1" for r in rows)  # the default: multi
+        # byte kind seq channels basis terms step [unit] bits status
+        assert all((r.split()[7] == want) if want else r.split()[7].isdigit() for r in rows)

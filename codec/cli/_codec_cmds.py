@@ -557,9 +557,11 @@ def _inspect(args) -> int:
         else:
             label = ",".join(names[c] if c < len(names) else str(c) for c in ln.channels)
             step = "-" if ln.step is None else format(ln.step, ".4g")
-            one = ln.channels[0] if len(ln.channels) == 1 else None
-            if ln.step is not None and one is not None and one < len(units) and units[one]:
-                step += f" {units[one]}"  # a step is in the channel's units (orthonormal basis)
+            # a step is in the channel's units (orthonormal basis); a multi-channel frame's
+            # coarsest step has a unit only when its channels share one
+            own = {units[c] if c < len(units) else None for c in ln.channels}
+            if ln.step is not None and len(own) == 1 and (unit := own.pop()):
+                step += f" {unit}"
             out.append(f"{ln.offset:>9} {ln.kind:<6} {ln.sequence:>6} {label[:20] or '-':<20} "
                        f"{ln.basis or '-':<8} {ln.terms:>5} {step:>14} {ln.bits:>7}  "
                        f"{ln.status}")

@@ -34,11 +34,17 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
     p.add_argument("--reference", choices=("total", "ac"),
                    help="reference energy: total = sum x^2, ac = sum (x - mean)^2")
     p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
-    p.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5, 6), metavar="V",
-                   help="frame layout the encoder writes: 6 (default: 5 with the Haar basis "
-                   "for a channel's bursty frames), 5 (3 with long-term prediction inside a "
+    p.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5, 6, 7), metavar="V",
+                   help="frame layout the encoder writes: 7 (default: 6 without count fields "
+                   "where they cost more than the zeros, and a range-coded string per "
+                   "channel of a multi-channel frame), 6 (5 with the Haar basis for a "
+                   "channel's bursty frames), 5 (3 with long-term prediction inside a "
                    "frame), 3, or 4 (adds dependent quantization where it saves bits: slower "
                    "to encode); 1 and 2 are older")
+    p.add_argument("--frames", choices=("multi", "single"),
+                   help="what one frame carries: every channel of its windows (multi; the "
+                   "default from layout 7: one header for all channels, but a lost frame "
+                   "loses them all) or one channel (single; the default before layout 7)")
     p.add_argument("--scope", choices=("window", "frame"), dest="fidelity_scope",
                    help="what one fidelity budget covers: every window of every channel "
                    "(window), or the windows of one channel that travel in one frame together "
@@ -49,13 +55,20 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
                    "only target)")
 
 
+def _frames_choice(args: argparse.Namespace) -> bool | None:
+    """``--frames``: True for multi, False for single, None when not given."""
+    frames = getattr(args, "frames", None)
+    return None if frames is None else frames == "multi"
+
+
 def resolve_profile(args: argparse.Namespace, names: list[str] | None = None) -> Profile:
     """The effective profile: file or built-in default, overrides applied, bound to ``names``."""
     profile = load_profile(args.profile) if args.profile else default_profile()
     profile = profile.override(basis=args.basis, fidelity=args.fidelity,
                                reference=args.reference, frame_length=args.frame_length,
                                layout_version=getattr(args, "layout", None),
-                               fidelity_scope=getattr(args, "fidelity_scope", None))
+                               fidelity_scope=getattr(args, "fidelity_scope", None),
+                               multi_channel_frames=_frames_choice(args))
     profile = profile.bind(names) if names is not None else profile
     max_error = getattr(args, "max_error", None)
     if max_error is not None:
