@@ -24,7 +24,7 @@ BasicMotions' 80 ten-second recordings are coded back to back; the weekly CO2
 series has weeks with no value, which are left out.
 
 For every recording, at F = 0.99, four codings: the default profile (DCT,
-N = 64, reference ac, layout 3) in ``window`` and in ``frame`` scope, and the
+N = 64, reference ac, layout 7, multi-channel frames) in ``window`` and in ``frame`` scope, and the
 profile ``coefwire init`` draws from the recording (resolution, basis, frame
 length) in both scopes.  Each is decoded, and every budget block (a window of
 a channel; in frame scope the windows of a channel in one frame) is checked on
@@ -43,11 +43,11 @@ the model counted on held-out windows) and the baseline in four forms: as
 benchmarked, at an error bisected to match, keeping the per-block promise,
 and compressed frame by frame like coefwire's independent frames.
 
-``--paths`` instead prints, for the default profile in frame scope, what
-changes of it would give, coded where the layouts can code them (layout 5,
-multi-channel frames) and estimated from the coder's own code lengths where
-they cannot (a flag that drops a frame's count fields), and how much of its
-error budgets the default coding spends.
+``--paths`` instead prints, for the default profile in frame scope, the
+codings it grew from (layout 6 with single-channel frames, the former
+default; layout 7 with single-channel frames; layout 6 with multi-channel
+frames, one range-coded string each), and how much of its error budgets the
+default coding spends.
 """
 
 from __future__ import annotations
@@ -199,7 +199,7 @@ def blocks_met(x: np.ndarray, x_hat: np.ndarray, profile) -> tuple[int, int]:
 
 
 def parse_stream(enc) -> dict:
-    """The fields of every frame of a layout-3 (4 to 6) stream (``parse_frames_v3``'s dict)."""
+    """The fields of every frame of a layout-3 (4 to 7) stream (``parse_frames_v3``'s dict)."""
     from codec.layouts.v3 import parse_frames_v3
     from codec.transform.bases import has_alternate_basis
 
@@ -217,7 +217,10 @@ def parse_stream(enc) -> dict:
             # layout 5: the prediction lag of each row, one step field per channel and
             # frame, the frame's exp-Golomb order of its mean fields
             "lag": f.row_lag, "predict": h.get("predict"), "one_step": h.get("one_step"),
-            "mean_order": h.get("mean_order")}
+            "mean_order": h.get("mean_order"),
+            # layout 7: frames with no count fields (every row's count is N)
+            "all_terms": h["all_terms"] > 0 if "all_terms" in h else np.zeros(len(f.verdict),
+                                                                            bool)}
 
 
 def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
@@ -233,8 +236,9 @@ def _count_field_bits(f: dict, later: np.ndarray, prev: np.ndarray, n: int) -> n
     from codec.entropy.rice import exp_golomb_bits, zigzag
 
     cp = later & f["count_pred"][f["frame"]]
-    return np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
+    bits = np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
                     int(n).bit_length())
+    return np.where(f["all_terms"][f["frame"]], 0, bits)
 
 
 def _later_rows(f: dict, channels: int) -> tuple[np.ndarray, np.ndarray]:
@@ -274,7 +278,7 @@ def bit_split(enc) -> dict:
         k = f["mean_order"][fr] if v5 else 0
         mean = signed_exp_golomb_bits(f["mean"] - np.where(mp, f["mean"][prev], 0), k).sum()
     count = _count_field_bits(f, later, prev, p.frame_length).sum()
-    coef = coefficient_cost_bits(f["q"], mean=f["mean"] is not None).sum()
+    coef = coefficient_cost_bits(f["q"], f["count"], mean=f["mean"] is not None).sum()
     total = len(enc.data) * 8
     samples = enc.reconstruction.size
     out = {"mean": mean, "step": step.sum(), "count": count, "coef": coef}
@@ -512,64 +516,44 @@ def _coded_frames(values, profile):
     return np.asarray(codec.locate_frames(enc.data).lengths), dec.samples, enc
 
 
-def _count_flag_saving(enc, channels: int) -> float:
-    """Bits/sample a per-frame flag dropping the count fields would save (an estimate).
-
-    A frame drops them where its count fields cost more than coding every
-    coefficient to N does, priced with the range coder's own code lengths of
-    the same integers; one flag bit per frame is counted.
-    """
-    from codec.entropy.rangecoder import coefficient_cost_bits
-
-    f = parse_stream(enc)
-    has_mean = f["mean"] is not None
-    tails = (coefficient_cost_bits(f["q"], np.full_like(f["count"], N_FRAME), mean=has_mean)
-             - coefficient_cost_bits(f["q"], f["count"], mean=has_mean))
-    later, prev = _later_rows(f, channels)
-    per_frame = np.bincount(f["frame"], _count_field_bits(f, later, prev, N_FRAME) - tails)
-    return (np.maximum(per_frame, 0).sum() - per_frame.size) / enc.reconstruction.size
-
-
 def run_paths(values, fidelity) -> dict:
-    """The default profile (frame scope) and what changes of it would give.
+    """The default profile (frame scope) and the codings it grew from.
 
-    ``today``: as coded (layout 6); ``layout5``: with layout 5 (no basis
-    switch); ``multi``: multi-channel frames (one header for every channel of
-    a block of windows); ``no_count`` and ``multi_no_count``: those two with a
-    frame flag (one bit) that drops the frame's count fields and codes every
-    coefficient to N, set where that saves bits (:func:`_count_flag_saving`,
-    an estimate).  Each as (bits/sample, differenced zstd's bits/sample at
-    that coding's error).  ``fill``: today's error energy over its budgets,
-    summed over the budget blocks (1: no budget left unspent).
+    ``today``: as coded (layout 7, multi-channel frames, a range-coded string
+    per channel); ``layout6``: layout 6 with single-channel frames (the
+    default before layout 7); ``single``: layout 7 with single-channel
+    frames (the count-free flag alone); ``one_string``: layout 6 with
+    multi-channel frames (one header and one string for every channel).
+    Each as (bits/sample, differenced zstd's bits/sample at that coding's
+    error).  ``fill``: today's error energy over its budgets, summed over
+    the budget blocks (1: no budget left unspent).
     """
     base = codec.Profile(fidelity=fidelity, frame_length=N_FRAME)
     out = {}
-    for label, update in (("today", {}), ("layout5", {"layout_version": 5}),
-                          ("multi", {"multi_channel_frames": True})):
+    for label, update in (("today", {}),
+                          ("layout6", {"layout_version": 6, "multi_channel_frames": False}),
+                          ("single", {"multi_channel_frames": False}),
+                          ("one_string", {"layout_version": 6, "multi_channel_frames": True})):
         _lengths, recon, enc = _coded_frames(values, base.model_copy(update=update))
         out[label] = (len(enc.data) * 8 / values.size, diff_zstd_bits(values, recon))
         if label == "today":
             err, budget = block_errors(values, recon, enc.profile)
             out["fill"] = float(err.sum() / budget.sum())
-        if label != "layout5":  # the same integers, so the same baseline
-            saved = _count_flag_saving(enc, values.shape[1])
-            out["no_count" if label == "today" else "multi_no_count"] = (
-                out[label][0] - saved, out[label][1])
     return out
 
 
-PATHS = ("layout5", "today", "no_count", "multi", "multi_no_count")
+PATHS = ("layout6", "single", "one_string", "today")
 
 
 def print_paths(recs: dict, fidelity: float) -> None:
     """The --paths table."""
     print(f"F = {fidelity}; default profile (DCT, N = {N_FRAME}), frame scope; bits/sample "
           "(ratio to differenced zstd-19 at the same error energy)")
-    print("layout5: the default profile with layout 5; today: as coded (layout 6); no_count: "
-          "where it saves bits, no count fields and every coefficient to N (+1 bit per frame; "
-          "estimate from the coder's code lengths); multi: multi-channel frames; "
-          "multi_no_count: both; fill: today's error energy over its budgets, summed over "
-          "the budget blocks")
+    print("layout6: layout 6, single-channel frames (the default before layout 7); single: "
+          "layout 7, single-channel frames (the count-free flag); one_string: layout 6, "
+          "multi-channel frames (one range-coded string per frame); today: as coded (layout 7, "
+          "multi-channel frames, a string per channel); fill: today's error energy over its "
+          "budgets, summed over the budget blocks")
     print(f"{'recording':<14} " + " ".join(f"{k:>16}" for k in PATHS) + "   fill")
     ratios = {k: [] for k in PATHS}
     for name, (_kind, values, _names, _step) in recs.items():
@@ -608,13 +592,13 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--only", help="comma-separated recording names")
     ap.add_argument("--split", action="store_true",
                     help="also print where the bits go (frame scope): mean, step and count "
-                    "fields, coefficients, frame header and CRC")
+                    "fields, coefficients, frame header (string lengths, padding) and CRC")
     ap.add_argument("--ideal", action="store_true",
                     help="instead: the default profile in frame scope against an oracle "
                     "coder of the same integers and against four forms of the baseline")
     ap.add_argument("--paths", action="store_true",
-                    help="instead: the default profile in frame scope against what changes "
-                    "of it would give (layout 5, multi-channel frames, no count fields)")
+                    help="instead: the default profile in frame scope against the codings "
+                    "it grew from (layout 6; single-channel frames; one string per frame)")
     args = ap.parse_args(argv)
     recs = recordings()
     if args.only:
