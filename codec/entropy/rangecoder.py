@@ -261,11 +261,14 @@ def _trellis_classes(mag: np.ndarray, q: np.ndarray, trellis) -> np.ndarray:
     return cls
 
 
-def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool = False):
+def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool = False,
+                    order: np.ndarray | None = None):
     """Coding operations of the coded coefficients (j < count) of each row of ``q``.
 
     Returns ``(cum, freq, shift, row)`` flat in row-major order (rows in order,
-    coefficients in order), ``row`` giving each operation's row.  Per
+    coefficients in order), ``row`` giving each operation's row.  With
+    ``order`` the rows are taken in that order (``row`` then indexes
+    ``order``), gathered block by block rather than copied whole.  Per
     coefficient: the model symbol; on escape (or for coefficient 0) the bit
     length symbol and the bits below the leading one; the ``s`` low bits; the
     sign of a non-zero.  Rare operations are built only where present.
@@ -276,13 +279,14 @@ def coefficient_ops(q: np.ndarray, count: np.ndarray, trellis=None, mean: bool =
     """
     ns, n = q.shape
     rows = max(1, _OPS_CELLS // max(n, 1))
-    if ns <= rows:
+    if ns <= rows and order is None:
         return _row_ops(q, count, trellis, mean)
     parts = []
     small = np.int32 if ns < 2**31 else np.int64  # the row numbers stay under 32 MB
     for a in range(0, ns, rows):  # blocks of rows: the temporaries stay in the CPU cache
-        tr = trellis if trellis is None or np.ndim(trellis) == 0 else trellis[a : a + rows]
-        cum, freq, shift, row = _row_ops(q[a : a + rows], count[a : a + rows], tr, mean)
+        at = slice(a, a + rows) if order is None else order[a : a + rows]
+        tr = trellis if trellis is None or np.ndim(trellis) == 0 else trellis[at]
+        cum, freq, shift, row = _row_ops(q[at], count[at], tr, mean)
         parts.append((cum, freq, shift, (row + a).astype(small)))
     return tuple(np.concatenate(x) for x in zip(*parts))
 

@@ -291,16 +291,17 @@ def _string_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win, cha
 
 
 def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None,
-                    all_terms: np.ndarray | None = None, string_len: np.ndarray | None = None):
+                    count: np.ndarray, all_terms: np.ndarray | None = None,
+                    string_len: np.ndarray | None = None):
     """Slots of every subframe header, the frame-header slots left free in each frame's first row.
 
-    Layout 7: ``all_terms`` (per frame) drops the count fields, and
+    ``count``: each row's last non-zero coefficient + 1.  Layout 7: ``all_terms``
+    (per frame) drops the count fields, and
     ``string_len`` (per frame and channel) gives the string-length fields.
     Returns ``(val, wid, first, lastrow, mean_pred, count_pred, predict,
     one_step, mean_order)`` (layout 5's per-frame fields, None for layouts 3 and 4).
     """
     nf, ns = len(batch), batch.q.shape[0]
-    count = _counts(batch.q)
     first = np.flatnonzero(np.r_[True, batch.frame[1:] != batch.frame[:-1]])
     lastrow = np.r_[first[1:] - 1, ns - 1]
     nh = len(HEADER_FIELDS_V3 if batch.lag is None else HEADER_FIELDS_V5)
@@ -402,7 +403,8 @@ def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bo
     one per channel of a multi-channel frame and the all-terms choice.
 
     Returns the bytes of every string, each frame's coefficient bytes, layout 7's
-    per-frame all-terms flags and its string lengths by (frame, channel) (None before).
+    per-frame all-terms flags and its string lengths by (frame, channel) (None before),
+    and each row's count (last non-zero coefficient + 1).
     """
     nf = len(batch)
     count = _counts(batch.q)
@@ -414,17 +416,17 @@ def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bo
     nlanes = max(int(lane.max(initial=-1)), int(lane_base[-1]) if nf else -1) + 1
     # rows of a lane in row order, lanes in order (a multi-channel frame's rows are
     # window-major, its strings channel by channel)
-    order = np.argsort(lane, kind="stable") if (np.diff(lane) < 0).any() else slice(None)
+    order = np.argsort(lane, kind="stable") if (np.diff(lane) < 0).any() else None
+    lane_sorted = lane if order is None else lane[order]
     all_terms = _all_terms(batch, count, first, owner, per_win, n) if strings else None
     while True:
         coded = count if all_terms is None else np.where(all_terms[owner], n, count)
-        cum, freq, shift, row = coefficient_ops(
-            batch.q[order], coded[order], trellis=None if quant is None else quant[order],
-            mean=batch.mean is not None)
-        lanes, string_len = encode_lanes(cum, freq, shift, lane[order][row], nlanes)
+        cum, freq, shift, row = coefficient_ops(batch.q, coded, trellis=quant,
+                                                mean=batch.mean is not None, order=order)
+        lanes, string_len = encode_lanes(cum, freq, shift, lane_sorted[row], nlanes)
         lane_len = np.add.reduceat(string_len, lane_base) if nf else string_len[:0]
         if all_terms is None:
-            return lanes, lane_len, None, None
+            return lanes, lane_len, None, None, count
         # an all-terms frame carries at least one coefficient byte per subframe, so the
         # rows a receiver decodes stay bounded by the frame's bytes (subframes_fit); a
         # frame that would not keeps its counts (its strings change, no other frame's)
@@ -436,7 +438,7 @@ def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bo
     multi_f = np.flatnonzero(batch.multi.astype(bool) & (channels > 1))
     idx = (multi_f[:, None] * channels + np.arange(channels)).ravel()
     str_len[idx] = string_len[(lane_base[multi_f][:, None] + np.arange(channels)).ravel()]
-    return lanes, lane_len, all_terms, str_len
+    return lanes, lane_len, all_terms, str_len, count
 
 
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
@@ -459,10 +461,11 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
         quant = (np.zeros(ns, dtype=bool) if batch.quantizer is None
                  else batch.quantizer.astype(bool))
     strings = version >= STRINGS_VERSION
-    lanes, lane_len, all_terms, str_len = _code_strings(batch, quant, n, channels, strings)
+    lanes, lane_len, all_terms, str_len, count = _code_strings(batch, quant, n, channels,
+                                                               strings)
     owner = batch.frame
     val, wid, first, lastrow, mean_pred, count_pred, predict, one_step, mean_order = \
-        _subframe_slots(batch, n, channels, quant, all_terms, str_len)
+        _subframe_slots(batch, n, channels, quant, count, all_terms, str_len)
     ctx = ParseContext(n, channels, batch.mean is not None)
     table = (HEADER_FIELDS_V3 if predict is None
              else HEADER_FIELDS_V7 if strings else HEADER_FIELDS_V5)
