@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .crc import crc16_ibm3740, crc16_prefix_states, crc16_span
+from .crc import crc16_ibm3740, crc16_span
 
 __all__ = [
     "SYNC",
@@ -180,9 +180,14 @@ def wrap_frames(body: np.ndarray, body_bytes: np.ndarray, key: FrameKey) -> np.n
     dest = np.repeat(ostart + len(SYNC) - bstart, body_bytes) + np.arange(body.size)
     out[dest] = body
     out[ostart[:, None] + np.arange(len(SYNC))] = np.frombuffer(SYNC, np.uint8)
-    # CRC of the implicit prefix (``FrameKey``) then the body: a frame's whole CRC.
-    states = crc16_prefix_states(np.ascontiguousarray(body, dtype=np.uint8))
-    crc = crc16_span(states, bstart, bstart + body_bytes, key.inits(length)).astype(np.int64)
+    # CRC of the implicit prefix (``FrameKey``: the register it leaves starts each frame's
+    # CRC) then the body, one C call per frame: a sender knows where its frames are, so
+    # it needs none of the receiver's prefix scan (about ten times the work per byte)
+    mv = memoryview(np.ascontiguousarray(body, dtype=np.uint8))
+    inits = key.inits(length).tolist()
+    crc = np.fromiter((binascii.crc_hqx(mv[a : a + n], i) for a, n, i in
+                       zip(bstart.tolist(), body_bytes.tolist(), inits)),
+                      dtype=np.int64, count=len(inits))
     cpos = ostart + length - CRC_BYTES
     out[cpos] = crc >> 8
     out[cpos + 1] = crc & 0xFF
