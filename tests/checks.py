@@ -11,6 +11,7 @@ import numpy as np
 from verify import assert_budgets
 
 __all__ = ["assert_meets_target", "assert_roundtrip", "assert_png_is_a_picture",
+           "assert_frames_decode_alone",
            "registered_layouts"]
 
 
@@ -63,3 +64,19 @@ def assert_png_is_a_picture(path):
     ink = (img[..., :3] < 0.9).any(axis=2)  # not (near) white
     assert 0.01 < ink.mean() < 0.9, ink.mean()
     assert len(np.unique(img[..., :3].reshape(-1, 3), axis=0)) > 8  # lines, text, colours
+
+
+def assert_frames_decode_alone(x, enc):
+    """Every frame of ``enc`` decodes on its own to the encoder's reconstruction of the
+    samples it carries; no two frames carry a sample, and together they carry all."""
+    import codec
+
+    loc = codec.locate_frames(enc.data)
+    covered = np.zeros(x.shape, bool)
+    for off, ln in zip(loc.offsets.tolist(), loc.lengths.tolist()):
+        dec = codec.decode(enc.data[off : off + ln], enc.profile, samples=x.shape[0])
+        ok = dec.delivered
+        assert np.array_equal(dec.samples[ok], enc.reconstruction[ok])
+        assert not (covered & ok).any()
+        covered |= ok
+    assert covered.all()
