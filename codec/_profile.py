@@ -201,10 +201,10 @@ class Profile(BaseModel):
     #: Frame layout the encoder writes (the decoder reads every version); 4 is 3 with
     #: dependent (trellis-coded) quantization, 5 is 3 with long-term prediction inside a
     #: frame, 6 is 5 with a choice of the Haar basis per channel and frame, 7 (the default)
-    #: is 6 with a frame flag dropping the count fields and a range-coded string per channel
-    #: of a multi-channel frame (measured on real recordings: README, "Bits on real
-    #: recordings").  Any registered layout (``codec.layouts.registry.register_layout``);
-    #: built in: 1 to 7.
+    #: is 6 with a flag per channel and frame dropping the count fields and a range-coded
+    #: string per channel of a multi-channel frame (measured on real recordings: README,
+    #: "Bits on real recordings").  Any registered layout
+    #: (``codec.layouts.registry.register_layout``); built in: 1 to 7.
     layout_version: int = 7
     #: Layouts 2 to 7: one frame (one header) carries all channels of its time windows.
     #: Unset (the default): the layout's choice, multi-channel frames from layout 7 on

@@ -24,18 +24,17 @@ KEY = FrameKey(EXAMPLE_DIGEST)  # as tests/test_layout_v3.py: digest 00 01 ... 1
 # FRAME_LAYOUT.md, "Version 7 worked example": N = 8, reference total, two channels,
 # profile id 0xABCD, the DCT (so the basis bit is sent), one window from sequence 5,
 # multi = 1; channel 0: step code 512, q = [3, -1, 0, ...]; channel 1: step code 512, all
-# zero.  Written out by hand from the layout tables: 39 header bits, channel 0's subframe
-# (step, L = 2, basis, string length 2 in 11 bits), channel 1's (step change 0, L = 0,
-# basis; no string field: the last channel), one bit of padding.
+# zero.  Written out by hand from the layout tables: 38 header bits, channel 0's subframe
+# (step, all_terms 0, L = 2, basis, string length 2 in 11 bits), channel 1's (step change
+# 0, all_terms 0, L = 0, basis; no string field: the last channel), no padding.
 HEADER7_BITS = (
-    "0111" "0" "00000001111" "11001101" "00000101" "0000" "1" "0" "0"
-    "1000000000" "0010" "0" "00000000010"
-    "1" "0000" "0"
-    "0"
+    "0111" "0" "00000001111" "11001101" "00000101" "0000" "1" "0"
+    "1000000000" "0" "0010" "0" "00000000010"
+    "1" "0" "0000" "0"
 )
 STRING0 = bytes.fromhex("0a45")  # the first version-3 example's bytes: the same integers
 EXAMPLE7 = bytes.fromhex("e35a") + int(HEADER7_BITS, 2).to_bytes(9, "big") + STRING0
-STRING_AT = 39 + 10 + 4 + 1  # bit of channel 0's string field after the sync marker
+STRING_AT = 38 + 10 + 1 + 4 + 1  # bit of channel 0's string field after the sync marker
 
 
 def _example_batch():
@@ -57,16 +56,16 @@ def test_worked_example_packs_to_the_documented_bytes():
     # CRC-16/IBM-3740 over the implicit prefix SHA-256(D || 00 00 00 0f), rebuilt by the
     # catalogue implementation of tests/crcref.py (check value 0x29B1) and hashlib
     want = with_crc(EXAMPLE7, EXAMPLE_DIGEST)
-    assert want.hex() == "e35a700fcd0509001001400a45aa65"
+    assert want.hex() == "e35a700fcd050a001001400a4572e7"
     data, length, sub_bits, lane = pack_frames_v3(_example_batch(), 0xABCD, 8, 2, version=7,
                                                   key=KEY)
     assert data == want and length.tolist() == [15] and lane.tolist() == [2]
-    assert sub_bits.tolist() == [10 + 4 + 1 + 11, 1 + 4 + 1]
+    assert sub_bits.tolist() == [10 + 1 + 4 + 1 + 11, 1 + 1 + 4 + 1]
 
 
 def test_worked_example_parses_and_decodes():
     p = _parse(with_crc(EXAMPLE7, EXAMPLE_DIGEST))
-    assert p.verdict == ("ok",) and p.header["all_terms"].tolist() == [0]
+    assert p.verdict == ("ok",) and p.row_all_terms.tolist() == [False, False]
     assert p.q.tolist() == [[3, -1, 0, 0, 0, 0, 0, 0], [0] * 8]
     assert p.row_channel.tolist() == [0, 1] and p.row_count.tolist() == [2, 0]
     # outside the codec: SciPy's orthonormal DCT-III of the levels (step code 512: step 1)
@@ -90,22 +89,22 @@ def test_a_string_length_past_the_bytes_is_refused():
     assert _parse(with_crc(bytes(body), EXAMPLE_DIGEST)).verdict == ("bad_header",)
 
 
-def _counts_reference(q, count, frame, per_win, n, has_mean):
-    """Per frame: the count fields' bits as sent and the cost of coding every coefficient,
-    from coefficient_cost_bits (the slow whole-matrix path) rather than zero_tail_bits."""
+def _counts_reference(q, count, frame, channel, per_win, n, has_mean):
+    """Per row's (frame, channel) block: the block's count fields' bits as sent (whole, or
+    as changes where cheaper) and the cost of coding every coefficient, from
+    coefficient_cost_bits (the slow whole-matrix path) rather than zero_tail_bits."""
     from codec.entropy.rice import exp_golomb_bits, zigzag
 
     tails = (coefficient_cost_bits(q, np.full(count.size, n), mean=has_mean)
              - coefficient_cost_bits(q, count, mean=has_mean))
-    nf = int(frame.max()) + 1
     first = np.flatnonzero(np.r_[True, frame[1:] != frame[:-1]])
     pos = np.arange(frame.size) - first[frame]
     later = pos >= per_win
     prev = np.where(later, np.arange(frame.size) - per_win, 0)
     change = np.where(later, exp_golomb_bits(zigzag(count - count[prev])), n.bit_length())
-    fields = np.minimum(np.bincount(frame, change, nf),
-                        np.bincount(frame, minlength=nf) * n.bit_length())
-    return fields, np.bincount(frame, tails, nf)
+    block = np.unique(frame * 1000 + channel, return_inverse=True)[1]
+    fields = np.minimum(np.bincount(block, change), np.bincount(block) * n.bit_length())
+    return fields[block], np.bincount(block, tails)[block]
 
 
 def test_zero_tails_match_the_whole_cost_of_the_coder():
@@ -127,7 +126,7 @@ def _weather():
 
 
 @pytest.mark.parametrize("source, multi", [("weather", False), ("weather", True),
-                                           ("motion", False)])
+                                           ("motion", False), ("motion", True)])
 def test_the_flag_is_set_where_counts_cost_more_than_the_zeros(source, multi):
     x = _weather() if source == "weather" else motion()[:4000]
     ch = x.shape[1]
@@ -136,21 +135,26 @@ def test_the_flag_is_set_where_counts_cost_more_than_the_zeros(source, multi):
     loc = locate_frames(enc.data)
     p = parse_frames_v3(enc.data, loc.offsets, loc.lengths, 64, ch, True, version=7, switch=True)
     assert set(p.verdict) == {"ok"}
-    flag = p.header["all_terms"] > 0
+    flag = p.row_all_terms  # per row, alike for a channel's rows in a frame
     assert flag.any()
     if source == "motion":
-        assert not flag.all()  # here some frames keep their counts
-    assert (p.row_count[flag[p.row_frame]] == 64).all()
-    # the counts the frame would send: the last non-zero plus one
+        assert not flag.all()  # here some channels keep their counts
+    assert (p.row_count[flag] == 64).all()
+    # the counts the channel would send: the last non-zero plus one
     nz = p.q != 0
     count = np.where(nz.any(1), 64 - np.argmax(nz[:, ::-1], axis=1), 0)
-    fields, tails = _counts_reference(p.q, count, p.row_frame, ch if multi else 1, 64, True)
-    # (no frame here comes near the one-byte-per-subframe rule, which would keep counts)
+    fields, tails = _counts_reference(p.q, count, p.row_frame, p.row_channel,
+                                      ch if multi else 1, 64, True)
+    # (no channel here comes near the one-byte-per-subframe rule, which would keep counts)
     assert np.array_equal(flag, tails < fields)
     dec = codec.decode(enc.data, enc.profile, samples=x.shape[0])
     assert dec.delivered.all() and np.array_equal(dec.samples, enc.reconstruction)
     assert_meets_target(x, dec.samples, enc.profile)
-    v6 = codec.encode(x, prof.model_copy(update={"layout_version": 6}))
+    # shorter than layout 6's single-channel frames (the default before layout 7); against
+    # layout 6's multi-channel frames (one string each) the string lengths and ends can
+    # cost more than the flag saves: on the accelerograph record they do
+    v6 = codec.encode(x, prof.model_copy(update={"layout_version": 6,
+                                                 "multi_channel_frames": False}))
     assert len(enc.data) < len(v6.data)
 
 
@@ -183,11 +187,12 @@ def test_every_v7_frame_decodes_on_its_own(multi):
 
 def test_an_all_terms_frame_with_fewer_bytes_than_subframes_is_refused():
     # Written by hand from the layout tables: N = 8, reference total, one channel, two
-    # windows, all_terms = 1 (no count_change, no count fields), predict 0, one_step 1;
-    # subframe 0: step 512 and the basis bit, subframe 1: nothing; no coefficient bytes.
-    # Every count is then N: 16 coefficients decoded from 0 bytes, which the rule refuses.
-    bits = ("0111" "0" "00000001011" "11001101" "00000000" "0001" "0" "0" "1" "0" "1"
-            "1000000000" "0")
+    # windows, count_change 0, predict 0, one_step 1; subframe 0: step 512, all_terms 1
+    # (no count field) and the basis bit, subframe 1: nothing (one step, the channel's
+    # flag, no basis field); no coefficient bytes.  Every count is then N: 16
+    # coefficients decoded from 0 bytes, which the rule refuses.
+    bits = ("0111" "0" "00000001011" "11001101" "00000000" "0001" "0" "0" "0" "0" "1"
+            "1000000000" "1" "0")
     bits += "0" * (-len(bits) % 8)
     frame = with_crc(bytes.fromhex("e35a") + int(bits, 2).to_bytes(len(bits) // 8, "big"),
                      EXAMPLE_DIGEST)
@@ -201,7 +206,7 @@ def test_an_all_terms_frame_with_fewer_bytes_than_subframes_is_refused():
         lag=np.array([0, 0]), alternate=np.array([False, False]))
     data, *_ = pack_frames_v3(batch, 0xABCD, 8, 1, version=7, key=KEY)
     p = _parse(data, channels=1)
-    assert p.verdict == ("ok",) and p.header["all_terms"].tolist() == [0]
+    assert p.verdict == ("ok",) and p.row_all_terms.tolist() == [False, False]
 
 
 def test_hostile_header_bits_never_crash_the_decoder():
@@ -227,6 +232,6 @@ def test_without_an_alternate_and_in_one_channel_the_frame_is_version_6s_but_the
     v7, *_ = pack_frames_v3(batch, 0xABCD, 8, 1, version=7, key=KEY)
     v6, *_ = pack_frames_v3(batch, 0xABCD, 8, 1, version=6, key=KEY)
     p7 = _parse(v7, channels=1)
-    assert p7.verdict == ("ok",) and p7.header["all_terms"].tolist() == [0]
+    assert p7.verdict == ("ok",) and p7.row_all_terms.tolist() == [False, False]
     assert p7.q.tolist() == parse_frames_v3(v6, np.array([0]), np.array([len(v6)]), 8, 1, False,
                                             version=6).q.tolist()

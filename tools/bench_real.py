@@ -218,9 +218,8 @@ def parse_stream(enc) -> dict:
             # frame, the frame's exp-Golomb order of its mean fields
             "lag": f.row_lag, "predict": h.get("predict"), "one_step": h.get("one_step"),
             "mean_order": h.get("mean_order"),
-            # layout 7: frames with no count fields (every row's count is N)
-            "all_terms": h["all_terms"] > 0 if "all_terms" in h else np.zeros(len(f.verdict),
-                                                                            bool)}
+            # layout 7: rows whose channel sends no count in the frame (count N), or None
+            "all_terms": f.row_all_terms}
 
 
 def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
@@ -232,13 +231,16 @@ def signed_exp_golomb_bits(v: np.ndarray, k: int = 0) -> np.ndarray:
 
 def _count_field_bits(f: dict, later: np.ndarray, prev: np.ndarray, n: int) -> np.ndarray:
     """Each row's count field bits: whole, or as the change from its channel's previous
-    window where the frame's flag says so."""
+    window where the frame's flag says so; layout 7: none where the channel's all-terms
+    flag is set, and the flag bit in the channel's first subframe."""
     from codec.entropy.rice import exp_golomb_bits, zigzag
 
     cp = later & f["count_pred"][f["frame"]]
     bits = np.where(cp, exp_golomb_bits(zigzag(f["count"] - f["count"][prev])),
                     int(n).bit_length())
-    return np.where(f["all_terms"][f["frame"]], 0, bits)
+    if f["all_terms"] is None:
+        return bits
+    return np.where(f["all_terms"], 0, bits) + ~later
 
 
 def _later_rows(f: dict, channels: int) -> tuple[np.ndarray, np.ndarray]:

@@ -212,7 +212,9 @@ class ParsedFrames:
     ``row_lag`` (None, or each row's long-term prediction lag, 0 where not
     predicted: :func:`codec.transform.predict.add_predictions`) and
     ``row_alternate`` (None, or whether each row is on the alternate basis,
-    layout 6: :func:`codec.transform.bases.alternate_basis`).  Rows of
+    layouts 6 and 7: :func:`codec.transform.bases.alternate_basis`) and
+    ``row_all_terms`` (None, or whether each row's channel sends no count in
+    its frame and codes every coefficient, layout 7).  Rows of
     refused frames hold whatever was read; the decoder never uses them.
 
     Attributes
@@ -220,7 +222,7 @@ class ParsedFrames:
     verdict, detail, sequence, valid, terms, step_code, header
         Per frame, as above.
     row_frame, row_channel, row_offset, row_valid, row_step, row_mean, row_count, row_trellis, q
-    row_lag, row_alternate
+    row_lag, row_alternate, row_all_terms
         Per row, as above.
 
     Examples
@@ -260,6 +262,7 @@ class ParsedFrames:
     q: np.ndarray
     row_lag: np.ndarray | None = None
     row_alternate: np.ndarray | None = None
+    row_all_terms: np.ndarray | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "header", MappingProxyType(dict(self.header)))  # read-only

@@ -142,7 +142,8 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
                     mean: np.ndarray | None, count: np.ndarray, lb: int, n: int,
                     quantizer: np.ndarray | None = None, mean_pred: np.ndarray | None = None,
                     count_pred: np.ndarray | None = None, prev: np.ndarray | None = None,
-                    step_same: np.ndarray | None = None, mean_order: np.ndarray | None = None
+                    step_same: np.ndarray | None = None, mean_order: np.ndarray | None = None,
+                    terms_lead: np.ndarray | None = None, terms: np.ndarray | None = None
                     ) -> tuple[np.ndarray, np.ndarray]:
     """Read subframe ``s`` of each frame (layouts 2 to 5): step, mean, term count.
 
@@ -153,9 +154,13 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
     zig-zag exp-Golomb change from row ``prev`` (the same channel's previous
     window in the frame); layout 5 sends no step at rows with ``step_same``
     (the step of row ``prev``) and its mean fields as exp-Golomb codes of
-    order ``mean_order`` (per row).  Fills ``step``, ``mean`` and ``count`` (and layout
-    4's ``quantizer`` bit) at ``rows``; returns the bit positions after them
-    and which frames hold an impossible value (refused by the decoder).
+    order ``mean_order`` (per row).  Layout 7 reads, at rows with
+    ``terms_lead`` (a channel's first subframe in the frame), a flag bit before
+    the count into ``terms`` (later rows repeat row ``prev``'s); a flagged row
+    has no count field and codes all ``n`` coefficients.  Fills ``step``,
+    ``mean`` and ``count`` (and layout 4's ``quantizer`` bit) at ``rows``;
+    returns the bit positions after them and which frames hold an impossible
+    value (refused by the decoder).
     """
     from ..entropy.rice import read_exp_golomb, unzigzag
 
@@ -182,14 +187,26 @@ def read_subheaders(r, pp: np.ndarray, rows: np.ndarray, s: int, step: np.ndarra
         mean[rows] = unzigzag(v) + (0 if mean_pred is None
                                     else np.where(mean_pred, mean[prev], 0))
         pp = pp + used
+    if terms is not None:  # layout 7: the channel's flag, then no count where it is set
+        lead = np.flatnonzero(terms_lead)
+        pp = pp.copy()
+        terms[rows[lead]] = r.read(pp[lead], 1) > 0
+        pp[lead] += 1
+        back = np.flatnonzero(~terms_lead)
+        terms[rows[back]] = terms[prev[back]]
+        lb = np.where(terms[rows], 0, lb)
+        if count_pred is not None:
+            count_pred = count_pred & ~terms[rows]
     c = r.read(pp, lb)
-    width = np.full(pp.size, lb)
+    width = np.broadcast_to(np.asarray(lb), pp.shape).copy()
     ci = np.flatnonzero(count_pred) if count_pred is not None else np.zeros(0, np.int64)
     if ci.size:
         v, width[ci] = read_exp_golomb(r, pp[ci])
         c[ci] = count[prev[ci]] + unzigzag(v)
     bad |= (c < 0) | (c > n)
     count[rows] = np.clip(c, 0, n)
+    if terms is not None:
+        count[rows[terms[rows]]] = n
     pp = pp + width
     if quantizer is not None:  # layout 4
         quantizer[rows] = r.read(pp, 1)
@@ -201,7 +218,7 @@ def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n
                   has_mean: bool, quantizer_bit: bool = False,
                   count_change: np.ndarray | None = None,
                   one_step: np.ndarray | None = None,
-                  all_terms: np.ndarray | None = None) -> np.ndarray:
+                  terms_bit: bool = False) -> np.ndarray:
     """Whether each frame's bytes can hold the ``cnt`` subframe headers it claims (layouts 2-5).
 
     A subframe header takes at least its step (10 bits for the first, a 1-bit
@@ -212,16 +229,17 @@ def subframes_fit(cnt: np.ndarray, head_bits: np.ndarray, lengths: np.ndarray, n
     bit.  ``head_bits`` are the bits the frame header took from the sync
     marker on.  Checked before a parser allocates any row, so a short frame
     claiming 16 windows of every channel costs no more than its length.
-    Layout 7's ``all_terms`` frames send no count but at least one coefficient
-    byte per subframe, which the bound counts instead.
+    Layout 7 (``terms_bit``) sends a flag bit in each channel's first
+    subframe; a flagged channel sends no count but at least one coefficient
+    byte per subframe, an unflagged one its counts: at least one bit per
+    subframe either way, which the bound counts.
     """
     fixed = int(has_mean) + int(quantizer_bit)
     later_count = (count_bits(n) if count_change is None
                    else np.where(count_change, 1, count_bits(n)))
     first_count = count_bits(n)
-    if all_terms is not None:
-        later_count = np.where(all_terms, 8, later_count)
-        first_count = np.where(all_terms, 8, first_count)
+    if terms_bit:
+        later_count, first_count = 1, 1
     later_step = 1 if one_step is None else np.where(one_step, 0, 1)
     need = np.where(cnt > 0, STEP_BITS + fixed + first_count
                     + (cnt - 1) * (later_step + fixed + later_count), 0)
@@ -235,7 +253,8 @@ def parsed_frames(v: Verdicts, head: dict, valid: np.ndarray, owner: np.ndarray,
                   channel: np.ndarray, offset: np.ndarray, row_valid: np.ndarray,
                   step: np.ndarray, mean: np.ndarray | None, count: np.ndarray,
                   trellis: np.ndarray, q: np.ndarray, lag: np.ndarray | None = None,
-                  alternate: np.ndarray | None = None) -> ParsedFrames:
+                  alternate: np.ndarray | None = None,
+                  all_terms: np.ndarray | None = None) -> ParsedFrames:
     """The :class:`ParsedFrames` of subframe rows; per frame, the terms and coarsest step.
 
     A frame of several windows has one step each: the frame table shows the coarsest.
@@ -247,7 +266,7 @@ def parsed_frames(v: Verdicts, head: dict, valid: np.ndarray, owner: np.ndarray,
     np.maximum.at(frame_step, owner, step)
     return ParsedFrames(tuple(v.verdict), tuple(v.detail), head["sequence"], valid, terms,
                         frame_step, head, owner, np.minimum(channel, 255), offset, row_valid,
-                        step, mean, count, trellis, q, lag, alternate)
+                        step, mean, count, trellis, q, lag, alternate, all_terms)
 
 
 def parse_checked(parse, data: bytes, offsets: np.ndarray, lengths: np.ndarray,

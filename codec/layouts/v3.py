@@ -86,9 +86,9 @@ LAYOUT_VERSION_3 = 3
 MEAN_ORDER_BITS = 4
 #: The other versions these routines serve and what each adds to version 3's subframes:
 #: 4 the quantizer bit (:mod:`codec.layouts.v4`), 5 the prediction fields
-#: (:mod:`codec.layouts.v5`), 6 those and the basis switch (:mod:`codec.layouts.v6`), 7 those,
-#: a frame flag dropping the count fields and a range-coded string per channel of a
-#: multi-channel frame (:mod:`codec.layouts.v7`).
+#: (:mod:`codec.layouts.v5`), 6 those and the basis switch (:mod:`codec.layouts.v6`), 7
+#: those, a flag per channel and frame dropping the count fields and a range-coded string
+#: per channel of a multi-channel frame (:mod:`codec.layouts.v7`).
 QUANTIZER_BIT_VERSION, PREDICTION_VERSION, SWITCH_VERSION, STRINGS_VERSION = 4, 5, 6, 7
 WINDOW_BITS = 4
 #: Smallest possible v3 frame: sync, 4 header bytes, CRC.
@@ -139,13 +139,8 @@ HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
      "order k of the exp-Golomb codes of the mean fields (reference ac, layouts 5 to 7)"),
 )
 
-#: Layout 7: layout 5's header with the ``all_terms`` flag before ``count_change``, which
-#: it makes absent (:mod:`codec.layouts.v7`).
-HEADER_FIELDS_V7 = HEADER_FIELDS_V3[:-1] + (
-    ("all_terms", 1, "1: no count fields; every subframe codes all N coefficients (layout 7)"),
-    ("count_change", lambda h, c: _several(h, c) & (h["all_terms"] == 0),
-     "1: later windows send their count as a change (windows > 1, all_terms = 0)"),
-) + HEADER_FIELDS_V5[len(HEADER_FIELDS_V3):]
+#: Layout 7: layout 5's header; its new fields are in the subframes (:mod:`codec.layouts.v7`).
+HEADER_FIELDS_V7 = HEADER_FIELDS_V5
 
 
 @dataclass(frozen=True)
@@ -296,7 +291,8 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     """Slots of every subframe header, the frame-header slots left free in each frame's first row.
 
     ``count``: each row's last non-zero coefficient + 1.  Layout 7: ``all_terms``
-    (per frame) drops the count fields, and
+    (per row, alike for a channel's rows in a frame) is the flag bit before the
+    count of a channel's first subframe, and drops the channel's count fields; and
     ``string_len`` (per frame and channel) gives the string-length fields.
     Returns ``(val, wid, first, lastrow, mean_pred, count_pred, predict,
     one_step, mean_order)`` (layout 5's per-frame fields, None for layouts 3 and 4).
@@ -306,7 +302,6 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     lastrow = np.r_[first[1:] - 1, ns - 1]
     nh = len(HEADER_FIELDS_V3 if batch.lag is None else HEADER_FIELDS_V5)
     strings = string_len is not None
-    nh += strings  # layout 7's all_terms flag
     alt_col = nh + 4 + (quant is not None) + (batch.lag is not None)
     nsub = alt_col - nh + (batch.alternate is not None) + strings
     val = np.zeros((ns, nh + nsub + 1), dtype=np.uint64)
@@ -321,15 +316,20 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     prev = np.where(has_prev, np.arange(ns) - per_win, 0)
     mean_pred, count_pred, mean_sent, count_delta = _predictions(
         batch.mean, count, prev, has_prev, owner, nf, count_bits(n))
-    if all_terms is not None:
-        count_pred &= ~all_terms
+    if all_terms is not None:  # the change flag weighs the counts still sent
+        sent = has_prev & ~all_terms
+        count_pred = np.bincount(owner, np.where(sent, exp_golomb_bits(count_delta), 0),
+                                 minlength=nf) < np.bincount(owner, sent * count_bits(n),
+                                                             minlength=nf)
     write_subheaders(val, wid, nh, lead, batch.step_code, mean_sent, count, count_bits(n),
                      quant)
     cp = count_pred[owner] & has_prev
     val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
     wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
-    if all_terms is not None:  # layout 7: no count fields in such a frame
-        wid[all_terms[owner], nh + 3] = 0
+    if all_terms is not None:  # layout 7: the flag, then the count only where it is 0
+        lead = ~has_prev
+        val[:, nh + 3] = np.where(lead & all_terms, 1, np.where(all_terms, 0, val[:, nh + 3]))
+        wid[:, nh + 3] = np.where(all_terms, lead, wid[:, nh + 3] + lead)
     predict = one_step = mean_order = None
     if batch.lag is not None:  # layout 5
         predict = _prediction_slots(batch, val, wid, nh + 4, first, owner, per_win, n, channels)
@@ -380,21 +380,21 @@ def _lanes_of_rows(multi: np.ndarray, owner: np.ndarray, channel: np.ndarray, ch
 
 
 def _all_terms(batch: FrameBatchV3, count: np.ndarray, first: np.ndarray, owner: np.ndarray,
-               per_win: np.ndarray, n: int) -> np.ndarray:
-    """Layout 7: the frames whose count fields cost more than coding every coefficient.
+               per_win: np.ndarray, n: int, lane: np.ndarray, nlanes: int) -> np.ndarray:
+    """Layout 7: per lane (a channel in a frame), whether its count fields cost more than
+    coding every coefficient.
 
-    Each frame's count fields are priced as sent (whole, or as changes where
-    that is cheaper); the zeros after each count at the range coder's ideal
-    code lengths (:func:`codec.entropy.rangecoder.zero_tail_bits`).
+    A channel's count fields are priced as sent (whole, or as changes where
+    that is cheaper for the channel); the zeros after each count at the range
+    coder's ideal code lengths (:func:`codec.entropy.rangecoder.zero_tail_bits`).
     """
-    nf = first.size
     has_prev = np.arange(owner.size) - first[owner] >= per_win
     prev = np.where(has_prev, np.arange(owner.size) - per_win, 0)
     change = np.where(has_prev, exp_golomb_bits(zigzag(count - count[prev])), count_bits(n))
-    fields = np.minimum(np.bincount(owner, change, minlength=nf),
-                        np.bincount(owner, minlength=nf) * count_bits(n))
-    tails = np.bincount(owner, zero_tail_bits(batch.q, count, batch.mean is not None),
-                        minlength=nf)
+    fields = np.minimum(np.bincount(lane, change, minlength=nlanes),
+                        np.bincount(lane, minlength=nlanes) * count_bits(n))
+    tails = np.bincount(lane, zero_tail_bits(batch.q, count, batch.mean is not None),
+                        minlength=nlanes)
     return tails < fields
 
 
@@ -403,8 +403,9 @@ def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bo
     one per channel of a multi-channel frame and the all-terms choice.
 
     Returns the bytes of every string, each frame's coefficient bytes, layout 7's
-    per-frame all-terms flags and its string lengths by (frame, channel) (None before),
-    and each row's count (last non-zero coefficient + 1).
+    all-terms flag of each row (alike for a channel's rows in a frame) and its
+    string lengths by (frame, channel) (None before), and each row's count
+    (last non-zero coefficient + 1).  In layout 7 a lane is one channel in one frame.
     """
     nf = len(batch)
     count = _counts(batch.q)
@@ -418,19 +419,20 @@ def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bo
     # window-major, its strings channel by channel)
     order = np.argsort(lane, kind="stable") if (np.diff(lane) < 0).any() else None
     lane_sorted = lane if order is None else lane[order]
-    all_terms = _all_terms(batch, count, first, owner, per_win, n) if strings else None
+    all_terms = (_all_terms(batch, count, first, owner, per_win, n, lane, nlanes) if strings
+                 else None)
     while True:
-        coded = count if all_terms is None else np.where(all_terms[owner], n, count)
+        coded = count if all_terms is None else np.where(all_terms[lane], n, count)
         cum, freq, shift, row = coefficient_ops(batch.q, coded, trellis=quant,
                                                 mean=batch.mean is not None, order=order)
         lanes, string_len = encode_lanes(cum, freq, shift, lane_sorted[row], nlanes)
         lane_len = np.add.reduceat(string_len, lane_base) if nf else string_len[:0]
         if all_terms is None:
             return lanes, lane_len, None, None, count
-        # an all-terms frame carries at least one coefficient byte per subframe, so the
-        # rows a receiver decodes stay bounded by the frame's bytes (subframes_fit); a
-        # frame that would not keeps its counts (its strings change, no other frame's)
-        thin = all_terms & (lane_len < np.bincount(owner, minlength=nf))
+        # an all-terms channel carries at least one coefficient byte per subframe, so the
+        # rows a receiver decodes stay bounded by the frame's bytes (subframes_fit); one
+        # that would not keeps its counts (its string changes, no other)
+        thin = all_terms & (string_len < np.bincount(lane, minlength=nlanes))
         if not thin.any():
             break
         all_terms = all_terms & ~thin
@@ -438,7 +440,7 @@ def _code_strings(batch: FrameBatchV3, quant, n: int, channels: int, strings: bo
     multi_f = np.flatnonzero(batch.multi.astype(bool) & (channels > 1))
     idx = (multi_f[:, None] * channels + np.arange(channels)).ravel()
     str_len[idx] = string_len[(lane_base[multi_f][:, None] + np.arange(channels)).ravel()]
-    return lanes, lane_len, all_terms, str_len, count
+    return lanes, lane_len, all_terms[lane], str_len, count
 
 
 def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
@@ -474,7 +476,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
               "multi": batch.multi.astype(bool), "channel": batch.channel,
               "short": batch.valid < n, "valid_minus_1": batch.valid - 1,
               "mean_change": mean_pred, "count_change": count_pred, "predict": predict,
-              "one_step": one_step, "mean_order": mean_order, "all_terms": all_terms}
+              "one_step": one_step, "mean_order": mean_order}
     head_bits = header_bits(table, fields, ctx, nf, skip=("length",))
     nh = len(table)
     # layout 7's string lengths take the length field's width: 11 bits, 27 in a long frame
@@ -500,12 +502,13 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
                          switch=False, strings=False):
     """Every subframe header of every frame.
 
-    Returns (step, mean, count, quant, lag, alternate, string_len, end pos, bad);
+    Returns (step, mean, count, quant, lag, alternate, string_len, terms, end pos, bad);
     ``lag`` (layouts 5 to 7, else None) is each row's prediction lag, 0 where it
     is not predicted; ``alternate`` (layouts 6 and 7 with ``switch``, else None)
     whether each row is on the alternate basis; ``string_len`` (layout 7, else
     None) per frame and subframe slot, the string length a channel's first
-    subframe of a multi-channel frame sends (-1 where none is sent).
+    subframe of a multi-channel frame sends (-1 where none is sent); ``terms``
+    (layout 7, else None) each row's all-terms flag.
     """
     ns = int(cnt.sum())
     sstart = np.cumsum(cnt) - cnt
@@ -518,8 +521,7 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
         lag, chlag = np.zeros(ns, np.int64), np.zeros(ns, np.int64)
     alternate = np.zeros(ns, bool) if switch else None
     mean_pred, count_pred = h["mean_change"] > 0, h["count_change"] > 0
-    lb = count_bits(n)
-    all_terms = h["all_terms"] > 0 if strings else np.zeros(cnt.size, bool)
+    terms = np.zeros(ns, bool) if strings else None
     width = np.where(h["long"] > 0, LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
     nmax = int(per_win.max(initial=1))
     string_len = np.full((cnt.size, nmax), -1, np.int64) if strings else None
@@ -529,16 +531,15 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
         rows = sstart[fr] + s
         pw = per_win[fr]
         later = s >= pw
-        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count,
-                                      np.where(all_terms[fr], 0, lb), n,
+        p[fr], bad = read_subheaders(r, p[fr], rows, s, step, mean, count, count_bits(n), n,
                                       quant, later & mean_pred[fr], later & count_pred[fr],
                                       np.where(later, rows - pw, rows),
                                       later & (h["one_step"][fr] > 0) if predict else None,
-                                      h["mean_order"][fr] if predict and has_mean else None)
+                                      h["mean_order"][fr] if predict and has_mean else None,
+                                      ~later if strings else None, terms)
         bad_any[fr] |= bad
         if predict:
             p[fr] = _read_prediction(r, p[fr], rows, s, pw, h["predict"][fr] > 0, lag, chlag, n)
-        count[rows[all_terms[fr]]] = n  # layout 7: no count field, every coefficient
         if switch:  # a channel's first subframe sends the bit, its later ones repeat it
             lead = np.flatnonzero(~later)
             alternate[rows[lead]] = r.read(p[fr][lead], 1) > 0
@@ -551,7 +552,7 @@ def _read_subheaders_all(r, p, cnt, per_win, h, has_mean, quantizer_bit, n, pred
                 f = fr[on]
                 string_len[f, s] = r.read(p[f], width[f])
                 p[f] += width[f]
-    return step, mean, count, quant, lag, alternate, string_len, p, bad_any
+    return step, mean, count, quant, lag, alternate, string_len, terms, p, bad_any
 
 
 def _read_prediction(r, pp, rows, s, pw, on, lag, chlag, n):
@@ -607,27 +608,29 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     # Before anything is allocated: a frame whose header claims more subframes than its
     # own bytes can hold (each subframe header takes at least min_subframe_bits) is
     # refused and gets no rows, so the work and memory per frame follow its length.
-    all_terms = h["all_terms"] > 0 if strings else np.zeros(offsets.size, bool)
     fits = subframes_fit(cnt, p - offsets * 8, lengths, n, has_mean,
                          version == QUANTIZER_BIT_VERSION, h["count_change"] > 0,
-                         h["one_step"] > 0 if predict else None, all_terms)
+                         h["one_step"] > 0 if predict else None, strings)
     cnt = np.where(fits, cnt, 0)
     owner = np.repeat(np.arange(offsets.size), cnt)
     slot = np.arange(owner.size) - (np.cumsum(cnt) - cnt)[owner]
     woff = slot // per_win[owner]
     sub_channel = np.where(multi[owner], slot % per_win[owner], h["channel"][owner])
-    step, mean, count, quant, lag, alternate, string_len, p, bad = _read_subheaders_all(
+    step, mean, count, quant, lag, alternate, string_len, terms, p, bad = _read_subheaders_all(
         r, p, cnt, per_win, h, has_mean, version == QUANTIZER_BIT_VERSION, n, predict, switch,
         strings)
     start = offsets + (p - offsets * 8 + 7) // 8
     end = offsets + lengths - CRC_BYTES
     ok = fits & ~bad & (start <= end) & (h["length"] == lengths)
     start = np.minimum(start, end)
-    # an all-terms frame (layout 7) carries at least a coefficient byte per subframe
-    ok &= ~all_terms | (end - start >= cnt)
     lane, lstart, lend, lok, lane_frame = _string_bounds(
         multi, owner, sub_channel, channels, strings, string_len, start, end)
     ok &= lok
+    if strings:  # an all-terms channel carries at least a coefficient byte per subframe:
+        # a frame that breaks it is refused and decodes nothing (work follows its bytes)
+        thin = np.bincount(lane, terms, minlength=lstart.size) > lend - lstart
+        ok &= np.bincount(lane_frame, thin, minlength=offsets.size) == 0
+        count = np.where(ok[owner], count, 0)
     buf = np.frombuffer(data, dtype=np.uint8)
     trellis = np.zeros(owner.size, bool) if quant is None else quant.astype(bool)
     q, bad, reads = decode_coefficients(buf, lstart, lend, lane, count, n,
@@ -644,7 +647,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     refuse_contents(v, valid, owner, sub_channel, ok, ctx)
     sub_valid = np.where(woff == windows[owner] - 1, valid[owner], n)
     return parsed_frames(v, h, valid, owner, sub_channel, woff, sub_valid, step, mean, count,
-                         trellis, q, lag, alternate)
+                         trellis, q, lag, alternate, terms)
 
 
 def _string_bounds(multi, owner, channel, channels, strings, string_len, start, end):

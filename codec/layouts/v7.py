@@ -1,12 +1,13 @@
-"""Frame layout version 7: layout 6 with a frame flag dropping the count fields, and one
-range-coded string per channel of a multi-channel frame.
+"""Frame layout version 7: layout 6 with a flag per channel and frame dropping the count
+fields, and one range-coded string per channel of a multi-channel frame.
 
 Version 7 is version 6 except the version field and:
 
-* a frame-header bit ``all_terms`` before ``count_change``: 1 when the frame
-  sends no count fields and every subframe codes all N coefficients (then
-  ``count_change`` is absent).  The encoder sets it where the count fields
-  cost more than the zeros after them (:func:`codec.layouts.v3.pack_frames_v3`);
+* a bit ``all_terms`` before the count of each channel's first subframe in
+  the frame: 1 when none of the channel's subframes in the frame has a count
+  field and each codes all N coefficients.  The encoder sets it where the
+  channel's count fields cost more than the zeros after them
+  (:func:`codec.layouts.v3.pack_frames_v3`);
 * in a multi-channel frame each channel's coefficients are a range-coded
   string of their own, channel by channel, and each channel's first
   subframe header but the last channel's ends with its string's length in
