@@ -73,6 +73,11 @@ def error_figures(x: np.ndarray, x_hat: np.ndarray) -> dict:
     >>> round(f["snr_db"], 2), f["prd_percent"], f["max_abs_error"]
     (13.98, 20.0, 1.0)
     """
+    return _figures_of(*_error_sums(x, x_hat))
+
+
+def _error_sums(x: np.ndarray, x_hat: np.ndarray) -> tuple[float, float, float, float]:
+    """Error energy, peak error, signal energy and signal energy about each column's mean."""
     e = np.subtract(x, x_hat, dtype=np.float64)
     err = float(np.einsum("i,i->", e.ravel(), e.ravel()))
     peak = float(max(e.max(), -e.min())) if e.size else 0.0
@@ -80,6 +85,11 @@ def error_figures(x: np.ndarray, x_hat: np.ndarray) -> dict:
     if x.size:  # the signal about its mean, in the error's buffer (no second full copy)
         np.subtract(x, x.mean(axis=0), out=e)
     sig_ac = float(np.einsum("i,i->", e.ravel(), e.ravel())) if x.size else 0.0
+    return err, peak, sig, sig_ac
+
+
+def _figures_of(err: float, peak: float, sig: float, sig_ac: float) -> dict:
+    """:func:`error_figures` from the sums of :func:`_error_sums`."""
     return {
         "snr_db": _db(sig, err),
         "snr_ac_db": _db(sig_ac, err),
@@ -136,8 +146,16 @@ def stream_report(
     bits_total = int(frame_bits.sum()) + int(extra_bits)
     if frame_floor is None:
         frame_floor = np.zeros(frame_bits.size, dtype=bool)
+    # each channel's error and signal sums once; every figure of all channels is a sum
+    # (or the largest) of them, so the whole array is not passed over again
+    sums = [_error_sums(x[:, c : c + 1], x_hat[:, c : c + 1]) for c in range(x.shape[1])]
+    if sums:
+        err, _, sig, sig_ac = (sum(v) for v in zip(*sums))
+        pooled = (err, max(v[1] for v in sums), sig, sig_ac)
+    else:
+        pooled = _error_sums(x, x_hat)
     report = _figures(x, x_hat, profile, bits_total, raw.mean(), frame_fidelity, frame_met,
-                      frame_floor, frame_bits.size)
+                      frame_floor, frame_bits.size, pooled)
     report["channels"] = x.shape[1]
     if header_bits is not None:
         report["header_bits_per_sample"] = (header_bits + int(extra_bits)) / x.size
@@ -149,14 +167,16 @@ def stream_report(
         sel = frame_channel == c
         per[spec.name] = _figures(
             x[:, c : c + 1], x_hat[:, c : c + 1], profile, int(frame_bits[sel].sum()),
-            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()))
+            raw[c], frame_fidelity[sel], frame_met[sel], frame_floor[sel], int(sel.sum()),
+            sums[c])
     report["per_channel"] = per
     report["units"] = units_of(profile)
     return report
 
 
-def _figures(xs, xh, profile, bits, raw_bits, fid, met, floor, nframes) -> dict:
-    """Bits, fidelity and error figures of one set of frames (a channel, or every channel)."""
+def _figures(xs, xh, profile, bits, raw_bits, fid, met, floor, nframes, sums=None) -> dict:
+    """Bits, fidelity and error figures of one set of frames (a channel, or every channel);
+    ``sums``: its :func:`_error_sums`, when already known."""
     count = xs.size
     judged = fid[~floor]
     out = {
@@ -173,7 +193,7 @@ def _figures(xs, xh, profile, bits, raw_bits, fid, met, floor, nframes) -> dict:
         "frames_below_target": int((~met).sum()),
         "frames_at_floor": int(floor.sum()),
     }
-    out.update(error_figures(xs, xh))
+    out.update(_figures_of(*(_error_sums(xs, xh) if sums is None else sums)))
     return out
 
 
