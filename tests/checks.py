@@ -11,7 +11,7 @@ import numpy as np
 from verify import assert_budgets
 
 __all__ = ["assert_meets_target", "assert_roundtrip", "assert_png_is_a_picture",
-           "assert_frames_decode_alone",
+           "assert_frames_decode_alone", "assert_header_flips_never_crash",
            "registered_layouts"]
 
 
@@ -80,3 +80,21 @@ def assert_frames_decode_alone(x, enc):
         assert not (covered & ok).any()
         covered |= ok
     assert covered.all()
+
+
+def assert_header_flips_never_crash(enc, samples: int, header_bytes: int):
+    """Every bit of the first frame's first ``header_bytes`` bytes after the sync marker
+    flipped, the CRC rebuilt under the profile (tests/streams.py): the decoder refuses the
+    frame or decodes it to finite samples, and never raises."""
+    from streams import digest_of, with_crc
+
+    import codec
+
+    frame = enc.data[: codec.locate_frames(enc.data).lengths[0]]
+    digest = digest_of(enc.profile)
+    for bit in range(16, 8 * min(len(frame) - 2, header_bytes)):
+        body = bytearray(frame[:-2])
+        body[bit // 8] ^= 0x80 >> (bit % 8)
+        dec = codec.decode(with_crc(bytes(body), digest), enc.profile, samples=samples,
+                           strict=False)
+        assert np.isfinite(dec.samples[dec.delivered]).all()
