@@ -106,7 +106,7 @@ def _counts_reference(q, count, frame, channel, per_win, n, has_mean):
     later = pos >= per_win
     prev = np.where(later, np.arange(frame.size) - per_win, 0)
     change = np.where(later, exp_golomb_bits(zigzag(count - count[prev])), n.bit_length())
-    block = np.unique(frame * 1000 + channel, return_inverse=True)[1]
+    block = np.unique(frame * (int(channel.max()) + 1) + channel, return_inverse=True)[1]
     fields = np.minimum(np.bincount(block, change), np.bincount(block) * n.bit_length())
     return fields[block], np.bincount(block, tails)[block]
 

@@ -71,7 +71,6 @@ __all__ = [
     "LAYOUT_VERSION_3",
     "HEADER_FIELDS_V3",
     "HEADER_FIELDS_V5",
-    "HEADER_FIELDS_V7",
     "FrameBatchV3",
     "Layout3",
     "LAYOUT_3",
@@ -129,7 +128,8 @@ HEADER_FIELDS_V3 = (
     ("count_change", _several, "1: later windows send their count as a change (windows > 1)"),
 )
 
-#: Layouts 5 and 6: layout 3's header and three more fields (:mod:`codec.layouts.v5`).
+#: Layouts 5 to 7: layout 3's header and three more fields (:mod:`codec.layouts.v5`; layout
+#: 7's own fields are in its subframes).
 HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("predict", _several,
      "1: subframes carry long-term prediction fields (when windows > 1, layouts 5 to 7)"),
@@ -138,9 +138,6 @@ HEADER_FIELDS_V5 = HEADER_FIELDS_V3 + (
     ("mean_order", lambda h, c: np.where(c.has_mean, MEAN_ORDER_BITS, 0),
      "order k of the exp-Golomb codes of the mean fields (reference ac, layouts 5 to 7)"),
 )
-
-#: Layout 7: layout 5's header; its new fields are in the subframes (:mod:`codec.layouts.v7`).
-HEADER_FIELDS_V7 = HEADER_FIELDS_V5
 
 
 @dataclass(frozen=True)
@@ -152,7 +149,7 @@ class FrameBatchV3:
     Per subframe (rows of ``q``, grouped by frame in order): ``frame``,
     ``step_code``, ``mean`` (or None), for layout 4 ``quantizer`` (1 where
     the levels are of dependent quantization), for layouts 5 to 7 ``lag``,
-    and for layout 6 ``alternate`` (1 where the row is on the alternate basis;
+    and for layouts 6 and 7 ``alternate`` (1 where the row is on the alternate basis;
     None where the profile's basis has none, and then no field is sent).
     """
 
@@ -179,7 +176,8 @@ def _counts(q: np.ndarray) -> np.ndarray:
 
 
 def _predictions(mean: np.ndarray | None, count: np.ndarray, prev: np.ndarray,
-                 has_prev: np.ndarray, owner: np.ndarray, nf: int, lb: int
+                 has_prev: np.ndarray, owner: np.ndarray, nf: int, lb: int,
+                 counts_sent: np.ndarray | None = None
                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray]:
     """Per frame, whether mean and count go as changes from the previous window.
 
@@ -187,16 +185,18 @@ def _predictions(mean: np.ndarray | None, count: np.ndarray, prev: np.ndarray,
     changes from the same channel's previous window in the frame when that
     codes the frame's fields in fewer bits; measured on real recordings the
     mean of a slow signal moves little from one window to the next, while the
-    mean of a signal centred on zero is cheaper sent whole.  Returns the two
-    per-frame flags, the mean fields to send (None without means) and the
-    zigzag of each count's change.
+    mean of a signal centred on zero is cheaper sent whole.  ``counts_sent``
+    (layout 7): the rows that send a count; the count flag weighs those alone.
+    Returns the two per-frame flags, the mean fields to send (None without
+    means) and the zigzag of each count's change.
     """
     def per_frame(bits):
         return np.bincount(owner, bits, minlength=nf)
 
     cz = zigzag(count - count[prev])
-    count_pred = per_frame(np.where(has_prev, exp_golomb_bits(cz), lb)) < per_frame(
-        np.full(count.size, lb))
+    sent = np.ones(count.size, bool) if counts_sent is None else counts_sent
+    count_pred = per_frame(np.where(sent, np.where(has_prev, exp_golomb_bits(cz), lb), 0)) < \
+        per_frame(sent * lb)
     if mean is None:
         return np.zeros(nf, bool), count_pred, None, cz
     delta = np.where(has_prev, mean - mean[prev], mean)
@@ -278,11 +278,19 @@ def _string_slots(batch: FrameBatchV3, val, wid, col, first, owner, per_win, cha
                   string_len):
     """Layout 7's string lengths: in a multi-channel frame, channel c's first subframe
     (c < channels - 1) ends with the bytes of its range-coded string, 11 bits wide
-    (widened to 27 with the frame's long length field by :func:`_widen_strings`)."""
+    (widened to 27 with the frame's long length field by :func:`_widen_strings`).
+
+    The field is the last slot before the padding, ``col = wid.shape[1] - 2``."""
     slot, ch = _slot_channels(batch, first, owner, per_win)
     on = batch.multi[owner].astype(bool) & (slot < per_win) & (ch < channels - 1)
     val[:, col] = np.where(on, string_len[owner * channels + ch], 0).astype(np.uint64)
     wid[:, col] = np.where(on, SHORT_LENGTH_BITS, 0)
+
+
+def _widen_strings(wid: np.ndarray, on: np.ndarray, long: np.ndarray) -> None:
+    """Layout 7's string-length fields (rows ``on``) take the length field's width: 11
+    bits, 27 in a frame with the long length field (``long``, per row)."""
+    wid[on, -2] = np.where(long[on], LONG_LENGTH_BITS, SHORT_LENGTH_BITS)
 
 
 def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarray | None,
@@ -315,21 +323,18 @@ def _subframe_slots(batch: FrameBatchV3, n: int, channels: int, quant: np.ndarra
     has_prev = np.arange(ns) - first[owner] >= per_win
     prev = np.where(has_prev, np.arange(ns) - per_win, 0)
     mean_pred, count_pred, mean_sent, count_delta = _predictions(
-        batch.mean, count, prev, has_prev, owner, nf, count_bits(n))
-    if all_terms is not None:  # the change flag weighs the counts still sent
-        sent = has_prev & ~all_terms
-        count_pred = np.bincount(owner, np.where(sent, exp_golomb_bits(count_delta), 0),
-                                 minlength=nf) < np.bincount(owner, sent * count_bits(n),
-                                                             minlength=nf)
+        batch.mean, count, prev, has_prev, owner, nf, count_bits(n),
+        None if all_terms is None else ~all_terms)
     write_subheaders(val, wid, nh, lead, batch.step_code, mean_sent, count, count_bits(n),
                      quant)
     cp = count_pred[owner] & has_prev
     val[:, nh + 3] = np.where(cp, count_delta + 1, count).astype(np.uint64)
     wid[:, nh + 3] = np.where(cp, exp_golomb_bits(count_delta), count_bits(n))
-    if all_terms is not None:  # layout 7: the flag, then the count only where it is 0
-        lead = ~has_prev
-        val[:, nh + 3] = np.where(lead & all_terms, 1, np.where(all_terms, 0, val[:, nh + 3]))
-        wid[:, nh + 3] = np.where(all_terms, lead, wid[:, nh + 3] + lead)
+    if all_terms is not None:  # layout 7: a channel's first subframe sends the flag, then
+        # (flag 0) its count; a flagged channel sends no count in any subframe
+        chan_first = ~has_prev
+        val[:, nh + 3] = np.where(all_terms, chan_first, val[:, nh + 3])
+        wid[:, nh + 3] = np.where(all_terms, chan_first, wid[:, nh + 3] + chan_first)
     predict = one_step = mean_order = None
     if batch.lag is not None:  # layout 5
         predict = _prediction_slots(batch, val, wid, nh + 4, first, owner, per_win, n, channels)
@@ -469,8 +474,7 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
     val, wid, first, lastrow, mean_pred, count_pred, predict, one_step, mean_order = \
         _subframe_slots(batch, n, channels, quant, count, all_terms, str_len)
     ctx = ParseContext(n, channels, batch.mean is not None)
-    table = (HEADER_FIELDS_V3 if predict is None
-             else HEADER_FIELDS_V7 if strings else HEADER_FIELDS_V5)
+    table = HEADER_FIELDS_V3 if predict is None else HEADER_FIELDS_V5
     fields = {"version": version, "profile": profile_id & 0xFF,
               "sequence": batch.sequence % 256, "windows_minus_1": batch.windows - 1,
               "multi": batch.multi.astype(bool), "channel": batch.channel,
@@ -479,14 +483,11 @@ def pack_frames_v3(batch: FrameBatchV3, profile_id: int, n: int, channels: int,
               "one_step": one_step, "mean_order": mean_order}
     head_bits = header_bits(table, fields, ctx, nf, skip=("length",))
     nh = len(table)
-    # layout 7's string lengths take the length field's width: 11 bits, 27 in a long frame
-    nstr = np.bincount(owner[wid[:, -2] > 0], minlength=nf) if strings else 0
+    string_col = wid[:, -2] > 0 if strings else np.zeros(owner.size, bool)
     payload = np.add.reduceat(wid[:, nh:].sum(axis=1), first)
-    long, bits, head_bytes, length = size_length_fields(head_bits + payload, lane_len,
-                                                        widen=1 + nstr)
-    if strings:
-        wid[:, -2] = np.where(wid[:, -2] > 0, np.where(long[owner], LONG_LENGTH_BITS,
-                                                       SHORT_LENGTH_BITS), 0)
+    long, bits, head_bytes, length = size_length_fields(
+        head_bits + payload, lane_len, widen=1 + np.bincount(owner[string_col], minlength=nf))
+    _widen_strings(wid, string_col, long[owner])
     sub_bits = wid[:, nh:].sum(axis=1)
     head = header_slots(table, {**fields, "long": long, "length": length}, ctx, nf)
     write_frame_heads(val, wid, first, lastrow, head, head_bytes * 8 - bits)
@@ -599,8 +600,7 @@ def parse_frames_v3(data: bytes, offsets: np.ndarray, lengths: np.ndarray, n: in
     switch = switch and version >= SWITCH_VERSION
     strings = version >= STRINGS_VERSION
     h, p = read_header(r, offsets * 8 + 8 * len(SYNC),
-                       HEADER_FIELDS_V7 if strings else HEADER_FIELDS_V5 if predict
-                       else HEADER_FIELDS_V3, ctx)
+                       HEADER_FIELDS_V5 if predict else HEADER_FIELDS_V3, ctx)
     windows, multi = h["windows_minus_1"] + 1, h["multi"] > 0
     valid = np.where(h["short"] > 0, h["valid_minus_1"] + 1, n)
     per_win = np.where(multi, channels, 1)
@@ -662,22 +662,20 @@ def _string_bounds(multi, owner, channel, channels, strings, string_len, start, 
     if not strings or not multi.any():
         return lane, start, end, np.ones(start.size, bool), np.arange(start.size)
     per = np.where(multi, channels, 1)
-    sizes = np.zeros(int(per.sum()), np.int64)
+    lane_frame = np.repeat(np.arange(start.size), per)
+    sizes = np.zeros(lane_frame.size, np.int64)  # the last lane of a frame: to its end
     mf = np.flatnonzero(multi)
     lens = np.maximum(string_len[mf, :channels - 1], 0)
     sizes[(base[mf][:, None] + np.arange(channels - 1)).ravel()] = lens.ravel()
     fits = np.ones(start.size, bool)
     fits[mf] = lens.sum(axis=1) <= end[mf] - start[mf]
-    lstart = np.repeat(start, per) + (np.cumsum(sizes) - sizes
-                                      - np.repeat((np.cumsum(sizes) - sizes)[base], per))
+    before = np.cumsum(sizes) - sizes  # bytes of the lanes before, from the first frame's
+    lstart = start[lane_frame] + before - before[base][lane_frame]
     lend = lstart + sizes
-    lastlane = base + per - 1
-    lend[lastlane] = end
-    bad = np.repeat(~fits, per)
-    lstart, lend = np.where(bad, np.repeat(end, per), lstart), np.where(bad, np.repeat(end, per),
-                                                                         lend)
-    lstart = np.minimum(lstart, lend)
-    return lane, lstart, lend, fits, np.repeat(np.arange(start.size), per)
+    lend[base + per - 1] = end
+    over = ~fits[lane_frame]  # lengths past the bytes: the frame is refused, its lanes empty
+    lstart[over] = lend[over] = end[lane_frame][over]
+    return lane, lstart, lend, fits, lane_frame
 
 
 def _pack_v3(c: CodedFrames, key: FrameKey, version: int) -> PackedFrames:
