@@ -35,8 +35,8 @@ def add_profile_options(p: argparse.ArgumentParser, profile_help: str | None = N
                    help="reference energy: total = sum x^2, ac = sum (x - mean)^2")
     p.add_argument("--frame-length", type=int, metavar="N", help="samples per frame")
     p.add_argument("--layout", type=int, choices=(1, 2, 3, 4, 5, 6, 7), metavar="V",
-                   help="frame layout the encoder writes: 7 (default: 6 without count fields "
-                   "where they cost more than the zeros, and a range-coded string per "
+                   help="frame layout the encoder writes: 7 (default: 6 without a channel's count "
+                   "fields where they cost more than the zeros, and a range-coded string per "
                    "channel of a multi-channel frame), 6 (5 with the Haar basis for a "
                    "channel's bursty frames), 5 (3 with long-term prediction inside a "
                    "frame), 3, or 4 (adds dependent quantization where it saves bits: slower "
